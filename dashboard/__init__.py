@@ -1,0 +1,1 @@
+"""dashboard: a read-only Dash app over the serving snapshot."""

@@ -1,0 +1,1 @@
+"""pipeline: sources, the DuckDB warehouse, Prefect flows, exports and the `shockflow` command."""
