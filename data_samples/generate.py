@@ -378,6 +378,7 @@ def build(out_dir: Path) -> dict[str, Path]:
     sim_seq, gap_seq = np.random.SeedSequence(SEED).spawn(2)
     days = business_days(FIRST_DAY, LAST_DAY)
     years = range(FIRST_DAY.year, LAST_DAY.year + 1)
+    check_stable()
     levels = to_levels(days, simulate(days, np.random.default_rng(sim_seq)))
     check_levels(days, levels)
 
@@ -428,6 +429,26 @@ def build(out_dir: Path) -> dict[str, Path]:
 def _write(path: Path, text: str) -> None:
     with open(path, "w", encoding="utf-8", newline="\n") as fh:
         fh.write(text)
+
+
+def check_stable(grid: int = 21) -> None:
+    """Refuse parameters for which A(s), Sigma_u(s) is not a stable VAR for some s in [0, 1].
+
+    Uses arlib's companion-matrix spectral radius (arlib is this repository's own package).
+    """
+    try:
+        import arlib
+    except ImportError:  # run with a Python that has not installed the repository
+        sys.path.insert(0, str(HERE.parent))
+        import arlib
+    for k in range(grid):
+        s = k / (grid - 1)
+        a, _, _ = regime(s)
+        radius = arlib.var_process(np.array([a]), np.array(innovation_covariance(s))).spectral_radius
+        if radius >= 1.0:
+            msg = (f"the VAR at stress intensity s={s:.2f} has spectral radius {radius:.4f} >= 1; "
+                   f"shrink COEFS_CALM or DELTA_COEFS_STRESS in {Path(__file__).name}")
+            raise ValueError(msg)
 
 
 def check_levels(days: list[date], levels: list[list[float]]) -> None:
