@@ -1,0 +1,222 @@
+"""Errors, warnings and the boundary checks every public arlib function runs once.
+
+Public functions call these helpers on entry; the private kernels behind them trust their inputs.
+Each message names the argument, shows the offending numbers and suggests the fix.
+"""
+
+from __future__ import annotations
+
+import os
+import sys
+import warnings
+from collections.abc import Mapping, Sequence
+from typing import Any, Protocol, runtime_checkable
+
+import numpy as np
+
+__all__ = [
+    "ArlibError",
+    "InvalidInputError",
+    "UnstableProcessWarning",
+    "VARLike",
+]
+
+
+class ArlibError(Exception):
+    """Root of every error arlib raises on purpose."""
+
+
+class InvalidInputError(ArlibError, ValueError):
+    """An argument is unusable: wrong shape, non-finite, too short, collinear, unknown option."""
+
+
+class UnstableProcessWarning(UserWarning):
+    """A fitted or given VAR has a companion spectral radius >= 1 (not stationary)."""
+
+
+@runtime_checkable
+class VARLike(Protocol):
+    """What every function taking a model needs: a fit (`VARFit`) or a given process (`VARProcess`).
+
+    Attributes
+    ----------
+    coefs : (p, n, n) array, ``coefs[i]`` is A_{i+1}.
+    sigma_u : (n, n) innovation covariance.
+    intercept : (n,) array or None.
+    n, lags : number of series and lag order p.
+    names : tuple of n series names.
+    """
+
+    @property
+    def coefs(self) -> np.ndarray: ...
+    @property
+    def sigma_u(self) -> np.ndarray: ...
+    @property
+    def intercept(self) -> np.ndarray | None: ...
+    @property
+    def n(self) -> int: ...
+    @property
+    def lags(self) -> int: ...
+    @property
+    def names(self) -> tuple[str, ...]: ...
+
+
+_PACKAGE_DIR = os.path.dirname(os.path.abspath(__file__))
+
+
+def find_stacklevel() -> int:
+    """Stack level of the first frame outside arlib, so a warning points at the caller's line."""
+    frame = sys._getframe(1)
+    level = 1
+    while frame is not None:
+        filename = os.path.abspath(frame.f_code.co_filename)
+        if not filename.startswith(_PACKAGE_DIR + os.sep):
+            break
+        frame = frame.f_back  # type: ignore[assignment]
+        level += 1
+    return level
+
+
+def warn_unstable(radius: float, *, what: str = "fitted VAR") -> None:
+    """Issue `UnstableProcessWarning` naming the spectral radius (the caller's line is blamed)."""
+    msg = (
+        f"the {what} is not stable: the companion matrix has spectral radius {radius:.6g} >= 1, "
+        "so it has no stationary distribution and its responses do not die out; difference or "
+        "transform the series, or use fewer lags"
+    )
+    warnings.warn(msg, UnstableProcessWarning, stacklevel=find_stacklevel())
+
+
+def as_data(
+    y: Any, names: Sequence[str] | None = None, *, arg: str = "y"
+) -> tuple[np.ndarray, tuple[str, ...]]:
+    """Wrap `y` once into a (T, n) float64 array plus n series names.
+
+    A 1-D `y` becomes one column. Rejects other ranks, empty arrays and NaN/inf (naming the
+    first offending row and series). Names default to ``y0, y1, ...``.
+    """
+    try:
+        arr = np.array(y, dtype=np.float64, copy=True)
+    except (TypeError, ValueError) as exc:
+        msg = f"`{arg}` must be a numeric array of shape (T, n); converting it failed: {exc}"
+        raise InvalidInputError(msg) from exc
+    if arr.ndim == 1:
+        arr = arr[:, None]
+    if arr.ndim != 2:
+        msg = (
+            f"`{arg}` must be 1-D (one series) or 2-D (T rows, n series); got shape {arr.shape}; "
+            "stack the series as columns"
+        )
+        raise InvalidInputError(msg)
+    if arr.shape[0] == 0 or arr.shape[1] == 0:
+        msg = f"`{arg}` is empty (shape {arr.shape}); pass at least one series with data rows"
+        raise InvalidInputError(msg)
+    labels = as_names(names, arr.shape[1])
+    bad = ~np.isfinite(arr)
+    if bad.any():
+        rows, cols = np.nonzero(bad)
+        kind = "NaN" if np.isnan(arr[rows[0], cols[0]]) else "inf"
+        msg = (
+            f"`{arg}` has {bad.sum()} non-finite value(s); the first is {kind} at row {rows[0]} "
+            f"of series {labels[cols[0]]!r}; drop or fill missing rows before fitting"
+        )
+        raise InvalidInputError(msg)
+    return arr, labels
+
+
+def as_names(names: Sequence[str] | None, n: int, *, arg: str = "names") -> tuple[str, ...]:
+    """n distinct series names as strings; defaults to ``y0 .. y{n-1}``."""
+    if names is None:
+        return tuple(f"y{i}" for i in range(n))
+    if isinstance(names, str):
+        msg = f"`{arg}` must be a sequence of {n} strings, got the single string {names!r}"
+        raise InvalidInputError(msg)
+    labels = tuple(str(name) for name in names)
+    if len(labels) != n:
+        msg = f"`{arg}` has {len(labels)} entries for {n} series; give exactly one name per column"
+        raise InvalidInputError(msg)
+    if len(set(labels)) != n:
+        dup = sorted({x for x in labels if labels.count(x) > 1})
+        msg = f"`{arg}` repeats {dup!r}; series names must be distinct"
+        raise InvalidInputError(msg)
+    return labels
+
+
+def check_int(value: Any, arg: str, *, minimum: int, hint: str = "") -> int:
+    """`value` as an int >= minimum (bools and non-integral numbers are refused)."""
+    if isinstance(value, bool) or not isinstance(value, int | np.integer):
+        msg = f"`{arg}` must be an integer >= {minimum}, got {value!r}"
+        raise InvalidInputError(msg)
+    if value < minimum:
+        msg = f"`{arg}` must be >= {minimum}, got {value!r}" + (f"; {hint}" if hint else "")
+        raise InvalidInputError(msg)
+    return int(value)
+
+
+def check_option(value: Any, arg: str, options: Mapping[str, Any] | Sequence[str]) -> str:
+    """`value` if it is one of `options` (keys of a dict, or a list of strings)."""
+    choices = list(options)
+    if not isinstance(value, str) or value not in choices:
+        msg = f"`{arg}` must be one of {choices!r}, got {value!r}"
+        raise InvalidInputError(msg)
+    return value
+
+
+def check_fraction(value: Any, arg: str) -> float:
+    """A number strictly between 0 and 1 (e.g. band coverage)."""
+    try:
+        out = float(value)
+    except (TypeError, ValueError):
+        out = float("nan")
+    if not 0.0 < out < 1.0:
+        msg = f"`{arg}` must be a number strictly between 0 and 1 (e.g. 0.9), got {value!r}"
+        raise InvalidInputError(msg)
+    return out
+
+
+def check_model(model: Any, arg: str = "fit") -> VARLike:
+    """`model` if it quacks like a VAR (a `VARFit` or `VARProcess`), else a clear error."""
+    if not isinstance(model, VARLike):
+        msg = (
+            f"`{arg}` must be a VAR fit (from `fit_var`) or a process (from `var_process`), "
+            f"got {type(model).__name__}; fit the data first with arlib.fit_var(y, lags)"
+        )
+        raise InvalidInputError(msg)
+    return model
+
+
+def series_indices(which: Any, names: tuple[str, ...], arg: str) -> tuple[int, ...]:
+    """Column positions from an int, a name, or a sequence of them (distinct, in range)."""
+    items = [which] if isinstance(which, int | np.integer | str) else list(which)
+    if not items:
+        msg = f"`{arg}` is empty; name at least one series (an index 0..{len(names) - 1} or a name)"
+        raise InvalidInputError(msg)
+    out: list[int] = []
+    for item in items:
+        if isinstance(item, str):
+            if item not in names:
+                msg = f"`{arg}` names series {item!r}, which is not among {list(names)!r}"
+                raise InvalidInputError(msg)
+            out.append(names.index(item))
+        elif isinstance(item, int | np.integer) and not isinstance(item, bool):
+            if not 0 <= item < len(names):
+                msg = (
+                    f"`{arg}` has index {item!r}, outside 0..{len(names) - 1} for {len(names)} "
+                    "series"
+                )
+                raise InvalidInputError(msg)
+            out.append(int(item))
+        else:
+            msg = f"`{arg}` entries must be column indices or series names, got {item!r}"
+            raise InvalidInputError(msg)
+    if len(set(out)) != len(out):
+        msg = f"`{arg}` lists a series twice: {items!r}"
+        raise InvalidInputError(msg)
+    return tuple(out)
+
+
+def readonly(*arrays: np.ndarray | None) -> None:
+    """Mark arrays read-only in place (results are immutable)."""
+    for a in arrays:
+        if a is not None:
+            a.flags.writeable = False

@@ -1,0 +1,114 @@
+"""Bad input: every refusal is an InvalidInputError (a ValueError) naming argument, numbers, fix."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+import arlib
+
+
+@pytest.fixture(scope="module")
+def data() -> np.ndarray:
+    return np.random.default_rng(11).standard_normal((120, 3))
+
+
+@pytest.fixture(scope="module")
+def fit(data: np.ndarray) -> arlib.VARFit:
+    return arlib.fit_var(data, 2, names=["rates", "equity", "fx"])
+
+
+def test_nan_and_inf_name_row_and_series(data: np.ndarray) -> None:
+    y = data.copy()
+    y[17, 1] = np.nan
+    with pytest.raises(arlib.InvalidInputError, match=r"NaN at row 17 of series 'equity'"):
+        arlib.fit_var(y, 1, names=["rates", "equity", "fx"])
+    y[5, 2] = np.inf
+    with pytest.raises(ValueError, match=r"2 non-finite value\(s\); the first is inf at row 5"):
+        arlib.select_lags(y, 2)
+
+
+def test_too_few_rows_states_counts_and_minimum() -> None:
+    y = np.random.default_rng(0).standard_normal((40, 8))
+    msg = (
+        r"`y` has 40 rows; with lags=4 that leaves 36 observations for 33 coefficients per "
+        r"equation \(8 series × 4 lags \+ 1 deterministic\), fewer than the 41 needed for a "
+        r"nonsingular 8×8 residual covariance; use at least 45 rows"
+    )
+    with pytest.raises(arlib.InvalidInputError, match=msg):
+        arlib.fit_var(y, 4)
+    arlib.fit_var(np.random.default_rng(0).standard_normal((45, 8)), 4)  # the minimum works
+    with pytest.raises(arlib.InvalidInputError, match=r"max_lags=6 .* use at least"):
+        arlib.select_lags(y, 6)
+
+
+def test_constant_series_is_named(data: np.ndarray) -> None:
+    y = data.copy()
+    y[:, 2] = 1.5
+    with pytest.raises(
+        arlib.InvalidInputError, match=r"series 'fx' is constant \(every row equals 1.5\)"
+    ):
+        arlib.fit_var(y, 1, names=["rates", "equity", "fx"])
+
+
+def test_collinear_series_names_regressors(data: np.ndarray) -> None:
+    y = data.copy()
+    y[:, 2] = 2.0 * y[:, 0] - y[:, 1]
+    with pytest.raises(
+        arlib.InvalidInputError, match=r"collinear regressors \['a.L1', 'b.L1', 'c.L1'\]"
+    ):
+        arlib.fit_var(y, 1, names=["a", "b", "c"])
+    # a series equal to a lag of another: the residual covariance is singular
+    z = data[:, :2].copy()
+    z[1:, 1] = z[:-1, 0]
+    with pytest.raises(arlib.InvalidInputError, match="singular residual covariance"):
+        arlib.fit_var(z, 1)
+
+
+@pytest.mark.parametrize("lags", [0, -1, 1.5, True, "2"])
+def test_bad_lags(data: np.ndarray, lags: object) -> None:
+    with pytest.raises(arlib.InvalidInputError, match="`lags` must"):
+        arlib.fit_var(data, lags)  # type: ignore[arg-type]
+
+
+def test_bad_horizon(fit: arlib.VARFit) -> None:
+    for func in (
+        arlib.impulse_responses,
+        arlib.variance_decomposition,
+        arlib.connectedness,
+        arlib.ma_coefficients,
+    ):
+        with pytest.raises(arlib.InvalidInputError, match=r"`horizon` must be >= 1, got 0"):
+            func(fit, 0)
+
+
+def test_wrong_shapes() -> None:
+    with pytest.raises(arlib.InvalidInputError, match=r"got shape \(4, 5, 6\)"):
+        arlib.fit_var(np.zeros((4, 5, 6)), 1)
+    with pytest.raises(arlib.InvalidInputError, match="`names` has 2 entries for 3 series"):
+        arlib.fit_var(np.random.default_rng(1).standard_normal((50, 3)), 1, names=["a", "b"])
+    with pytest.raises(arlib.InvalidInputError, match=r"`sigma_u` must have shape \(2, 2\)"):
+        arlib.var_process(np.zeros((1, 2, 2)), np.eye(3))
+    with pytest.raises(arlib.InvalidInputError, match=r"`coefs` must have shape \(p, n, n\)"):
+        arlib.var_process(np.zeros((1, 2, 3)), np.eye(2))
+    with pytest.raises(arlib.InvalidInputError, match="positive definite"):
+        arlib.var_process(np.zeros((2, 2)), np.array([[1.0, 2.0], [2.0, 1.0]]))
+    with pytest.raises(arlib.InvalidInputError, match="must be a VAR fit"):
+        arlib.impulse_responses(np.eye(2), 4)  # type: ignore[arg-type]
+
+
+def test_unknown_options(data: np.ndarray, fit: arlib.VARFit) -> None:
+    with pytest.raises(
+        arlib.InvalidInputError, match=r"`trend` must be one of \['n', 'c', 'ct'\], got 'linear'"
+    ):
+        arlib.fit_var(data, 1, trend="linear")
+    with pytest.raises(arlib.InvalidInputError, match="`shocks` must be one of"):
+        arlib.impulse_responses(fit, 4, shocks="sign")
+    with pytest.raises(arlib.InvalidInputError, match="`method` must be one of"):
+        arlib.variance_decomposition(fit, 4, method="unit")
+    with pytest.raises(arlib.InvalidInputError, match="`order` must list all 3 series"):
+        arlib.impulse_responses(fit, 4, order=[0, 1])
+    with pytest.raises(arlib.InvalidInputError, match="`order` only applies"):
+        arlib.impulse_responses(fit, 4, shocks="generalized", order=[2, 1, 0])
+    with pytest.raises(arlib.InvalidInputError, match="names series 'bonds'"):
+        arlib.impulse_responses(fit, 4, order=["bonds", "equity", "fx"])

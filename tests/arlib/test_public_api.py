@@ -1,0 +1,43 @@
+"""The public surface of arlib is pinned: a change here must be deliberate."""
+
+from __future__ import annotations
+
+import arlib
+
+PINNED = [
+    "ArlibError",
+    "Connectedness",
+    "GrangerResult",
+    "InvalidInputError",
+    "LagSelection",
+    "UnstableProcessWarning",
+    "VARFit",
+    "VARLike",
+    "VARProcess",
+    "companion_matrix",
+    "connectedness",
+    "fit_var",
+    "granger_test",
+    "impulse_responses",
+    "ma_coefficients",
+    "select_lags",
+    "var_process",
+    "variance_decomposition",
+]
+
+
+def test_all_is_pinned_and_sorted() -> None:
+    assert arlib.__all__ == PINNED
+    assert sorted(arlib.__all__) == arlib.__all__
+
+
+def test_every_public_name_exists_and_is_documented() -> None:
+    for name in arlib.__all__:
+        obj = getattr(arlib, name)
+        assert obj.__doc__, f"{name} has no docstring"
+
+
+def test_error_hierarchy() -> None:
+    assert issubclass(arlib.InvalidInputError, arlib.ArlibError)
+    assert issubclass(arlib.InvalidInputError, ValueError)
+    assert issubclass(arlib.UnstableProcessWarning, UserWarning)
