@@ -1,0 +1,376 @@
+"""The HTML report: one self-contained file per universe.
+
+Plotly's JavaScript is inlined once, in the first chart (``include_plotlyjs=True``), and every
+later chart reuses it (``include_plotlyjs=False``), so the file opens with no network. Chart
+toolbars are off (``displayModeBar: False``) and every chart sits in a ``.chart`` block that the
+print stylesheet keeps on one page (``break-inside: avoid``).
+
+Every number in a table also carries its full-precision value in a ``data-value`` attribute, so
+readers (and the tests) can check the shown figures against the snapshot exactly.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import html
+import math
+from importlib import resources
+from string import Template
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+import polars as pl
+
+from pipeline.export import _figures as figs
+
+if TYPE_CHECKING:
+    import plotly.graph_objects as go
+
+    from pipeline.export._data import ReportData
+
+__all__ = ["CAUTION", "render_report"]
+
+CAUTION = ("A research tool, not financial advice. "
+           "Estimated relations between markets change over time.")
+
+_PLOTLY_CONFIG = {"displayModeBar": False, "responsive": True, "displaylogo": False,
+                  "staticPlot": False}
+
+
+def _esc(value: Any) -> str:
+    return html.escape("" if value is None else str(value))
+
+
+def _num(value: Any, digits: int = 2, *, cls: str = "") -> str:
+    """A table cell showing `value` to `digits` decimals, full precision in `data-value`."""
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return '<td class="na">–</td>'
+    v = float(value)
+    attr = f' class="{cls}"' if cls else ""
+    return f'<td{attr} data-value="{v!r}">{v:.{digits}f}</td>'
+
+
+def _pval(p: float, f: float, level: float) -> str:
+    if p is None or math.isnan(p):
+        return '<td class="na">–</td>'
+    flag = ' class="flag"' if p < level else ""
+    shown = "<0.001" if p < 0.001 else f"{p:.3f}"
+    return (f'<td{flag} data-value="{float(p)!r}" data-f="{float(f)!r}" '
+            f'title="F = {f:.3f}">{shown}</td>')
+
+
+def _shade(v: float) -> str:
+    """Cell background growing with the share (Okabe–Ito blue at up to 45% opacity)."""
+    a = max(0.0, min(1.0, v / 100.0)) * 0.45
+    return f' style="background: rgba(var(--cell), {a:.3f})"'
+
+
+def _text_table(df: pl.DataFrame, columns: list[tuple[str, str]], *, caption: str = "",
+                cls: str = "") -> str:
+    """A plain table of `df`'s rows; `columns` maps column name → header."""
+    head = "".join(f"<th>{_esc(h)}</th>" for _, h in columns)
+    body = []
+    for row in df.iter_rows(named=True):
+        cells = []
+        for name, _ in columns:
+            v = row[name]
+            if isinstance(v, float):
+                cells.append(_num(v, 4))
+            elif isinstance(v, dt.datetime):
+                cells.append(f'<td class="text">{_esc(v.isoformat(sep=" ", timespec="seconds"))}</td>')
+            else:
+                cells.append(f'<td class="text">{_esc(v)}</td>')
+        body.append("<tr>" + "".join(cells) + "</tr>")
+    cap = f"<caption>{_esc(caption)}</caption>" if caption else ""
+    c = f' class="{cls}"' if cls else ""
+    return (f'<div class="tablewrap"><table{c}>{cap}<thead><tr>{head}</tr></thead>'
+            f"<tbody>{''.join(body)}</tbody></table></div>")
+
+
+class _Charts:
+    """Turns figures into HTML divs; the first one carries plotly.js inline."""
+
+    def __init__(self) -> None:
+        self.count = 0
+
+    def __call__(self, fig: go.Figure, *, div_id: str) -> str:
+        inner = fig.to_html(full_html=False, include_plotlyjs=self.count == 0,
+                            config=_PLOTLY_CONFIG, div_id=div_id)
+        self.count += 1
+        return f'<div class="chart">{inner}</div>'
+
+
+# -- sections ------------------------------------------------------------------------------------
+
+def _glance(d: ReportData) -> str:
+    info = d.info
+    fits = d.fits
+    n_skipped = fits.filter(pl.col("skip_reason").is_not_null()).height
+    series = ", ".join(f"{s} ({t})" for s, t in zip(info.series, info.transforms, strict=True))
+    total = "–" if d.total is None else f'<span data-value="{d.total!r}">{d.total:.2f}%</span>'
+    rows = [
+        ("Universe", _esc(info.name)),
+        ("Series (transform)", _esc(series)),
+        ("Latest window end", _esc(d.fitted_date or "none fitted")),
+        ("Windows up to this date", f"{fits.height} ({fits.height - n_skipped} fitted, "
+                                    f"{n_skipped} skipped)"),
+        ("Total connectedness, latest", total),
+        ("Horizon", f"{info.horizon} steps"),
+        ("Identification", _esc(info.identification)),
+        ("Granger level", f"{info.granger_level:g}"),
+    ]
+    dl = "".join(f"<dt>{k}</dt><dd>{v}</dd>" for k, v in rows)
+    notes = ""
+    if d.notes:
+        notes = '<div class="notes">' + "".join(f'<p class="note">{_esc(x)}</p>' for x in d.notes) + "</div>"
+    return f'<section id="glance"><h2>At a glance</h2><dl class="facts">{dl}</dl>{notes}</section>'
+
+
+def _connectedness(d: ReportData, chart: _Charts) -> str:
+    out = ['<section id="connectedness" class="major"><h2>Connectedness over time</h2>',
+           '<p class="note">Share of all series\' forecast-error variance that comes from shocks to '
+           f"other series (Diebold–Yilmaz total index), {d.info.horizon}-step horizon, generalized "
+           "decomposition; one point per window, named by its last date.</p>"]
+    if d.connectedness.height == 0:
+        out.append('<p class="note">No fitted windows yet.</p></section>')
+        return "".join(out)
+    out.append(chart(figs.connectedness_figure(d.connectedness, universe=d.info.name),
+                     div_id="fig-connectedness"))
+    if d.directional.height:
+        out.append(chart(figs.net_figure(d.directional, d.info.series), div_id="fig-net"))
+    out.append("</section>")
+    return "".join(out)
+
+
+def _spillovers(d: ReportData) -> str:
+    names = d.info.series
+    head = ['<section id="spillovers" class="major"><h2>Spillover table</h2>']
+    if d.table is None:
+        return head[0] + '<p class="note">No fitted window.</p></section>'
+    head.append(
+        f'<p class="note">Window ending {_esc(d.fitted_date)}. Cell (row, column): percent of the '
+        f"row series' {d.info.horizon}-step forecast-error variance due to shocks in the column "
+        "series. \"From others\" sums a row off the diagonal; \"to others\" sums a column off the "
+        "diagonal; net = to − from. Total connectedness is the mean of \"from others\".</p>")
+    th = "".join(f'<th scope="col">{_esc(s)}</th>' for s in names)
+    rows = []
+    for i, s in enumerate(names):
+        cells = []
+        for j in range(len(names)):
+            v = d.table[i, j]
+            if i == j:
+                cells.append(_num(v, 2, cls="own"))
+            else:
+                cells.append(_num(v, 2).replace("<td", "<td" + _shade(v), 1))
+        rows.append(f'<tr data-target="{_esc(s)}"><th class="rowhead" scope="row">{_esc(s)}</th>'
+                    + "".join(cells) + _num(d.from_others[i], 2) + "</tr>")
+    to_row = "".join(_num(v, 2) for v in d.to_others)
+    net_row = "".join(_num(v, 2) for v in d.net)
+    total = _num(d.total, 2)
+    table = (
+        '<div class="tablewrap"><table class="spillover">'
+        "<caption>rows: receiving series · columns: shocked series · percent</caption>"
+        f'<thead><tr><th class="rowhead">receives ↓ / from →</th>{th}<th>from others</th></tr></thead>'
+        f"<tbody>{''.join(rows)}"
+        f'<tr class="summary" data-row="to_others"><th class="rowhead">to others</th>{to_row}'
+        f'<td class="na"></td></tr>'
+        f'<tr data-row="net"><th class="rowhead">net (to − from)</th>{net_row}'
+        f'<td class="na"></td></tr>'
+        f'<tr data-row="total"><th class="rowhead">total connectedness</th>'
+        f'{"".join("<td></td>" for _ in names)}{total}</tr>'
+        "</tbody></table></div>")
+    return "".join(head) + table + "</section>"
+
+
+def _responses(d: ReportData, chart: _Charts) -> str:
+    out = ['<section id="responses" class="major"><h2>Impulse responses</h2>']
+    if not d.responses:
+        out.append('<p class="note">No impulse responses for this window.</p></section>')
+        return "".join(out)
+    for k, rs in enumerate(d.responses):
+        band = (f"shaded: {rs.coverage:.0%} band" if rs.coverage else "shaded: band") \
+            if rs.lower is not None else "no bands available"
+        out.append(f"<h3>{_esc(rs.identification.capitalize())} shocks</h3>"
+                   f'<p class="note">Window ending {_esc(d.fitted_date)}; horizons 0–{rs.horizon} '
+                   f"(0 is impact); one-standard-deviation shocks; {band}; "
+                   f"{_esc(rs.origin)}.</p>")
+        for m, fig in enumerate(figs.response_figures(rs, d.info.series)):
+            out.append(chart(fig, div_id=f"fig-irf-{k}-{m}"))
+    out.append("</section>")
+    return "".join(out)
+
+
+def _decompositions(d: ReportData, chart: _Charts) -> str:
+    names = d.info.series
+    out = ['<section id="decompositions" class="major"><h2>Variance decompositions</h2>']
+    if not d.decompositions:
+        out.append('<p class="note">No decompositions for this window.</p></section>')
+        return "".join(out)
+    for k, ds in enumerate(d.decompositions):
+        last = 100.0 * ds.share[-1]
+        out.append(f"<h3>{_esc(ds.method.capitalize())}, {ds.horizon} steps</h3>"
+                   f'<p class="note">Percent of each row series\' {ds.horizon}-step forecast-error '
+                   f"variance due to shocks in each column series; rows sum to 100; "
+                   f"{_esc(ds.origin)}.</p>")
+        out.append(chart(figs.decomposition_figure(ds, names), div_id=f"fig-fevd-{k}"))
+        th = "".join(f'<th scope="col">{_esc(s)}</th>' for s in names)
+        body = "".join(
+            f'<tr><th class="rowhead" scope="row">{_esc(s)}</th>'
+            + "".join(_num(v, 2) for v in last[i]) + "</tr>"
+            for i, s in enumerate(names))
+        out.append(f'<div class="tablewrap"><table class="decomposition" '
+                   f'data-method="{_esc(ds.method)}"><thead><tr><th class="rowhead">variable ↓ / '
+                   f"shock →</th>{th}</tr></thead><tbody>{body}</tbody></table></div>")
+    out.append("</section>")
+    return "".join(out)
+
+
+def _granger(d: ReportData) -> str:
+    names = d.info.series
+    level = d.info.granger_level
+    out = ['<section id="granger" class="major"><h2>Granger causality</h2>']
+    if d.granger_p is None:
+        out.append('<p class="note">No fitted window.</p></section>')
+        return "".join(out)
+    n = len(names)
+    off = ~np.eye(n, dtype=bool)
+    p_off = d.granger_p[off]
+    n_sig = int(np.sum(p_off[~np.isnan(p_off)] < level))
+    out.append(
+        f'<p class="note">Window ending {_esc(d.fitted_date)}. Cell (row, column): p-value of the '
+        "F test of \"the column series does not Granger-cause the row series\" (lags of the column "
+        f"series add nothing to the row's equation). Marked ● where p &lt; {level:g}: "
+        f'<span data-value="{n_sig}">{n_sig}</span> of {n * (n - 1)} ordered pairs. Hover a cell '
+        "for its F statistic.</p>")
+    th = "".join(f'<th scope="col">{_esc(s)}</th>' for s in names)
+    rows = []
+    for i, s in enumerate(names):
+        cells = "".join('<td class="na">–</td>' if i == j else
+                        _pval(d.granger_p[i, j], d.granger_f[i, j], level) for j in range(n))
+        rows.append(f'<tr><th class="rowhead" scope="row">{_esc(s)}</th>{cells}</tr>')
+    out.append(f'<div class="tablewrap"><table class="granger" data-level="{level!r}">'
+               "<caption>rows: caused · columns: causing · p-values</caption>"
+               f'<thead><tr><th class="rowhead">caused ↓ / causing →</th>{th}</tr></thead>'
+               f"<tbody>{''.join(rows)}</tbody></table></div>")
+    # Persistence over the history: share of windows where each pair was significant.
+    hist = d.granger.filter(pl.col("caused") != pl.col("causing"))
+    if hist.height and hist["window_end"].n_unique() > 1:
+        share = (hist.group_by("caused", "causing")
+                 .agg((pl.col("p_value") < level).mean().alias("share")))
+        lookup = {(a, b): v for a, b, v in share.iter_rows()}
+        rows = []
+        for i, s in enumerate(names):
+            cells = "".join('<td class="na">–</td>' if i == j else
+                            _num(100.0 * lookup.get((s, names[j]), float("nan")), 0)
+                            for j in range(n))
+            rows.append(f'<tr><th class="rowhead" scope="row">{_esc(s)}</th>{cells}</tr>')
+        out.append(
+            "<h3>How often, over all windows</h3>"
+            f'<div class="tablewrap"><table class="granger-history"><caption>percent of the '
+            f"{hist['window_end'].n_unique()} fitted windows with p &lt; {level:g}</caption>"
+            f'<thead><tr><th class="rowhead">caused ↓ / causing →</th>{th}</tr></thead>'
+            f"<tbody>{''.join(rows)}</tbody></table></div>")
+    out.append("</section>")
+    return "".join(out)
+
+
+_SKIP_LIMIT = 60
+
+
+def _health(d: ReportData, chart: _Charts) -> str:
+    out = ['<section id="health" class="major"><h2>Model health</h2>',
+           '<p class="note">A window is stable when every eigenvalue of its companion matrix lies '
+           "inside the unit circle (spectral radius below 1). Windows that could not be fitted "
+           "are listed with the reason.</p>"]
+    out.append(chart(figs.health_figure(d.fits), div_id="fig-health"))
+    fitted = d.fits.filter(pl.col("skip_reason").is_null())
+    if d.fitted_date is not None and fitted.height:
+        latest = fitted.filter(pl.col("window_end") == d.fitted_date)
+        out.append("<h3>Latest fitted window</h3>")
+        out.append(_text_table(latest, [
+            ("window_start", "first date"), ("window_end", "last date"), ("nobs", "observations"),
+            ("lags", "lags"), ("spectral_radius", "spectral radius"), ("stable", "stable"),
+            ("aic", "AIC"), ("bic", "BIC"), ("hq", "HQ"), ("fpe", "FPE"),
+            ("condition_number", "condition number"), ("portmanteau_p", "portmanteau p"),
+        ], cls="health-latest"))
+        unstable = fitted.filter(~pl.col("stable"))
+        out.append(f'<p class="note">Fitted windows: {fitted.height}; unstable: '
+                   f'<span data-value="{unstable.height}">{unstable.height}</span>; spectral '
+                   f"radius from {fitted['spectral_radius'].min():.4f} to "
+                   f"{fitted['spectral_radius'].max():.4f}; lags used: "
+                   f"{', '.join(str(x) for x in sorted(fitted['lags'].unique().to_list()))}.</p>")
+    skipped = d.fits.filter(pl.col("skip_reason").is_not_null()).sort("window_end", descending=True)
+    out.append(f"<h3>Skipped windows ({skipped.height})</h3>")
+    if skipped.height == 0:
+        out.append('<p class="note">None: every window was fitted.</p>')
+    else:
+        shown = skipped.head(_SKIP_LIMIT)
+        more = (f"; the {skipped.height - _SKIP_LIMIT} older ones are in the window_fits extract"
+                if skipped.height > _SKIP_LIMIT else "")
+        out.append(_text_table(shown, [("window_end", "window end"), ("skip_reason", "reason")],
+                               caption=f"newest first{more}", cls="skipped"))
+    out.append("</section>")
+    return "".join(out)
+
+
+def _lineage(d: ReportData) -> str:
+    out = ['<section id="lineage" class="major"><h2>Lineage</h2>']
+    run = d.run
+    if run is None:
+        out.append('<p class="note">The run behind these results is not recorded in the '
+                   "snapshot.</p>")
+    else:
+        rows = [("run id", run["run_id"]), ("status", run["status"]), ("started", run["started"]),
+                ("finished", run["finished"]), ("configuration hash", run["config_hash"]),
+                ("data fingerprint", run["data_fingerprint"]), ("code version", run["code_version"]),
+                ("windows fitted / skipped / failed",
+                 f"{run['windows_fitted']} / {run['windows_skipped']} / {run['windows_failed']}"),
+                ("message", run["message"] or "")]
+        dl = "".join(f'<dt>{_esc(k)}</dt><dd class="mono" data-field="{_esc(k)}">{_esc(v)}</dd>'
+                     for k, v in rows)
+        out.append(f"<h3>Run behind the latest window</h3><dl class=\"facts lineage\">{dl}</dl>")
+    ids = set()
+    for frame in (d.connectedness, d.fits):
+        if frame.height:
+            ids.update(frame["run_id"].drop_nulls().unique().to_list())
+    if d.runs.height:
+        used = d.runs.filter(pl.col("run_id").is_in(sorted(ids)))
+        out.append(f"<h3>Runs behind the windows in this report ({used.height})</h3>")
+        out.append(_text_table(used, [
+            ("run_id", "run id"), ("status", "status"), ("started", "started"),
+            ("finished", "finished"), ("config_hash", "configuration hash"),
+            ("data_fingerprint", "data fingerprint"), ("code_version", "code version"),
+            ("windows_fitted", "fitted"), ("windows_skipped", "skipped"),
+            ("windows_failed", "failed"),
+        ], cls="runs"))
+    out.append("<h3>Source batches</h3>")
+    if d.batches.height == 0:
+        out.append('<p class="note">The snapshot carries no ingest batches.</p>')
+    else:
+        out.append(_text_table(d.batches, [
+            ("batch_id", "batch"), ("source", "source"), ("started", "started"),
+            ("finished", "finished"), ("status", "status"), ("rows_read", "rows read"),
+            ("rows_new", "new"), ("rows_revised", "revised"),
+        ], cls="batches"))
+    out.append("</section>")
+    return "".join(out)
+
+
+def render_report(d: ReportData, *, generated: dt.datetime, version: str) -> str:
+    """The complete HTML text of one universe's report."""
+    chart = _Charts()
+    body = "\n".join([
+        _glance(d), _connectedness(d, chart), _spillovers(d), _responses(d, chart),
+        _decompositions(d, chart), _granger(d), _health(d, chart), _lineage(d),
+    ])
+    files = resources.files("pipeline.export") / "templates"
+    template = Template((files / "report.html").read_text(encoding="utf-8"))
+    css = (files / "report.css").read_text(encoding="utf-8")
+    subtitle = (f"Results as of {d.report_date.isoformat()} · exported "
+                f"{generated.isoformat(sep=' ', timespec='seconds')}")
+    return template.substitute(
+        title=_esc(f"Shock propagation in {d.info.name}"), subtitle=_esc(subtitle),
+        caution=_esc(CAUTION), css=css, body=body, version=_esc(version),
+        footer=_esc(f"Written by shockflow {version} from the serving snapshot. Numbers are "
+                    "estimates from vector autoregressions fitted to past data."),
+    )
