@@ -6,7 +6,7 @@ import datetime as dt
 import importlib.metadata
 import logging
 import os
-import tempfile
+import uuid
 from collections.abc import Iterable, Sequence
 from pathlib import Path
 
@@ -59,17 +59,17 @@ def _check_as_of(as_of: dt.date | str | None) -> dt.date | None:
 
 
 def _write_text_atomic(path: Path, text: str) -> None:
-    """Write to a temporary file beside `path`, then `os.replace` it: never a half report."""
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    """Write to a temporary file beside `path`, then `os.replace` it: never a half report.
+
+    (A plain `open(..., "x")` rather than `mkstemp`, so the file gets the usual umask mode.)
+    """
+    tmp = path.with_name(f".{path.name}.{os.getpid()}.{uuid.uuid4().hex}.tmp")
     try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+        with open(tmp, "x", encoding="utf-8") as fh:
             fh.write(text)
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes 0600; give the file the usual mode
         os.replace(tmp, path)
     except BaseException:
-        Path(tmp).unlink(missing_ok=True)
+        tmp.unlink(missing_ok=True)
         raise
 
 

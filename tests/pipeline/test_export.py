@@ -1,0 +1,472 @@
+"""Report exports on a hand-built snapshot (docs/warehouse.md schema, arlib numbers; see
+test_export_snapshot_builder.py): every number shown equals the snapshot's, the HTML is
+self-contained, extracts equal the tables, nothing is written outside `out_dir`.
+
+The same checks on a snapshot the real pipeline produced are in test_export_pipeline.py.
+"""
+
+from __future__ import annotations
+
+import base64
+import datetime as dt
+import json
+import logging
+import os
+import re
+from html.parser import HTMLParser
+from pathlib import Path
+
+import duckdb
+import numpy as np
+import polars as pl
+import pytest
+from polars.testing import assert_frame_equal
+
+import arlib
+from pipeline.errors import ExportError, ShockflowError
+from pipeline.export import (
+    CAUTION,
+    EXTRACT_TABLES,
+    export_all,
+    export_universe,
+    pdf_page_count,
+    safe_dir_name,
+)
+from pipeline.export._paths import universe_dir
+from tests.pipeline.test_export_snapshot_builder import build_snapshot
+
+HTML_SECTIONS = ("glance", "connectedness", "spillovers", "responses", "decompositions",
+                 "granger", "health", "lineage")
+
+
+# -- helpers that read the written report back ----------------------------------------------------
+
+class _Cells(HTMLParser):
+    """Collects the `data-*` attributes of every <td> inside tables of a given class."""
+
+    def __init__(self, table_class: str) -> None:
+        super().__init__()
+        self.want = table_class
+        self.depth = 0
+        self.rows: list[list[dict[str, str]]] = []
+
+    def handle_starttag(self, tag: str, attrs: list[tuple[str, str | None]]) -> None:
+        a = {k: v or "" for k, v in attrs}
+        if tag == "table":
+            if self.depth or self.want in a.get("class", "").split():
+                self.depth += 1
+        elif self.depth and tag == "tr":
+            self.rows.append([])
+        elif self.depth and tag == "td":
+            self.rows[-1].append(a)
+
+    def handle_endtag(self, tag: str) -> None:
+        if tag == "table" and self.depth:
+            self.depth -= 1
+
+
+def table_values(html: str, table_class: str, attr: str = "data-value") -> list[list[float]]:
+    """Numbers (full precision, from `attr`) of the table's body rows; NaN for empty cells."""
+    p = _Cells(table_class)
+    p.feed(html)
+    return [[float(c[attr]) if attr in c else np.nan for c in row] for row in p.rows if row]
+
+
+def plotly_traces(html: str, div_id: str) -> list[dict]:
+    """The trace list handed to `Plotly.newPlot` for the chart with id `div_id`."""
+    m = re.search(r'Plotly\.newPlot\(\s*"' + re.escape(div_id) + r'",\s*', html)
+    assert m, f"chart {div_id} not in report"
+    traces, _ = json.JSONDecoder().raw_decode(html, m.end())
+    return traces
+
+
+def trace_array(value: object) -> np.ndarray:
+    """Plotly stores numpy arrays as {"dtype", "bdata" (base64)}; lists stay lists."""
+    if isinstance(value, dict):
+        return np.frombuffer(base64.b64decode(value["bdata"]), dtype=np.dtype(value["dtype"]))
+    return np.asarray(value, dtype=float)
+
+
+def snapshot_frame(path: Path, sql: str, params: list) -> pl.DataFrame:
+    con = duckdb.connect(str(path), read_only=True)
+    try:
+        return con.sql(sql, params=params).pl()
+    finally:
+        con.close()
+
+
+# -- fixtures -------------------------------------------------------------------------------------
+
+@pytest.fixture(scope="module")
+def snap(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    path = tmp_path_factory.mktemp("snapshot") / "serving.duckdb"
+    return build_snapshot(path, {
+        "rates & fx": {"draws": 20},
+        "derived": {"store_arrays": False, "skip_last": True, "seed": 9, "run_id": "run-test-2"},
+        "../escape": {"T": 140, "store_arrays": False, "seed": 5, "run_id": "run-test-3"},
+    })
+
+
+@pytest.fixture(scope="module")
+def exported(snap: Path, tmp_path_factory: pytest.TempPathFactory) -> dict[str, list[Path]]:
+    out = tmp_path_factory.mktemp("exports")
+    return export_all(snap, out, formats=("html", "csv", "parquet"))
+
+
+def html_of(exported: dict[str, list[Path]], universe: str) -> str:
+    (path,) = [p for p in exported[universe] if p.suffix == ".html"]
+    return path.read_text(encoding="utf-8")
+
+
+def latest(snap: Path, universe: str) -> dt.date:
+    return snapshot_frame(snap, "SELECT max(window_end) AS w FROM connectedness WHERE universe = ?",
+                          [universe])["w"][0]
+
+
+# -- the HTML report ------------------------------------------------------------------------------
+
+def test_html_is_self_contained(exported: dict[str, list[Path]]) -> None:
+    html = html_of(exported, "rates & fx")
+    # No external script, stylesheet, image or frame: every src/href is local or an anchor.
+    for attr in re.findall(r'<(?:script|link|img|iframe)\b[^>]*\b(?:src|href)\s*=\s*"([^"]*)"', html):
+        assert not attr.lower().startswith(("http:", "https:", "//")), attr
+    assert not re.search(r"<script\b[^>]*\bsrc\s*=", html)  # no script loaded from anywhere
+    # plotly.js inlined exactly once, every chart drawn with it.
+    assert html.count("plotly.js v") == 1
+    assert html.count("Plotly.newPlot(") >= 6
+    assert '"displayModeBar": false' in html or '"displayModeBar":false' in html
+
+
+def test_html_has_caution_and_every_section(exported: dict[str, list[Path]]) -> None:
+    html = html_of(exported, "rates & fx")
+    assert html.count(CAUTION) == 2  # under the title and in the footer
+    for section in HTML_SECTIONS:
+        assert f'<section id="{section}"' in html, section
+    assert "break-inside: avoid" in html  # charts stay whole on a printed page
+
+
+def test_spillover_table_equals_snapshot(snap: Path, exported: dict[str, list[Path]]) -> None:
+    html = html_of(exported, "rates & fx")
+    names = ["alpha", "beta", "gamma"]
+    w = latest(snap, "rates & fx")
+    pair = snapshot_frame(snap, "SELECT source, target, share FROM pairwise WHERE universe = ? "
+                          "AND window_end = ?", ["rates & fx", w])
+    direc = snapshot_frame(snap, "SELECT series, to_others, from_others, net FROM directional "
+                           "WHERE universe = ? AND window_end = ?", ["rates & fx", w])
+    total = snapshot_frame(snap, "SELECT total FROM connectedness WHERE universe = ? AND "
+                           "window_end = ?", ["rates & fx", w])["total"][0]
+    rows = table_values(html, "spillover")
+    for i, target in enumerate(names):
+        for j, source in enumerate(names):
+            share = pair.filter((pl.col("target") == target) & (pl.col("source") == source))
+            assert rows[i][j] == share["share"][0]
+        assert rows[i][3] == direc.filter(pl.col("series") == target)["from_others"][0]
+    for j, s in enumerate(names):
+        d = direc.filter(pl.col("series") == s)
+        assert rows[3][j] == d["to_others"][0]
+        assert rows[4][j] == d["net"][0]
+    assert rows[5][-1] == total
+    # Shown to two decimals.
+    assert f">{total:.2f}<" in html
+
+
+def test_connectedness_chart_is_the_stored_history(snap: Path,
+                                                   exported: dict[str, list[Path]]) -> None:
+    html = html_of(exported, "rates & fx")
+    stored = snapshot_frame(snap, "SELECT window_end, total FROM connectedness WHERE universe = ? "
+                            "ORDER BY window_end", ["rates & fx"])
+    (trace,) = plotly_traces(html, "fig-connectedness")
+    assert trace["x"] == [d.isoformat() for d in stored["window_end"]]
+    np.testing.assert_array_equal(trace_array(trace["y"]), stored["total"].to_numpy())
+
+
+def test_granger_table_equals_snapshot(snap: Path, exported: dict[str, list[Path]]) -> None:
+    html = html_of(exported, "rates & fx")
+    names = ["alpha", "beta", "gamma"]
+    g = snapshot_frame(snap, "SELECT caused, causing, f_stat, p_value FROM granger WHERE "
+                       "universe = ? AND window_end = ?", ["rates & fx", latest(snap, "rates & fx")])
+    p_rows = table_values(html, "granger")
+    f_rows = table_values(html, "granger", "data-f")
+    for i, caused in enumerate(names):
+        for j, causing in enumerate(names):
+            if i == j:
+                assert np.isnan(p_rows[i][j])
+                continue
+            r = g.filter((pl.col("caused") == caused) & (pl.col("causing") == causing))
+            assert p_rows[i][j] == r["p_value"][0]
+            assert f_rows[i][j] == r["f_stat"][0]
+    flagged = int((g["p_value"] < 0.05).sum())
+    assert f'<span data-value="{flagged}">{flagged}</span> of 6 ordered pairs' in html
+
+
+def test_stored_responses_and_bands_are_drawn(snap: Path, exported: dict[str, list[Path]]) -> None:
+    html = html_of(exported, "rates & fx")
+    r = snapshot_frame(snap, "SELECT horizon, response, lower, upper FROM responses WHERE "
+                       "universe = ? AND window_end = ?", ["rates & fx", latest(snap, "rates & fx")])
+    H = r["horizon"][0]
+    resp, lo, hi = (np.asarray(r[c][0]).reshape(H + 1, 3, 3) for c in ("response", "lower", "upper"))
+    traces = plotly_traces(html, "fig-irf-0-0")
+    assert len(traces) == 9 * 3  # upper, lower, response per panel of the 3 × 3 grid
+    for k in range(9):
+        i, j = divmod(k, 3)
+        up, low, mid = traces[3 * k: 3 * k + 3]
+        np.testing.assert_array_equal(trace_array(mid["y"]), resp[:, i, j])
+        np.testing.assert_array_equal(trace_array(low["y"]), lo[:, i, j])
+        np.testing.assert_array_equal(trace_array(up["y"]), hi[:, i, j])
+    assert "90% band" in html
+
+
+def test_stored_decompositions_are_shown(snap: Path, exported: dict[str, list[Path]]) -> None:
+    html = html_of(exported, "rates & fx")
+    d = snapshot_frame(snap, "SELECT method, horizon, share FROM decompositions WHERE universe = ? "
+                       "AND window_end = ? ORDER BY method", ["rates & fx", latest(snap, "rates & fx")])
+    rows = table_values(html, "decomposition")
+    for k, (method, H, share) in enumerate(d.iter_rows()):
+        expected = 100.0 * np.asarray(share).reshape(H, 3, 3)[-1]
+        np.testing.assert_array_equal(np.array(rows[3 * k: 3 * k + 3]), expected)
+        assert f'data-method="{method}"' in html
+
+
+def test_lineage_names_the_run(exported: dict[str, list[Path]]) -> None:
+    html = html_of(exported, "rates & fx")
+    lineage = html[html.index('<section id="lineage"'):]
+    for text in ("run-test-1", "cfg-rates &amp; fx", "fp-0123abcd", "0.1.0+test",
+                 "2024-01-05 22:00:01", "2024-01-05 22:00:09", "batch-1"):
+        assert text in lineage, text
+
+
+def test_unstored_responses_are_derived_with_arlib(snap: Path,
+                                                   exported: dict[str, list[Path]]) -> None:
+    """A run that kept only parameters: responses and decompositions equal arlib's on them."""
+    html = html_of(exported, "derived")
+    w = latest(snap, "derived")
+    p = snapshot_frame(snap, "SELECT coefs, intercept, sigma_u FROM window_params WHERE "
+                       "universe = ? AND window_end = ?", ["derived", w]).row(0, named=True)
+    proc = arlib.var_process(np.reshape(p["coefs"], (1, 3, 3)), np.reshape(p["sigma_u"], (3, 3)),
+                             p["intercept"])
+    resp = arlib.impulse_responses(proc, 8, shocks="cholesky")
+    traces = plotly_traces(html, "fig-irf-0-0")
+    assert len(traces) == 9  # no bands: one trace per panel
+    for k in range(9):
+        i, j = divmod(k, 3)
+        np.testing.assert_allclose(trace_array(traces[k]["y"]), resp[:, i, j], rtol=0, atol=1e-14)
+    rows = table_values(html, "decomposition")
+    chol = 100.0 * arlib.variance_decomposition(proc, 8, method="cholesky")[-1]
+    gen = 100.0 * arlib.variance_decomposition(proc, 8, method="generalized")[-1]
+    np.testing.assert_allclose(np.array(rows[:3]), chol, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(np.array(rows[3:6]), gen, rtol=0, atol=1e-12)
+    # The generalized decomposition ×100 is the stored spillover table (same window, same H).
+    np.testing.assert_allclose(np.array(table_values(html, "spillover")[:3])[:, :3], gen,
+                               rtol=0, atol=1e-10)
+    assert "derived with arlib from the window&#x27;s stored parameters" in html
+
+
+def test_skipped_latest_window_is_reported(snap: Path, exported: dict[str, list[Path]]) -> None:
+    html = html_of(exported, "derived")
+    skipped = snapshot_frame(snap, "SELECT window_end FROM window_fits WHERE universe = ? AND "
+                             "skip_reason IS NOT NULL", ["derived"])["window_end"][0]
+    fitted = latest(snap, "derived")
+    assert skipped > fitted
+    health = html[html.index('<section id="health"'):html.index('<section id="lineage"')]
+    assert "Skipped windows (1)" in health
+    assert "too few rows after gaps: 40 of 120" in health
+    assert f"The latest window ({skipped}) was not fitted" in html
+    # The directory is named by the latest window end, fitted or not.
+    (path,) = [p for p in exported["derived"] if p.suffix == ".html"]
+    assert path.parent.parent.name == skipped.isoformat()
+
+
+# -- extracts -------------------------------------------------------------------------------------
+
+@pytest.mark.parametrize("table", ["connectedness", "directional", "pairwise", "granger",
+                                   "window_fits"])
+def test_extracts_equal_the_snapshot_tables(snap: Path, exported: dict[str, list[Path]],
+                                            table: str) -> None:
+    files = {p.name: p for p in exported["rates & fx"]}
+    expected = snapshot_frame(snap, f"SELECT * EXCLUDE (universe), universe FROM {table} "
+                              "WHERE universe = ? ORDER BY ALL", ["rates & fx"])
+    cols = expected.columns
+    from_parquet = pl.read_parquet(files[f"{table}.parquet"]).select(cols).sort(pl.all())
+    assert_frame_equal(from_parquet, expected.sort(pl.all()))
+    from_csv = pl.read_csv(files[f"{table}.csv"], try_parse_dates=True,
+                           schema_overrides=expected.schema).select(cols).sort(pl.all())
+    assert_frame_equal(from_csv, expected.sort(pl.all()))
+
+
+def test_array_extracts_equal_the_stored_arrays(snap: Path, exported: dict[str, list[Path]]) -> None:
+    files = {p.name: p for p in exported["rates & fx"]}
+    w = latest(snap, "rates & fx")
+    r = snapshot_frame(snap, "SELECT horizon, response, lower, upper FROM responses WHERE "
+                       "universe = ? AND window_end = ?", ["rates & fx", w]).row(0, named=True)
+    H = r["horizon"]
+    for fmt in ("csv", "parquet"):
+        f = files[f"responses.{fmt}"]
+        long = pl.read_parquet(f) if fmt == "parquet" else pl.read_csv(f, try_parse_dates=True)
+        assert long.height == (H + 1) * 9
+        assert (long["window_end"] == w).all()
+        long = long.sort("horizon", "response", "shock")  # names sort in series order here
+        for col in ("response", "lower", "upper"):
+            src = "value" if col == "response" else col
+            np.testing.assert_array_equal(long[src].to_numpy(), np.asarray(r[col]))
+    d = pl.read_parquet(files["decompositions.parquet"])
+    stored = snapshot_frame(snap, "SELECT method, share FROM decompositions WHERE universe = ? "
+                            "AND window_end = ?", ["rates & fx", w])
+    for method, share in stored.iter_rows():
+        got = d.filter(pl.col("method") == method).sort("step", "variable", "shock")["share"]
+        np.testing.assert_array_equal(got.to_numpy(), np.asarray(share))
+
+
+def test_every_extract_table_is_written(exported: dict[str, list[Path]]) -> None:
+    names = {p.name for p in exported["rates & fx"]}
+    for t in EXTRACT_TABLES:
+        assert {f"{t}.csv", f"{t}.parquet"} <= names
+
+
+# -- paths ----------------------------------------------------------------------------------------
+
+def test_nothing_is_written_outside_out_dir(snap: Path, tmp_path: Path) -> None:
+    out = tmp_path / "exports"
+    paths = export_universe(snap, "../escape", out, formats=("html", "csv"))
+    root = out.resolve()
+    assert paths and all(p.resolve().is_relative_to(root) for p in paths)
+    assert {p.parent.name for p in paths} == {"escape"}
+    on_disk = {p.resolve() for p in tmp_path.rglob("*") if p.is_file()}
+    assert on_disk == {p.resolve() for p in paths}  # nothing else anywhere under tmp_path
+
+
+@pytest.mark.parametrize(("name", "safe"), [("rates & fx", "rates_fx"), ("../../etc", "etc"),
+                                            ("a/b\\c", "a_b_c"), (".hidden", "hidden"),
+                                            ("EM-fx_2.0", "EM-fx_2.0")])
+def test_safe_dir_name(name: str, safe: str) -> None:
+    assert safe_dir_name(name) == safe
+
+
+@pytest.mark.parametrize("name", ["..", "/", "...", " "])
+def test_unusable_universe_names_are_refused(name: str) -> None:
+    with pytest.raises(ExportError, match="leaves nothing usable as a directory name"):
+        safe_dir_name(name)
+
+
+def test_a_symlink_out_of_out_dir_is_refused(tmp_path: Path) -> None:
+    out = tmp_path / "exports"
+    elsewhere = tmp_path / "elsewhere"
+    out.mkdir()
+    elsewhere.mkdir()
+    os.symlink(elsewhere, out / "2024-01-05")
+    with pytest.raises(ExportError, match="lies outside `out_dir`"):
+        universe_dir(out, dt.date(2024, 1, 5), "rates")
+
+
+# -- options and bad input ------------------------------------------------------------------------
+
+def test_as_of_limits_windows_and_names_the_directory(snap: Path, tmp_path: Path) -> None:
+    ends = snapshot_frame(snap, "SELECT window_end FROM connectedness WHERE universe = ? ORDER BY 1",
+                          ["rates & fx"])["window_end"].to_list()
+    as_of = ends[4] + dt.timedelta(days=1)
+    paths = export_universe(snap, "rates & fx", tmp_path, formats=("html", "parquet"),
+                            as_of=as_of.isoformat())
+    assert {p.parent.parent.name for p in paths} == {as_of.isoformat()}
+    conn = pl.read_parquet(next(p for p in paths if p.name == "connectedness.parquet"))
+    assert conn["window_end"].to_list() == ends[:5]
+    html = next(p for p in paths if p.suffix == ".html").read_text(encoding="utf-8")
+    assert f"Latest window end</dt><dd>{ends[4]}" in html
+
+
+def test_pdf_is_skipped_with_a_warning_without_chromium(snap: Path, tmp_path: Path,
+                                                        monkeypatch: pytest.MonkeyPatch,
+                                                        caplog: pytest.LogCaptureFixture) -> None:
+    monkeypatch.setenv("PATH", str(tmp_path / "no-browsers-here"))
+    with caplog.at_level(logging.WARNING, logger="shockflow.export"):
+        paths = export_universe(snap, "../escape", tmp_path / "out", formats=("html", "pdf"))
+    assert [p.suffix for p in paths] == [".html"]
+    assert "no headless Chromium found" in caplog.text
+
+
+@pytest.mark.parametrize(("kwargs", "match"), [
+    ({"formats": ("html", "docx")}, r"`formats`.*'docx'.*html, csv, parquet, pdf"),
+    ({"formats": ()}, "`formats` is empty"),
+    ({"as_of": "28/03/2024"}, r"`as_of` '28/03/2024' is not a date; use YYYY-MM-DD"),
+    ({"as_of": "2000-01-01"}, r"no windows on or before 2000-01-01"),
+    ({"chromium_path": "/nonexistent/chromium"}, r"`chromium_path` '/nonexistent/chromium'"),
+])
+def test_bad_options_are_named(snap: Path, tmp_path: Path, kwargs: dict, match: str) -> None:
+    kwargs = {"formats": ("html", "pdf"), **kwargs}
+    with pytest.raises(ExportError, match=match):
+        export_universe(snap, "rates & fx", tmp_path, **kwargs)
+
+
+def test_unknown_universe_lists_the_known_ones(snap: Path, tmp_path: Path) -> None:
+    with pytest.raises(ExportError, match=r"universe 'ratez' is not in serving snapshot .*"
+                       r"known universes: '../escape', 'derived', 'rates & fx'"):
+        export_universe(snap, "ratez", tmp_path)
+
+
+def test_missing_snapshot_says_how_to_make_one(tmp_path: Path) -> None:
+    with pytest.raises(ShockflowError, match=r"does not exist; run `shockflow run"):
+        export_universe(tmp_path / "nope.duckdb", "rates", tmp_path)
+
+
+def test_a_file_that_is_not_a_snapshot_is_refused(tmp_path: Path) -> None:
+    path = tmp_path / "other.duckdb"
+    duckdb.connect(str(path)).close()
+    with pytest.raises(ExportError, match=r"lacks table\(s\) universes, universe_series"):
+        export_universe(path, "rates", tmp_path)
+
+
+def test_export_all_refuses_colliding_directory_names(snap: Path, tmp_path: Path) -> None:
+    with pytest.raises(ExportError, match=r"share the export directory name 'rates_fx'"):
+        export_all(snap, tmp_path, formats=("csv",), universes=["rates & fx", "rates_fx"])
+
+
+def test_export_all_tries_every_universe_and_names_failures(snap: Path, tmp_path: Path) -> None:
+    with pytest.raises(ExportError, match=r"1 of 2 universe export\(s\) failed: 'nope'") as info:
+        export_all(snap, tmp_path, formats=("csv",), universes=["nope", "derived"])
+    assert set(info.value.written) == {"derived"}
+
+
+# -- PDF and the report in a real browser ----------------------------------------------------------
+
+def test_pdf_is_printed_by_headless_chromium(snap: Path, tmp_path: Path, chromium_path: str) -> None:
+    paths = export_universe(snap, "rates & fx", tmp_path, formats=("pdf",),
+                            chromium_path=chromium_path)
+    (pdf,) = paths  # the HTML it was printed from is not kept when only "pdf" was asked for
+    assert pdf.suffix == ".pdf"
+    assert pdf.read_bytes().startswith(b"%PDF-")
+    assert pdf_page_count(pdf) >= 4  # eight sections with charts do not fit on fewer A4 pages
+    assert list(pdf.parent.glob("*.html")) == []
+
+
+@pytest.mark.browser
+def test_report_opens_offline_in_chromium(exported: dict[str, list[Path]], chromium_path: str) -> None:
+    """Open the report in Chromium with the network cut; no request leaves the machine and every
+    chart is drawn by the inlined plotly.js."""
+    from playwright.sync_api import sync_playwright
+
+    from tests.conftest import CHROMIUM_ARGS
+
+    (path,) = [p for p in exported["rates & fx"] if p.suffix == ".html"]
+    html = path.read_text(encoding="utf-8")
+    expected_charts = html.count("Plotly.newPlot(")
+    requests: list[str] = []
+    with sync_playwright() as pw:
+        browser = pw.chromium.launch(executable_path=chromium_path, args=CHROMIUM_ARGS)
+        try:
+            context = browser.new_context(offline=True)
+            page = context.new_page()
+            page.on("request", lambda r: requests.append(r.url))
+            errors: list[str] = []
+            page.on("pageerror", lambda e: errors.append(str(e)))
+            page.goto(path.as_uri(), wait_until="load")
+            page.wait_for_function(
+                f"document.querySelectorAll('.js-plotly-plot .main-svg').length >= {expected_charts}",
+                timeout=30_000)
+            drawn = page.evaluate("document.querySelectorAll('.js-plotly-plot').length")
+            has_plotly = page.evaluate("typeof window.Plotly === 'object'")
+            toolbars = page.evaluate("document.querySelectorAll('.modebar-btn').length")
+        finally:
+            browser.close()
+    assert errors == []
+    assert has_plotly and drawn == expected_charts
+    assert toolbars == 0
+    outside = [u for u in requests if not u.startswith(("file:", "data:", "about:", "blob:"))]
+    assert outside == []
