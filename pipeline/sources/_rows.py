@@ -1,0 +1,288 @@
+"""Turn one raw table (wide or long) into validated long rows (series, date, value).
+
+Every adapter ends here, so every source obeys the same rules. Errors name the origin (file, URL or
+query), the line (CSV) or row, the series and the fix, in one line.
+
+Cleaning rules (documented in the README, applied silently):
+
+- empty cells and the markers ``NA``, ``N/A``, ``#N/A``, ``NaN``, ``nan``, ``null``, ``NULL``, ``.``,
+  ``-`` are missing values: the row (series × date) is simply absent;
+- surrounding spaces in cells and headers are stripped;
+- rows are sorted by series and date (input order does not matter);
+- an exact duplicate (same series, date and value) is kept once.
+
+Everything else that is wrong is an error: a date that does not match ``date_format`` (mixed formats),
+a timestamp with a time zone or a time of day, a date after ``today``, a non-numeric value, ±inf,
+a magnitude at or above ``MAX_ABS_VALUE`` (an overflow or fill-in marker such as 1e308), two different
+values for the same series and date, a series column with no values at all.
+"""
+
+from __future__ import annotations
+
+import re
+from datetime import date
+from typing import TYPE_CHECKING
+
+import polars as pl
+
+from pipeline.errors import DataError, SourceError
+
+if TYPE_CHECKING:
+    from pipeline.config import SourceConfig
+
+__all__ = ["LONG_SCHEMA", "MAX_ABS_VALUE", "MISSING_MARKERS", "from_long", "from_table", "from_wide"]
+
+#: The long frame every adapter returns.
+LONG_SCHEMA = {"series": pl.String, "date": pl.Date, "value": pl.Float64}
+
+#: Values whose magnitude reaches this are refused as overflow or fill-in markers (e.g. 1e308).
+#: Real price and macro levels stay far below (a 25-trillion GDP is 2.5e13).
+MAX_ABS_VALUE = 1e15
+
+MISSING_MARKERS = ("", "NA", "N/A", "#N/A", "NaN", "nan", "NAN", "null", "NULL", "None", ".", "-")
+
+_TZ_PATTERN = re.compile(r"(?:\d[T ]\d{1,2}:\d{2}(?::\d{2}(?:\.\d+)?)?)\s*(?:Z|[+-]\d{2}:?\d{2}|[A-Z]{3,4})$")
+_TIME_PATTERN = re.compile(r"\d[T ]\d{1,2}:\d{2}")
+
+
+def _where(origin: str, line: int | None) -> str:
+    return f"{origin}, line {line}" if line is not None else origin
+
+
+def _line(lines: pl.Series | None, index: int) -> int | None:
+    return None if lines is None else int(lines[index])
+
+
+def _parse_dates(
+    raw: pl.Series, *, origin: str, column: str, date_format: str, lines: pl.Series | None
+) -> pl.Series:
+    """Dates from a column of any type; errors name the first bad row."""
+    dtype = raw.dtype
+    if dtype == pl.Date:
+        out = raw
+    elif isinstance(dtype, pl.Datetime):
+        if dtype.time_zone is not None:
+            msg = (
+                f"{origin}: column {column!r} holds timestamps with time zone {dtype.time_zone!r}; "
+                "shockflow stores calendar dates — convert to dates in the source (e.g. CAST(ts AS DATE))"
+            )
+            raise DataError(msg)
+        bad = (raw.dt.truncate("1d") != raw).fill_null(False)
+        if bad.any():
+            i = int(bad.arg_max())  # type: ignore[arg-type]
+            msg = (
+                f"{_where(origin, _line(lines, i))}: {column!r} is {raw[i]} with a time of day; "
+                "shockflow stores calendar dates — give one value per date"
+            )
+            raise DataError(msg)
+        out = raw.dt.date()
+    elif dtype == pl.String:
+        text = raw.str.strip_chars()
+        out = text.str.strptime(pl.Date, date_format, strict=False, exact=True)
+        bad = out.is_null() & text.is_not_null()
+        if bad.any():
+            i = int(bad.arg_max())  # type: ignore[arg-type]
+            value = text[i]
+            where = _where(origin, _line(lines, i))
+            if value == "":
+                msg = f"{where}: the date in column {column!r} is empty; every row needs a date"
+            elif _TZ_PATTERN.search(value):
+                msg = (
+                    f"{where}: date {value!r} is a timestamp with a time zone; shockflow stores "
+                    f"calendar dates — write plain dates in the format {date_format!r}"
+                )
+            elif _TIME_PATTERN.search(value):
+                msg = (
+                    f"{where}: date {value!r} has a time of day; write plain dates in the format "
+                    f"{date_format!r} (or set date_format to match, e.g. '%Y-%m-%d %H:%M:%S')"
+                )
+            elif out.is_not_null().any():
+                msg = (
+                    f"{where}: date {value!r} does not match date_format {date_format!r} that other "
+                    "rows use (mixed date formats); write every date the same way"
+                )
+            else:
+                msg = (
+                    f"{where}: date {value!r} does not match date_format {date_format!r}; "
+                    "set `date_format` of this source to the file's format (strftime codes)"
+                )
+            raise DataError(msg)
+    else:
+        msg = f"{origin}: date column {column!r} has type {dtype}; give it dates or text in date_format"
+        raise DataError(msg)
+    missing = out.is_null()
+    if missing.any():
+        i = int(missing.arg_max())  # type: ignore[arg-type]
+        msg = f"{_where(origin, _line(lines, i))}: the date in column {column!r} is empty; every row needs a date"
+        raise DataError(msg)
+    return out
+
+
+def _parse_values(
+    raw: pl.Series, *, origin: str, series: pl.Series | str, lines: pl.Series | None
+) -> pl.Series:
+    """Float64 values; missing markers → null; errors for text, ±inf and overflow markers."""
+    if raw.dtype == pl.String:
+        stripped = raw.str.strip_chars()
+        text = pl.select(
+            pl.when(stripped.is_in(list(MISSING_MARKERS))).then(pl.lit(None, pl.String)).otherwise(stripped)
+        ).to_series()
+        values = text.cast(pl.Float64, strict=False)
+        bad = values.is_null() & text.is_not_null()
+        if bad.any():
+            i = int(bad.arg_max())  # type: ignore[arg-type]
+            name = series if isinstance(series, str) else series[i]
+            msg = (
+                f"{_where(origin, _line(lines, i))}: value {text[i]!r} of series {name!r} is not a "
+                "number; fix the cell, or leave it empty (or NA) for a missing value"
+            )
+            raise DataError(msg)
+    elif raw.dtype.is_numeric() or raw.dtype == pl.Null:
+        values = raw.cast(pl.Float64)
+        values = values.fill_nan(None)
+    else:
+        name = series if isinstance(series, str) else "values"
+        msg = f"{origin}: column for {name!r} has type {raw.dtype}; give it numbers"
+        raise DataError(msg)
+    bad = (values.abs() >= MAX_ABS_VALUE).fill_null(False)
+    if bad.any():
+        i = int(bad.arg_max())  # type: ignore[arg-type]
+        name = series if isinstance(series, str) else series[i]
+        v = values[i]
+        kind = "infinite" if v in (float("inf"), float("-inf")) else f"at or above ±{MAX_ABS_VALUE:g} in magnitude"
+        msg = (
+            f"{_where(origin, _line(lines, i))}: value {v!r} of series {name!r} is {kind} "
+            "(an overflow or fill-in marker); fix the source or leave the cell empty"
+        )
+        raise DataError(msg)
+    return values
+
+
+def _require_columns(df: pl.DataFrame, names: list[str], *, origin: str, source: SourceConfig) -> None:
+    import difflib
+
+    for name in names:
+        if name in df.columns:
+            continue
+        header = df.columns
+        if len(header) == 1:
+            for sep in (";", "\t", "|", ","):
+                if sep != source.delimiter and sep in header[0]:
+                    shown = "\\t" if sep == "\t" else sep
+                    msg = (
+                        f"{origin}: the header {header[0]!r} looks {shown!r}-delimited but the source "
+                        f"reads {source.delimiter!r}; set `delimiter = \"{shown}\"` for source {source.name!r}"
+                    )
+                    raise SourceError(msg)
+        close = difflib.get_close_matches(name, header, n=1)
+        hint = f" (did you mean {close[0]!r}?)" if close else ""
+        msg = (
+            f"{origin}: no column {name!r}{hint}; columns are {', '.join(map(repr, header[:12]))}"
+            f"{' …' if len(header) > 12 else ''} — set the source's column keys to match"
+        )
+        raise SourceError(msg)
+
+
+def from_wide(
+    df: pl.DataFrame, *, origin: str, source: SourceConfig, today: date, first_line: int | None = 2
+) -> pl.DataFrame:
+    """Wide table (a date column + one column per series) → validated long rows."""
+    df = df.rename({c: c.strip() for c in df.columns})
+    _require_columns(df, [source.date_column], origin=origin, source=source)
+    value_columns = [c for c in df.columns if c != source.date_column]
+    if not value_columns:
+        msg = f"{origin}: only the date column {source.date_column!r} is present; add one column per series"
+        raise SourceError(msg)
+    lines = pl.Series("line", range(first_line, first_line + df.height)) if first_line is not None else None
+    dates = _parse_dates(
+        df[source.date_column], origin=origin, column=source.date_column, date_format=source.date_format, lines=lines
+    )
+    columns: dict[str, pl.Series] = {}
+    for name in value_columns:
+        values = _parse_values(df[name], origin=origin, series=name, lines=lines)
+        if values.null_count() == values.len():
+            msg = f"{origin}: column {name!r} has no values (all missing); remove the column or fill it"
+            raise DataError(msg)
+        columns[name] = values
+    wide = pl.DataFrame({"date": dates, **columns})
+    if lines is not None:
+        wide = wide.with_columns(lines.alias("_line"))
+    long = wide.unpivot(index=["date", *(["_line"] if lines is not None else [])], variable_name="series", value_name="value")
+    long = long.drop_nulls("value")
+    return _finish(long, origin=origin, today=today)
+
+
+def from_long(
+    df: pl.DataFrame, *, origin: str, source: SourceConfig, today: date, first_line: int | None = 2
+) -> pl.DataFrame:
+    """Long table (date, series, value columns) → validated long rows."""
+    df = df.rename({c: c.strip() for c in df.columns})
+    _require_columns(df, [source.date_column, source.series_column, source.value_column], origin=origin, source=source)
+    lines = pl.Series("line", range(first_line, first_line + df.height)) if first_line is not None else None
+    series = df[source.series_column].cast(pl.String).str.strip_chars()
+    empty = series.is_null() | (series == "")
+    if empty.any():
+        i = int(empty.arg_max())  # type: ignore[arg-type]
+        msg = f"{_where(origin, _line(lines, i))}: the series name in column {source.series_column!r} is empty; name every row's series"
+        raise DataError(msg)
+    dates = _parse_dates(
+        df[source.date_column], origin=origin, column=source.date_column, date_format=source.date_format, lines=lines
+    )
+    values = _parse_values(df[source.value_column], origin=origin, series=series, lines=lines)
+    long = pl.DataFrame({"date": dates, "series": series, "value": values})
+    if lines is not None:
+        long = long.with_columns(lines.alias("_line"))
+    all_missing = long.group_by("series").agg(pl.col("value").is_not_null().any().alias("any"))
+    if not all_missing["any"].all():
+        name = all_missing.filter(~pl.col("any"))["series"].sort()[0]
+        msg = f"{origin}: series {name!r} has no values (all missing); remove its rows or fill them"
+        raise DataError(msg)
+    long = long.drop_nulls("value")
+    return _finish(long, origin=origin, today=today)
+
+
+def from_table(
+    df: pl.DataFrame, *, origin: str, source: SourceConfig, today: date, first_line: int | None = 2
+) -> pl.DataFrame:
+    """Dispatch on the source's layout."""
+    if df.height == 0:
+        msg = f"{origin}: has a header but no data rows; check the export that wrote it"
+        raise SourceError(msg)
+    reader = from_wide if source.layout == "wide" else from_long
+    return reader(df, origin=origin, source=source, today=today, first_line=first_line)
+
+
+def _finish(long: pl.DataFrame, *, origin: str, today: date) -> pl.DataFrame:
+    """Future dates, conflicting duplicates, exact duplicates, sorting."""
+    has_line = "_line" in long.columns
+    future = long.filter(pl.col("date") > today)
+    if future.height:
+        row = future.sort("date", descending=True).row(0, named=True)
+        where = _where(origin, row["_line"] if has_line else None)
+        msg = (
+            f"{where}: date {row['date']} of series {row['series']!r} is after today ({today}); "
+            "fix the date (a typo or a forecast in the source)"
+        )
+        raise DataError(msg)
+    duplicated = long.select(pl.struct("series", "date").is_duplicated()).to_series()
+    if duplicated.any():
+        dupes = long.filter(duplicated)
+        counts = dupes.group_by("series", "date").agg(
+            pl.col("value").n_unique().alias("distinct"),
+            pl.col("value").alias("values"),
+            *([pl.col("_line").alias("lines")] if has_line else []),
+        )
+        conflicts = counts.filter(pl.col("distinct") > 1)
+        if conflicts.height:
+            row = conflicts.sort("series", "date").row(0, named=True)
+            vals = ", ".join(repr(v) for v in row["values"][:3])
+            lines = f" (lines {', '.join(str(x) for x in sorted(row['lines'])[:3])})" if has_line else ""
+            msg = (
+                f"{origin}: series {row['series']!r} has {len(row['values'])} different values for "
+                f"{row['date']}{lines}: {vals}; keep one row per series and date"
+            )
+            raise DataError(msg)
+        long = long.unique(subset=["series", "date"], keep="first", maintain_order=True)
+    return long.select(
+        pl.col("series").cast(pl.String), pl.col("date").cast(pl.Date), pl.col("value").cast(pl.Float64)
+    ).sort("series", "date")

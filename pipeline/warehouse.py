@@ -1,0 +1,458 @@
+"""The DuckDB warehouse: schema, connections, observation upserts and one-transaction result writes.
+
+The schema contract is docs/warehouse.md; the DDL below is its single definition. Tables carry no
+primary-key index (bulk inserts stay fast); uniqueness is kept by construction:
+
+- observations: :func:`upsert_observations` updates changed values in place (logging each change
+  in `revisions`) and inserts only (series, date) pairs not yet stored;
+- results: :func:`store_universe_results` deletes the rows of every window it writes, then inserts,
+  inside one transaction — a rerun never duplicates rows, and a crash leaves the previous state.
+
+Runs are recorded as `running` when they start (committed at once) and become `succeeded` in the same
+transaction that writes their results. A `running` row found by the next start belongs to a process
+that died: :func:`mark_interrupted` marks it `failed`.
+"""
+
+from __future__ import annotations
+
+import json
+import uuid
+from collections.abc import Iterator, Mapping
+from contextlib import contextmanager
+from dataclasses import dataclass
+from datetime import UTC, date, datetime
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+import duckdb
+import polars as pl
+import pyarrow as pa
+
+from pipeline.errors import WarehouseError, from_duckdb
+
+if TYPE_CHECKING:
+    from pipeline.config import UniverseConfig
+
+__all__ = [
+    "RESULT_TABLES",
+    "SCHEMA_VERSION",
+    "SNAPSHOT_TABLES",
+    "TABLES",
+    "IngestCounts",
+    "begin_run",
+    "connect",
+    "ensure_schema",
+    "fail_run",
+    "finish_batch",
+    "mark_interrupted",
+    "new_id",
+    "query",
+    "read_observations",
+    "start_batch",
+    "store_universe_results",
+    "upsert_observations",
+]
+
+SCHEMA_VERSION = 1
+
+#: table → column definitions. Order of columns is the order of inserts.
+TABLES: dict[str, str] = {
+    "schema_version": "version INTEGER NOT NULL, applied TIMESTAMP NOT NULL",
+    "observations": "series VARCHAR NOT NULL, date DATE NOT NULL, value DOUBLE NOT NULL, "
+    "source VARCHAR NOT NULL, batch_id VARCHAR NOT NULL",
+    "ingest_batches": "batch_id VARCHAR NOT NULL, source VARCHAR NOT NULL, started TIMESTAMP NOT NULL, "
+    "finished TIMESTAMP, status VARCHAR NOT NULL, rows_read BIGINT, rows_new BIGINT, "
+    "rows_revised BIGINT, message VARCHAR",
+    "revisions": "batch_id VARCHAR NOT NULL, series VARCHAR NOT NULL, date DATE NOT NULL, "
+    "old_value DOUBLE NOT NULL, new_value DOUBLE NOT NULL",
+    "runs": "run_id VARCHAR NOT NULL, universe VARCHAR NOT NULL, status VARCHAR NOT NULL, "
+    "started TIMESTAMP NOT NULL, finished TIMESTAMP, config_hash VARCHAR NOT NULL, "
+    "data_fingerprint VARCHAR, code_version VARCHAR, windows_fitted INTEGER, windows_skipped INTEGER, "
+    "windows_failed INTEGER, message VARCHAR",
+    "universes": "universe VARCHAR NOT NULL, config_hash VARCHAR NOT NULL, config_json VARCHAR NOT NULL, "
+    "horizon INTEGER NOT NULL, granger_level DOUBLE NOT NULL, identification VARCHAR NOT NULL, "
+    "run_id VARCHAR NOT NULL",
+    "universe_series": "universe VARCHAR NOT NULL, position INTEGER NOT NULL, series VARCHAR NOT NULL, "
+    "transform VARCHAR NOT NULL",
+    "prepared": "universe VARCHAR NOT NULL, date DATE NOT NULL, series VARCHAR NOT NULL, value DOUBLE",
+    "dropped_dates": "universe VARCHAR NOT NULL, date DATE NOT NULL, reason VARCHAR NOT NULL",
+    "window_fits": "run_id VARCHAR NOT NULL, universe VARCHAR NOT NULL, window_end DATE NOT NULL, "
+    "window_start DATE NOT NULL, nobs INTEGER, lags INTEGER, spectral_radius DOUBLE, stable BOOLEAN, "
+    "aic DOUBLE, bic DOUBLE, hq DOUBLE, fpe DOUBLE, condition_number DOUBLE, portmanteau_p DOUBLE, "
+    "skip_reason VARCHAR",
+    "connectedness": "run_id VARCHAR NOT NULL, universe VARCHAR NOT NULL, window_end DATE NOT NULL, "
+    "total DOUBLE NOT NULL",
+    "directional": "run_id VARCHAR NOT NULL, universe VARCHAR NOT NULL, window_end DATE NOT NULL, "
+    "series VARCHAR NOT NULL, to_others DOUBLE NOT NULL, from_others DOUBLE NOT NULL, net DOUBLE NOT NULL",
+    "pairwise": "run_id VARCHAR NOT NULL, universe VARCHAR NOT NULL, window_end DATE NOT NULL, "
+    "source VARCHAR NOT NULL, target VARCHAR NOT NULL, share DOUBLE NOT NULL",
+    "granger": "run_id VARCHAR NOT NULL, universe VARCHAR NOT NULL, window_end DATE NOT NULL, "
+    "caused VARCHAR NOT NULL, causing VARCHAR NOT NULL, f_stat DOUBLE, p_value DOUBLE",
+    "window_params": "run_id VARCHAR NOT NULL, universe VARCHAR NOT NULL, window_end DATE NOT NULL, "
+    "lags INTEGER NOT NULL, coefs DOUBLE[] NOT NULL, intercept DOUBLE[], trend_coef DOUBLE[], "
+    "sigma_u DOUBLE[] NOT NULL",
+    "responses": "run_id VARCHAR NOT NULL, universe VARCHAR NOT NULL, window_end DATE NOT NULL, "
+    "identification VARCHAR NOT NULL, horizon INTEGER NOT NULL, response DOUBLE[] NOT NULL, "
+    "lower DOUBLE[], upper DOUBLE[], coverage DOUBLE",
+    "decompositions": "run_id VARCHAR NOT NULL, universe VARCHAR NOT NULL, window_end DATE NOT NULL, "
+    "method VARCHAR NOT NULL, horizon INTEGER NOT NULL, share DOUBLE[] NOT NULL",
+}
+
+#: Per-window result tables: one row set per (universe, window_end), replaced on refit.
+RESULT_TABLES = (
+    "window_fits",
+    "connectedness",
+    "directional",
+    "pairwise",
+    "granger",
+    "window_params",
+    "responses",
+    "decompositions",
+)
+
+#: Per-universe tables replaced whole by each successful run that changes anything.
+UNIVERSE_TABLES = ("universes", "universe_series", "prepared", "dropped_dates")
+
+#: What the serving snapshot holds (observations and revisions stay in the working warehouse).
+SNAPSHOT_TABLES = ("schema_version", "ingest_batches", "runs", *UNIVERSE_TABLES, *RESULT_TABLES)
+
+
+def now() -> datetime:
+    """Current time in UTC, naive (DuckDB TIMESTAMP columns hold UTC)."""
+    return datetime.now(UTC).replace(tzinfo=None)
+
+
+def new_id(prefix: str) -> str:
+    """A sortable unique id, e.g. 'run-20240102T220001-3fa9c2d1'."""
+    return f"{prefix}-{now():%Y%m%dT%H%M%S}-{uuid.uuid4().hex[:8]}"
+
+
+def connect(path: str | Path, *, read_only: bool = False) -> duckdb.DuckDBPyConnection:
+    """Open the warehouse at `path` (creating folder, file and schema unless read-only)."""
+    path = Path(path)
+    try:
+        if not read_only:
+            path.parent.mkdir(parents=True, exist_ok=True)
+        elif not path.exists():
+            msg = f"warehouse {str(path)!r} does not exist; run `shockflow run --config FILE` first"
+            raise WarehouseError(msg)
+        con = duckdb.connect(str(path), read_only=read_only)
+    except duckdb.Error as exc:
+        raise from_duckdb(exc, path=path, action="opening") from None
+    except OSError as exc:
+        msg = f"warehouse {str(path)!r}: cannot create its folder ({exc.strerror}); choose another [warehouse] path"
+        raise WarehouseError(msg) from None
+    if not read_only:
+        ensure_schema(con, path=path)
+    return con
+
+
+def ensure_schema(con: duckdb.DuckDBPyConnection, *, path: str | Path = "?") -> None:
+    """Create every table if missing (idempotent) and record the schema version once."""
+    try:
+        con.execute("BEGIN TRANSACTION")
+        for name, columns in TABLES.items():
+            con.execute(f"CREATE TABLE IF NOT EXISTS {name} ({columns})")
+        row = con.execute("SELECT max(version) FROM schema_version").fetchone()
+        found = row[0] if row else None
+        if found is None:
+            con.execute("INSERT INTO schema_version VALUES (?, ?)", [SCHEMA_VERSION, now()])
+        elif found > SCHEMA_VERSION:
+            con.execute("ROLLBACK")
+            msg = (
+                f"warehouse {str(path)!r} has schema version {found}, newer than this shockflow's "
+                f"{SCHEMA_VERSION}; upgrade shockflow or use another [warehouse] path"
+            )
+            raise WarehouseError(msg)
+        con.execute("COMMIT")
+    except duckdb.Error as exc:
+        _rollback(con)
+        raise from_duckdb(exc, path=path, action="creating the schema") from None
+
+
+def _rollback(con: duckdb.DuckDBPyConnection) -> None:
+    try:
+        con.execute("ROLLBACK")
+    except duckdb.Error:
+        pass
+
+
+@contextmanager
+def transaction(con: duckdb.DuckDBPyConnection, *, path: str | Path, action: str) -> Iterator[None]:
+    """BEGIN … COMMIT, rolling back on any error; DuckDB errors become WarehouseError."""
+    try:
+        con.execute("BEGIN TRANSACTION")
+    except duckdb.Error as exc:
+        raise from_duckdb(exc, path=path, action=action) from None
+    try:
+        yield
+        con.execute("COMMIT")
+    except duckdb.Error as exc:
+        _rollback(con)
+        raise from_duckdb(exc, path=path, action=action) from None
+    except BaseException:
+        _rollback(con)
+        raise
+
+
+def query(con: duckdb.DuckDBPyConnection, sql: str, params: list[Any] | None = None) -> pl.DataFrame:
+    """Run a parameterised query and return a polars frame (via Arrow)."""
+    con.complete()  # a pending execute() result (e.g. after fetchone) would block con.sql
+    df = pl.from_arrow(con.sql(sql, params=params or None).to_arrow_table())
+    assert isinstance(df, pl.DataFrame)
+    return df
+
+
+def _insert(con: duckdb.DuckDBPyConnection, table: str, frame: pl.DataFrame) -> None:
+    """Insert `frame` (columns named as the table's) through Arrow."""
+    if frame.height == 0:
+        return
+    view = f"_incoming_{uuid.uuid4().hex[:8]}"
+    con.register(view, frame.to_arrow())
+    try:
+        cols = ", ".join(frame.columns)
+        con.execute(f"INSERT INTO {table} ({cols}) SELECT {cols} FROM {view}")
+    finally:
+        con.unregister(view)
+
+
+# ------------------------------------------------------------------------------------------
+# Ingest
+# ------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class IngestCounts:
+    """What one upsert did."""
+
+    rows_read: int
+    rows_new: int
+    rows_revised: int
+
+    @property
+    def rows_unchanged(self) -> int:
+        return self.rows_read - self.rows_new - self.rows_revised
+
+
+def start_batch(con: duckdb.DuckDBPyConnection, source: str, *, path: str | Path = "?") -> str:
+    """Record the start of one source's ingest; returns its batch_id."""
+    batch_id = new_id("batch")
+    try:
+        con.execute(
+            "INSERT INTO ingest_batches (batch_id, source, started, status) VALUES (?, ?, ?, 'running')",
+            [batch_id, source, now()],
+        )
+    except duckdb.Error as exc:
+        raise from_duckdb(exc, path=path, action=f"recording ingest of source {source!r}") from None
+    return batch_id
+
+
+def finish_batch(
+    con: duckdb.DuckDBPyConnection,
+    batch_id: str,
+    *,
+    status: str,
+    counts: IngestCounts | None = None,
+    message: str | None = None,
+    path: str | Path = "?",
+) -> None:
+    """Close a batch as 'succeeded' or 'failed' with its counts or error message."""
+    c = counts or IngestCounts(0, 0, 0)
+    try:
+        con.execute(
+            "UPDATE ingest_batches SET finished = ?, status = ?, rows_read = ?, rows_new = ?, "
+            "rows_revised = ?, message = ? WHERE batch_id = ?",
+            [now(), status, c.rows_read, c.rows_new, c.rows_revised, message, batch_id],
+        )
+    except duckdb.Error as exc:
+        raise from_duckdb(exc, path=path, action="closing an ingest batch") from None
+
+
+def upsert_observations(
+    con: duckdb.DuckDBPyConnection,
+    frame: pl.DataFrame,
+    *,
+    source: str,
+    batch_id: str,
+    path: str | Path = "?",
+) -> IngestCounts:
+    """Merge long rows (series, date, value) into `observations` in one transaction.
+
+    New (series, date) pairs are inserted; a stored pair whose value differs is updated and the
+    change logged in `revisions` (old and new value, batch); equal values are left untouched, so a
+    rerun writes nothing. Stored rows absent from `frame` are kept (ingest never deletes).
+    """
+    table = frame.select("series", "date", "value").to_arrow()
+    view = f"_incoming_{uuid.uuid4().hex[:8]}"
+    with transaction(con, path=path, action=f"storing observations of source {source!r}"):
+        con.register(view, table)
+        try:
+            con.execute(f"CREATE OR REPLACE TEMP TABLE _inc AS SELECT series, date, value FROM {view}")
+        finally:
+            con.unregister(view)
+        revised = con.execute(
+            "INSERT INTO revisions SELECT ?, i.series, i.date, o.value, i.value FROM _inc i "
+            "JOIN observations o ON o.series = i.series AND o.date = i.date WHERE o.value <> i.value",
+            [batch_id],
+        ).fetchone()
+        if revised and revised[0]:
+            con.execute(
+                "UPDATE observations AS o SET value = i.value, source = ?, batch_id = ? FROM _inc i "
+                "WHERE o.series = i.series AND o.date = i.date AND o.value <> i.value",
+                [source, batch_id],
+            )
+        new = con.execute(
+            "INSERT INTO observations SELECT i.series, i.date, i.value, ?, ? FROM _inc i "
+            "ANTI JOIN observations o ON o.series = i.series AND o.date = i.date",
+            [source, batch_id],
+        ).fetchone()
+        con.execute("DROP TABLE _inc")
+    return IngestCounts(
+        rows_read=frame.height, rows_new=int(new[0]) if new else 0, rows_revised=int(revised[0]) if revised else 0
+    )
+
+
+def read_observations(con: duckdb.DuckDBPyConnection, series: list[str] | tuple[str, ...]) -> pl.DataFrame:
+    """Long rows (series, date, value) of the given series, sorted."""
+    return query(
+        con,
+        "SELECT series, date, value FROM observations WHERE list_contains(?, series) ORDER BY series, date",
+        [list(series)],
+    )
+
+
+# ------------------------------------------------------------------------------------------
+# Runs and results
+# ------------------------------------------------------------------------------------------
+
+
+def mark_interrupted(con: duckdb.DuckDBPyConnection, *, path: str | Path = "?") -> int:
+    """Mark runs and ingest batches left `running` by a dead process as failed; returns how many."""
+    message = "interrupted: the process ended before this finished (killed or crashed)"
+    with transaction(con, path=path, action="marking interrupted runs"):
+        row = con.execute(
+            "UPDATE runs SET status = 'failed', finished = ?, message = ? WHERE status = 'running'",
+            [now(), message],
+        ).fetchone()
+        con.execute(
+            "UPDATE ingest_batches SET status = 'failed', finished = ?, message = ? WHERE status = 'running'",
+            [now(), message],
+        )
+    return int(row[0]) if row else 0
+
+
+def begin_run(
+    con: duckdb.DuckDBPyConnection,
+    *,
+    universe: str,
+    config_hash: str,
+    data_fingerprint: str | None,
+    code_version: str,
+    path: str | Path = "?",
+) -> str:
+    """Record a `running` run of `universe` (committed at once); returns its run_id."""
+    run_id = new_id("run")
+    try:
+        con.execute(
+            "INSERT INTO runs (run_id, universe, status, started, config_hash, data_fingerprint, code_version) "
+            "VALUES (?, ?, 'running', ?, ?, ?, ?)",
+            [run_id, universe, now(), config_hash, data_fingerprint, code_version],
+        )
+    except duckdb.Error as exc:
+        raise from_duckdb(exc, path=path, action=f"recording a run of universe {universe!r}") from None
+    return run_id
+
+
+def fail_run(con: duckdb.DuckDBPyConnection, run_id: str, message: str, *, path: str | Path = "?") -> None:
+    """Mark `run_id` failed with `message` (its results were never written)."""
+    try:
+        con.execute(
+            "UPDATE runs SET status = 'failed', finished = ?, message = ?, windows_fitted = 0 WHERE run_id = ?",
+            [now(), message, run_id],
+        )
+    except duckdb.Error as exc:
+        raise from_duckdb(exc, path=path, action="recording a failed run") from None
+
+
+def store_universe_results(
+    con: duckdb.DuckDBPyConnection,
+    *,
+    run_id: str,
+    universe: UniverseConfig,
+    tables: Mapping[str, pl.DataFrame],
+    replace_ends: list[date] | None,
+    prepared: pl.DataFrame | None,
+    dropped: pl.DataFrame | None,
+    counts: Mapping[str, int],
+    message: str | None = None,
+    path: str | Path = "?",
+) -> None:
+    """Write one universe's run in ONE transaction and mark the run succeeded.
+
+    tables: result table name → frame with the table's columns (run_id and universe included).
+    replace_ends: window ends whose old rows are deleted first (None = delete all of the universe's
+    window rows: a full refit). prepared / dropped: the universe's new prepared data and dropped
+    dates (None = leave the stored ones, used when nothing changed).
+    """
+    name = universe.name
+    with transaction(con, path=path, action=f"storing results of universe {name!r}"):
+        if replace_ends is None:
+            for t in RESULT_TABLES:
+                con.execute(f"DELETE FROM {t} WHERE universe = ?", [name])
+        elif replace_ends:
+            ends_view = f"_ends_{uuid.uuid4().hex[:8]}"
+            con.register(ends_view, pa.table({"window_end": pa.array(replace_ends, type=pa.date32())}))
+            try:
+                for t in RESULT_TABLES:
+                    con.execute(
+                        f"DELETE FROM {t} WHERE universe = ? AND window_end IN (SELECT window_end FROM {ends_view})",
+                        [name],
+                    )
+            finally:
+                con.unregister(ends_view)
+        for t in RESULT_TABLES:
+            if t in tables:
+                _insert(con, t, tables[t])
+        if prepared is not None:
+            for t in UNIVERSE_TABLES:
+                con.execute(f"DELETE FROM {t} WHERE universe = ?", [name])
+            con.execute(
+                "INSERT INTO universes VALUES (?, ?, ?, ?, ?, ?, ?)",
+                [
+                    name,
+                    universe.config_hash,
+                    json.dumps(universe.fit_settings(), sort_keys=True),
+                    universe.horizon,
+                    universe.granger_level,
+                    universe.identification,
+                    run_id,
+                ],
+            )
+            _insert(
+                con,
+                "universe_series",
+                pl.DataFrame(
+                    {
+                        "universe": [name] * len(universe.series),
+                        "position": list(range(len(universe.series))),
+                        "series": [s.name for s in universe.series],
+                        "transform": [s.transform for s in universe.series],
+                    },
+                    schema={"universe": pl.String, "position": pl.Int32, "series": pl.String, "transform": pl.String},
+                ),
+            )
+            _insert(con, "prepared", prepared.select(pl.lit(name).alias("universe"), "date", "series", "value"))
+            if dropped is not None:
+                _insert(con, "dropped_dates", dropped.select(pl.lit(name).alias("universe"), "date", "reason"))
+        con.execute(
+            "UPDATE runs SET status = 'succeeded', finished = ?, windows_fitted = ?, windows_skipped = ?, "
+            "windows_failed = ?, message = ? WHERE run_id = ?",
+            [
+                now(),
+                counts.get("fitted", 0),
+                counts.get("skipped", 0),
+                counts.get("failed", 0),
+                message,
+                run_id,
+            ],
+        )

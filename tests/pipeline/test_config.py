@@ -1,0 +1,152 @@
+"""Config loading: valid files, defaults, path resolution, hashes, and every kind of bad input."""
+
+from __future__ import annotations
+
+import dataclasses
+from pathlib import Path
+
+import pytest
+
+from pipeline.config import check_series_coverage, load_config, load_config_text
+from pipeline.errors import ConfigError
+from tests.pipeline.helpers import MINIMAL, minimal_config, write_config
+
+
+def test_minimal_config_defaults_and_paths(tmp_path: Path) -> None:
+    cfg = minimal_config(tmp_path)
+    assert cfg.warehouse.path == tmp_path / "wh.duckdb"
+    assert cfg.warehouse.snapshot == tmp_path / "serving.duckdb"
+    src = cfg.sources[0]
+    assert src.path == str(tmp_path / "prices.csv")
+    assert (src.layout, src.date_column, src.date_format) == ("wide", "date", "%Y-%m-%d")
+    u = cfg.universes[0]
+    assert u.names == ("A", "B")
+    assert [s.transform for s in u.series] == ["log_return", "log_return"]
+    assert (u.frequency, u.step, u.trend, u.horizon, u.identification) == ("business_day", 1, "c", 10, "generalized")
+    assert cfg.schedule.cron == "0 22 * * 1-5"
+    assert cfg.export.directory == tmp_path / "exports"
+    assert cfg.dashboard.host == "127.0.0.1"
+    assert cfg.execution.runner == "local"
+
+
+def test_config_is_frozen_and_compares_by_value(tmp_path: Path) -> None:
+    a = minimal_config(tmp_path)
+    b = minimal_config(tmp_path)
+    assert a == b
+    assert hash(a.universes[0]) == hash(b.universes[0])
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        a.universes[0].window = 10  # type: ignore[misc]
+    assert "UniverseConfig(name='pair'" in repr(a.universes[0])
+
+
+def test_secrets_do_not_show_in_repr(tmp_path: Path) -> None:
+    cfg = minimal_config(tmp_path, '[dashboard]\ntoken = "s3cret-value"\n')
+    assert "s3cret-value" not in repr(cfg)
+    assert cfg.dashboard.credentials({})["token"] == "s3cret-value"
+
+
+def test_dashboard_credentials_from_named_variables(tmp_path: Path) -> None:
+    cfg = minimal_config(tmp_path, '[dashboard]\nhost = "0.0.0.0"\ntoken_env = "SF_TOKEN"\n')
+    assert cfg.dashboard.credentials({"SF_TOKEN": "abc"})["token"] == "abc"
+    assert cfg.dashboard.credentials({})["token"] is None
+
+
+def test_series_tables_with_own_transform(tmp_path: Path) -> None:
+    cfg = load_config(
+        write_config(
+            tmp_path,
+            MINIMAL.replace('series = ["A", "B"]', 'series = ["A", {name = "B", transform = "diff"}]\ntransform = "pct_change"'),
+        )
+    )
+    assert [(s.name, s.transform) for s in cfg.universes[0].series] == [("A", "pct_change"), ("B", "diff")]
+
+
+def test_config_hash_is_stable_and_tracks_fit_settings(tmp_path: Path) -> None:
+    base = minimal_config(tmp_path).universes[0]
+    same = minimal_config(tmp_path).universes[0]
+    assert base.config_hash == same.config_hash and len(base.config_hash) == 16
+    renamed = dataclasses.replace(base, name="other")
+    assert renamed.config_hash == base.config_hash  # the name is not a fitting setting
+    for change in ({"window": 41}, {"step": 2}, {"horizon": 5}, {"trend": "ct"}, {"granger_level": 0.1}):
+        assert dataclasses.replace(base, **change).config_hash != base.config_hash, change
+
+
+@pytest.mark.parametrize(
+    ("old", "new", "expected"),
+    [
+        ('window = 40', 'windw = 40', r"`universes\['pair'\].windw` is not a known key \(did you mean 'window'\?\)"),
+        ('[warehouse]', '[warehous]', r"`warehous` is not a known section \(did you mean 'warehouse'\?\)"),
+        ('kind = "csv"', 'kind = "cvs"', r"`sources\['prices'\].kind` is 'cvs' \(did you mean 'csv'\?\); use one of"),
+        ('lags = 1', 'lags = 1\ntrend = "linear"', r"`universes\['pair'\].trend` is 'linear'.*use one of: n, c, ct"),
+        ('window = 40', 'window = "40"', r"`universes\['pair'\].window` must be int, got '40'"),
+        ('window = 40', '', r"`universes\['pair'\].window` is required but missing"),
+        ('lags = 1', '', r"`universes\['pair'\].lags` is missing; set either `lags = 2` or a \[universes.lag_selection\]"),
+        ('lags = 1', 'lags = 1\n[universes.lag_selection]\ncriterion = "aic"\nmax_lags = 4', r"lags` and `lag_selection` are both set"),
+        ('path = "prices.csv"', '', r"`sources\['prices'\].path` is required for kind = 'csv'"),
+        ('series = ["A", "B"]', 'series = ["A", "A"]', r"lists 'A' twice"),
+        ('lags = 1', 'lags = 1\ntransform = "logret"', r"`universes\['pair'\].transform` is 'logret'.*use one of: log_return"),
+        ('lags = 1', 'lags = 1\nidentification = "cholesky"\ncholesky_order = ["A", "C"]', r"not an ordering of the universe's series"),
+    ],
+)
+def test_bad_keys_name_key_file_and_fix(tmp_path: Path, old: str, new: str, expected: str) -> None:
+    assert old in MINIMAL
+    path = write_config(tmp_path, MINIMAL.replace(old, new, 1))
+    with pytest.raises(ConfigError, match=expected) as info:
+        load_config(path)
+    assert str(path) in str(info.value)
+    assert "\n" not in str(info.value)
+
+
+def test_window_too_short_for_lags_times_series(tmp_path: Path) -> None:
+    text = MINIMAL.replace('series = ["A", "B"]', 'series = ["A", "B", "C", "D", "E"]').replace("window = 40", "window = 20").replace("lags = 1", "lags = 4")
+    # 5 series × 4 lags + intercept = 21 coefficients per equation; window 20 leaves 16 observations.
+    with pytest.raises(ConfigError, match=r"window` = 20 leaves 16 observations for 21 coefficients per equation.*use window >= 46"):
+        load_config_text(text, tmp_path / "c.toml")
+
+
+def test_missing_sections_and_empty_lists(tmp_path: Path) -> None:
+    with pytest.raises(ConfigError, match=r"`sources` is required but missing; add at least one \[\[sources\]\]"):
+        load_config_text("[[universes]]\nname='u'\nseries=['A']\nwindow=30\nlags=1\n", tmp_path / "c.toml")
+    with pytest.raises(ConfigError, match="not valid TOML"):
+        load_config_text("[[sources]\n", tmp_path / "c.toml")
+    with pytest.raises(ConfigError, match="does not exist; pass --config"):
+        load_config(tmp_path / "nope.toml")
+
+
+def test_not_utf8_config(tmp_path: Path) -> None:
+    path = tmp_path / "c.toml"
+    path.write_bytes(b"# caf\xe9\n")
+    with pytest.raises(ConfigError, match="not UTF-8 at byte 5"):
+        load_config(path)
+
+
+@pytest.mark.parametrize(
+    ("section", "expected"),
+    [
+        ('[schedule]\ncron = "0 25 * * *"', r"`schedule.cron` is '0 25 \* \* \*'"),
+        ('[schedule]\ncron = "every night"', r"`schedule.cron` is 'every night' with 2 fields; use 5 fields"),
+        ('[schedule]\ntimezone = "Mars/Olympus"', r"not a known IANA time zone"),
+        ('[export]\nformats = ["html", "docx"]', r"`export.formats` contains 'docx'"),
+        ('[dashboard]\nhost = "0.0.0.0"', r"reachable from other machines, with no access control"),
+        ('[dashboard]\nusername = "ann"', r"`dashboard.password` is missing"),
+        ('[execution]\nrunner = "dask"', r"`execution.address` is required when runner = 'dask'"),
+        ('[execution]\nrunner = "dask"\naddress = "10.0.0.1:8786"', r"use 'local' or a scheduler address"),
+    ],
+)
+def test_bad_sections(tmp_path: Path, section: str, expected: str) -> None:
+    with pytest.raises(ConfigError, match=expected):
+        load_config_text(MINIMAL + section + "\n", tmp_path / "c.toml")
+
+
+def test_series_no_source_provides(tmp_path: Path) -> None:
+    cfg = minimal_config(tmp_path)
+    check_series_coverage(cfg, {"prices": {"A", "B", "C"}})
+    with pytest.raises(ConfigError, match=r"universe 'pair' lists series 'B', which no source provides \(did you mean 'BB'\?\)"):
+        check_series_coverage(cfg, {"prices": {"A", "BB"}})
+
+
+def test_universe_lookup_did_you_mean(tmp_path: Path) -> None:
+    cfg = minimal_config(tmp_path)
+    assert cfg.universe("pair").name == "pair"
+    with pytest.raises(ConfigError, match=r"no universe named 'pari' \(did you mean 'pair'\?\)"):
+        cfg.universe("pari")
