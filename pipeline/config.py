@@ -11,7 +11,8 @@ Sections (every key is documented in the README):
 - ``[[sources]]`` name, kind, path | url | query (+ database), layout, date_column, date_format,
   series_column, value_column, delimiter, timeout, retries, backoff, dataset (demo kind)
 - ``[[universes]]`` name, series, transform, frequency, max_fill_gap, window, step, expanding,
-  lags | [universes.lag_selection], trend, horizon, identification, cholesky_order,
+  lags | [universes.lag_selection], trend, horizon, identification, cholesky_order (the series
+  are then stored and fitted in that order, which is the Cholesky order),
   [universes.bands], granger_level, portmanteau_lags
 - ``[schedule]`` cron, timezone
 - ``[export]`` directory, formats
@@ -633,6 +634,9 @@ def _load_universe(t: _Table) -> UniverseConfig:
                 "list every series of the universe exactly once",
             )
         cholesky_order = tuple(order_raw)
+        # The column order IS the Cholesky order: series are stored in this order.
+        by_name = {s.name: s for s in series}
+        series = [by_name[name] for name in cholesky_order]
     if not 0 < granger_level < 1:
         t.fail(t.key("granger_level"), f"is {granger_level}", "use a level in (0, 1), e.g. 0.05")
     if bands.method == "asymptotic" and identification != "cholesky":

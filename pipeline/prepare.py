@@ -230,7 +230,7 @@ def prepare_universe(observations: pl.DataFrame, universe: UniverseConfig) -> Pr
         if col.size > 1 and np.ptp(col) == 0.0:
             msg = (
                 f"universe {universe.name!r}: series {name!r} is constant after transform "
-                f"{specs[name]!r} ({col[0]!r} on every date); remove it from the universe or check the source"
+                f"{specs[name]!r} ({float(col[0])!r} on every date); remove it from the universe or check the source"
             )
             raise DataError(msg)
     dropped = pl.DataFrame(reasons, schema={"date": pl.Date, "reason": pl.String}, orient="row").sort("date")

@@ -150,3 +150,9 @@ def test_universe_lookup_did_you_mean(tmp_path: Path) -> None:
     assert cfg.universe("pair").name == "pair"
     with pytest.raises(ConfigError, match=r"no universe named 'pari' \(did you mean 'pair'\?\)"):
         cfg.universe("pari")
+
+
+def test_cholesky_order_sets_the_column_order(tmp_path: Path) -> None:
+    text = MINIMAL.replace("lags = 1", 'lags = 1\nidentification = "cholesky"\ncholesky_order = ["B", "A"]')
+    u = load_config_text(text, tmp_path / "c.toml").universes[0]
+    assert u.names == ("B", "A") and u.cholesky_order == ("B", "A")
