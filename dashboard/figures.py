@@ -1,4 +1,9 @@
-"""Plotly figure builders: arrays and labels in, `go.Figure` out. No data access, no Dash.
+"""Plotly figure builders: arrays and labels in, a plotly figure (as a plain dict) out.
+
+No data access, no Dash. Figures are built as plain ``{"data": [...], "layout": {...}}`` dicts in
+plotly.js's schema rather than through ``plotly.graph_objects``: validating a 36-panel grid through
+graph objects takes about half a second, the dict a few milliseconds, and dcc.Graph draws both
+alike. `plotly.graph_objects.Figure(fig)` accepts every figure built here (the tests check that).
 
 Colours are colour-blind safe: series use the Okabe–Ito palette (Okabe & Ito 2008, "Color
 Universal Design"), sequential maps use cividis (Nuñez, Anderton & Renslow 2018), and diverging maps
@@ -11,14 +16,14 @@ from __future__ import annotations
 import datetime as dt
 import math
 from collections.abc import Sequence
+from typing import Any
 
 import numpy as np
-import plotly.graph_objects as go
-from plotly.subplots import make_subplots
 
 __all__ = [
     "DIVERGING",
     "OKABE_ITO",
+    "Figure",
     "cycles_figure",
     "granger_figure",
     "health_figure",
@@ -31,6 +36,8 @@ __all__ = [
     "shares_figure",
     "stress_runs",
 ]
+
+Figure = dict[str, Any]
 
 #: Okabe–Ito colours in the order series get them (black last: it doubles as the text colour).
 OKABE_ITO = (
@@ -45,38 +52,119 @@ OKABE_ITO = (
 )
 BLUE, ORANGE, GREEN, VERMILLION, SKY, PURPLE = OKABE_ITO[:6]
 GREY = "#7f7f7f"
+GRID = "#e5e8ec"
 #: Diverging blue → white → vermillion (negative → zero → positive).
 DIVERGING = [[0.0, BLUE], [0.5, "#f7f7f7"], [1.0, VERMILLION]]
 SEQUENTIAL = "Cividis"
-FONT = dict(family="system-ui, -apple-system, Segoe UI, Roboto, sans-serif", size=12)
-
-
-def _base(fig: go.Figure, *, height: int, title: str | None = None) -> go.Figure:
-    fig.update_layout(
-        template="plotly_white",
-        font=FONT,
-        height=height,
-        margin=dict(l=60, r=20, t=60 if title else 30, b=40),
-        title=dict(text=title, x=0.0, xanchor="left", font=dict(size=14)) if title else None,
-        hoverlabel=dict(font=FONT),
-    )
-    return fig
+FONT = {"family": "system-ui, -apple-system, Segoe UI, Roboto, sans-serif", "size": 12, "color": "#1b1b1b"}
 
 
 def colour(i: int) -> str:
     return OKABE_ITO[i % len(OKABE_ITO)]
 
 
-def message_figure(text: str, *, height: int = 300) -> go.Figure:
+def _list(values: Any) -> list[Any]:
+    """JSON-ready list: NaN/inf become None (a gap), numpy scalars become floats."""
+    out = []
+    for v in np.asarray(values, dtype=float).ravel().tolist():
+        out.append(v if math.isfinite(v) else None)
+    return out
+
+
+def _matrix(z: np.ndarray) -> list[list[Any]]:
+    return [_list(row) for row in np.asarray(z, dtype=float)]
+
+
+def _dates(values: Sequence[Any]) -> list[str]:
+    return [v.isoformat() if isinstance(v, (dt.date, dt.datetime)) else str(v) for v in values]
+
+
+def _axis(**extra: Any) -> dict[str, Any]:
+    base = {"gridcolor": GRID, "zerolinecolor": "#b8bec6", "linecolor": "#8a9099", "automargin": True}
+    base.update(extra)
+    return base
+
+
+def _layout(*, height: int, title: str | None = None, **extra: Any) -> dict[str, Any]:
+    layout: dict[str, Any] = {
+        "font": FONT,
+        "height": height,
+        "paper_bgcolor": "white",
+        "plot_bgcolor": "white",
+        "margin": {"l": 60, "r": 20, "t": 60 if title else 30, "b": 40},
+        "hoverlabel": {"font": FONT},
+        "legend": {"bgcolor": "rgba(255,255,255,0.8)"},
+        "colorway": list(OKABE_ITO),
+    }
+    if title:
+        layout["title"] = {"text": title, "x": 0.0, "xanchor": "left", "xref": "paper",
+                           "font": {"size": 14}}  # fmt: skip
+    layout.update(extra)
+    return layout
+
+
+def _text(text: str, x: float, y: float, **extra: Any) -> dict[str, Any]:
+    ann = {"text": text, "x": x, "y": y, "xref": "paper", "yref": "paper", "showarrow": False,
+           "font": {"size": 12}}  # fmt: skip
+    ann.update(extra)
+    return ann
+
+
+def _grid(
+    rows: int,
+    cols: int,
+    *,
+    hgap: float,
+    vgap: float,
+    share_x: bool = False,
+    share_y: bool = False,
+) -> tuple[dict[str, Any], list[list[tuple[str, str]]]]:
+    """Axes for a rows × cols grid of panels, top-left first.
+
+    Returns the layout's axis entries and, per panel [r][c], its trace references ("x3", "y3").
+    """
+    w = (1.0 - (cols - 1) * hgap) / cols
+    h = (1.0 - (rows - 1) * vgap) / rows
+    layout: dict[str, Any] = {}
+    refs: list[list[tuple[str, str]]] = []
+    for r in range(rows):
+        row = []
+        for c in range(cols):
+            k = r * cols + c + 1
+            suffix = "" if k == 1 else str(k)
+            x0 = c * (w + hgap)
+            y1 = 1.0 - r * (h + vgap)
+            xa = _axis(domain=[x0, x0 + w], anchor=f"y{suffix}")
+            ya = _axis(domain=[max(0.0, y1 - h), y1], anchor=f"x{suffix}")
+            if share_x and k > 1:
+                xa["matches"] = "x"
+            if share_x and r < rows - 1:
+                xa["showticklabels"] = False
+            if share_y and c > 0:
+                ya["matches"] = f"y{r * cols + 1 if r * cols + 1 > 1 else ''}"
+                ya["showticklabels"] = False
+            layout[f"xaxis{suffix}"] = xa
+            layout[f"yaxis{suffix}"] = ya
+            row.append((f"x{suffix}", f"y{suffix}"))
+        refs.append(row)
+    return layout, refs
+
+
+def _axis_key(ref: str) -> str:
+    """ "x3" → "xaxis3", "y" → "yaxis"."""
+    return ref[0] + "axis" + ref[1:]
+
+
+def message_figure(text: str, *, height: int = 300) -> Figure:
     """An empty chart that says why it is empty (no data, bad input, missing snapshot)."""
-    fig = go.Figure()
-    fig.add_annotation(
-        text=text, x=0.5, y=0.5, xref="paper", yref="paper", showarrow=False,
-        font=dict(size=14, color="#333"),
-    )  # fmt: skip
-    fig.update_xaxes(visible=False)
-    fig.update_yaxes(visible=False)
-    return _base(fig, height=height)
+    return {
+        "data": [],
+        "layout": _layout(
+            height=height,
+            xaxis={"visible": False}, yaxis={"visible": False},
+            annotations=[_text(text, 0.5, 0.5, font={"size": 14, "color": "#333"})],
+        ),
+    }  # fmt: skip
 
 
 # ---------------------------------------------------------------------------------------------
@@ -113,57 +201,76 @@ def index_figure(
     reference_end: dt.date | None,
     threshold: float | None,
     universe: str,
-) -> go.Figure:
+) -> Figure:
     """The total connectedness index (percent) over every stored window, with a range slider.
 
     The x-range shows the chosen date window; the slider below shows the whole history with the
     window highlighted. Windows whose index is at or above `threshold` (a high quantile of the
     history) are shaded as stress periods; a dashed line marks the window the other views use.
     """
-    fig = go.Figure()
-    fig.add_trace(
-        go.Scatter(
-            x=list(dates), y=list(totals), mode="lines", name="total connectedness",
-            line=dict(color=BLUE, width=1.8),
-            hovertemplate="window ending %{x|%Y-%m-%d}<br>index %{y:.1f}%<extra></extra>",
-        )
-    )  # fmt: skip
+    data: list[dict[str, Any]] = [
+        {
+            "type": "scatter", "mode": "lines", "name": "total connectedness",
+            "x": _dates(dates), "y": _list(totals), "line": {"color": BLUE, "width": 1.8},
+            "hovertemplate": "window ending %{x|%Y-%m-%d}<br>index %{y:.1f}%<extra></extra>",
+        }
+    ]  # fmt: skip
+    shapes: list[dict[str, Any]] = []
     if threshold is not None:
         for a, b in stress_runs(dates, totals, threshold):
-            fig.add_vrect(x0=a, x1=b if b != a else b + dt.timedelta(days=1), fillcolor=ORANGE,
-                          opacity=0.25, line_width=0, layer="below")
-        fig.add_trace(
-            go.Scatter(
-                x=[None], y=[None], mode="markers", name=f"stress: index ≥ {threshold:.1f}%",
-                marker=dict(symbol="square", size=12, color=ORANGE, opacity=0.5),
-            )
-        )
+            b_end = b if b != a else b + dt.timedelta(days=1)
+            shapes.append({
+                "type": "rect", "xref": "x", "yref": "paper", "x0": a.isoformat(),
+                "x1": b_end.isoformat(), "y0": 0, "y1": 1, "fillcolor": ORANGE, "opacity": 0.28,
+                "line": {"width": 0}, "layer": "below",
+            })  # fmt: skip
+        data.append({
+            "type": "scatter", "mode": "markers", "x": [None], "y": [None],
+            "name": f"stress: index ≥ {threshold:.1f}%",
+            "marker": {"symbol": "square", "size": 12, "color": ORANGE, "opacity": 0.5},
+        })  # fmt: skip
     if reference_end is not None:
-        fig.add_vline(x=reference_end, line=dict(color=VERMILLION, dash="dash", width=1.5))
-        fig.add_trace(
-            go.Scatter(
-                x=[None], y=[None], mode="lines", name="window used by the views",
-                line=dict(color=VERMILLION, dash="dash"),
-            )
-        )
-    _base(fig, height=270, title=f"Total connectedness, {universe} (percent of forecast-error variance from other series)")
-    fig.update_layout(
-        margin=dict(l=60, r=20, t=50, b=10),
-        legend=dict(orientation="h", y=1.02, x=1.0, xanchor="right", yanchor="bottom"),
+        shapes.append({
+            "type": "line", "xref": "x", "yref": "paper", "x0": reference_end.isoformat(),
+            "x1": reference_end.isoformat(), "y0": 0, "y1": 1,
+            "line": {"color": VERMILLION, "dash": "dash", "width": 1.5},
+        })  # fmt: skip
+        data.append({
+            "type": "scatter", "mode": "lines", "x": [None], "y": [None],
+            "name": "window the views use", "line": {"color": VERMILLION, "dash": "dash"},
+        })  # fmt: skip
+    layout = _layout(
+        height=270,
+        title=f"Total connectedness, {universe} (percent of forecast-error variance from other series)",
+        margin={"l": 60, "r": 20, "t": 50, "b": 10},
+        legend={"orientation": "h", "y": 1.02, "x": 1.0, "xanchor": "right", "yanchor": "bottom"},
+        shapes=shapes,
+        xaxis=_axis(
+            type="date", range=[start.isoformat(), end.isoformat()],
+            rangeslider={"visible": True, "thickness": 0.18},
+        ),
+        yaxis=_axis(title={"text": "index, %"}, rangemode="tozero"),
         uirevision=universe,
-    )
-    fig.update_xaxes(
-        range=[start.isoformat(), end.isoformat()],
-        rangeslider=dict(visible=True, thickness=0.18),
-        type="date", title=None,
     )  # fmt: skip
-    fig.update_yaxes(title="index, %", rangemode="tozero")
-    return fig
+    return {"data": data, "layout": layout}
 
 
 # ---------------------------------------------------------------------------------------------
 # shock paths
 # ---------------------------------------------------------------------------------------------
+
+
+def _grid_titles(refs: list[list[tuple[str, str]]], layout: dict[str, Any],
+                 cols: Sequence[str], rows: Sequence[str]) -> list[dict[str, Any]]:
+    anns = []
+    for c, label in enumerate(cols):
+        dom = layout[_axis_key(refs[0][c][0])]["domain"]
+        anns.append(_text(label, (dom[0] + dom[1]) / 2, 1.0, yanchor="bottom", font={"size": 12}))
+    for r, label in enumerate(rows):
+        dom = layout[_axis_key(refs[r][-1][1])]["domain"]
+        anns.append(_text(label, 1.005, (dom[0] + dom[1]) / 2, xanchor="left", textangle=90,
+                          font={"size": 11}))  # fmt: skip
+    return anns
 
 
 def responses_figure(
@@ -174,98 +281,88 @@ def responses_figure(
     upper: np.ndarray | None = None,
     title: str,
     yunit: str,
-) -> go.Figure:
+) -> Figure:
     """Grid of impulse responses: rows are responding series, columns are shocked series.
 
-    response, lower, upper : (H+1, n, n) [horizon, response, shock].
+    response, lower, upper : (H+1, n, n) [horizon, response, shock]. Each panel's response trace
+    carries ``meta = [response name, shock name]``.
     """
     H1, n, _ = response.shape
     h = list(range(H1))
-    fig = make_subplots(
-        rows=n, cols=n, shared_xaxes=True,
-        column_titles=[f"shock: {s}" for s in names], row_titles=[f"{s}" for s in names],
-        horizontal_spacing=0.03, vertical_spacing=0.03,
-    )  # fmt: skip
+    axes, refs = _grid(n, n, hgap=0.035 if n < 6 else 0.025, vgap=0.04, share_x=True)
+    data: list[dict[str, Any]] = []
     for i in range(n):
         for j in range(n):
+            xr, yr = refs[i][j]
             first = i == 0 and j == 0
             if lower is not None and upper is not None:
-                fig.add_trace(
-                    go.Scatter(
-                        x=h + h[::-1],
-                        y=list(upper[:, i, j]) + list(lower[::-1, i, j]),
-                        fill="toself", fillcolor="rgba(86,180,233,0.30)", line=dict(width=0),
-                        name="band", legendgroup="band", showlegend=first, hoverinfo="skip",
-                    ),
-                    row=i + 1, col=j + 1,
-                )  # fmt: skip
-            fig.add_trace(
-                go.Scatter(
-                    x=h, y=response[:, i, j], mode="lines", line=dict(color=BLUE, width=1.6),
-                    name="response", legendgroup="response", showlegend=first,
-                    meta=[names[i], names[j]],
-                    hovertemplate=(
-                        f"{names[i]} after a shock to {names[j]}<br>"
-                        "h=%{x}: %{y:.4g}<extra></extra>"
-                    ),
-                ),
-                row=i + 1, col=j + 1,
-            )  # fmt: skip
-            fig.add_hline(y=0, line=dict(color=GREY, width=0.8), row=i + 1, col=j + 1)
-    height = max(360, 40 + 115 * n)
-    _base(fig, height=height, title=title)
-    fig.update_layout(
-        legend=dict(orientation="h", y=1.0, x=1.0, xanchor="right", yanchor="bottom"),
-        margin=dict(l=50, r=60, t=90, b=50),
-    )
-    fig.update_xaxes(title=None, tickfont=dict(size=10))
-    fig.update_yaxes(tickfont=dict(size=10), exponentformat="e", showexponent="all")
+                data.append({
+                    "type": "scatter", "x": h + h[::-1],
+                    "y": _list(upper[:, i, j]) + _list(lower[::-1, i, j]),
+                    "fill": "toself", "fillcolor": "rgba(86,180,233,0.30)", "line": {"width": 0},
+                    "name": "band", "legendgroup": "band", "showlegend": first, "hoverinfo": "skip",
+                    "xaxis": xr, "yaxis": yr,
+                })  # fmt: skip
+            data.append({
+                "type": "scatter", "mode": "lines", "x": h, "y": _list(response[:, i, j]),
+                "line": {"color": BLUE, "width": 1.6}, "name": "response",
+                "legendgroup": "response", "showlegend": first, "meta": [names[i], names[j]],
+                "hovertemplate": f"{names[i]} after a shock to {names[j]}<br>h=%{{x}}: %{{y:.4g}}<extra></extra>",
+                "xaxis": xr, "yaxis": yr,
+            })  # fmt: skip
+            axes[_axis_key(yr)].update(zeroline=True, zerolinewidth=1, tickfont={"size": 10},
+                                       exponentformat="e")  # fmt: skip
+            axes[_axis_key(xr)].update(tickfont={"size": 10})
     for j in range(n):
-        fig.update_xaxes(title_text="horizon (observations)", row=n, col=j + 1)
-    fig.add_annotation(
-        text=f"rows: responding series; columns: shocked series; units: {yunit}",
-        x=0, y=-0.06 if n > 2 else -0.15, xref="paper", yref="paper", showarrow=False,
-        xanchor="left", font=dict(size=11, color="#444"),
+        axes[_axis_key(refs[n - 1][j][0])]["title"] = {"text": "horizon", "font": {"size": 11}}
+    anns = _grid_titles(refs, axes, [f"shock: {s}" for s in names], list(names))
+    anns.append(_text(f"rows: responding series; columns: shocked series; units: {yunit}",
+                      0.0, -0.07 if n > 2 else -0.18, xanchor="left", yanchor="top",
+                      font={"size": 11, "color": "#444"}))  # fmt: skip
+    layout = _layout(
+        height=max(380, 60 + 112 * n), title=title,
+        margin={"l": 55, "r": 40, "t": 90, "b": 70},
+        legend={"orientation": "h", "x": 1.0, "xanchor": "right", "yanchor": "bottom",
+                "yref": "container", "y": 0.99},
+        annotations=anns, **axes,
     )  # fmt: skip
-    return fig
+    return {"data": data, "layout": layout}
 
 
 def responses_compare_figure(
     first: np.ndarray, second: np.ndarray, names: Sequence[str], *, labels: tuple[str, str],
     title: str,
-) -> go.Figure:
+) -> Figure:
     """Two response grids (H+1, n, n) overlaid: the first date window solid, the second dashed."""
     H1, n, _ = first.shape
     h = list(range(H1))
-    fig = make_subplots(
-        rows=n, cols=n, shared_xaxes=True,
-        column_titles=[f"shock: {s}" for s in names], row_titles=list(names),
-        horizontal_spacing=0.03, vertical_spacing=0.03,
-    )  # fmt: skip
+    axes, refs = _grid(n, n, hgap=0.035 if n < 6 else 0.025, vgap=0.04, share_x=True)
+    data: list[dict[str, Any]] = []
+    styles = ({"color": BLUE, "width": 1.6}, {"color": ORANGE, "width": 1.6, "dash": "dash"})
     for i in range(n):
         for j in range(n):
-            for k, (arr, label, style) in enumerate(
-                ((first, labels[0], dict(color=BLUE)), (second, labels[1], dict(color=ORANGE, dash="dash")))
-            ):
-                fig.add_trace(
-                    go.Scatter(
-                        x=h, y=arr[:, i, j], mode="lines", line=dict(width=1.6, **style),
-                        name=label, legendgroup=str(k), showlegend=(i == 0 and j == 0),
-                        hovertemplate=f"{label}<br>{names[i]} ← {names[j]}, h=%{{x}}: %{{y:.4g}}<extra></extra>",
-                    ),
-                    row=i + 1, col=j + 1,
-                )  # fmt: skip
-            fig.add_hline(y=0, line=dict(color=GREY, width=0.8), row=i + 1, col=j + 1)
-    _base(fig, height=max(360, 40 + 110 * n), title=title)
-    fig.update_layout(
-        legend=dict(orientation="h", y=1.0, x=1.0, xanchor="right", yanchor="bottom"),
-        margin=dict(l=50, r=60, t=90, b=50),
-    )
-    fig.update_xaxes(tickfont=dict(size=10))
-    fig.update_yaxes(tickfont=dict(size=10))
+            xr, yr = refs[i][j]
+            for k, (arr, label) in enumerate(((first, labels[0]), (second, labels[1]))):
+                data.append({
+                    "type": "scatter", "mode": "lines", "x": h, "y": _list(arr[:, i, j]),
+                    "line": styles[k], "name": label, "legendgroup": str(k),
+                    "showlegend": i == 0 and j == 0, "meta": [names[i], names[j]],
+                    "hovertemplate": f"{label}<br>{names[i]} ← {names[j]}, h=%{{x}}: %{{y:.4g}}<extra></extra>",
+                    "xaxis": xr, "yaxis": yr,
+                })  # fmt: skip
+            axes[_axis_key(yr)].update(zeroline=True, tickfont={"size": 10}, exponentformat="e")
+            axes[_axis_key(xr)].update(tickfont={"size": 10})
     for j in range(n):
-        fig.update_xaxes(title_text="horizon (observations)", row=n, col=j + 1)
-    return fig
+        axes[_axis_key(refs[n - 1][j][0])]["title"] = {"text": "horizon", "font": {"size": 11}}
+    anns = _grid_titles(refs, axes, [f"shock: {s}" for s in names], list(names))
+    layout = _layout(
+        height=max(380, 60 + 108 * n), title=title,
+        margin={"l": 55, "r": 40, "t": 90, "b": 50},
+        legend={"orientation": "h", "x": 1.0, "xanchor": "right", "yanchor": "bottom",
+                "yref": "container", "y": 0.99},
+        annotations=anns, **axes,
+    )  # fmt: skip
+    return {"data": data, "layout": layout}
 
 
 # ---------------------------------------------------------------------------------------------
@@ -275,32 +372,36 @@ def responses_compare_figure(
 
 def shares_figure(
     panels: Sequence[tuple[str, np.ndarray]], names: Sequence[str], *, title: str
-) -> go.Figure:
+) -> Figure:
     """Stacked horizontal bars, one panel per decomposition: per series, percent from each shock.
 
     panels : (panel title, (n, n) shares [variable, shock] in percent, rows summing to 100).
     """
     n = len(names)
-    fig = make_subplots(
-        rows=1, cols=len(panels), shared_yaxes=True, subplot_titles=[t for t, _ in panels],
-        horizontal_spacing=0.06,
-    )  # fmt: skip
-    for col, (_, table) in enumerate(panels, start=1):
+    axes, refs = _grid(1, len(panels), hgap=0.08, vgap=0.0, share_y=True)
+    data: list[dict[str, Any]] = []
+    anns = []
+    for col, (panel_title, table) in enumerate(panels):
+        xr, yr = refs[0][col]
         for j in range(n):
-            fig.add_trace(
-                go.Bar(
-                    y=list(names), x=table[:, j], orientation="h", name=f"shock: {names[j]}",
-                    marker=dict(color=colour(j), line=dict(color="white", width=0.5)),
-                    legendgroup=names[j], showlegend=col == 1,
-                    hovertemplate=f"%{{y}}: %{{x:.1f}}% from {names[j]}<extra></extra>",
-                ),
-                row=1, col=col,
-            )  # fmt: skip
-        fig.update_xaxes(title_text="share of forecast-error variance, %", range=[0, 100], row=1, col=col)
-    _base(fig, height=max(320, 120 + 45 * n), title=title)
-    fig.update_layout(barmode="stack", legend=dict(traceorder="normal", title="source of the shock"))
-    fig.update_yaxes(autorange="reversed", title_text="series")
-    return fig
+            data.append({
+                "type": "bar", "orientation": "h", "y": list(names), "x": _list(table[:, j]),
+                "name": f"shock: {names[j]}", "legendgroup": names[j], "showlegend": col == 0,
+                "marker": {"color": colour(j), "line": {"color": "white", "width": 0.5}},
+                "hovertemplate": f"%{{y}}: %{{x:.1f}}% from {names[j]}<extra></extra>",
+                "xaxis": xr, "yaxis": yr,
+            })  # fmt: skip
+        axes[_axis_key(xr)].update(range=[0, 100], title={"text": "share of forecast-error variance, %"})
+        axes[_axis_key(yr)].update(autorange="reversed")
+        dom = axes[_axis_key(xr)]["domain"]
+        anns.append(_text(panel_title, (dom[0] + dom[1]) / 2, 1.0, yanchor="bottom"))
+    axes["yaxis"]["title"] = {"text": "series (whose variance)"}
+    layout = _layout(
+        height=max(330, 130 + 46 * n), title=title, barmode="stack", annotations=anns,
+        legend={"title": {"text": "source of the shock"}, "traceorder": "normal"},
+        margin={"l": 60, "r": 20, "t": 80, "b": 40}, **axes,
+    )  # fmt: skip
+    return {"data": data, "layout": layout}
 
 
 # ---------------------------------------------------------------------------------------------
@@ -321,7 +422,7 @@ def granger_figure(
     window_end: dt.date,
     n_windows: int,
     date_label: str,
-) -> go.Figure:
+) -> Figure:
     """Two heatmaps [caused, causing]: p-values at the window end, and percent of windows significant.
 
     Cells significant at `level` carry a ★ in the first panel.
@@ -330,38 +431,40 @@ def granger_figure(
         ["" if not np.isfinite(v) else f"{v:.3f}{' ★' if v < level else ''}" for v in row]
         for row in pvalues
     ]
-    fig = make_subplots(
-        rows=1, cols=2, horizontal_spacing=0.16,
-        subplot_titles=[
-            f"p-value at the window ending {window_end} (★: p < {level:g})",
-            f"% of {n_windows} windows with p < {level:g}, {date_label}",
-        ],
-    )  # fmt: skip
-    fig.add_trace(
-        go.Heatmap(
-            z=pvalues, x=list(names), y=list(names), zmin=0, zmax=1, colorscale=SEQUENTIAL,
-            reversescale=True, text=text, texttemplate="%{text}",
-            colorbar=dict(title="p-value", x=0.42, len=0.9),
-            hovertemplate="does %{x} lead %{y}?<br>p = %{z:.4f}<extra></extra>",
-        ),
-        row=1, col=1,
-    )  # fmt: skip
+    axes, refs = _grid(1, 2, hgap=0.2, vgap=0.0)
     pct = 100.0 * share
-    fig.add_trace(
-        go.Heatmap(
-            z=pct, x=list(names), y=list(names), zmin=0, zmax=100, colorscale=SEQUENTIAL,
-            text=_heat_text(pct, ".0f"), texttemplate="%{text}%",
-            colorbar=dict(title="% of windows", x=1.0, len=0.9),
-            hovertemplate="%{x} leads %{y} in %{z:.1f}% of windows<extra></extra>",
-        ),
-        row=1, col=2,
+    data = [
+        {
+            "type": "heatmap", "z": _matrix(pvalues), "x": list(names), "y": list(names),
+            "zmin": 0, "zmax": 1, "colorscale": SEQUENTIAL, "reversescale": True, "text": text,
+            "texttemplate": "%{text}", "colorbar": {"title": {"text": "p-value"}, "x": 0.4, "len": 0.9},
+            "hovertemplate": "does %{x} lead %{y}?<br>p = %{z:.4f}<extra></extra>",
+            "xaxis": refs[0][0][0], "yaxis": refs[0][0][1],
+        },
+        {
+            "type": "heatmap", "z": _matrix(pct), "x": list(names), "y": list(names),
+            "zmin": 0, "zmax": 100, "colorscale": SEQUENTIAL, "text": _heat_text(pct, ".0f"),
+            "texttemplate": "%{text}%", "colorbar": {"title": {"text": "% of windows"}, "x": 1.0, "len": 0.9},
+            "hovertemplate": "%{x} leads %{y} in %{z:.1f}% of windows<extra></extra>",
+            "xaxis": refs[0][1][0], "yaxis": refs[0][1][1],
+        },
+    ]  # fmt: skip
+    anns = []
+    for col, label in enumerate((
+        f"p-value at the window ending {window_end} (★: p < {level:g})",
+        f"% of {n_windows} windows with p < {level:g}, {date_label}",
+    )):
+        xr, yr = refs[0][col]
+        axes[_axis_key(xr)].update(title={"text": "leading series (causing)"}, tickangle=-30)
+        axes[_axis_key(yr)].update(title={"text": "led series (caused)"}, autorange="reversed")
+        dom = axes[_axis_key(xr)]["domain"]
+        anns.append(_text(label, (dom[0] + dom[1]) / 2, 1.0, yanchor="bottom"))
+    layout = _layout(
+        height=max(360, 170 + 48 * len(names)),
+        title="Granger causality: does the column series lead the row series?",
+        annotations=anns, margin={"l": 60, "r": 20, "t": 80, "b": 40}, **axes,
     )  # fmt: skip
-    n = len(names)
-    _base(fig, height=max(340, 150 + 48 * n), title="Granger causality: does the column series lead the row series?")
-    for col in (1, 2):
-        fig.update_xaxes(title_text="leading series (causing)", row=1, col=col, tickangle=-30)
-        fig.update_yaxes(title_text="led series (caused)", row=1, col=col, autorange="reversed")
-    return fig
+    return {"data": data, "layout": layout}
 
 
 # ---------------------------------------------------------------------------------------------
@@ -377,7 +480,7 @@ def network_figure(
     from_others: np.ndarray,
     size_by: str,
     title: str,
-) -> go.Figure:
+) -> Figure:
     """Directed graph of net pairwise spillovers on a circle.
 
     table : (n, n) [target, source] percent. The net spillover from i to j is
@@ -388,7 +491,6 @@ def network_figure(
     n = len(names)
     angle = np.pi / 2 - 2 * np.pi * np.arange(n) / n
     xs, ys = np.cos(angle), np.sin(angle)
-    fig = go.Figure()
     pairs = []
     for i in range(n):
         for j in range(i + 1, n):
@@ -397,61 +499,59 @@ def network_figure(
                 src, dst = (i, j) if net >= 0 else (j, i)
                 pairs.append((src, dst, abs(float(net))))
     biggest = max((p[2] for p in pairs), default=0.0) or 1.0
+    anns: list[dict[str, Any]] = []
     mid_x, mid_y, mid_text = [], [], []
     for src, dst, size in pairs:
-        width = 0.8 + 7.0 * size / biggest
         # stop the arrow short of the target node's centre
-        tx = xs[dst] - 0.12 * (xs[dst] - xs[src])
-        ty = ys[dst] - 0.12 * (ys[dst] - ys[src])
-        fig.add_annotation(
-            x=tx, y=ty, ax=xs[src], ay=ys[src], xref="x", yref="y", axref="x", ayref="y",
-            showarrow=True, arrowhead=2, arrowsize=0.8, arrowwidth=width,
-            arrowcolor=f"rgba(0,0,0,{0.25 + 0.6 * size / biggest:.2f})", text="",
-        )  # fmt: skip
-        mid_x.append(0.5 * (xs[src] + tx))
-        mid_y.append(0.5 * (ys[src] + ty))
+        tx = float(xs[dst] - 0.13 * (xs[dst] - xs[src]))
+        ty = float(ys[dst] - 0.13 * (ys[dst] - ys[src]))
+        anns.append({
+            "x": tx, "y": ty, "ax": float(xs[src]), "ay": float(ys[src]), "xref": "x", "yref": "y",
+            "axref": "x", "ayref": "y", "showarrow": True, "arrowhead": 2, "arrowsize": 0.8,
+            "arrowwidth": 0.8 + 7.0 * size / biggest, "text": "",
+            "arrowcolor": f"rgba(40,40,40,{0.25 + 0.6 * size / biggest:.2f})",
+        })  # fmt: skip
+        mid_x.append(0.5 * (float(xs[src]) + tx))
+        mid_y.append(0.5 * (float(ys[src]) + ty))
         mid_text.append(f"{names[src]} → {names[dst]}: net {size:.2f} pp")
-    fig.add_trace(
-        go.Scatter(
-            x=mid_x, y=mid_y, mode="markers", marker=dict(size=10, opacity=0), text=mid_text,
-            hovertemplate="%{text}<extra></extra>", showlegend=False, name="pairs",
-        )
-    )  # fmt: skip
-    sizes = np.asarray(to_others if size_by == "to" else from_others, dtype=float)
-    top = np.nanmax(sizes) if sizes.size and np.isfinite(sizes).any() else 1.0
-    top = top or 1.0
+    sizes = np.nan_to_num(np.asarray(to_others if size_by == "to" else from_others, dtype=float))
+    top = float(sizes.max()) if sizes.size and sizes.max() > 0 else 1.0
     net = np.asarray(to_others, dtype=float) - np.asarray(from_others, dtype=float)
     lim = float(np.nanmax(np.abs(net))) if net.size and np.isfinite(net).any() else 1.0
     lim = lim or 1.0
-    fig.add_trace(
-        go.Scatter(
-            x=xs, y=ys, mode="markers+text", text=list(names), textposition="top center",
-            textfont=dict(size=13),
-            marker=dict(
-                size=22 + 38 * np.nan_to_num(sizes) / top, color=net, cmin=-lim, cmax=lim,
-                colorscale=DIVERGING, line=dict(color="#333", width=1),
-                colorbar=dict(title="net, pp<br>(to − from)"),
-            ),
-            customdata=np.column_stack([to_others, from_others, net]),
-            hovertemplate=(
+    data = [
+        {
+            "type": "scatter", "mode": "markers", "x": mid_x, "y": mid_y, "text": mid_text,
+            "marker": {"size": 12, "opacity": 0}, "hovertemplate": "%{text}<extra></extra>",
+            "showlegend": False, "name": "pairs",
+        },
+        {
+            "type": "scatter", "mode": "markers+text", "x": _list(xs), "y": _list(ys),
+            "text": list(names), "textposition": "top center", "textfont": {"size": 13},
+            "marker": {
+                "size": _list(22 + 38 * sizes / top), "color": _list(net), "cmin": -lim, "cmax": lim,
+                "colorscale": DIVERGING, "line": {"color": "#333", "width": 1},
+                "colorbar": {"title": {"text": "net, pp<br>(to − from)"}},
+            },
+            "customdata": [[float(a), float(b), float(c)] for a, b, c in zip(to_others, from_others, net, strict=True)],
+            "hovertemplate": (
                 "%{text}<br>to others %{customdata[0]:.1f}%<br>from others %{customdata[1]:.1f}%"
                 "<br>net %{customdata[2]:+.1f} pp<extra></extra>"
             ),
-            showlegend=False, name="series",
-        )
+            "showlegend": False, "name": "series",
+        },
+    ]  # fmt: skip
+    anns.append(_text(
+        "arrow: net transmitter → receiver, width ∝ net spillover; node size: spillover "
+        f"{'to' if size_by == 'to' else 'from'} others", 0.0, 0.0, xanchor="left", yanchor="top",
+        font={"size": 11, "color": "#444"},
+    ))  # fmt: skip
+    layout = _layout(
+        height=540, title=title, annotations=anns,
+        xaxis={"visible": False, "range": [-1.45, 1.45]},
+        yaxis={"visible": False, "range": [-1.3, 1.35], "scaleanchor": "x", "scaleratio": 1},
     )  # fmt: skip
-    _base(fig, height=520, title=title)
-    fig.update_xaxes(visible=False, range=[-1.35, 1.35])
-    fig.update_yaxes(visible=False, range=[-1.3, 1.35], scaleanchor="x", scaleratio=1)
-    fig.add_annotation(
-        text=(
-            f"arrow: net transmitter → receiver, width ∝ net spillover; node size: "
-            f"spillover {'to' if size_by == 'to' else 'from'} others"
-        ),
-        x=0, y=-0.02, xref="paper", yref="paper", showarrow=False, xanchor="left",
-        font=dict(size=11, color="#444"),
-    )  # fmt: skip
-    return fig
+    return {"data": data, "layout": layout}
 
 
 # ---------------------------------------------------------------------------------------------
@@ -461,46 +561,52 @@ def network_figure(
 
 def pairwise_compare_figure(
     first: np.ndarray, second: np.ndarray, names: Sequence[str], *, labels: tuple[str, str]
-) -> go.Figure:
+) -> Figure:
     """Three heatmaps [target, source] in percent: first window, second window, second − first."""
     diff = second - first
     lim = float(np.nanmax(np.abs(diff))) if np.isfinite(diff).any() else 1.0
-    top = float(np.nanmax([np.nanmax(first), np.nanmax(second)])) if np.isfinite(first).any() else 100.0
-    fig = make_subplots(
-        rows=1, cols=3, horizontal_spacing=0.09,
-        subplot_titles=[f"A: {labels[0]}", f"B: {labels[1]}", "change B − A, pp"],
-    )  # fmt: skip
-    for col, (z, scale, zmin, zmax, cb_x, fmt) in enumerate(
-        (
-            (first, SEQUENTIAL, 0, top, 0.27, ".1f"),
-            (second, SEQUENTIAL, 0, top, 0.635, ".1f"),
-            (diff, DIVERGING, -(lim or 1), lim or 1, 1.0, "+.1f"),
-        ),
-        start=1,
-    ):
-        fig.add_trace(
-            go.Heatmap(
-                z=z, x=list(names), y=list(names), zmin=zmin, zmax=zmax, colorscale=scale,
-                text=_heat_text(z, fmt), texttemplate="%{text}",
-                colorbar=dict(x=cb_x, len=0.9, thickness=10, title="%" if col < 3 else "pp"),
-                hovertemplate="%{y} ← %{x}: %{z:.2f}<extra></extra>",
-            ),
-            row=1, col=col,
-        )  # fmt: skip
-        fig.update_yaxes(autorange="reversed", row=1, col=col)
-        fig.update_xaxes(tickangle=-30, row=1, col=col)
-    fig.update_yaxes(title_text="receiving series (target)", row=1, col=1)
-    fig.update_xaxes(title_text="sending series (source)", row=1, col=2)
-    _base(
-        fig, height=max(340, 150 + 45 * len(names)),
-        title="Pairwise spillovers averaged over each date window (% of the target's forecast-error variance)",
+    lim = lim or 1.0
+    both = np.concatenate([first.ravel(), second.ravel()])
+    top = float(np.nanmax(both)) if np.isfinite(both).any() else 100.0
+    axes, refs = _grid(1, 3, hgap=0.11, vgap=0.0)
+    data = []
+    anns = []
+    specs = (
+        (first, SEQUENTIAL, 0.0, top, 0.26, ".1f", "%", f"A: {labels[0]}"),
+        (second, SEQUENTIAL, 0.0, top, 0.63, ".1f", "%", f"B: {labels[1]}"),
+        (diff, DIVERGING, -lim, lim, 1.0, "+.1f", "pp", "change B − A, pp"),
     )
-    return fig
+    for col, (z, scale, zmin, zmax, cb_x, fmt, unit, label) in enumerate(specs):
+        xr, yr = refs[0][col]
+        data.append({
+            "type": "heatmap", "z": _matrix(z), "x": list(names), "y": list(names),
+            "zmin": zmin, "zmax": zmax, "colorscale": scale, "text": _heat_text(z, fmt),
+            "texttemplate": "%{text}", "colorbar": {"x": cb_x, "len": 0.9, "thickness": 10,
+                                                    "title": {"text": unit}},
+            "hovertemplate": "%{y} ← %{x}: %{z:.2f}<extra></extra>", "xaxis": xr, "yaxis": yr,
+        })  # fmt: skip
+        axes[_axis_key(yr)].update(autorange="reversed")
+        axes[_axis_key(xr)].update(tickangle=-30)
+        dom = axes[_axis_key(xr)]["domain"]
+        anns.append(_text(label, (dom[0] + dom[1]) / 2, 1.0, yanchor="bottom"))
+    axes["yaxis"]["title"] = {"text": "receiving series (target)"}
+    axes["xaxis2"]["title"] = {"text": "sending series (source)"}
+    layout = _layout(
+        height=max(360, 160 + 45 * len(names)),
+        title="Pairwise spillovers averaged over each date window (% of the target's forecast-error variance)",
+        annotations=anns, margin={"l": 60, "r": 20, "t": 80, "b": 40}, **axes,
+    )  # fmt: skip
+    return {"data": data, "layout": layout}
 
 
 # ---------------------------------------------------------------------------------------------
 # model health
 # ---------------------------------------------------------------------------------------------
+
+
+def _hline(y: float, xref: str, yref: str, colour_: str, dash: str) -> dict[str, Any]:
+    return {"type": "line", "xref": f"{xref} domain", "x0": 0, "x1": 1, "yref": yref, "y0": y,
+            "y1": y, "line": {"color": colour_, "dash": dash, "width": 1}}  # fmt: skip
 
 
 def health_figure(
@@ -513,59 +619,74 @@ def health_figure(
     skipped: Sequence[tuple[dt.date, str]],
     near_one: float,
     title: str,
-) -> go.Figure:
+) -> Figure:
     """Four stacked panels over window ends: lag order, spectral radius, residual-test p, observations.
 
-    Spectral radii at or above `near_one` are drawn orange, at or above one vermillion; skipped
-    windows appear as ✕ on the lag-order panel with their reason on hover.
+    Spectral radii at or above `near_one` are drawn orange, at or above one vermillion (and ringed);
+    skipped windows appear as ✕ on the lag-order panel with their reason on hover.
     """
-    fig = make_subplots(
-        rows=4, cols=1, shared_xaxes=True, vertical_spacing=0.05,
-        subplot_titles=[
-            "lag order p", "spectral radius of the companion matrix (≥ 1: not stationary)",
-            "residual autocorrelation test p-value (portmanteau)", "observations in the window",
-        ],
-    )  # fmt: skip
-    x = list(ends)
-    fig.add_trace(go.Scatter(x=x, y=list(lags), mode="lines", line=dict(shape="hv", color=BLUE),
-                             name="lag order", showlegend=False,
-                             hovertemplate="%{x|%Y-%m-%d}: p = %{y}<extra></extra>"), row=1, col=1)
+    axes, refs = _grid(4, 1, hgap=0.0, vgap=0.07, share_x=True)
+    (x1, y1), (x2, y2), (x3, y3), (x4, y4) = (r[0] for r in refs)
+    x = _dates(ends)
     r = np.array([np.nan if v is None else float(v) for v in radius])
     colours = [VERMILLION if v >= 1 else ORANGE if v >= near_one else BLUE for v in np.nan_to_num(r)]
-    fig.add_trace(go.Scatter(x=x, y=r, mode="lines+markers", line=dict(color="#9ecae1", width=1),
-                             marker=dict(color=colours, size=5), name="spectral radius",
-                             showlegend=False,
-                             hovertemplate="%{x|%Y-%m-%d}: %{y:.4f}<extra></extra>"), row=2, col=1)
-    fig.add_hline(y=1.0, line=dict(color=VERMILLION, dash="dash", width=1), row=2, col=1)
-    fig.add_hline(y=near_one, line=dict(color=ORANGE, dash="dot", width=1), row=2, col=1)
     flagged = [(d, v) for d, v in zip(x, r, strict=True) if np.isfinite(v) and v >= near_one]
-    fig.add_trace(go.Scatter(x=[d for d, _ in flagged], y=[v for _, v in flagged], mode="markers",
-                             marker=dict(color=VERMILLION, size=9, symbol="diamond-open"),
-                             name=f"radius ≥ {near_one:g}", showlegend=True), row=2, col=1)
-    fig.add_trace(go.Scatter(x=x, y=list(portmanteau), mode="markers", marker=dict(color=GREEN, size=4),
-                             name="p-value", showlegend=False,
-                             hovertemplate="%{x|%Y-%m-%d}: p = %{y:.3f}<extra></extra>"), row=3, col=1)
-    fig.add_hline(y=0.05, line=dict(color=GREY, dash="dot", width=1), row=3, col=1)
-    fig.add_trace(go.Scatter(x=x, y=list(nobs), mode="lines", line=dict(color=PURPLE),
-                             name="observations", showlegend=False), row=4, col=1)
+    data: list[dict[str, Any]] = [
+        {"type": "scatter", "mode": "lines", "x": x, "y": _list([np.nan if v is None else v for v in lags]),
+         "line": {"shape": "hv", "color": BLUE}, "name": "lag order", "showlegend": False,
+         "hovertemplate": "%{x|%Y-%m-%d}: p = %{y}<extra></extra>", "xaxis": x1, "yaxis": y1},
+        {"type": "scatter", "mode": "lines+markers", "x": x, "y": _list(r),
+         "line": {"color": "#9ecae1", "width": 1}, "marker": {"color": colours, "size": 5},
+         "name": "spectral radius", "showlegend": False,
+         "hovertemplate": "%{x|%Y-%m-%d}: %{y:.4f}<extra></extra>", "xaxis": x2, "yaxis": y2},
+        {"type": "scatter", "mode": "markers", "x": [d for d, _ in flagged],
+         "y": [float(v) for _, v in flagged], "name": f"radius ≥ {near_one:g} ({len(flagged)})",
+         "marker": {"color": VERMILLION, "size": 9, "symbol": "diamond-open"},
+         "hovertemplate": "%{x|%Y-%m-%d}: radius %{y:.4f}<extra></extra>", "xaxis": x2, "yaxis": y2},
+        {"type": "scatter", "mode": "markers", "x": x,
+         "y": _list([np.nan if v is None else v for v in portmanteau]),
+         "marker": {"color": GREEN, "size": 4}, "name": "p-value", "showlegend": False,
+         "hovertemplate": "%{x|%Y-%m-%d}: p = %{y:.3f}<extra></extra>", "xaxis": x3, "yaxis": y3},
+        {"type": "scatter", "mode": "lines", "x": x, "y": _list([np.nan if v is None else v for v in nobs]),
+         "line": {"color": PURPLE}, "name": "observations", "showlegend": False,
+         "hovertemplate": "%{x|%Y-%m-%d}: %{y} rows<extra></extra>", "xaxis": x4, "yaxis": y4},
+    ]  # fmt: skip
     if skipped:
-        fig.add_trace(
-            go.Scatter(
-                x=[d for d, _ in skipped], y=[0] * len(skipped), mode="markers",
-                marker=dict(symbol="x", size=10, color=VERMILLION), text=[r for _, r in skipped],
-                name=f"skipped window ({len(skipped)})",
-                hovertemplate="%{x|%Y-%m-%d} skipped: %{text}<extra></extra>",
-            ),
-            row=1, col=1,
-        )  # fmt: skip
-    _base(fig, height=640, title=title)
-    fig.update_layout(legend=dict(orientation="h", y=1.0, x=1.0, xanchor="right", yanchor="bottom"))
-    fig.update_yaxes(title_text="lags", row=1, col=1, rangemode="tozero")
-    fig.update_yaxes(title_text="radius", row=2, col=1)
-    fig.update_yaxes(title_text="p", row=3, col=1, range=[0, 1])
-    fig.update_yaxes(title_text="rows", row=4, col=1, rangemode="tozero")
-    fig.update_xaxes(title_text="window end (date)", row=4, col=1)
-    return fig
+        data.append({
+            "type": "scatter", "mode": "markers", "x": _dates([d for d, _ in skipped]),
+            "y": [0] * len(skipped), "text": [reason for _, reason in skipped],
+            "marker": {"symbol": "x", "size": 10, "color": VERMILLION},
+            "name": f"skipped window ({len(skipped)})",
+            "hovertemplate": "%{x|%Y-%m-%d} skipped: %{text}<extra></extra>", "xaxis": x1, "yaxis": y1,
+        })  # fmt: skip
+    anns = []
+    for (_xr, yr), label in zip(
+        (r[0] for r in refs),
+        ("lag order p", "spectral radius of the companion matrix (≥ 1: not stationary)",
+         "residual autocorrelation test, p-value (portmanteau)", "observations in the window"),
+        strict=True,
+    ):
+        dom = axes[_axis_key(yr)]["domain"]
+        anns.append(_text(label, 0.0, dom[1], xanchor="left", yanchor="bottom", font={"size": 12}))
+    axes[_axis_key(y1)].update(title={"text": "lags"}, rangemode="tozero")
+    axes[_axis_key(y2)].update(title={"text": "radius"})
+    axes[_axis_key(y3)].update(title={"text": "p"}, range=[0, 1])
+    axes[_axis_key(y4)].update(title={"text": "rows"}, rangemode="tozero")
+    axes[_axis_key(x4)].update(title={"text": "window end (date)"}, type="date")
+    for xr in (x1, x2, x3):
+        axes[_axis_key(xr)]["type"] = "date"
+    shapes = [
+        _hline(1.0, x2, y2, VERMILLION, "dash"),
+        _hline(near_one, x2, y2, ORANGE, "dot"),
+        _hline(0.05, x3, y3, GREY, "dot"),
+    ]
+    layout = _layout(
+        height=660, title=title, annotations=anns, shapes=shapes,
+        legend={"orientation": "h", "x": 1.0, "xanchor": "right", "yanchor": "bottom",
+                "yref": "container", "y": 0.99},
+        margin={"l": 60, "r": 20, "t": 80, "b": 40}, **axes,
+    )  # fmt: skip
+    return {"data": data, "layout": layout}
 
 
 # ---------------------------------------------------------------------------------------------
@@ -578,36 +699,38 @@ def cycles_figure(
     spectra: Sequence[tuple[str, np.ndarray, float | None]],
     *,
     title: str,
-) -> go.Figure:
+) -> Figure:
     """Each series' AR spectral density against frequency, with its dominant cycle marked.
 
     frequencies : (F,) in cycles per observation, 0..0.5.
     spectra : (name, (F,) density, peak period in observations or None).
     """
-    fig = go.Figure()
+    freqs = np.asarray(frequencies, dtype=float)
+    periods = [None if f <= 0 else 1.0 / f for f in freqs]
+    data: list[dict[str, Any]] = []
     for k, (name, density, period) in enumerate(spectra):
-        fig.add_trace(
-            go.Scatter(
-                x=frequencies, y=density, mode="lines", name=name,
-                line=dict(color=colour(k), width=1.8),
-                hovertemplate=(
-                    f"{name}<br>%{{x:.3f}} cycles/obs (period %{{customdata:.1f}} obs)"
-                    "<br>density %{y:.3g}<extra></extra>"
-                ),
-                customdata=np.where(frequencies > 0, 1.0 / np.maximum(frequencies, 1e-12), np.inf),
-            )
-        )  # fmt: skip
-        if period is not None:
+        data.append({
+            "type": "scatter", "mode": "lines", "x": _list(freqs), "y": _list(density), "name": name,
+            "line": {"color": colour(k), "width": 1.8}, "customdata": periods, "meta": [name],
+            "hovertemplate": (
+                f"{name}<br>%{{x:.3f}} cycles/obs (period %{{customdata:.1f}} obs)"
+                "<br>density %{y:.3g}<extra></extra>"
+            ),
+        })  # fmt: skip
+        if period is not None and period > 0:
             f = 1.0 / period
-            y = float(np.interp(f, frequencies, density))
-            fig.add_trace(
-                go.Scatter(
-                    x=[f], y=[y], mode="markers", marker=dict(color=colour(k), size=10, symbol="star"),
-                    name=f"{name}: cycle {period:.1f} obs", showlegend=True,
-                    hovertemplate=f"{name}: dominant cycle {period:.1f} observations<extra></extra>",
-                )
-            )  # fmt: skip
-    _base(fig, height=460, title=title)
-    fig.update_xaxes(title="frequency (cycles per observation; period = 1 / frequency)", range=[0, 0.5])
-    fig.update_yaxes(title="spectral density (log scale, squared units per cycle)", type="log")
-    return fig
+            y = float(np.interp(f, freqs, np.asarray(density, dtype=float)))
+            data.append({
+                "type": "scatter", "mode": "markers", "x": [f], "y": [y],
+                "marker": {"color": colour(k), "size": 12, "symbol": "star",
+                           "line": {"color": "#333", "width": 1}},
+                "name": f"{name}: cycle of {period:.1f} obs",
+                "hovertemplate": f"{name}: dominant cycle {period:.1f} observations<extra></extra>",
+            })  # fmt: skip
+    layout = _layout(
+        height=470, title=title,
+        xaxis=_axis(title={"text": "frequency (cycles per observation; period = 1 / frequency)"},
+                    range=[0, 0.5]),
+        yaxis=_axis(title={"text": "spectral density (log scale)"}, type="log"),
+    )  # fmt: skip
+    return {"data": data, "layout": layout}

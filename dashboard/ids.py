@@ -73,7 +73,6 @@ SKIPPED_TABLE = "skipped-table"
 # -- own cycles ----------------------------------------------------------------------------------
 CYCLES_GRAPH = "cycles-graph"
 CYCLES_NOTE = "cycles-note"
-CYCLES_TABLE = "cycles-table"
 
 TABS_ORDER = (TAB_PATHS, TAB_SHARES, TAB_LEADLAG, TAB_NETWORK, TAB_COMPARE, TAB_HEALTH, TAB_CYCLES)
 
