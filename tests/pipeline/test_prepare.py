@@ -38,14 +38,14 @@ def test_transforms_closed_forms() -> None:
     # Monday..Friday; A log_return, B diff
     a = [100.0, 110.0, 99.0, 99.0, 120.0]
     b = [1.0, 1.5, 1.25, 2.0, 2.0]
-    p = prepare_universe(obs({"A": list(zip(D[:5], a)), "B": list(zip(D[:5], b))}), universe())
+    p = prepare_universe(obs({"A": list(zip(D[:5], a, strict=True)), "B": list(zip(D[:5], b, strict=True))}), universe())
     assert p.dates == tuple(D[1:5])
     np.testing.assert_allclose(p.y[:, 0], np.diff(np.log(a)), rtol=0, atol=1e-15)
     np.testing.assert_allclose(p.y[:, 1], np.diff(b), rtol=0, atol=1e-15)
     assert p.dropped.rows() == [(D[0], "removed: A: log_return needs the previous value; B: diff needs the previous value")]
-    pct = prepare_universe(obs({"A": list(zip(D[:5], a))}), universe(series=(SeriesSpec("A", "pct_change"),)))
+    pct = prepare_universe(obs({"A": list(zip(D[:5], a, strict=True))}), universe(series=(SeriesSpec("A", "pct_change"),)))
     np.testing.assert_allclose(pct.y[:, 0], np.array(a[1:]) / np.array(a[:-1]) - 1, rtol=1e-15)
-    lvl = prepare_universe(obs({"A": list(zip(D[:5], a))}), universe(series=(SeriesSpec("A", "level"),)))
+    lvl = prepare_universe(obs({"A": list(zip(D[:5], a, strict=True))}), universe(series=(SeriesSpec("A", "level"),)))
     assert lvl.y[:, 0].tolist() == a and lvl.dropped.height == 0
     assert set(TRANSFORMS) == {"log_return", "pct_change", "diff", "level"}
 
