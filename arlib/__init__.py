@@ -7,8 +7,10 @@ shock]; decompositions (H, n, n) [step, variable, shock].
 
 from __future__ import annotations
 
+from ._bands import Bands, ConnectednessBands, connectedness_bands, fevd_bands, irf_bands
 from ._causality import GrangerResult, granger_test
 from ._decompose import Connectedness, connectedness, variance_decomposition
+from ._diagnostics import NormalityResult, PortmanteauResult, normality_test, portmanteau_test
 from ._estimate import (
     LagSelection,
     VARFit,
@@ -18,26 +20,52 @@ from ._estimate import (
     select_lags,
     var_process,
 )
+from ._forecast import Forecast, forecast
+from ._moments import (
+    SpectralPeak,
+    autocovariance,
+    simulate_var,
+    spectral_density,
+    spectral_peak,
+    stationary_covariance,
+)
 from ._responses import impulse_responses, ma_coefficients
 from ._validate import ArlibError, InvalidInputError, UnstableProcessWarning, VARLike
 
 __all__ = [
     "ArlibError",
+    "Bands",
     "Connectedness",
+    "ConnectednessBands",
+    "Forecast",
     "GrangerResult",
     "InvalidInputError",
     "LagSelection",
+    "NormalityResult",
+    "PortmanteauResult",
+    "SpectralPeak",
     "UnstableProcessWarning",
     "VARFit",
     "VARLike",
     "VARProcess",
+    "autocovariance",
     "companion_matrix",
     "connectedness",
+    "connectedness_bands",
+    "fevd_bands",
     "fit_var",
+    "forecast",
     "granger_test",
     "impulse_responses",
+    "irf_bands",
     "ma_coefficients",
+    "normality_test",
+    "portmanteau_test",
     "select_lags",
+    "simulate_var",
+    "spectral_density",
+    "spectral_peak",
+    "stationary_covariance",
     "var_process",
     "variance_decomposition",
 ]

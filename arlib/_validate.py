@@ -45,6 +45,7 @@ class VARLike(Protocol):
     intercept : (n,) array or None.
     n, lags : number of series and lag order p.
     names : tuple of n series names.
+    companion : (n·p, n·p) companion matrix; spectral_radius, is_stable : its stability.
     """
 
     @property
@@ -59,6 +60,12 @@ class VARLike(Protocol):
     def lags(self) -> int: ...
     @property
     def names(self) -> tuple[str, ...]: ...
+    @property
+    def companion(self) -> np.ndarray: ...
+    @property
+    def spectral_radius(self) -> float: ...
+    @property
+    def is_stable(self) -> bool: ...
 
 
 _PACKAGE_DIR = os.path.dirname(os.path.abspath(__file__))
