@@ -309,27 +309,28 @@ def _bootstrap_band(
     horizon: int,
     cumulative: bool,
 ) -> tuple[np.ndarray, np.ndarray, str]:
-    """A residual-bootstrap band from arlib, refitting the window's own prepared rows."""
+    """A residual-bootstrap band from arlib, refitting the window's own prepared rows.
+
+    Percentile intervals of `BOOTSTRAP_DRAWS` replications (arlib.irf_bands); the seed is fixed so
+    the same request always draws the same band.
+    """
     import arlib
 
     fit = snap.fit(u, end)
     y = snap.prepared(u, fit.window_start, fit.window_end)
-    band_fn = getattr(arlib, "response_bands", None)
-    if band_fn is None:
-        msg = "this arlib has no bootstrap bands yet (arlib.response_bands); pick the stored band or none"
-        raise WindowError(msg)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", arlib.UnstableProcessWarning)
         model = arlib.fit_var(y, fit.lags, names=u.series)
-        bands = band_fn(
+        bands = arlib.irf_bands(
             model, horizon, shocks=identification, cumulative=cumulative,
             order=list(order) if identification == "cholesky" else None,
-            draws=BOOTSTRAP_DRAWS, coverage=BOOTSTRAP_COVERAGE, seed=0,
+            coverage=BOOTSTRAP_COVERAGE, draws=BOOTSTRAP_DRAWS, rng=0,
         )  # fmt: skip
     return (
         np.asarray(bands.lower),
         np.asarray(bands.upper),
-        f"{100 * BOOTSTRAP_COVERAGE:.0f}% bootstrap band, {BOOTSTRAP_DRAWS} draws on {y.shape[0]} rows",
+        f"{100 * BOOTSTRAP_COVERAGE:.0f}% residual-bootstrap band ({BOOTSTRAP_DRAWS} draws, "
+        f"refitted on the window's {y.shape[0]} prepared rows)",
     )
 
 
@@ -634,9 +635,21 @@ def skipped_rows(rows: Rows) -> list[tuple[str, str]]:
     return [(str(r["window_end"]), str(r["skip_reason"])) for r in rows if r.get("skip_reason")]
 
 
+#: Frequencies of the own-cycle spectra, cycles per observation (ω = 2π f radians).
+CYCLE_FREQUENCIES = np.linspace(0.0, 0.5, 241)
+#: Largest own-AR order tried (AIC picks among 1..max(this, the window's VAR lag order)).
+OWN_MAX_LAGS = 8
+
+
 @_guard
 def cycles_view(snap: Snapshot, state: Any) -> ViewResult:
-    """Per series: the spectral density implied by its own AR fitted on the reference window."""
+    """Per series: the spectral density implied by its own AR, fitted on the reference window.
+
+    Each series gets a univariate AR fitted on the window's prepared rows, its order chosen by AIC
+    among 1..max(`OWN_MAX_LAGS`, the VAR's lag order); arlib gives its spectral density f(ω) (Hamilton 1994, eq. 10.4.43 with n = 1) and the
+    frequency where it peaks. A peak strictly between 0 and π is a dominant cycle of period 2π/ω*
+    observations; a peak at 0 means persistence without a cycle.
+    """
     import arlib
 
     window = snap.window(state)
@@ -644,38 +657,37 @@ def cycles_view(snap: Snapshot, state: Any) -> ViewResult:
     end = snap.fitted_end(window)
     fit = snap.fit(u, end)
     y = snap.prepared(u, fit.window_start, fit.window_end)
-    spectrum_fn = getattr(arlib, "spectral_density", None)
-    peak_fn = getattr(arlib, "dominant_cycle", None)
-    if spectrum_fn is None:
-        raise WindowError("this arlib has no spectral density yet (arlib.spectral_density)")
-    freqs = np.linspace(0.0, 0.5, 201)
+    freqs = CYCLE_FREQUENCIES
     spectra: list[tuple[str, np.ndarray, float | None]] = []
     rows: Rows = []
+    notes: list[str] = []
     for i, name in enumerate(u.series):
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", arlib.UnstableProcessWarning)
-            own = arlib.fit_var(y[:, i], fit.lags, names=[name])
-        density = np.asarray(spectrum_fn(own, 2 * np.pi * freqs)).reshape(len(freqs), -1)[:, 0]
-        period = None
-        if peak_fn is not None:
-            peak = peak_fn(own)
-            period = None if peak is None else float(getattr(peak, "period", peak))
+            choice = arlib.select_lags(y[:, i], max(OWN_MAX_LAGS, fit.lags), names=[name])
+            p = max(1, int(choice.best["aic"]))
+            own = arlib.fit_var(y[:, i], p, names=[name])
+        if not own.is_stable:
+            notes.append(f"{name}: own AR not stationary (radius {own.spectral_radius:.3f}), no spectrum")
+            continue
+        density = np.asarray(arlib.spectral_density(own, 2 * np.pi * freqs))[:, 0, 0].real
+        peak = arlib.spectral_peak(own)
+        period = float(peak.period) if peak.has_cycle else None
         spectra.append((name, density, period))
+        notes.append(f"{name} AR({p}): " + (f"{period:.1f} obs" if period is not None else "no cycle"))
         rows.extend(
-            {"window_end": _iso(end), "series": name, "ar_lags": fit.lags,
+            {"window_end": _iso(end), "series": name, "ar_lags": p,
              "frequency_cycles_per_obs": float(f), "density": _num(d),
              "dominant_period_obs": period}
             for f, d in zip(freqs, density, strict=True)
         )  # fmt: skip
+    if not spectra:
+        raise WindowError(f"no series has a stationary own AR in the window ending {end}")
     fig = figures.cycles_figure(
-        freqs, spectra, title=f"Own-dynamics spectrum per series (AR({fit.lags}), window ending {end})"
-    )
-    with_cycle = [f"{n}: {p:.1f} obs" for n, _, p in spectra if p is not None]
-    note = (
-        f"Window ending {end}. Dominant cycles: " + ", ".join(with_cycle)
-        if with_cycle
-        else f"Window ending {end}. No series has an interior spectral peak (no dominant cycle)."
-    )
+        freqs, spectra,
+        title=f"Own-dynamics spectrum per series (univariate AR, order by AIC; window ending {end})",
+    )  # fmt: skip
+    note = f"Window ending {end}. Dominant cycle (period in observations): " + "; ".join(notes) + "."
     return fig, rows, note
 
 

@@ -26,8 +26,9 @@ import contextlib
 import dataclasses
 import datetime as dt
 import os
+import re
 import threading
-from collections.abc import Iterator, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -64,6 +65,8 @@ TABLE_COLUMNS: dict[str, tuple[str, ...]] = {
 }
 
 _MAX_DATE_TEXT = 32
+#: A date, optionally followed by a time of day (which is ignored), as date inputs and plotly send.
+_DATE_TEXT = re.compile(r"^\d{4}-\d{2}-\d{2}([ T]\d{2}:\d{2}(:\d{2}(\.\d{1,9})?)?)?$")
 
 
 def parse_date(value: Any, *, name: str = "date") -> dt.date:
@@ -79,9 +82,11 @@ def parse_date(value: Any, *, name: str = "date") -> dt.date:
     if not isinstance(value, str) or not value or len(value) > _MAX_DATE_TEXT:
         msg = f"`{name}` must be a date like 2021-03-31, got {str(value)[:40]!r}"
         raise WindowError(msg)
-    text = value.strip()[:10]
+    text = value.strip()
     try:
-        return dt.date.fromisoformat(text)
+        if not _DATE_TEXT.match(text):
+            raise ValueError(text)
+        return dt.date.fromisoformat(text[:10])
     except ValueError:
         msg = f"`{name}` must be a date like 2021-03-31, got {value[:40]!r}"
         raise WindowError(msg) from None
@@ -232,6 +237,12 @@ class SnapshotReader:
         """Counts the files opened so far; changes when a replaced snapshot is first read."""
         return self._generation
 
+    def current_generation(self) -> int:
+        """The generation of the file on disk now (opening it if it was replaced)."""
+        handle = self._current()
+        handle.release()
+        return handle.generation
+
     @contextlib.contextmanager
     def cursor(self) -> Iterator[Any]:
         handle = self._current()
@@ -262,7 +273,24 @@ class Snapshot:
 
     def __init__(self, reader: SnapshotReader | str | os.PathLike[str]) -> None:
         self.reader = reader if isinstance(reader, SnapshotReader) else SnapshotReader(reader)
-        self._universe_cache: tuple[int, dict[str, Universe]] | None = None
+        # small per-file caches, keyed by the reader's generation (a replaced file clears them)
+        self._cache_lock = threading.Lock()
+        self._cache_generation = -1
+        self._cache: dict[Any, Any] = {}
+
+    def _cached(self, key: Any, compute: Callable[[], Any]) -> Any:
+        generation = self.reader.current_generation()
+        with self._cache_lock:
+            if generation != self._cache_generation:
+                self._cache = {}
+                self._cache_generation = generation
+            if key in self._cache:
+                return self._cache[key]
+        value = compute()
+        with self._cache_lock:
+            if generation == self._cache_generation:
+                self._cache[key] = value
+        return value
 
     # -- the one date-window helper -------------------------------------------------------------
     def _select_window(
@@ -305,6 +333,9 @@ class Snapshot:
     # -- universes ----------------------------------------------------------------------------
     def universes(self) -> dict[str, Universe]:
         """Every universe in the snapshot, with its series in stored column order."""
+        return self._cached("universes", self._universes)  # type: ignore[no-any-return]
+
+    def _universes(self) -> dict[str, Universe]:
         rows = self.reader.rows(
             "SELECT u.universe, u.horizon, u.granger_level, u.identification, s.series "
             "FROM universes u JOIN universe_series s USING (universe) "
@@ -330,9 +361,9 @@ class Snapshot:
 
     def date_bounds(self, universe: str) -> tuple[dt.date, dt.date]:
         """First and last window end stored for `universe`."""
-        ((lo, hi),) = self.reader.rows(
+        ((lo, hi),) = self._cached(("bounds", universe), lambda: self.reader.rows(
             "SELECT min(window_end), max(window_end) FROM window_fits WHERE universe = ?", [universe]
-        )
+        ))
         if lo is None:
             msg = f"universe {universe!r} has no windows in the snapshot yet"
             raise WindowError(msg)

@@ -13,42 +13,15 @@ import datetime as dt
 import os
 import warnings
 from pathlib import Path
+from typing import Any
 
 import duckdb
 import numpy as np
+import polars as pl
 
 import arlib
 
 SERIES = ("EQ_HOME", "EQ_ABROAD", "RATE_10Y", "FX_HOME")
-
-DDL = """
-CREATE TABLE runs (run_id VARCHAR, universe VARCHAR, status VARCHAR, started TIMESTAMP,
-    finished TIMESTAMP, config_hash VARCHAR, data_fingerprint VARCHAR, code_version VARCHAR,
-    windows_fitted INTEGER, windows_skipped INTEGER, windows_failed INTEGER, message VARCHAR);
-CREATE TABLE universes (universe VARCHAR, config_hash VARCHAR, config_json VARCHAR,
-    horizon INTEGER, granger_level DOUBLE, identification VARCHAR, run_id VARCHAR);
-CREATE TABLE universe_series (universe VARCHAR, position INTEGER, series VARCHAR,
-    transform VARCHAR);
-CREATE TABLE prepared (universe VARCHAR, date DATE, series VARCHAR, value DOUBLE);
-CREATE TABLE window_fits (run_id VARCHAR, universe VARCHAR, window_end DATE, window_start DATE,
-    nobs INTEGER, lags INTEGER, spectral_radius DOUBLE, stable BOOLEAN, aic DOUBLE, bic DOUBLE,
-    hq DOUBLE, fpe DOUBLE, condition_number DOUBLE, portmanteau_p DOUBLE, skip_reason VARCHAR);
-CREATE TABLE connectedness (run_id VARCHAR, universe VARCHAR, window_end DATE, total DOUBLE);
-CREATE TABLE directional (run_id VARCHAR, universe VARCHAR, window_end DATE, series VARCHAR,
-    to_others DOUBLE, from_others DOUBLE, net DOUBLE);
-CREATE TABLE pairwise (run_id VARCHAR, universe VARCHAR, window_end DATE, source VARCHAR,
-    target VARCHAR, share DOUBLE);
-CREATE TABLE granger (run_id VARCHAR, universe VARCHAR, window_end DATE, caused VARCHAR,
-    causing VARCHAR, f_stat DOUBLE, p_value DOUBLE);
-CREATE TABLE window_params (run_id VARCHAR, universe VARCHAR, window_end DATE, lags INTEGER,
-    coefs DOUBLE[], intercept DOUBLE[], sigma_u DOUBLE[]);
-CREATE TABLE responses (run_id VARCHAR, universe VARCHAR, window_end DATE,
-    identification VARCHAR, horizon INTEGER, response DOUBLE[], lower DOUBLE[], upper DOUBLE[],
-    coverage DOUBLE);
-CREATE TABLE decompositions (run_id VARCHAR, universe VARCHAR, window_end DATE, method VARCHAR,
-    horizon INTEGER, share DOUBLE[]);
-"""
-
 
 def simulate(T: int = 560, *, seed: int = 7) -> tuple[list[dt.date], np.ndarray]:
     """(dates, y (T, 4)): a VAR(1) whose spillovers rise during the middle fifth of the sample."""
@@ -74,6 +47,16 @@ def simulate(T: int = 560, *, seed: int = 7) -> tuple[list[dt.date], np.ndarray]
     return days, y
 
 
+def _insert(con: duckdb.DuckDBPyConnection, table: str, rows: list[dict[str, Any]]) -> None:
+    """Insert rows (dicts keyed by column name) in one statement through a polars frame."""
+    if not rows:
+        return
+    frame = pl.DataFrame(rows, infer_schema_length=None)
+    con.register("_rows", frame.to_arrow())
+    con.execute(f"INSERT INTO {table} BY NAME SELECT * FROM _rows")
+    con.unregister("_rows")
+
+
 def write_snapshot(
     path: str | os.PathLike[str],
     *,
@@ -87,7 +70,12 @@ def write_snapshot(
     run_id: str = "run-0001",
     scale: float = 1.0,
 ) -> Path:
-    """Write a complete snapshot to `path` (via a temporary file and os.replace, as publish does)."""
+    """Write a complete snapshot to `path` (via a temporary file and os.replace, as publish does).
+
+    The schema is the pipeline's own (`pipeline.warehouse.ensure_schema`).
+    """
+    from pipeline.warehouse import ensure_schema
+
     path = Path(path)
     tmp = path.with_name(path.name + ".writing")
     if tmp.exists():
@@ -96,84 +84,90 @@ def write_snapshot(
     y = y * scale
     n = y.shape[1]
     con = duckdb.connect(str(tmp))
-    con.execute(DDL)
+    ensure_schema(con, path=tmp)
     now = dt.datetime(2024, 1, 2, 3, 4, 5)
-    con.execute(
-        "INSERT INTO universes VALUES (?, 'hash', '{}', ?, 0.05, 'generalized', ?)",
-        [universe, horizon, run_id],
-    )
-    con.executemany(
-        "INSERT INTO universe_series VALUES (?, ?, ?, 'diff')",
-        [[universe, i, s] for i, s in enumerate(SERIES)],
-    )
-    con.executemany(
-        "INSERT INTO prepared VALUES (?, ?, ?, ?)",
-        [[universe, days[t], SERIES[i], float(y[t, i])] for t in range(T) for i in range(n)],
-    )
+    tables: dict[str, list[dict[str, Any]]] = {name: [] for name in (
+        "universes", "universe_series", "prepared", "window_fits", "window_params", "connectedness",
+        "directional", "pairwise", "granger", "responses", "decompositions", "runs",
+    )}  # fmt: skip
+    key = {"run_id": run_id, "universe": universe}
+    tables["universes"].append({
+        "universe": universe, "config_hash": "hash", "config_json": "{}", "horizon": horizon,
+        "granger_level": 0.05, "identification": "generalized", "run_id": run_id,
+    })  # fmt: skip
+    tables["universe_series"] = [
+        {"universe": universe, "position": i, "series": name, "transform": "diff"}
+        for i, name in enumerate(SERIES)
+    ]
+    tables["prepared"] = [
+        {"universe": universe, "date": days[t], "series": SERIES[i], "value": float(y[t, i])}
+        for t in range(T) for i in range(n)
+    ]  # fmt: skip
     ends = list(range(window - 1, T, step))
     skipped_at = ends[len(ends) // 3]
     fitted = skipped = 0
     for e in ends:
         start, end = days[e - window + 1], days[e]
+        at = {**key, "window_end": end}
         if e == skipped_at:
-            con.execute(
-                "INSERT INTO window_fits VALUES (?, ?, ?, ?, ?, ?, NULL, NULL, NULL, NULL, NULL, "
-                "NULL, NULL, NULL, ?)",
-                [run_id, universe, end, start, window, lags,
-                 "collinear series in this window (simulated for the test snapshot)"],
-            )  # fmt: skip
+            tables["window_fits"].append({
+                **at, "window_start": start, "nobs": window, "lags": lags,
+                "skip_reason": "collinear series in this window (simulated for the test snapshot)",
+            })  # fmt: skip
             skipped += 1
             continue
         data = y[e - window + 1 : e + 1]
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", arlib.UnstableProcessWarning)
             fit = arlib.fit_var(data, lags, names=SERIES)
-        con.execute(
-            "INSERT INTO window_fits VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, NULL)",
-            [run_id, universe, end, start, fit.nobs, lags, fit.spectral_radius, fit.is_stable,
-             fit.aic, fit.bic, fit.hq, fit.fpe, float(np.linalg.cond(fit.sigma_u)),
-             float(0.5 + 0.45 * np.sin(e))],
-        )  # fmt: skip
-        con.execute(
-            "INSERT INTO window_params VALUES (?, ?, ?, ?, ?, ?, ?)",
-            [run_id, universe, end, lags, fit.coefs.ravel().tolist(), fit.intercept.ravel().tolist(),
-             fit.sigma_u.ravel().tolist()],
-        )  # fmt: skip
+        tables["window_fits"].append({
+            **at, "window_start": start, "nobs": fit.nobs, "lags": lags,
+            "spectral_radius": fit.spectral_radius, "stable": bool(fit.is_stable), "aic": fit.aic,
+            "bic": fit.bic, "hq": fit.hq, "fpe": fit.fpe,
+            "condition_number": float(np.linalg.cond(fit.sigma_u)),
+            "portmanteau_p": float(0.5 + 0.45 * np.sin(e)),
+        })  # fmt: skip
+        tables["window_params"].append({
+            **at, "lags": lags, "coefs": fit.coefs.ravel().tolist(),
+            "intercept": fit.intercept.ravel().tolist(), "sigma_u": fit.sigma_u.ravel().tolist(),
+        })  # fmt: skip
         conn = arlib.connectedness(fit, horizon)
-        con.execute("INSERT INTO connectedness VALUES (?, ?, ?, ?)", [run_id, universe, end, conn.total])
-        con.executemany(
-            "INSERT INTO directional VALUES (?, ?, ?, ?, ?, ?, ?)",
-            [[run_id, universe, end, SERIES[i], float(conn.to_others[i]),
-              float(conn.from_others[i]), float(conn.net[i])] for i in range(n)],
-        )  # fmt: skip
-        con.executemany(
-            "INSERT INTO pairwise VALUES (?, ?, ?, ?, ?, ?)",
-            [[run_id, universe, end, SERIES[j], SERIES[i], float(conn.table[i, j])]
-             for i in range(n) for j in range(n)],
-        )  # fmt: skip
-        rows = []
+        tables["connectedness"].append({**at, "total": conn.total})
+        tables["directional"] += [
+            {**at, "series": SERIES[i], "to_others": float(conn.to_others[i]),
+             "from_others": float(conn.from_others[i]), "net": float(conn.net[i])}
+            for i in range(n)
+        ]  # fmt: skip
+        tables["pairwise"] += [
+            {**at, "source": SERIES[j], "target": SERIES[i], "share": float(conn.table[i, j])}
+            for i in range(n) for j in range(n)
+        ]  # fmt: skip
         for i in range(n):
             for j in range(n):
                 if i != j:
                     g = arlib.granger_test(fit, i, j)
-                    rows.append([run_id, universe, end, SERIES[i], SERIES[j], g.f_stat, g.p_value])
-        con.executemany("INSERT INTO granger VALUES (?, ?, ?, ?, ?, ?, ?)", rows)
+                    tables["granger"].append({**at, "caused": SERIES[i], "causing": SERIES[j],
+                                              "f_stat": g.f_stat, "p_value": g.p_value})  # fmt: skip
         for ident in ("generalized", "cholesky"):
             resp = arlib.impulse_responses(fit, horizon, shocks=ident)
-            con.execute(
-                "INSERT INTO responses VALUES (?, ?, ?, ?, ?, ?, NULL, NULL, NULL)",
-                [run_id, universe, end, ident, horizon, resp.ravel().tolist()],
-            )
+            row: dict[str, Any] = {**at, "identification": ident, "horizon": horizon,
+                                   "response": resp.ravel().tolist()}  # fmt: skip
+            if ident == "generalized":
+                band = arlib.irf_bands(fit, horizon, shocks=ident, draws=50, rng=e)
+                row.update(lower=np.asarray(band.lower).ravel().tolist(),
+                           upper=np.asarray(band.upper).ravel().tolist(), coverage=band.coverage)
+            tables["responses"].append(row)
             dec = arlib.variance_decomposition(fit, horizon, method=ident)
-            con.execute(
-                "INSERT INTO decompositions VALUES (?, ?, ?, ?, ?, ?)",
-                [run_id, universe, end, ident, horizon, dec.ravel().tolist()],
-            )
+            tables["decompositions"].append({**at, "method": ident, "horizon": horizon,
+                                             "share": dec.ravel().tolist()})  # fmt: skip
         fitted += 1
-    con.execute(
-        "INSERT INTO runs VALUES (?, ?, 'succeeded', ?, ?, 'hash', 'fp', 'test', ?, ?, 0, NULL)",
-        [run_id, universe, now, now, fitted, skipped],
-    )
+    tables["runs"].append({
+        **key, "status": "succeeded", "started": now, "finished": now, "config_hash": "hash",
+        "data_fingerprint": "fp", "code_version": "test", "windows_fitted": fitted,
+        "windows_skipped": skipped, "windows_failed": 0,
+    })  # fmt: skip
+    for name, rows in tables.items():
+        _insert(con, name, rows)
     con.close()
     os.replace(tmp, path)
     return path
