@@ -1,0 +1,955 @@
+"""Rolling- and expanding-window VARs, computed exactly and in batches.
+
+`rolling_var` refits a VAR on every window of a long sample and returns, per window, what the
+single-fit functions give for the same rows: coefficients, Σ_u, spectral radius, information
+criteria, Diebold–Yilmaz connectedness, all pairwise Granger F tests, and optionally impulse
+responses, decompositions and a residual portmanteau test. Windows are processed in chunks;
+within a chunk every quantity is computed for all windows at once (see `_rolling_kernels`).
+
+Windows
+-------
+Window w ends at row e_w (its last observation). A rolling window holds rows
+e_w − window + 1 .. e_w; an expanding window holds rows 0 .. e_w. By default the ends run over the
+grid window − 1, window − 1 + step, ..., up to T − 1.
+
+Gaps: rows of `y` may hold NaN. Observation t (the equation for row t) is usable only if rows
+t, t−1, ..., t−p are all finite; each window is fitted on its usable observations, as `fit_var`
+would fit the same observations stacked together (the trend still counts rows from the window's
+first row). A window is skipped — its numbers NaN and `skip_reason` saying why — when it has fewer
+than k + n usable observations (k regressors per equation; the margin n keeps the n×n residual
+covariance nonsingular, the rule `fit_var` applies), or when its regressors are collinear or its
+residual covariance singular (the checks `fit_var` makes).
+
+Accuracy
+--------
+The data are centred and scaled per chunk of windows before cross-products are formed; the
+cross-product sums never subtract running totals; each window is solved by Cholesky of the
+augmented cross-product matrix. Each window's condition number κ (1-norm, column-equilibrated
+cross-product matrix in the working coordinates) bounds the loss of accuracy, about κ·1e-16
+relative: windows with κ > `FAST_COND_LIMIT` (1e7) are refitted directly from their rows by QR —
+the computation `fit_var` performs — so no window's numbers rest on an ill-conditioned
+cross-product solve.
+
+References
+----------
+Lütkepohl, H. (2005). New Introduction to Multiple Time Series Analysis. Springer.
+Diebold, F. X. and Yilmaz, K. (2012). International Journal of Forecasting 28, 57–66.
+Pesaran, M. H. and Shin, Y. (1998). Economics Letters 58, 17–29.
+"""
+
+from __future__ import annotations
+
+import time
+import warnings
+from collections.abc import Sequence
+from contextlib import contextmanager
+from dataclasses import dataclass, fields
+from typing import Any
+
+import numpy as np
+from scipy import stats
+
+from . import _rolling_kernels as K
+from ._estimate import TREND_TERMS, _check_sigma, _least_squares, _regressor_names, select_lags
+from ._validate import InvalidInputError, as_names, check_int, check_option, readonly
+
+#: Response identifications that can be stored per window (names as in `impulse_responses`).
+RESPONSE_KINDS = ("cholesky", "generalized", "unit")
+#: Decomposition methods that can be stored per window (as in `variance_decomposition`).
+DECOMPOSITION_KINDS = ("cholesky", "generalized")
+#: Lag-order criteria (as in `select_lags`).
+CRITERIA = ("aic", "bic", "hq", "fpe")
+#: Above this condition number a window is refitted directly by QR instead of from cross-products.
+FAST_COND_LIMIT = 1e7
+#: Working-memory budget per chunk of windows (bytes); bounds peak memory beyond the outputs.
+CHUNK_BYTES = 48 * 2**20
+
+
+# ---------------------------------------------------------------------------------------------
+# result
+# ---------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True, eq=False, repr=False)
+class RollingVAR:
+    """Per-window VAR results. W windows, n series, P = largest lag order, H = horizon.
+
+    All arrays are read-only; a skipped window (``ok[w]`` False) has NaN in every float array
+    and its reason in ``skip_reason[w]``.
+
+    Attributes
+    ----------
+    ends : (W,) int, row of each window's last observation (windows ordered by end).
+    starts : (W,) int, row of each window's first row (0 for expanding windows).
+    nobs : (W,) int, usable observations (equations) in the window; ``window − p`` without gaps.
+    lags : (W,) int, lag order p of each window (the selected one under a criterion).
+    coefs : (W, P, n, n); ``coefs[w, l]`` is A_{l+1}; zero for l >= lags[w].
+    intercept : (W, n) or None (trend "n").   trend_coef : (W, n) slope for trend "ct", else None.
+    sigma_u : (W, n, n) Σ̂_u = Û'Û / (nobs − k).
+    spectral_radius : (W,) largest eigenvalue modulus of the companion matrix.
+    aic, bic, hq, fpe : (W,) information criteria, the convention of `fit_var`.
+    condition_number : (W,) 1-norm condition number of the column-equilibrated cross-product
+        matrix X'X of the centred and scaled regressors (the matrix the engine solves).
+    total_connectedness : (W,) percent, Σ_{i≠j} pairwise[i, j] / n.
+    to_others, from_others, net : (W, n) percent; sums of off-diagonal pairwise entries over
+        rows (to, column j) and columns (from, row i); net = to − from.
+    pairwise : (W, n, n) percent; [w, i, j] = share of series i's H-step forecast-error variance
+        due to shocks in j (generalized, row-normalised; Diebold & Yilmaz 2012); rows sum to 100.
+    granger_f, granger_p : (W, n, n) or None; [w, i, j] tests "series j does not Granger-cause
+        series i" (F form, Lütkepohl 2005 Sec. 3.6.1); diagonal NaN.
+    granger_df : (W, 2) int or None, (p, n·(nobs − k)) per window.
+    responses : (W, H+1, n, n) [window, horizon, response, shock] or None.
+    response_kind : identification of `responses` ("cholesky" | "generalized" | "unit") or None.
+    decomposition : (W, H, n, n) [window, step, variable, shock], rows sum to one, or None.
+    decomposition_kind : "cholesky" | "generalized" or None.
+    portmanteau_p : (W,) p-value of the small-sample adjusted portmanteau test Q̄_h
+        (Lütkepohl 2005, eq. 4.4.24; `_diagnostics.portmanteau_test`), or None; NaN for windows
+        with gaps (residual autocorrelations are not defined across a gap).
+    portmanteau_lags : h, or None.
+    skip_reason : (W,) object, "" for fitted windows.   ok : (W,) bool.
+    names : n series names.   window, step, trend, horizon, expanding : as passed.
+    criterion : lag criterion or None.
+    """
+
+    ends: np.ndarray
+    starts: np.ndarray
+    nobs: np.ndarray
+    lags: np.ndarray
+    coefs: np.ndarray
+    intercept: np.ndarray | None
+    trend_coef: np.ndarray | None
+    sigma_u: np.ndarray
+    spectral_radius: np.ndarray
+    aic: np.ndarray
+    bic: np.ndarray
+    hq: np.ndarray
+    fpe: np.ndarray
+    condition_number: np.ndarray
+    total_connectedness: np.ndarray
+    to_others: np.ndarray
+    from_others: np.ndarray
+    net: np.ndarray
+    pairwise: np.ndarray
+    granger_f: np.ndarray | None
+    granger_p: np.ndarray | None
+    granger_df: np.ndarray | None
+    responses: np.ndarray | None
+    response_kind: str | None
+    decomposition: np.ndarray | None
+    decomposition_kind: str | None
+    portmanteau_p: np.ndarray | None
+    portmanteau_lags: int | None
+    skip_reason: np.ndarray
+    ok: np.ndarray
+    names: tuple[str, ...]
+    window: int
+    step: int
+    trend: str
+    horizon: int
+    expanding: bool
+    criterion: str | None
+
+    def __len__(self) -> int:
+        return int(self.ends.shape[0])
+
+    @property
+    def n(self) -> int:
+        """Number of series."""
+        return len(self.names)
+
+    @property
+    def max_lags(self) -> int:
+        """P, the lag axis length of `coefs`."""
+        return int(self.coefs.shape[1])
+
+    def __repr__(self) -> str:
+        kind = "expanding" if self.expanding else "rolling"
+        return (
+            f"RollingVAR({len(self)} {kind} windows of {self.window} rows, n={self.n}, "
+            f"lags={self._lag_text()}, horizon={self.horizon}, skipped={int((~self.ok).sum())})"
+        )
+
+    def _lag_text(self) -> str:
+        if self.criterion is None:
+            return str(self.max_lags)
+        return f"{self.criterion}<= {self.max_lags}"
+
+    @classmethod
+    def concat(cls, parts: Sequence[RollingVAR]) -> RollingVAR:
+        """Join results for disjoint blocks of window ends (e.g. from several workers, or a
+        stored history plus the newest windows) into one, ordered by end.
+
+        The parts must share data names and every setting; P becomes the largest lag axis.
+        """
+        if not parts:
+            msg = "`parts` is empty; pass at least one RollingVAR"
+            raise InvalidInputError(msg)
+        first = parts[0]
+        same = ("names", "window", "step", "trend", "horizon", "expanding", "criterion",
+                "response_kind", "decomposition_kind", "portmanteau_lags")  # fmt: skip
+        for other in parts[1:]:
+            for attr in same:
+                if getattr(other, attr) != getattr(first, attr):
+                    msg = (
+                        f"cannot join RollingVAR results with different `{attr}`: "
+                        f"{getattr(first, attr)!r} vs {getattr(other, attr)!r}"
+                    )
+                    raise InvalidInputError(msg)
+            for attr in ("granger_f", "portmanteau_p"):
+                if (getattr(other, attr) is None) != (getattr(first, attr) is None):
+                    msg = f"cannot join RollingVAR results where only some have `{attr}`"
+                    raise InvalidInputError(msg)
+        ends = np.concatenate([part.ends for part in parts])
+        order = np.argsort(ends, kind="stable")
+        if np.any(np.diff(ends[order]) == 0):
+            msg = "cannot join RollingVAR results whose window ends overlap; pass disjoint blocks"
+            raise InvalidInputError(msg)
+        P = max(part.max_lags for part in parts)
+        values: dict[str, Any] = {}
+        for f in fields(cls):
+            vals = [getattr(part, f.name) for part in parts]
+            if not isinstance(vals[0], np.ndarray):
+                values[f.name] = vals[0]
+                continue
+            if f.name == "coefs":
+                vals = [
+                    np.concatenate(
+                        [v, np.zeros((v.shape[0], P - v.shape[1], *v.shape[2:]))], axis=1
+                    )
+                    for v in vals
+                ]
+            joined = np.concatenate(vals)[order]
+            joined.flags.writeable = False
+            values[f.name] = joined
+        return cls(**values)
+
+
+# ---------------------------------------------------------------------------------------------
+# stage timing (the benchmark reads it; costs nothing when unused)
+# ---------------------------------------------------------------------------------------------
+
+
+class StageTimer:
+    """Accumulates wall time per named stage: ``with timer("gram"): ...``."""
+
+    def __init__(self) -> None:
+        self.seconds: dict[str, float] = {}
+
+    @contextmanager
+    def __call__(self, name: str):  # type: ignore[no-untyped-def]
+        t0 = time.perf_counter()
+        try:
+            yield
+        finally:
+            self.seconds[name] = self.seconds.get(name, 0.0) + time.perf_counter() - t0
+
+
+class _NoTimer:
+    @contextmanager
+    def __call__(self, name: str):  # type: ignore[no-untyped-def]
+        yield
+
+
+# ---------------------------------------------------------------------------------------------
+# public entry
+# ---------------------------------------------------------------------------------------------
+
+
+def rolling_var(
+    y: Any,
+    window: int,
+    lags: int | None,
+    horizon: int,
+    *,
+    step: int = 1,
+    trend: str = "c",
+    expanding: bool = False,
+    ends: Any = None,
+    after: int | None = None,
+    criterion: str | None = None,
+    max_lags: int | None = None,
+    granger: bool = True,
+    responses: str | None = None,
+    decomposition: str | None = None,
+    portmanteau_lags: int | None = None,
+    names: Sequence[str] | None = None,
+    _timer: StageTimer | None = None,
+) -> RollingVAR:
+    """Fit a VAR on every rolling (or expanding) window and derive per-window results.
+
+    Each window's numbers equal those of `fit_var`, `connectedness`, `granger_test`,
+    `impulse_responses`, `variance_decomposition` and `portmanteau_test` applied to the same rows
+    (to about 1e-10 relative; tested to 1e-8).
+
+    Parameters
+    ----------
+    y : (T, n) float array, rows oldest first (a 1-D array is one series); NaN marks missing rows
+        (see the module docstring for how gaps are handled); inf is refused.
+    window : rows per window (rolling), or rows of the first window (expanding).
+    lags : p >= 1, or None to choose p per window with `criterion` up to `max_lags`.
+    horizon : H >= 1; connectedness uses the H-step decomposition (responses 0..H−1).
+    step : spacing of the default window ends window−1, window−1+step, ...
+    trend : "n", "c" or "ct" deterministic terms (the trend counts rows from 1 at each
+        window's first row, as `fit_var` on the window's rows).
+    expanding : windows grow from row 0 instead of rolling.
+    ends : explicit window ends (row indices, strictly increasing), e.g. one block of a
+        universe for one worker; overrides the grid.
+    after : keep only ends > after (the nightly update: cost is proportional to the new
+        windows, not to the history — except expanding windows, whose sums run from row 0).
+    criterion : "aic" | "bic" | "hq" | "fpe" when lags is None. Orders 1..max_lags are compared
+        on each window's common sample (its rows after the first max_lags), as `select_lags`
+        does; order 0 is not a candidate (a VAR needs a lag).
+    max_lags : P when selecting lags.
+    granger : compute all pairwise Granger F tests.
+    responses : None | "generalized" | "cholesky" | "unit" — store responses (W, H+1, n, n).
+    decomposition : None | "generalized" | "cholesky" — store decompositions (W, H, n, n).
+    portmanteau_lags : h > p to store the adjusted portmanteau p-value per window.
+    names : n series names (default y0, y1, ...).
+
+    Returns
+    -------
+    RollingVAR (see its docstring for every array's shape).
+
+    Raises
+    ------
+    InvalidInputError : bad shapes or options, inf in `y`, a window too short for the model,
+        ends outside the data. Individual windows that cannot be fitted are skipped, not raised.
+    """
+    timer: Any = _timer if _timer is not None else _NoTimer()
+    data, labels = _as_data_with_gaps(y, names)
+    T, n = data.shape
+    check_option(trend, "trend", TREND_TERMS)
+    d = len(TREND_TERMS[trend])
+    H = check_int(horizon, "horizon", minimum=1)
+    stp = check_int(step, "step", minimum=1)
+    win = check_int(window, "window", minimum=2)
+    if lags is None:
+        if criterion is None or max_lags is None:
+            msg = (
+                "`lags` is None, so lags are chosen per window: pass `criterion` (one of "
+                f"{list(CRITERIA)!r}) and `max_lags`, or give `lags` as an integer"
+            )
+            raise InvalidInputError(msg)
+        check_option(criterion, "criterion", CRITERIA)
+        P = check_int(max_lags, "max_lags", minimum=1)
+        what = "max_lags"
+    else:
+        P = check_int(lags, "lags", minimum=1, hint="a VAR needs at least one lag")
+        if criterion is not None:
+            msg = f"`criterion`={criterion!r} applies only with lags=None; drop it or set lags=None"
+            raise InvalidInputError(msg)
+        what = "lags"
+    k_max = d + n * P
+    if win - P - k_max < n:
+        need = P + k_max + n
+        msg = (
+            f"`window`={win} leaves {win - P} observations for {k_max} coefficients per equation "
+            f"({n} series × {what}={P} + {d} deterministic), fewer than the {k_max + n} needed "
+            f"for a nonsingular {n}×{n} residual covariance; use window >= {need} or fewer "
+            f"lags/series"
+        )
+        raise InvalidInputError(msg)
+    if win > T:
+        msg = f"`window`={win} is longer than the {T} rows of `y`; use window <= {T}"
+        raise InvalidInputError(msg)
+    if responses is not None:
+        check_option(responses, "responses", RESPONSE_KINDS)
+    if decomposition is not None:
+        check_option(decomposition, "decomposition", DECOMPOSITION_KINDS)
+    h_port = None
+    if portmanteau_lags is not None:
+        h_port = check_int(
+            portmanteau_lags, "portmanteau_lags", minimum=P + 1,
+            hint=f"the χ² degrees of freedom n²(h − p) need h > p = {P}",
+        )  # fmt: skip
+        if h_port >= win - P:
+            msg = (
+                f"`portmanteau_lags`={h_port} must be below the {win - P} residuals of a window; "
+                "use a smaller value"
+            )
+            raise InvalidInputError(msg)
+    end_rows = _window_ends(T, win, stp, ends, after)
+    starts = np.zeros_like(end_rows) if expanding else end_rows - win + 1
+    W = end_rows.shape[0]
+
+    finite = np.isfinite(data).all(axis=1)
+    out = _Outputs(W, n, P, H, trend, bool(granger), responses, decomposition, h_port)
+    out.ends[:] = end_rows
+    out.starts[:] = starts
+    if lags is None:
+        with timer("lag selection"):
+            orders = _select_orders(
+                data, finite, P, trend, end_rows, starts, criterion, out, bool(expanding)
+            )
+    else:
+        orders = np.full(W, P)
+    out.lags[:] = np.maximum(orders, 0)
+    for p in np.unique(orders[orders > 0]):
+        idx = np.flatnonzero(orders == p)
+        _fit_group(data, finite, int(p), trend, idx, out, expanding, timer)
+    return out.finish(labels, win, stp, trend, H, bool(expanding), criterion)
+
+
+# ---------------------------------------------------------------------------------------------
+# validation helpers
+# ---------------------------------------------------------------------------------------------
+
+
+def _as_data_with_gaps(y: Any, names: Sequence[str] | None) -> tuple[np.ndarray, tuple[str, ...]]:
+    """(T, n) float64 copy; NaN allowed (gaps), inf refused with its row and series."""
+    try:
+        arr = np.array(y, dtype=np.float64, copy=True)
+    except (TypeError, ValueError) as exc:
+        msg = f"`y` must be a numeric array of shape (T, n); converting it failed: {exc}"
+        raise InvalidInputError(msg) from exc
+    if arr.ndim == 1:
+        arr = arr[:, None]
+    if arr.ndim != 2 or arr.shape[0] == 0 or arr.shape[1] == 0:
+        msg = (
+            f"`y` must be 1-D (one series) or 2-D (T rows, n series) and non-empty; got shape "
+            f"{arr.shape}; stack the series as columns"
+        )
+        raise InvalidInputError(msg)
+    labels = as_names(names, arr.shape[1])
+    inf = np.isinf(arr)
+    if inf.any():
+        r, c = np.argwhere(inf)[0]
+        msg = (
+            f"`y` has {int(inf.sum())} infinite value(s); the first is at row {r} of series "
+            f"{labels[c]!r}; replace them with NaN (a gap) or a finite value"
+        )
+        raise InvalidInputError(msg)
+    return arr, labels
+
+
+def _window_ends(T: int, window: int, step: int, ends: Any, after: Any) -> np.ndarray:
+    if ends is None:
+        rows = np.arange(window - 1, T, step, dtype=np.int64)
+    else:
+        raw = np.asarray(ends)
+        if raw.ndim != 1 or not (np.issubdtype(raw.dtype, np.integer) or raw.size == 0):
+            msg = (
+                f"`ends` must be a 1-D array of integer row indices, got dtype {raw.dtype} and "
+                f"shape {raw.shape}"
+            )
+            raise InvalidInputError(msg)
+        rows = raw.astype(np.int64)
+        if rows.size and (rows.min() < window - 1 or rows.max() > T - 1):
+            bad = rows[(rows < window - 1) | (rows > T - 1)][0]
+            msg = (
+                f"`ends` contains row {int(bad)}, outside {window - 1}..{T - 1} (a window of "
+                f"{window} rows must end at row >= {window - 1}, and `y` has {T} rows)"
+            )
+            raise InvalidInputError(msg)
+        if rows.size > 1 and np.any(np.diff(rows) <= 0):
+            msg = "`ends` must be strictly increasing; pass np.unique(ends)"
+            raise InvalidInputError(msg)
+    if after is not None:
+        if isinstance(after, bool) or not isinstance(after, int | np.integer):
+            msg = f"`after` must be an integer row index, got {after!r}"
+            raise InvalidInputError(msg)
+        rows = rows[rows > after]
+    return rows
+
+
+# ---------------------------------------------------------------------------------------------
+# output buffers
+# ---------------------------------------------------------------------------------------------
+
+
+class _Outputs:
+    """Preallocated result arrays (NaN until a window is fitted)."""
+
+    def __init__(
+        self, W: int, n: int, P: int, H: int, trend: str, granger: bool,
+        responses: str | None, decomposition: str | None, h_port: int | None,
+    ) -> None:  # fmt: skip
+        terms = TREND_TERMS[trend]
+        nan = np.nan
+        self.n, self.P, self.H = n, P, H
+        self.ends = np.zeros(W, dtype=np.int64)
+        self.starts = np.zeros(W, dtype=np.int64)
+        self.nobs = np.zeros(W, dtype=np.int64)
+        self.lags = np.zeros(W, dtype=np.int64)
+        self.coefs = np.full((W, P, n, n), nan)
+        self.intercept = np.full((W, n), nan) if "const" in terms else None
+        self.trend_coef = np.full((W, n), nan) if "trend" in terms else None
+        self.sigma_u = np.full((W, n, n), nan)
+        self.spectral_radius = np.full(W, nan)
+        self.ic = {name: np.full(W, nan) for name in CRITERIA}
+        self.condition_number = np.full(W, nan)
+        self.total = np.full(W, nan)
+        self.to_others = np.full((W, n), nan)
+        self.from_others = np.full((W, n), nan)
+        self.net = np.full((W, n), nan)
+        self.pairwise = np.full((W, n, n), nan)
+        self.granger_f = np.full((W, n, n), nan) if granger else None
+        self.granger_p = np.full((W, n, n), nan) if granger else None
+        self.granger_df = np.zeros((W, 2), dtype=np.int64) if granger else None
+        self.response_kind = responses
+        self.responses = np.full((W, H + 1, n, n), nan) if responses else None
+        self.decomposition_kind = decomposition
+        self.decomposition = np.full((W, H, n, n), nan) if decomposition else None
+        self.h_port = h_port
+        self.portmanteau_p = np.full(W, nan) if h_port is not None else None
+        self.skip_reason = np.full(W, "", dtype=object)
+
+    def skip(self, w: np.ndarray | int, reason: str) -> None:
+        self.skip_reason[w] = reason
+
+    def finish(
+        self, names: tuple[str, ...], window: int, step: int, trend: str, horizon: int,
+        expanding: bool, criterion: str | None,
+    ) -> RollingVAR:  # fmt: skip
+        ok = self.skip_reason == ""
+        bad = ~ok
+        for arr in (self.coefs, self.intercept, self.trend_coef, self.sigma_u,
+                    self.spectral_radius, *self.ic.values(), self.condition_number, self.total,
+                    self.to_others, self.from_others, self.net, self.pairwise, self.granger_f,
+                    self.granger_p, self.responses, self.decomposition, self.portmanteau_p):  # fmt: skip
+            if arr is not None:
+                arr[bad] = np.nan
+        arrays = dict(
+            ends=self.ends, starts=self.starts, nobs=self.nobs, lags=self.lags, coefs=self.coefs,
+            intercept=self.intercept, trend_coef=self.trend_coef, sigma_u=self.sigma_u,
+            spectral_radius=self.spectral_radius, aic=self.ic["aic"], bic=self.ic["bic"],
+            hq=self.ic["hq"], fpe=self.ic["fpe"], condition_number=self.condition_number,
+            total_connectedness=self.total, to_others=self.to_others,
+            from_others=self.from_others, net=self.net, pairwise=self.pairwise,
+            granger_f=self.granger_f, granger_p=self.granger_p, granger_df=self.granger_df,
+            responses=self.responses, decomposition=self.decomposition,
+            portmanteau_p=self.portmanteau_p, skip_reason=self.skip_reason, ok=ok,
+        )  # fmt: skip
+        readonly(*arrays.values())
+        return RollingVAR(
+            **arrays, response_kind=self.response_kind,
+            decomposition_kind=self.decomposition_kind, portmanteau_lags=self.h_port,
+            names=names, window=window, step=step, trend=trend, horizon=horizon,
+            expanding=expanding, criterion=criterion,
+        )  # fmt: skip
+
+
+# ---------------------------------------------------------------------------------------------
+# chunk planning and working coordinates
+# ---------------------------------------------------------------------------------------------
+
+
+@dataclass
+class _Frame:
+    """Working coordinates of one chunk: y' = (y − μ) / s per series, trend τ' = (t − τ0) / τs."""
+
+    mu: np.ndarray
+    scale: np.ndarray
+    tau0: float
+    tau_scale: float
+
+
+def _frame(data: np.ndarray, finite: np.ndarray, lo: int, hi: int, trend: str) -> _Frame:
+    rows = data[lo : hi + 1][finite[lo : hi + 1]]
+    n = data.shape[1]
+    if rows.shape[0] == 0:
+        return _Frame(np.zeros(n), np.ones(n), 0.5 * (lo + hi), 1.0)
+    if trend == "n":  # no intercept: centring would change the model, so only scale
+        mu = np.zeros(n)
+        scale = np.sqrt((rows * rows).mean(axis=0))
+    else:
+        mu = rows.mean(axis=0)
+        scale = rows.std(axis=0)
+    scale[~(scale > 0)] = 1.0
+    return _Frame(mu, scale, 0.5 * (lo + hi), max(0.5 * (hi - lo), 1.0))
+
+
+def _det_columns(rows: np.ndarray, trend: str, fr: _Frame) -> np.ndarray:
+    cols = []
+    for term in TREND_TERMS[trend]:
+        cols.append(np.ones(rows.shape[0]) if term == "const" else (rows - fr.tau0) / fr.tau_scale)
+    return np.column_stack(cols) if cols else np.empty((rows.shape[0], 0))
+
+
+def _chunks(ends: np.ndarray, max_windows: int, expanding: bool) -> list[np.ndarray]:
+    """Split window positions into chunks of consecutive windows whose rows span little more
+    than `max_windows` windows' worth (so sparse explicit ends cost per window, not per row)."""
+    out: list[np.ndarray] = []
+    W = ends.shape[0]
+    i = 0
+    while i < W:
+        j = i + 1
+        while j < W and j - i < max_windows and (expanding or ends[j] - ends[i] < max_windows):
+            j += 1
+        out.append(np.arange(i, j))
+        i = j
+    return out
+
+
+def _chunk_size(n: int, p: int, d: int, H: int, extra: int) -> int:
+    m = d + n * (p + 1)
+    per_window = 8 * (6 * m * m + 4 * (n * p) ** 2 + (H + 2) * n * n * (2 + extra))
+    return int(np.clip(CHUNK_BYTES // per_window, 16, 1024))
+
+
+# ---------------------------------------------------------------------------------------------
+# fitting one group of windows with a common lag order
+# ---------------------------------------------------------------------------------------------
+
+
+def _fit_group(
+    data: np.ndarray, finite: np.ndarray, p: int, trend: str, idx: np.ndarray,
+    out: _Outputs, expanding: bool, timer: Any,
+) -> None:  # fmt: skip
+    n = data.shape[1]
+    d = len(TREND_TERMS[trend])
+    usable = K.usable_observations(finite, p)
+    cum = np.concatenate([[0], np.cumsum(usable)])
+    ends = out.ends[idx]
+    starts = out.starts[idx]
+    first = starts + p  # first observation row of each window
+    out.nobs[idx] = cum[ends + 1] - cum[first]
+    extra = (out.responses is not None) + (out.decomposition is not None)
+    size = _chunk_size(n, p, d, out.H, extra)
+    if expanding:
+        fr = _frame(data, finite, 0, int(ends[-1]), trend)
+        carry = {"row": p, "sum": None}
+    for chunk in _chunks(ends, size, expanding):
+        widx = idx[chunk]
+        e = ends[chunk]
+        a = first[chunk]
+        with timer("gram"):
+            if expanding:
+                G = _expanding_grams(data, usable, p, trend, fr, e, carry)
+            else:
+                fr = _frame(data, finite, int(starts[chunk][0]), int(e[-1]), trend)
+                rows = np.arange(int(a[0]), int(e[-1]) + 1)
+                ys = (data - fr.mu) / fr.scale
+                z = K.augmented_rows(ys, rows, p, _det_columns(rows, trend, fr), usable[rows])
+                terms = z[:, :, None] * z[:, None, :]
+                G = K.window_sums(terms, a - a[0], int(e[0] - a[0] + 1))
+                del terms, z
+        _fit_chunk(data, usable, p, trend, fr, widx, G, out, timer)
+
+
+def _expanding_grams(
+    data: np.ndarray, usable: np.ndarray, p: int, trend: str, fr: _Frame, ends: np.ndarray,
+    carry: dict[str, Any],
+) -> np.ndarray:  # fmt: skip
+    """Σ_{t=p}^{e} z_t z_t' for each end e, continuing the running sum kept in `carry`."""
+    lo = int(carry["row"])
+    rows = np.arange(lo, int(ends[-1]) + 1)
+    ys = (data - fr.mu) / fr.scale
+    z = K.augmented_rows(ys, rows, p, _det_columns(rows, trend, fr), usable[rows])
+    terms = z[:, :, None] * z[:, None, :]
+    run = np.cumsum(terms, axis=0)
+    if carry["sum"] is not None:
+        run += carry["sum"]
+    G = run[ends - lo].copy()
+    carry["row"] = int(ends[-1]) + 1
+    carry["sum"] = run[-1].copy()
+    return G
+
+
+def _fit_chunk(
+    data: np.ndarray, usable: np.ndarray, p: int, trend: str, fr: _Frame, widx: np.ndarray,
+    G: np.ndarray, out: _Outputs, timer: Any,
+) -> None:  # fmt: skip
+    n = data.shape[1]
+    d = len(TREND_TERMS[trend])
+    k = d + n * p
+    nobs = out.nobs[widx]
+    short = nobs < k + n
+    for w in widx[short]:
+        out.skip(
+            w,
+            f"{out.nobs[w]} usable observations after gaps, fewer than the {k + n} needed for "
+            f"{k} coefficients per equation and a nonsingular residual covariance",
+        )
+    with timer("solve"):
+        sol = K.solve_grams(G, k)
+        coef_t, sse, gram_inv = sol["coef_t"], sol["sse"], sol["gram_inv"]
+        logdet = sol["logdet_sse"]
+        cond = sol["cond"]
+        direct = ~short & (~sol["ok"] | (cond > FAST_COND_LIMIT) | (sol["sse_pivot"] < 1e-10))
+        override: dict[int, dict[str, np.ndarray]] = {}
+        for j in np.flatnonzero(direct):
+            w = int(widx[j])
+            try:
+                res = _direct_window(data, usable, p, trend, fr, out.starts[w], out.ends[w])
+            except _Skip as exc:
+                out.skip(w, str(exc))
+                continue
+            coef_t[j], sse[j], gram_inv[j], logdet[j] = (
+                res["coef_t"], res["sse"], res["gram_inv"], res["logdet_sse"],
+            )  # fmt: skip
+            override[j] = res
+        live = out.skip_reason[widx] == ""
+        if not live.any():
+            return
+        if not live.all():  # keep skipped windows out of the batched arithmetic
+            pos = np.cumsum(live) - 1
+            override = {int(pos[j]): res for j, res in override.items()}
+            coef_t, sse, gram_inv = coef_t[live], sse[live], gram_inv[live]
+            logdet, cond, widx, nobs = logdet[live], cond[live], widx[live], nobs[live]
+        dof = (nobs - k).astype(np.float64)
+        sigma_s = sse / dof[:, None, None]  # Σ̂_u in working coordinates
+        acat = coef_t[:, :, d:]  # (W, n, n·p) = [A'_1 ... A'_p] in working coordinates
+        s = fr.scale
+        ratio = s[:, None] / s[None, :]  # A_l = S A'_l S^{-1}
+        coefs = acat.reshape(-1, n, p, n).transpose(0, 2, 1, 3) * ratio
+        out.coefs[widx, :p] = coefs
+        out.coefs[widx, p:] = 0.0
+        out.sigma_u[widx] = sigma_s * np.outer(s, s)
+        _deterministic(coef_t, coefs, trend, fr, out, widx, override)
+        logdet_ml = logdet + 2.0 * np.log(s).sum() - n * np.log(nobs)
+        for name, val in K.information_criteria_batch(logdet_ml, nobs, n, k).items():
+            out.ic[name][widx] = val
+        out.condition_number[widx] = cond
+    with timer("spectral radius"):
+        rho, _ = K.spectral_radius_batch(acat, n, p)
+        out.spectral_radius[widx] = rho
+    with timer("connectedness"):
+        _responses_and_decompositions(acat, sigma_s, s, out, widx)
+    if out.granger_f is not None:
+        with timer("granger"):
+            F = K.granger_f(coef_t, gram_inv, np.diagonal(sigma_s, axis1=1, axis2=2), n, p, d)
+            df2 = n * (nobs - k)
+            out.granger_f[widx] = F
+            out.granger_p[widx] = K.f_survival(F, p, df2[:, None, None])
+            out.granger_df[widx, 0] = p
+            out.granger_df[widx, 1] = df2
+    if out.portmanteau_p is not None:
+        with timer("portmanteau"):
+            _portmanteau(data, usable, p, trend, fr, coef_t, sse, nobs, out, widx)
+
+
+class _Skip(Exception):
+    """A window that cannot be fitted; the message is its skip reason."""
+
+
+def _direct_window(
+    data: np.ndarray, usable: np.ndarray, p: int, trend: str, fr: _Frame, start: int, end: int
+) -> dict[str, np.ndarray]:
+    """Refit one window from its rows by QR, as `fit_var` would, in the chunk's coordinates.
+
+    Raises _Skip with `fit_var`'s own message when it would refuse the rows (a constant series,
+    collinear regressors, a singular residual covariance).
+    """
+    n = data.shape[1]
+    rows = np.arange(start + p, end + 1)
+    rows = rows[usable[rows]]
+    names = tuple(f"y{i}" for i in range(n))
+    Y = data[rows]
+    span = np.ptp(data[start : end + 1][np.isfinite(data[start : end + 1]).all(axis=1)], axis=0)
+    size = np.abs(Y).max(axis=0)
+    flat = np.flatnonzero(span <= 1e-12 * size)
+    if flat.size:
+        msg = f"series {int(flat[0])} is constant in this window; a VAR needs series that vary"
+        raise _Skip(msg)
+    # fit_var's own design (trend counts rows from 1 at the window's first row) and checks
+    det = np.column_stack(
+        [np.ones(rows.size) if t == "const" else (rows - start + 1.0) for t in TREND_TERMS[trend]]
+    ) if TREND_TERMS[trend] else np.empty((rows.size, 0))  # fmt: skip
+    Z = np.concatenate([det] + [data[rows - lag] for lag in range(1, p + 1)], axis=1)
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            B, _ = _least_squares(Z, Y, _regressor_names(names, p, trend), "y")
+            U = Y - Z @ B
+            _check_sigma(U.T @ U / rows.size, names, "y")
+    except InvalidInputError as exc:
+        raise _Skip(f"not fitted: {exc}".replace("`y` ", "the window ")) from None
+    # the same fit in working coordinates (so the batched steps downstream apply unchanged)
+    ys = (data - fr.mu) / fr.scale
+    z = K.augmented_rows(ys, rows, p, _det_columns(rows, trend, fr), np.ones(rows.size, bool))
+    k = z.shape[1] - n
+    Zs, Ys = z[:, :k], z[:, k:]
+    col = np.sqrt((Zs * Zs).sum(axis=0))
+    col[col == 0] = 1.0
+    Q, R = np.linalg.qr(Zs / col)
+    Rinv = np.linalg.solve(R, np.eye(k)) / col[:, None]
+    Bs = Rinv @ (Q.T @ Ys)
+    Us = Ys - Zs @ Bs
+    sse = Us.T @ Us
+    _, logdet = np.linalg.slogdet(sse)
+    return {
+        "coef_t": Bs.T, "sse": sse, "gram_inv": Rinv @ Rinv.T, "logdet_sse": logdet,
+        "params": B,
+    }  # fmt: skip
+
+
+def _deterministic(
+    coef_t: np.ndarray, coefs: np.ndarray, trend: str, fr: _Frame, out: _Outputs,
+    widx: np.ndarray, override: dict[int, dict[str, np.ndarray]],
+) -> None:  # fmt: skip
+    """Intercept and trend slope in the original coordinates of each window.
+
+    Working model y'_t = a' + b'τ'_t + Σ A'_l y'_{t−l}, y' = (y − μ)/s, τ' = (t − τ0)/τs; with the
+    window trend τ_t = t − start + 1 this is y_t = c + δ τ_t + Σ A_l y_{t−l} with
+    δ = s ⊙ b' / τs and c = μ + s ⊙ a' − (Σ_l A_l) μ + δ (start − 1 − τ0).
+    """
+    terms = TREND_TERMS[trend]
+    if not terms:
+        return
+    s = fr.scale
+    c = fr.mu + s * coef_t[:, :, 0] - coefs.sum(axis=1) @ fr.mu
+    if "trend" in terms:
+        delta = s * coef_t[:, :, 1] / fr.tau_scale
+        start = out.starts[widx].astype(np.float64)
+        c = c + delta * (start - 1.0 - fr.tau0)[:, None]
+        out.trend_coef[widx] = delta
+    out.intercept[widx] = c
+    for j, res in override.items():  # windows refitted directly: take fit_var's numbers as is
+        out.intercept[widx[j]] = res["params"][0]
+        if "trend" in terms:
+            out.trend_coef[widx[j]] = res["params"][1]
+
+
+def _responses_and_decompositions(
+    acat: np.ndarray, sigma_s: np.ndarray, s: np.ndarray, out: _Outputs, widx: np.ndarray
+) -> None:
+    """Connectedness (always) and stored responses / decompositions, in one MA recursion.
+
+    Ψ_h = Φ_h Σ (generalized, unnormalised) drives the connectedness table: the generalized
+    share is σ_jj^{-1} Σ_{h<H} Ψ_h,ij², normalised by its row sum (the Pesaran–Shin denominator
+    cancels in the row normalisation). Other identifications add columns to the same recursion.
+    """
+    n, H = out.n, out.H
+    W = acat.shape[0]
+    rk, dk = out.response_kind, out.decomposition_kind
+    impacts = [sigma_s]  # generalized (unnormalised) always: connectedness
+    if "cholesky" in (rk, dk):
+        chol = np.linalg.cholesky(sigma_s)
+        impacts.append(chol)
+    if rk == "unit":
+        impacts.append(np.broadcast_to(np.eye(n), (W, n, n)))
+    steps = H if rk is not None else H - 1
+    x0 = np.concatenate(impacts, axis=-1)
+    X = K.propagate(acat, x0, steps)  # (W, steps+1, n, c·n)
+    sd = np.sqrt(np.diagonal(sigma_s, axis1=1, axis2=2))  # working-coordinate σ_jj^{1/2}
+    gen = X[..., :n] / sd[:, None, None, :]  # ψ_ij(h) = (Φ_h Σ e_j)_i / sqrt(σ_jj)
+    sq = (gen[:, :H] ** 2).cumsum(axis=1)  # Σ_{h<s} ψ_ij(h)², s = 1..H
+    table = 100.0 * sq[:, -1] / sq[:, -1].sum(axis=-1, keepdims=True)
+    diag = np.diagonal(table, axis1=1, axis2=2)
+    from_others = table.sum(axis=-1) - diag
+    to_others = table.sum(axis=-2) - diag
+    out.pairwise[widx] = table
+    out.from_others[widx] = from_others
+    out.to_others[widx] = to_others
+    out.net[widx] = to_others - from_others
+    out.total[widx] = from_others.sum(axis=-1) / n
+    if dk == "generalized":
+        out.decomposition[widx] = sq / sq.sum(axis=-1, keepdims=True)
+    elif dk == "cholesky":
+        th = X[:, :H, :, n : 2 * n]
+        acc = (th * th).cumsum(axis=1)
+        out.decomposition[widx] = acc / acc.sum(axis=-1, keepdims=True)
+    if rk is not None:
+        col = {"generalized": 0, "cholesky": 1, "unit": len(impacts) - 1}[rk]
+        resp = X[..., col * n : (col + 1) * n]
+        if rk == "generalized":
+            resp = resp / sd[:, None, None, :]
+        if rk == "unit":  # Φ_h = S Φ'_h S^{-1}
+            out.responses[widx] = resp * (s[:, None] / s[None, :])
+        else:  # Θ_h = S Θ'_h (Cholesky factor and generalized impacts scale with S)
+            out.responses[widx] = resp * s[:, None]
+
+
+def _portmanteau(
+    data: np.ndarray, usable: np.ndarray, p: int, trend: str, fr: _Frame, coef_t: np.ndarray,
+    sse: np.ndarray, nobs: np.ndarray, out: _Outputs, widx: np.ndarray,
+) -> None:  # fmt: skip
+    """Adjusted portmanteau p-value per window from its residuals (Lütkepohl 2005, eq. 4.4.24).
+
+    Q̄_h = T² Σ_{i=1}^{h} (T − i)^{-1} tr(Ĉ_i' Ĉ_0^{-1} Ĉ_i Ĉ_0^{-1}), Ĉ_i = T^{-1} Σ û_t û_{t−i}',
+    ≈ χ²(n²(h − p)). The statistic is invariant to the working coordinates' scaling.
+    """
+    n = data.shape[1]
+    h = int(out.h_port)  # type: ignore[arg-type]
+    k = coef_t.shape[-1]
+    ys = (data - fr.mu) / fr.scale
+    full = nobs == (out.ends[widx] - out.starts[widx] + 1 - p)
+    df = n * n * (h - p)
+    for j in np.flatnonzero(full & (out.skip_reason[widx] == "")):
+        w = widx[j]
+        rows = np.arange(out.starts[w] + p, out.ends[w] + 1)
+        z = K.augmented_rows(ys, rows, p, _det_columns(rows, trend, fr), np.ones(rows.size, bool))
+        u = z[:, k:] - z[:, :k] @ coef_t[j].T
+        T = u.shape[0]
+        c0_inv = np.linalg.inv(u.T @ u / T)
+        stat = 0.0
+        for i in range(1, h + 1):
+            ci = u[i:].T @ u[:-i] / T
+            stat += np.trace(ci.T @ c0_inv @ ci @ c0_inv) / (T - i)
+        out.portmanteau_p[w] = stats.chi2.sf(T * T * stat, df)
+
+
+# ---------------------------------------------------------------------------------------------
+# lag selection per window
+# ---------------------------------------------------------------------------------------------
+
+
+def _select_orders(
+    data: np.ndarray, finite: np.ndarray, P: int, trend: str, ends: np.ndarray,
+    starts: np.ndarray, criterion: str, out: _Outputs, expanding: bool,
+) -> np.ndarray:  # fmt: skip
+    """Chosen p in 1..P per window (0 where skipped), comparing orders on the common sample.
+
+    One Cholesky factor of the P-lag augmented cross-products gives every nested order's
+    residual cross-products (`nested_sse`); criteria as `select_lags` (same sample, T − P).
+    """
+    n = data.shape[1]
+    d = len(TREND_TERMS[trend])
+    Kp = d + n * P
+    usable = K.usable_observations(finite, P)
+    cum = np.concatenate([[0], np.cumsum(usable)])
+    first = starts + P
+    nobs = cum[ends + 1] - cum[first]
+    orders = np.zeros(ends.shape[0], dtype=np.int64)
+    size = _chunk_size(n, P, d, 1, 0)
+    for chunk in _chunks(ends, size, expanding):
+        e, a = ends[chunk], first[chunk]
+        fr = _frame(data, finite, int(starts[chunk][0]), int(e[-1]), trend)
+        rows = np.arange(int(a.min()), int(e[-1]) + 1)
+        ys = (data - fr.mu) / fr.scale
+        z = K.augmented_rows(ys, rows, P, _det_columns(rows, trend, fr), usable[rows])
+        terms = z[:, :, None] * z[:, None, :]
+        if np.all(a == a[0]):
+            run = np.cumsum(terms, axis=0)
+            G = run[e - a[0]]
+        else:
+            G = K.window_sums(terms, a - a[0], int(e[0] - a[0] + 1))
+        L, ok = K.cholesky_batch(G)
+        T_eff = nobs[chunk].astype(np.float64)
+        sse = K.nested_sse(L[:, Kp:, :Kp], L[:, Kp:, Kp:], [d + n * q for q in range(1, P + 1)])
+        crit = np.empty((len(chunk), P))
+        for q in range(1, P + 1):
+            with np.errstate(invalid="ignore", divide="ignore"):
+                sign, ld = np.linalg.slogdet(sse[q - 1] / T_eff[:, None, None])
+            ld = ld + 2.0 * np.log(fr.scale).sum()
+            ld[sign <= 0] = np.nan
+            crit[:, q - 1] = K.information_criteria_batch(ld, T_eff, n, d + n * q)[criterion]
+        ok &= np.isfinite(crit).all(axis=1)
+        # cond check as in the fit: fall back to select_lags on the rows themselves
+        with np.errstate(invalid="ignore", divide="ignore"):
+            sol = K.solve_grams(G[:, : Kp + n, : Kp + n], Kp)
+        for j in range(len(chunk)):
+            w = chunk[j]
+            if nobs[w] < Kp + n:
+                out.skip(
+                    w,
+                    f"{nobs[w]} usable observations for lag selection, fewer than the {Kp + n} "
+                    f"needed with max_lags={P}",
+                )
+                continue
+            if ok[j] and sol["cond"][j] <= FAST_COND_LIMIT:
+                orders[w] = int(np.argmin(crit[j])) + 1
+                continue
+            if nobs[w] != ends[w] - starts[w] + 1 - P:
+                out.skip(w, "lag selection failed: ill-conditioned regressors in a window with gaps")
+                continue
+            try:
+                with warnings.catch_warnings():
+                    warnings.simplefilter("ignore")
+                    sel = select_lags(data[starts[w] : ends[w] + 1], P, trend=trend)
+            except InvalidInputError as exc:
+                out.skip(w, f"lag selection failed: {exc}".replace("`y` ", "the window "))
+                continue
+            orders[w] = int(np.argmin(getattr(sel, criterion)[1:])) + 1
+    return orders
