@@ -702,7 +702,8 @@ MAX_CSV_ROWS = 200_000
 
 def safe_filename(*parts: Any, suffix: str = ".csv") -> str:
     """A download name made only of letters, digits, ``_ . -``; no path separators, no leading dot."""
-    text = "_".join(_SAFE.sub("-", str(p)).strip(".-") for p in parts if p not in (None, ""))
+    cleaned = (_SAFE.sub("-", str(p)).strip(".-") for p in parts if p not in (None, ""))
+    text = "_".join(c for c in cleaned if c)
     text = re.sub(r"\.{2,}", ".", text).lstrip(".") or "shockflow"
     return text[:120] + suffix
 

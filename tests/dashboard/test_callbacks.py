@@ -1,0 +1,345 @@
+"""Callbacks as plain functions: each view's rows equal the snapshot (or arlib on the stored model)."""
+
+from __future__ import annotations
+
+import csv
+import datetime as dt
+import io
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import plotly.graph_objects as go
+import pytest
+
+import arlib
+from dashboard import callbacks as cb
+from dashboard.data import DateWindow, Snapshot
+
+from .conftest import read
+
+
+def _valid(fig: dict[str, Any]) -> go.Figure:
+    """plotly's own validation accepts the dict figure (raises on any unknown property)."""
+    return go.Figure(fig)
+
+
+def _end(snap: Snapshot, state: dict[str, str]) -> dt.date:
+    return snap.fitted_end(snap.window(state))
+
+
+def _stored_model(snap: Snapshot, universe: str, end: dt.date) -> arlib.VARProcess:
+    u = snap.universe(universe)
+    fit = snap.fit(u, end)
+    return arlib.var_process(fit.coefs, fit.sigma_u, fit.intercept, names=u.series)
+
+
+def test_sync_window_universe_change_resets_to_history(snap: Snapshot, universe_name: str, bounds: tuple[dt.date, dt.date]) -> None:
+    start, end, state, note = cb.sync_window(snap, universe_name, "2020-01-01", "2020-02-01", None, "universe")
+    assert (start, end) == (bounds[0].isoformat(), bounds[1].isoformat())
+    assert state == {"universe": universe_name, "start": start, "end": end}
+    assert "Date window" in note
+
+
+def test_sync_window_from_range_slider_and_typed_dates(snap: Snapshot, universe_name: str, bounds: tuple[dt.date, dt.date]) -> None:
+    lo, hi = bounds
+    mid = lo + (hi - lo) / 2
+    relayout = {"xaxis.range": [f"{mid.isoformat()} 10:11:12.5", f"{hi.isoformat()} 00:00"]}
+    start, end, _, _ = cb.sync_window(snap, universe_name, None, None, relayout, "relayout")
+    assert (start, end) == (mid.isoformat(), hi.isoformat())
+    relayout = {"xaxis.range[0]": lo.isoformat(), "xaxis.range[1]": mid.isoformat()}
+    assert cb.sync_window(snap, universe_name, None, None, relayout, "relayout")[:2] == (lo.isoformat(), mid.isoformat())
+    assert cb.sync_window(snap, universe_name, None, None, {"xaxis.autorange": True}, "relayout")[:2] == (lo.isoformat(), hi.isoformat())
+    typed = cb.sync_window(snap, universe_name, mid.isoformat(), "2999-01-01", None, "dates")
+    assert typed[:2] == (mid.isoformat(), hi.isoformat())
+
+
+def test_index_view_rows_are_the_stored_history(snap: Snapshot, snapshot_path: Path, state: dict[str, str], universe_name: str) -> None:
+    fig, rows, note = cb.index_view(snap, state, 0.9)
+    _valid(fig)
+    stored = read(snapshot_path, "SELECT window_end, total FROM connectedness WHERE universe = ? ORDER BY 1", [universe_name])
+    assert [(r["window_end"], r["total_percent"]) for r in rows] == [(d.isoformat(), t) for d, t in stored]
+    threshold = float(np.quantile([t for _, t in stored], 0.9))
+    assert sum(r["stress"] for r in rows) == sum(t >= threshold for _, t in stored) > 0
+    # stress periods are drawn as shaded rectangles, the x-range is the chosen window
+    assert any(s["type"] == "rect" for s in fig["layout"]["shapes"])
+    assert fig["layout"]["xaxis"]["range"] == [state["start"], state["end"]]
+    assert "percentile" in note
+
+
+def test_paths_view_generalized_equals_stored_and_arlib(snap: Snapshot, snapshot_path: Path, state: dict[str, str], universe_name: str) -> None:
+    u = snap.universe(universe_name)
+    end = _end(snap, state)
+    fig, rows, note = cb.paths_view(snap, state, "generalized", list(u.series), [], u.horizon, "stored")
+    _valid(fig)
+    n = len(u.series)
+    assert len(rows) == (u.horizon + 1) * n * n
+    ((flat,),) = read(snapshot_path, "SELECT response FROM responses WHERE universe = ? AND window_end = ? AND identification = 'generalized'", [universe_name, end])
+    stored = np.asarray(flat).reshape(u.horizon + 1, n, n)
+    got = np.array([r["value"] for r in rows]).reshape(u.horizon + 1, n, n)
+    np.testing.assert_array_equal(got, stored)
+    # and the stored responses are arlib's generalized responses of the stored model (Pesaran–Shin)
+    np.testing.assert_allclose(got, arlib.impulse_responses(_stored_model(snap, universe_name, end), u.horizon, shocks="generalized"), rtol=1e-10, atol=1e-12)
+    assert "stored band" in note and rows[0]["lower"] is not None
+    # one trace per panel carries its [response, shock] names
+    metas = [t["meta"] for t in fig["data"] if t.get("name") == "response"]
+    assert metas[1] == [u.series[0], u.series[1]]
+
+
+def test_paths_view_longer_horizon_and_ordering_come_from_arlib(snap: Snapshot, state: dict[str, str], universe_name: str) -> None:
+    u = snap.universe(universe_name)
+    end = _end(snap, state)
+    order = list(reversed(u.series))
+    H = u.horizon + 7
+    _, rows, note = cb.paths_view(snap, state, "cholesky", order, ["cumulative"], H, "stored")
+    n = len(u.series)
+    got = np.array([r["value"] for r in rows]).reshape(H + 1, n, n)
+    want = np.cumsum(arlib.impulse_responses(_stored_model(snap, universe_name, end), H, shocks="cholesky", order=order), axis=0)
+    np.testing.assert_allclose(got, want, rtol=1e-12)
+    # the impact of the last-ordered series' shock on the first-ordered series is zero (recursive)
+    first, last = u.series.index(order[0]), u.series.index(order[-1])
+    assert got[0, first, last] == 0.0
+    assert "derived by arlib" in note and "no stored band" in note
+    assert rows[0]["lower"] is None
+
+
+def test_paths_view_bootstrap_band_brackets_the_response(snap: Snapshot, state: dict[str, str], universe_name: str) -> None:
+    u = snap.universe(universe_name)
+    _, rows, note = cb.paths_view(snap, state, "generalized", None, [], 6, "bootstrap")
+    assert "bootstrap" in note
+    inside = [r["lower"] <= r["value"] + 1e-9 and r["value"] <= r["upper"] + 1e-9 for r in rows]
+    assert np.mean(inside) > 0.9
+    assert len(rows) == 7 * len(u.series) ** 2
+
+
+def test_shares_view_rows_sum_to_100_and_match_arlib(snap: Snapshot, state: dict[str, str], universe_name: str) -> None:
+    u = snap.universe(universe_name)
+    end = _end(snap, state)
+    order = [u.series[-1]]  # the rest follow in stored order
+    fig, rows, _ = cb.shares_view(snap, state, order, 4)
+    _valid(fig)
+    n = len(u.series)
+    for method in ("generalized", "cholesky"):
+        table = np.array([r["share_percent"] for r in rows if r["method"] == method]).reshape(n, n)
+        np.testing.assert_allclose(table.sum(axis=1), 100.0, rtol=1e-10)
+    full_order = [u.series[-1], *u.series[:-1]]
+    want = 100 * arlib.variance_decomposition(_stored_model(snap, universe_name, end), 4, method="cholesky", order=full_order)[-1]
+    got = np.array([r["share_percent"] for r in rows if r["method"] == "cholesky"]).reshape(n, n)
+    np.testing.assert_allclose(got, want, rtol=1e-10)
+
+
+def test_leadlag_view_matches_stored_pvalues(snap: Snapshot, snapshot_path: Path, state: dict[str, str], universe_name: str) -> None:
+    end = _end(snap, state)
+    fig, rows, _ = cb.leadlag_view(snap, state, 0.1)
+    _valid(fig)
+    stored = dict(((c, s), p) for c, s, p in read(snapshot_path, "SELECT caused, causing, p_value FROM granger WHERE universe = ? AND window_end = ?", [universe_name, end]))
+    assert {(r["caused"], r["causing"]): r["p_value"] for r in rows} == stored
+    r = rows[0]
+    every = [p for (p,) in read(snapshot_path, "SELECT p_value FROM granger WHERE universe = ? AND caused = ? AND causing = ?", [universe_name, r["caused"], r["causing"]])]
+    assert r["share_significant"] == pytest.approx(np.mean([p < 0.1 for p in every]))
+    assert r["windows"] == len(every)
+
+
+def test_network_view_net_direction_and_average(snap: Snapshot, snapshot_path: Path, state: dict[str, str], universe_name: str) -> None:
+    _, rows, _ = cb.network_view(snap, state, "end", "to")
+    end = _end(snap, state)
+    stored = {(s, t): v for s, t, v in read(snapshot_path, "SELECT source, target, share FROM pairwise WHERE universe = ? AND window_end = ?", [universe_name, end])}
+    for r in rows:
+        assert r["share_percent"] == pytest.approx(stored[(r["source"], r["target"])])
+        assert r["net_source_to_target_pp"] == pytest.approx(stored[(r["source"], r["target"])] - stored[(r["target"], r["source"])])
+    fig, rows, _ = cb.network_view(snap, state, "mean", "from")
+    _valid(fig)
+    r = rows[0]
+    mean = read(snapshot_path, "SELECT avg(share) FROM pairwise WHERE universe = ? AND source = ? AND target = ?", [universe_name, r["source"], r["target"]])[0][0]
+    assert r["share_percent"] == pytest.approx(mean)
+    # arrows point from the net transmitter: an arrow's tail (ax, ay) sits on the transmitter node
+    assert any(a.get("showarrow") for a in fig["layout"]["annotations"])
+
+
+def test_directional_from_table_matches_stored_directional(snap: Snapshot, state: dict[str, str], universe_name: str) -> None:
+    """to/from computed from a pairwise table equal the stored directional rows (Diebold–Yilmaz 2012)."""
+    u = snap.universe(universe_name)
+    end = _end(snap, state)
+    to_others, from_others = cb._directional_from(snap.pairwise_at(u, end))
+    stored = snap.directional_at(u, end)
+    np.testing.assert_allclose(to_others, [stored[s][0] for s in u.series], rtol=1e-9)
+    np.testing.assert_allclose(from_others, [stored[s][1] for s in u.series], rtol=1e-9)
+
+
+def test_compare_view_change_is_b_minus_a(snap: Snapshot, snapshot_path: Path, state: dict[str, str], universe_name: str, bounds: tuple[dt.date, dt.date]) -> None:
+    lo, hi = bounds
+    mid = lo + (hi - lo) / 2
+    (f1, r1, n1), (f2, r2, n2) = cb.compare_view(
+        snap, state, lo.isoformat(), mid.isoformat(), (mid + dt.timedelta(days=1)).isoformat(), hi.isoformat(),
+        "generalized", None, 5,
+    )
+    _valid(f1)
+    _valid(f2)
+    assert "total connectedness" in n1 and "window ending" in n2
+    r = next(x for x in r1 if x["source"] != x["target"])
+    a = read(snapshot_path, "SELECT avg(share) FROM pairwise WHERE universe = ? AND source = ? AND target = ? AND window_end BETWEEN ? AND ?", [universe_name, r["source"], r["target"], lo, mid])[0][0]
+    assert r["a_share_percent"] == pytest.approx(a)
+    assert r["change_pp"] == pytest.approx(r["b_share_percent"] - r["a_share_percent"])
+    assert r2[0]["a_window_end"] <= mid.isoformat() < r2[0]["b_window_end"]
+    # blank inputs: the halves of the window
+    (_, r1b, _), _ = cb.compare_view(snap, state, "", None, None, "", "generalized", None, 5)
+    assert r1b[0]["a_window"].startswith(lo.isoformat())
+
+
+def test_health_view_flags_and_skips(snap: Snapshot, snapshot_path: Path, state: dict[str, str], universe_name: str) -> None:
+    fig, rows, note = cb.health_view(snap, state, 0.5000001)
+    _valid(fig)
+    stored = read(snapshot_path, "SELECT count(*), count(skip_reason) FROM window_fits WHERE universe = ?", [universe_name])[0]
+    assert len(rows) == stored[0]
+    skipped = cb.skipped_rows(rows)
+    assert len(skipped) == stored[1] >= 1
+    assert "skipped" in note
+    flagged = [r for r in rows if r["radius_flag"]]
+    assert all(r["spectral_radius"] >= 0.5000001 for r in flagged)
+    names = [t.get("name", "") for t in fig["data"]]
+    assert any(name.startswith("skipped window") for name in names)
+
+
+def test_cycles_view_matches_arlib_on_prepared_data(snap: Snapshot, state: dict[str, str], universe_name: str) -> None:
+    u = snap.universe(universe_name)
+    end = _end(snap, state)
+    fig, rows, note = cb.cycles_view(snap, state)
+    _valid(fig)
+    fit = snap.fit(u, end)
+    y = snap.prepared(u, fit.window_start, fit.window_end)
+    name = u.series[0]
+    mine = [r for r in rows if r["series"] == name]
+    p = mine[0]["ar_lags"]
+    own = arlib.fit_var(y[:, 0], p, names=[name])
+    want = arlib.spectral_density(own, 2 * np.pi * np.array([r["frequency_cycles_per_obs"] for r in mine]))[:, 0, 0].real
+    np.testing.assert_allclose([r["density"] for r in mine], want, rtol=1e-10)
+    assert "Dominant cycle" in note
+
+
+def test_cycles_view_finds_a_known_cycle(tmp_path: Path) -> None:
+    """An AR(2) with complex roots has an interior spectral peak; the view reports its period.
+
+    Closed form (Hamilton 1994, Sec. 6.1): cos ω* = −φ1(1 − φ2)/(4 φ2).
+    """
+    import duckdb
+
+    from pipeline.warehouse import ensure_schema
+
+    from ._snapshot import _insert
+
+    rng = np.random.default_rng(3)
+    phi1, phi2, T = 1.0, -0.5, 3000
+    y = np.zeros(T)
+    for t in range(2, T):
+        y[t] = phi1 * y[t - 1] + phi2 * y[t - 2] + rng.standard_normal()
+    days = [dt.date(2000, 1, 1) + dt.timedelta(days=k) for k in range(T)]
+    other = rng.standard_normal(T)
+    path = tmp_path / "cyc.duckdb"
+    con = duckdb.connect(str(path))
+    ensure_schema(con)
+    key = {"run_id": "r", "universe": "u"}
+    _insert(con, "universes", [{"universe": "u", "config_hash": "h", "config_json": "{}", "horizon": 5, "granger_level": 0.05, "identification": "generalized", "run_id": "r"}])
+    _insert(con, "universe_series", [{"universe": "u", "position": i, "series": s, "transform": "none"} for i, s in enumerate(("CYC", "NOISE"))])
+    _insert(con, "prepared", [{"universe": "u", "date": d, "series": s, "value": float(v)} for d, a, b in zip(days, y, other, strict=True) for s, v in (("CYC", a), ("NOISE", b))])
+    fit = arlib.fit_var(np.column_stack([y, other]), 2, names=["CYC", "NOISE"])
+    _insert(con, "window_fits", [{**key, "window_end": days[-1], "window_start": days[0], "nobs": fit.nobs, "lags": 2}])
+    _insert(con, "window_params", [{**key, "window_end": days[-1], "lags": 2, "coefs": fit.coefs.ravel().tolist(), "intercept": fit.intercept.tolist(), "sigma_u": fit.sigma_u.ravel().tolist()}])
+    _insert(con, "connectedness", [{**key, "window_end": days[-1], "total": 1.0}])
+    con.close()
+    snap = Snapshot(path)
+    _, rows, note = cb.cycles_view(snap, {"universe": "u", "start": None, "end": None})
+    period = next(r["dominant_period_obs"] for r in rows if r["series"] == "CYC")
+    true_period = 2 * np.pi / np.arccos(-phi1 * (1 - phi2) / (4 * phi2))
+    # estimated AR on 3000 rows: the peak period is within 10% of the true one
+    assert period == pytest.approx(true_period, rel=0.1)
+    assert "CYC" in note
+    snap.reader.close()
+
+
+HOSTILE = [
+    "x'); DROP TABLE runs; --",
+    "../../etc/passwd",
+    "\" OR 1=1 --",
+    {"$ne": 1},
+    ["a", "b"],
+    1e308,
+    -1,
+    None,
+]
+
+
+@pytest.mark.parametrize("bad", HOSTILE, ids=[str(i) for i in range(len(HOSTILE))])
+def test_hostile_inputs_give_a_message_not_an_error(snap: Snapshot, snapshot_path: Path, state: dict[str, str], bad: Any) -> None:
+    before = read(snapshot_path, "SELECT count(*) FROM runs")
+    views = [
+        lambda: cb.index_view(snap, {**state, "universe": bad}, 0.9),
+        lambda: cb.index_view(snap, {**state, "start": bad}, bad),
+        lambda: cb.paths_view(snap, state, bad, bad, bad, bad, bad),
+        lambda: cb.paths_view(snap, {**state, "end": bad}, "generalized", None, [], 10, "none"),
+        lambda: cb.shares_view(snap, state, bad, bad),
+        lambda: cb.leadlag_view(snap, state, bad),
+        lambda: cb.network_view(snap, state, bad, bad),
+        lambda: cb.compare_pairs_view(snap, state, bad, bad, bad, bad),
+        lambda: cb.compare_paths_view(snap, state, None, None, None, None, bad, bad, bad),
+        lambda: cb.health_view(snap, state, bad),
+        lambda: cb.cycles_view(snap, bad),
+    ]
+    for view in views:
+        fig, rows, note = view()
+        _valid(fig)
+        assert isinstance(note, str)
+        if rows:  # some inputs are legitimately fine (e.g. an unknown ordering is ignored)
+            continue
+        assert "Traceback" not in note and "server log" not in note, note
+    assert read(snapshot_path, "SELECT count(*) FROM runs") == before
+
+
+def test_csv_file_round_trips_rows_and_defuses_formulas() -> None:
+    rows = [
+        {"series": "=HYPERLINK(\"http://x\")", "value": 1.5, "flag": True, "empty": None},
+        {"series": "-2+3", "value": -0.25, "flag": False, "extra": "b"},
+    ]
+    out = cb.csv_file(rows, "paths", {"universe": "../../etc", "start": "2020-01-01", "end": "2020-02-01"})
+    assert out is not None
+    assert out["filename"] == "shockflow_etc_paths_2020-01-01_2020-02-01.csv"
+    parsed = list(csv.DictReader(io.StringIO(out["content"])))
+    assert parsed[0]["series"].startswith("'=")
+    assert parsed[1]["series"] == "'-2+3"
+    assert float(parsed[1]["value"]) == -0.25
+    assert parsed[0]["flag"] == "true" and parsed[0]["empty"] == "" and parsed[1]["extra"] == "b"
+    assert cb.csv_file("not rows", "x", None) is None
+    assert cb.csv_file([1, 2], "x", None) is None
+
+
+@pytest.mark.parametrize(
+    ("parts", "expected"),
+    [
+        (("shockflow", "../..", "x"), "shockflow_x.csv"),
+        (("a/b\\c", "..evil"), "a-b-c_evil.csv"),
+        (("..",), "shockflow.csv"),
+        (("名前", "ok"), "ok.csv"),
+    ],
+)
+def test_safe_filename_has_no_path_parts(parts: tuple[str, ...], expected: str) -> None:
+    name = cb.safe_filename(*parts)
+    assert name == expected
+    assert "/" not in name and "\\" not in name and not name.startswith(".")
+
+
+def test_views_over_a_narrow_window_use_that_window(snap: Snapshot, universe_name: str, bounds: tuple[dt.date, dt.date]) -> None:
+    """Pick a window ending early: every 'at the window end' view reports that window's end."""
+    lo, hi = bounds
+    early = snap.index_in(DateWindow(universe_name, lo, hi))[3][0]
+    state = {"universe": universe_name, "start": lo.isoformat(), "end": early.isoformat()}
+    end = snap.fitted_end(snap.window(state))
+    assert end <= early
+    for view in (
+        lambda: cb.paths_view(snap, state, "generalized", None, [], 5, "none"),
+        lambda: cb.shares_view(snap, state, None, 5),
+        lambda: cb.leadlag_view(snap, state, 0.05),
+        lambda: cb.network_view(snap, state, "end", "to"),
+        lambda: cb.cycles_view(snap, state),
+    ):
+        _, rows, note = view()
+        assert rows and rows[0]["window_end"] == end.isoformat()
+        assert end.isoformat() in note
