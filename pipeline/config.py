@@ -646,16 +646,24 @@ def _load_universe(t: _Table) -> UniverseConfig:
     n = len(series)
     k = n * p + {"n": 0, "c": 1, "ct": 2}[trend]  # regressors per equation
     nobs = window - p
-    if nobs <= k:
-        suggest = p + 2 * k
+    if nobs - k < n:
+        # The estimator needs k + n observations: k coefficients per equation, and n more for a
+        # nonsingular n×n residual covariance (the rolling engine's rule).
         t.fail(
             t.key("window"),
             f"= {window} leaves {nobs} observations for {k} coefficients per equation "
-            f"({n} series × {p} lags{' + trend' if trend != 'n' else ''})",
-            f"use window >= {suggest} (at least twice the coefficients, common practice) or fewer lags/series",
+            f"({n} series × {p} lags{' + trend' if trend != 'n' else ''}), fewer than the {k + n} needed",
+            f"use window >= {p + k + n} (at least {p + 2 * k}, twice the coefficients, is common practice) or fewer lags/series",
         )
     if portmanteau_lags is not None and portmanteau_lags <= p:
         t.fail(t.key("portmanteau_lags"), f"= {portmanteau_lags} must exceed the lag order {p}", f"use portmanteau_lags >= {p + 1}")
+    h = portmanteau_lags if portmanteau_lags is not None else max(10, p + 5)
+    if h >= nobs:
+        t.fail(
+            t.key("portmanteau_lags"),
+            f"= {h} is not below the {nobs} residuals of a window",
+            f"set portmanteau_lags < {nobs} or use a longer window",
+        )
     return UniverseConfig(
         name=name,
         series=tuple(series),

@@ -10,7 +10,8 @@ Steps and rules (documented in the README):
 1. **Calendar.** ``business_day``: every Monday–Friday between the first and last observation
    (weekend observations are ignored). ``weekly``: one row per week, labelled by its Friday, holding
    each series' last observation of that week. ``monthly``: one row per month, labelled by its last
-   calendar day, holding the month's last observation.
+   calendar day, holding the month's last observation. A week or month whose label date lies after
+   the last observation is not complete yet and is left out (it appears once data reach its end).
 2. **Holidays.** A calendar date on which no series of the universe has an observation is removed.
 3. **Fill.** Within each series, a missing value is forward-filled from the previous row for at most
    ``max_fill_gap`` consecutive rows; longer gaps stay missing.
@@ -155,6 +156,11 @@ def prepare_universe(observations: pl.DataFrame, universe: UniverseConfig) -> Pr
     rows = calendar(levels["row"].min(), levels["row"].max()).alias("row")  # type: ignore[arg-type]
     aligned = pl.DataFrame(rows).join(levels, on="row", how="left").select("row", *names)
 
+    # the current week/month is left out until it is complete (its label date is in the data)
+    last_seen = obs["date"].max()
+    incomplete = aligned.filter(pl.col("row") > last_seen)["row"].to_list()
+    aligned = aligned.filter(pl.col("row") <= last_seen)
+
     # 2. holidays: no series observed
     observed_any = aligned.select(pl.any_horizontal(pl.col(names).is_not_null())).to_series()
     holidays = aligned.filter(~observed_any)["row"]
@@ -190,6 +196,7 @@ def prepare_universe(observations: pl.DataFrame, universe: UniverseConfig) -> Pr
     # 5. trim leading/trailing incomplete rows; keep inner gaps as NaN rows
     complete = ~np.isnan(values).any(axis=1)
     reasons: list[tuple[date, str]] = [(d, "no series observed (holiday or a day without data)") for d in holidays.to_list()]
+    reasons += [(d, f"period not complete yet: the data end on {last_seen}") for d in incomplete]
     if not complete.any():
         msg = (
             f"universe {universe.name!r}: no date has a value for every series after filling and "

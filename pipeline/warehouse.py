@@ -50,6 +50,7 @@ __all__ = [
     "read_observations",
     "start_batch",
     "store_universe_results",
+    "stored_state",
     "upsert_observations",
 ]
 
@@ -363,12 +364,15 @@ def begin_run(
     return run_id
 
 
-def fail_run(con: duckdb.DuckDBPyConnection, run_id: str, message: str, *, path: str | Path = "?") -> None:
+def fail_run(
+    con: duckdb.DuckDBPyConnection, run_id: str, message: str, *, windows_failed: int = 0, path: str | Path = "?"
+) -> None:
     """Mark `run_id` failed with `message` (its results were never written)."""
     try:
         con.execute(
-            "UPDATE runs SET status = 'failed', finished = ?, message = ?, windows_fitted = 0 WHERE run_id = ?",
-            [now(), message, run_id],
+            "UPDATE runs SET status = 'failed', finished = ?, message = ?, windows_fitted = 0, "
+            "windows_skipped = 0, windows_failed = ? WHERE run_id = ?",
+            [now(), message, windows_failed, run_id],
         )
     except duckdb.Error as exc:
         raise from_duckdb(exc, path=path, action="recording a failed run") from None
@@ -384,6 +388,7 @@ def store_universe_results(
     prepared: pl.DataFrame | None,
     dropped: pl.DataFrame | None,
     counts: Mapping[str, int],
+    data_fingerprint: str | None = None,
     message: str | None = None,
     path: str | Path = "?",
 ) -> None:
@@ -446,13 +451,30 @@ def store_universe_results(
                 _insert(con, "dropped_dates", dropped.select(pl.lit(name).alias("universe"), "date", "reason"))
         con.execute(
             "UPDATE runs SET status = 'succeeded', finished = ?, windows_fitted = ?, windows_skipped = ?, "
-            "windows_failed = ?, message = ? WHERE run_id = ?",
+            "windows_failed = ?, message = ?, data_fingerprint = coalesce(?, data_fingerprint) WHERE run_id = ?",
             [
                 now(),
                 counts.get("fitted", 0),
                 counts.get("skipped", 0),
                 counts.get("failed", 0),
                 message,
+                data_fingerprint,
                 run_id,
             ],
         )
+
+
+def stored_state(con: duckdb.DuckDBPyConnection, universe: str) -> Any:
+    """The universe's stored config hash, windows and prepared data (a fit.StoredState), or None."""
+    from pipeline.fit import StoredState
+
+    row = con.execute("SELECT config_hash FROM universes WHERE universe = ?", [universe]).fetchall()
+    if not row:
+        return None
+    windows = query(
+        con, "SELECT window_end, window_start FROM window_fits WHERE universe = ? ORDER BY window_end", [universe]
+    )
+    prepared = query(
+        con, "SELECT date, series, value FROM prepared WHERE universe = ? ORDER BY date, series", [universe]
+    )
+    return StoredState(config_hash=row[0][0], windows=windows, prepared=prepared)

@@ -99,8 +99,9 @@ def test_bad_keys_name_key_file_and_fix(tmp_path: Path, old: str, new: str, expe
 
 def test_window_too_short_for_lags_times_series(tmp_path: Path) -> None:
     text = MINIMAL.replace('series = ["A", "B"]', 'series = ["A", "B", "C", "D", "E"]').replace("window = 40", "window = 20").replace("lags = 1", "lags = 4")
-    # 5 series × 4 lags + intercept = 21 coefficients per equation; window 20 leaves 16 observations.
-    with pytest.raises(ConfigError, match=r"window` = 20 leaves 16 observations for 21 coefficients per equation.*use window >= 46"):
+    # 5 series × 4 lags + intercept = 21 coefficients per equation; window 20 leaves 16 observations,
+    # and the estimator needs k + n = 26 (n more for a nonsingular residual covariance).
+    with pytest.raises(ConfigError, match=r"window` = 20 leaves 16 observations for 21 coefficients per equation .*fewer than the 26 needed; use window >= 30"):
         load_config_text(text, tmp_path / "c.toml")
 
 

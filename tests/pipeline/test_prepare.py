@@ -109,6 +109,10 @@ def test_weekly_and_monthly_take_last_observation() -> None:
     assert m.dates[:3] == (date(2024, 1, 31), date(2024, 2, 29), date(2024, 3, 31))
     assert m.y[0, 0] == 130.0  # Wed 31 Jan 2024 is day index 30
     assert m.y[2, 0] == 100.0 + 88  # Fri 29 Mar 2024 (day index 88) is the last business day of March
+    # the data end on Mon 29 Apr 2024 (day index 119): April is not complete, nor that week
+    assert m.dates[-1] == date(2024, 3, 31)
+    assert dict(m.dropped.rows())[date(2024, 4, 30)] == "period not complete yet: the data end on 2024-04-29"
+    assert w.dates[-1] <= date(2024, 4, 29)
 
 
 def test_zero_or_negative_price_under_log() -> None:

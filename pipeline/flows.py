@@ -1,0 +1,272 @@
+"""Prefect 3 flows: the nightly job as thin ordering of tasks around the plain steps of pipeline.jobs.
+
+nightly flow = mark interrupted runs → ingest (one read task per source, submitted in parallel; each
+store runs in the flow process, one writer) → per universe: start + plan (in process) → fit blocks
+(submitted: threads locally, Dask workers with ``[execution] runner = "dask"``) → store (in process,
+one transaction) → publish (atomic snapshot swap) → export.
+
+A failing source or universe is recorded (ingest_batches / runs) and the others continue. Nothing
+here reads the environment: the CLI sets Prefect's settings before importing this module.
+"""
+
+from __future__ import annotations
+
+import logging
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from datetime import date
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+from prefect import flow, task
+from prefect.cache_policies import NO_CACHE
+
+from pipeline import jobs
+from pipeline import warehouse as wh
+from pipeline.config import Config, load_config
+from pipeline.errors import ShockflowError
+
+if TYPE_CHECKING:
+    from pipeline.jobs import IngestResult, UniverseResult
+
+__all__ = ["NightlySummary", "nightly", "nightly_flow", "set_progress_hook", "task_runner"]
+
+log = logging.getLogger("shockflow.flows")
+
+_TASK_OPTIONS: dict[str, Any] = {"cache_policy": NO_CACHE, "persist_result": False}
+
+#: stage, item, done, total → None. Set by the CLI for its progress bars; None = silent.
+_progress_hook: Callable[[str, str, int, int], None] | None = None
+
+
+def set_progress_hook(hook: Callable[[str, str, int, int], None] | None) -> None:
+    """Install (or clear) a progress callback; called from the flow's own thread only."""
+    global _progress_hook
+    _progress_hook = hook
+
+
+def _progress(stage: str, item: str, done: int, total: int) -> None:
+    if _progress_hook is not None:
+        _progress_hook(stage, item, done, total)
+
+
+@dataclass
+class NightlySummary:
+    """What a nightly run did; `exit_code` 0 ok, 2 partial, 1 nothing ran."""
+
+    ingest: list[IngestResult] = field(default_factory=list)
+    universes: list[UniverseResult] = field(default_factory=list)
+    published: bool = False
+    publish_message: str | None = None
+    exported: dict[str, list[str]] = field(default_factory=dict)
+    export_message: str | None = None
+    interrupted_marked: int = 0
+    seconds: dict[str, float] = field(default_factory=dict)
+
+    @property
+    def failures(self) -> list[str]:
+        out = [f"source {r.source!r}: {r.message}" for r in self.ingest if r.status != "succeeded"]
+        out += [f"universe {r.universe!r}: {r.message}" for r in self.universes if r.status != "succeeded"]
+        if self.publish_message and not self.published:
+            out.append(f"publish: {self.publish_message}")
+        if self.export_message:
+            out.append(f"export: {self.export_message}")
+        return out
+
+    @property
+    def exit_code(self) -> int:
+        ok = sum(r.status == "succeeded" for r in self.ingest) + sum(r.status == "succeeded" for r in self.universes)
+        return jobs.exit_code(len(self.failures), ok)
+
+    @property
+    def revisions(self) -> int:
+        return sum(r.rows_revised for r in self.ingest)
+
+
+# ------------------------------------------------------------------------------------------
+# Tasks: each wraps one plain step
+# ------------------------------------------------------------------------------------------
+
+
+@task(name="read-source", task_run_name="read {source.name}", **_TASK_OPTIONS)
+def read_source_task(source: Any, today: date) -> Any:
+    return jobs.read_source_step(source, today=today)
+
+
+@task(name="store-source", task_run_name="store {source_name}", **_TASK_OPTIONS)
+def store_source_task(warehouse_path: Path, source_name: str, frame: Any, error: str | None, seconds_read: float) -> Any:
+    exc = ShockflowError(error) if error is not None else None
+    return jobs.store_ingest(warehouse_path, source_name, frame, error=exc, seconds_read=seconds_read)
+
+
+@task(name="plan-universe", task_run_name="plan {universe.name}", **_TASK_OPTIONS)
+def plan_universe_task(warehouse_path: Path, universe: Any, run_id: str, full: bool, block_windows: int) -> Any:
+    return jobs.plan_universe(warehouse_path, universe, run_id, full=full, block_windows=block_windows)
+
+
+@task(name="fit-block", task_run_name="fit {universe.name} block {block}", **_TASK_OPTIONS)
+def fit_block_task(prepared: Any, universe: Any, ends: Any, run_id: str, with_bands: bool, block: int) -> Any:
+    return jobs.fit_block_step(prepared, universe, ends, run_id=run_id, with_bands=with_bands)
+
+
+@task(name="store-universe", task_run_name="store {job.universe.name}", **_TASK_OPTIONS)
+def store_universe_task(warehouse_path: Path, job: Any, blocks: list[Any], seconds_fit: float) -> Any:
+    return jobs.store_universe(warehouse_path, job, blocks, seconds_fit=seconds_fit)
+
+
+@task(name="publish", **_TASK_OPTIONS)
+def publish_task(config: Config) -> Any:
+    return jobs.publish_step(config)
+
+
+@task(name="export", **_TASK_OPTIONS)
+def export_task(config: Config, universes: list[str]) -> Any:
+    return jobs.export_step(config, universes)
+
+
+def task_runner(config: Config) -> Any:
+    """Prefect task runner for `[execution]`: threads locally, or prefect-dask on a cluster.
+
+    Dask: ``address = "local"`` starts an in-process LocalCluster bound to 127.0.0.1 (its
+    diagnostics page too) with its scratch folder beside the warehouse; any other address is an
+    existing scheduler. Workers only compute; every write happens in the flow process.
+    """
+    execution = config.execution
+    if execution.runner == "dask":
+        from prefect_dask import DaskTaskRunner
+
+        if execution.address == "local":
+            scratch = config.warehouse.path.parent / ".dask-scratch"
+            return DaskTaskRunner(
+                cluster_class="distributed.LocalCluster",
+                cluster_kwargs={
+                    "n_workers": 2,
+                    "threads_per_worker": 1,
+                    "processes": True,
+                    "host": "127.0.0.1",
+                    "dashboard_address": "127.0.0.1:0",
+                    "local_directory": str(scratch),
+                },
+            )
+        return DaskTaskRunner(address=execution.address)
+    from prefect.task_runners import ThreadPoolTaskRunner
+
+    return ThreadPoolTaskRunner(max_workers=4)
+
+
+def _resolve(future: Any) -> tuple[Any, BaseException | None]:
+    try:
+        return future.result(), None
+    except BaseException as exc:  # a task's own error, re-raised by Prefect
+        return None, exc
+
+
+# ------------------------------------------------------------------------------------------
+# The flow body (ordering only)
+# ------------------------------------------------------------------------------------------
+
+
+def _nightly_body(
+    config: Config,
+    *,
+    universes: list[str] | None,
+    full: bool,
+    export: bool,
+    today: date,
+) -> NightlySummary:
+    summary = NightlySummary()
+    path = config.warehouse.path
+    con = wh.connect(path)
+    try:
+        summary.interrupted_marked = wh.mark_interrupted(con, path=path)
+    finally:
+        con.close()
+
+    # ingest: reads in parallel, stores one at a time in this process
+    t0 = time.perf_counter()
+    started = {s.name: time.perf_counter() for s in config.sources}
+    futures = [(s, read_source_task.submit(s, today)) for s in config.sources]
+    for i, (source, future) in enumerate(futures):
+        frame, exc = _resolve(future)
+        secs = time.perf_counter() - started[source.name]
+        error = None if exc is None else (str(exc) if isinstance(exc, ShockflowError) else f"{type(exc).__name__}: {exc}")
+        summary.ingest.append(store_source_task(path, source.name, frame, error, secs))
+        _progress("ingest", source.name, i + 1, len(futures))
+    summary.seconds["ingest"] = time.perf_counter() - t0
+
+    # universes
+    t0 = time.perf_counter()
+    selected = [config.universe(n) for n in universes] if universes else list(config.universes)
+    for i, universe in enumerate(selected):
+        run_id = None
+        windows = 0
+        try:
+            run_id = jobs.start_universe(path, universe)
+            job = plan_universe_task(path, universe, run_id, full, config.execution.block_windows)
+            windows = int(job.plan.ends.size)
+            t_fit = time.perf_counter()
+            block_futures = [
+                fit_block_task.submit(job.prepared, universe, ends, run_id, b == len(job.blocks) - 1, b)
+                for b, ends in enumerate(job.blocks)
+            ]
+            blocks = []
+            for b, fut in enumerate(block_futures):
+                blocks.append(fut.result())
+                _progress(f"fit {universe.name}", f"block {b + 1}", b + 1, len(block_futures))
+            result = store_universe_task(path, job, blocks, time.perf_counter() - t_fit)
+        except Exception as exc:  # recorded; the other universes continue
+            result = jobs.fail_universe(path, universe, run_id, exc, windows=windows)
+        summary.universes.append(result)
+        _progress("universes", universe.name, i + 1, len(selected))
+    summary.seconds["fit"] = time.perf_counter() - t0
+
+    # publish when any universe succeeded (failed ones keep their previous results)
+    succeeded = [r.universe for r in summary.universes if r.status == "succeeded"]
+    t0 = time.perf_counter()
+    if succeeded:
+        try:
+            publish_task(config)
+            summary.published = True
+        except Exception as exc:
+            summary.publish_message = str(exc)
+    else:
+        summary.publish_message = "no universe succeeded; the served snapshot is unchanged"
+    summary.seconds["publish"] = time.perf_counter() - t0
+
+    t0 = time.perf_counter()
+    if export and summary.published and config.export.formats:
+        try:
+            written = export_task(config, succeeded)
+            summary.exported = {k: [str(p) for p in v] for k, v in written.items()}
+        except Exception as exc:
+            summary.export_message = str(exc)
+            summary.exported = {k: [str(p) for p in v] for k, v in getattr(exc, "written", {}).items()}
+    summary.seconds["export"] = time.perf_counter() - t0
+    return summary
+
+
+def nightly(
+    config: Config,
+    *,
+    universes: list[str] | None = None,
+    full: bool = False,
+    export: bool = True,
+    today: date | None = None,
+) -> NightlySummary:
+    """Run the nightly flow for a loaded config (the CLI's entry; starts Prefect's engine)."""
+    flow_fn = nightly_flow.with_options(task_runner=task_runner(config))
+    return flow_fn(str(config.path), universes=universes, full=full, export=export, today=today)
+
+
+@flow(name="shockflow-nightly", persist_result=False, log_prints=False)
+def nightly_flow(
+    config_path: str,
+    universes: list[str] | None = None,
+    full: bool = False,
+    export: bool = True,
+    today: date | None = None,
+) -> NightlySummary:
+    """ingest → fit → publish → export for the config at `config_path` (what the schedule serves)."""
+    config = load_config(config_path)
+    return _nightly_body(config, universes=universes, full=full, export=export, today=today or date.today())

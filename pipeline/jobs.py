@@ -1,0 +1,336 @@
+"""The nightly job's steps as plain functions (no Prefect): each opens the warehouse by path,
+does one thing, and returns a small result. pipeline.flows orders them as Prefect tasks; tests
+call them directly.
+
+Steps: ``read_source_step`` (no I/O on the warehouse: safe on any worker) → ``store_ingest`` (one
+writer) → ``start_universe`` → ``plan_universe`` → ``fit_block_step`` (pure compute: any worker) →
+``store_universe`` | ``fail_universe`` → ``publish_step`` → ``export_step``.
+``run_universe`` chains the universe steps sequentially for one universe.
+"""
+
+from __future__ import annotations
+
+import logging
+import time
+from dataclasses import dataclass, field
+from datetime import date
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+import polars as pl
+
+from pipeline import warehouse as wh
+from pipeline.errors import ShockflowError
+from pipeline.fit import (
+    code_version,
+    data_fingerprint,
+    fit_block,
+    latest_window_bands,
+    plan_windows,
+    result_tables,
+)
+from pipeline.prepare import prepare_universe
+from pipeline.sources import read_source
+
+if TYPE_CHECKING:
+    from pipeline.config import Config, SourceConfig, UniverseConfig
+    from pipeline.fit import WindowPlan
+    from pipeline.prepare import Prepared
+    from pipeline.publish import PublishResult
+    from pipeline.sources import SourceFrame
+
+__all__ = [
+    "IngestResult",
+    "UniverseJob",
+    "UniverseResult",
+    "exit_code",
+    "export_step",
+    "fail_universe",
+    "fit_block_step",
+    "ingest_source",
+    "plan_universe",
+    "publish_step",
+    "read_source_step",
+    "run_universe",
+    "start_universe",
+    "store_ingest",
+    "store_universe",
+]
+
+log = logging.getLogger("shockflow.jobs")
+
+
+def _one_line(exc: BaseException) -> str:
+    if isinstance(exc, ShockflowError):
+        return str(exc)
+    return f"{type(exc).__name__}: {' '.join(str(exc).split())}"
+
+
+# ------------------------------------------------------------------------------------------
+# Ingest
+# ------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class IngestResult:
+    """One source's ingest: status 'succeeded' or 'failed' with the reason."""
+
+    source: str
+    status: str
+    rows_read: int = 0
+    rows_new: int = 0
+    rows_revised: int = 0
+    message: str | None = None
+    seconds: float = 0.0
+    series: tuple[str, ...] = ()
+
+
+def read_source_step(source: SourceConfig, *, today: date | None = None) -> SourceFrame:
+    """Read and validate one source (raises ShockflowError)."""
+    return read_source(source, today=today)
+
+
+def store_ingest(
+    warehouse_path: str | Path,
+    source: str,
+    frame: SourceFrame | None,
+    *,
+    error: BaseException | None = None,
+    seconds_read: float = 0.0,
+) -> IngestResult:
+    """Upsert a read source into the warehouse, or record why it failed. Never raises ShockflowError."""
+    t0 = time.perf_counter()
+    con = wh.connect(warehouse_path)
+    try:
+        batch = wh.start_batch(con, source, path=warehouse_path)
+        if frame is None:
+            message = _one_line(error) if error is not None else "not read"
+            wh.finish_batch(con, batch, status="failed", message=message, path=warehouse_path)
+            log.error("source %s failed: %s", source, message)
+            return IngestResult(source, "failed", message=message, seconds=seconds_read)
+        try:
+            counts = wh.upsert_observations(con, frame.frame, source=source, batch_id=batch, path=warehouse_path)
+        except ShockflowError as exc:
+            wh.finish_batch(con, batch, status="failed", message=str(exc), path=warehouse_path)
+            return IngestResult(source, "failed", message=str(exc), seconds=seconds_read + time.perf_counter() - t0)
+        wh.finish_batch(con, batch, status="succeeded", counts=counts, path=warehouse_path)
+    finally:
+        con.close()
+    secs = seconds_read + time.perf_counter() - t0
+    log.info(
+        "source %s: %d rows read, %d new, %d revised in %.2f s",
+        source, counts.rows_read, counts.rows_new, counts.rows_revised, secs,
+    )
+    return IngestResult(
+        source, "succeeded", counts.rows_read, counts.rows_new, counts.rows_revised, None, secs, tuple(frame.series)
+    )
+
+
+def ingest_source(warehouse_path: str | Path, source: SourceConfig, *, today: date | None = None) -> IngestResult:
+    """Read one source and store it; a failure is recorded and returned, not raised."""
+    t0 = time.perf_counter()
+    try:
+        frame = read_source_step(source, today=today)
+    except ShockflowError as exc:
+        return store_ingest(warehouse_path, source.name, None, error=exc, seconds_read=time.perf_counter() - t0)
+    return store_ingest(warehouse_path, source.name, frame, seconds_read=time.perf_counter() - t0)
+
+
+# ------------------------------------------------------------------------------------------
+# Universes
+# ------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class UniverseJob:
+    """A planned universe run: its prepared data, the windows to fit, split into blocks."""
+
+    universe: UniverseConfig
+    run_id: str
+    prepared: Prepared
+    plan: WindowPlan
+    blocks: tuple[np.ndarray, ...]
+    fingerprint: str
+    seconds_prepare: float
+
+
+@dataclass(frozen=True)
+class UniverseResult:
+    """One universe's outcome, as the summary table shows it."""
+
+    universe: str
+    status: str
+    run_id: str | None
+    fitted: int = 0
+    skipped: int = 0
+    failed: int = 0
+    reused: int = 0
+    reason: str = ""
+    message: str | None = None
+    seconds: dict[str, float] = field(default_factory=dict)
+
+
+def start_universe(warehouse_path: str | Path, universe: UniverseConfig) -> str:
+    """Record a `running` run for `universe`; returns the run_id."""
+    con = wh.connect(warehouse_path)
+    try:
+        return wh.begin_run(
+            con, universe=universe.name, config_hash=universe.config_hash, data_fingerprint=None,
+            code_version=code_version(), path=warehouse_path,
+        )
+    finally:
+        con.close()
+
+
+def plan_universe(
+    warehouse_path: str | Path,
+    universe: UniverseConfig,
+    run_id: str,
+    *,
+    full: bool = False,
+    block_windows: int = 1000,
+) -> UniverseJob:
+    """Prepare the universe's data and decide which windows to fit (raises ShockflowError)."""
+    t0 = time.perf_counter()
+    con = wh.connect(warehouse_path)
+    try:
+        obs = wh.read_observations(con, universe.names)
+        stored = None if full else wh.stored_state(con, universe.name)
+    finally:
+        con.close()
+    prepared = prepare_universe(obs, universe)
+    plan = plan_windows(prepared, universe, stored=stored, full=full)
+    blocks = tuple(plan.ends[i : i + block_windows] for i in range(0, plan.ends.size, block_windows))
+    log.info("universe %s: %d prepared rows; %s", universe.name, len(prepared.dates), plan.reason)
+    return UniverseJob(universe, run_id, prepared, plan, blocks, data_fingerprint(prepared), time.perf_counter() - t0)
+
+
+def fit_block_step(
+    prepared: Prepared, universe: UniverseConfig, ends: np.ndarray, *, run_id: str, with_bands: bool
+) -> dict[str, pl.DataFrame]:
+    """Fit one block of window ends and return its result tables (pure compute, no I/O)."""
+    rolling = fit_block(prepared, universe, ends)
+    bands = latest_window_bands(prepared, universe, rolling) if with_bands else None
+    return result_tables(rolling, prepared, universe, run_id=run_id, bands=bands)
+
+
+def store_universe(
+    warehouse_path: str | Path,
+    job: UniverseJob,
+    blocks: list[dict[str, pl.DataFrame]],
+    *,
+    seconds_fit: float = 0.0,
+) -> UniverseResult:
+    """Write the fitted blocks in one transaction and mark the run succeeded."""
+    t0 = time.perf_counter()
+    tables: dict[str, pl.DataFrame] = {}
+    for name in wh.RESULT_TABLES:
+        parts = [b[name] for b in blocks if name in b and b[name].height]
+        if parts:
+            tables[name] = pl.concat(parts, how="vertical_relaxed")
+    fits = tables.get("window_fits")
+    fitted = int(fits["skip_reason"].is_null().sum()) if fits is not None else 0
+    skipped = (fits.height - fitted) if fits is not None else 0
+    plan = job.plan
+    message = "; ".join([plan.reason, *plan.notes])
+    con = wh.connect(warehouse_path)
+    try:
+        wh.store_universe_results(
+            con,
+            run_id=job.run_id,
+            universe=job.universe,
+            tables=tables,
+            replace_ends=plan.delete_ends,
+            prepared=job.prepared.frame if plan.prepared_changed else None,
+            dropped=job.prepared.dropped if plan.prepared_changed else None,
+            counts={"fitted": fitted, "skipped": skipped, "failed": 0},
+            data_fingerprint=job.fingerprint,
+            message=message,
+            path=warehouse_path,
+        )
+    finally:
+        con.close()
+    seconds = {"prepare": job.seconds_prepare, "fit": seconds_fit, "store": time.perf_counter() - t0}
+    log.info("universe %s: %d fitted, %d skipped, %d reused", job.universe.name, fitted, skipped, plan.reused)
+    return UniverseResult(
+        job.universe.name, "succeeded", job.run_id, fitted, skipped, 0, plan.reused, plan.reason, None, seconds
+    )
+
+
+def fail_universe(
+    warehouse_path: str | Path,
+    universe: UniverseConfig,
+    run_id: str | None,
+    error: BaseException,
+    *,
+    windows: int = 0,
+) -> UniverseResult:
+    """Record a failed universe run (results untouched) and return its result."""
+    message = _one_line(error)
+    log.error("universe %s failed: %s", universe.name, message)
+    if run_id is not None:
+        try:
+            con = wh.connect(warehouse_path)
+            try:
+                wh.fail_run(con, run_id, message, windows_failed=windows, path=warehouse_path)
+            finally:
+                con.close()
+        except ShockflowError as exc:  # the warehouse itself is unusable: report both
+            message = f"{message} (and recording the failure failed: {exc})"
+    return UniverseResult(universe.name, "failed", run_id, failed=windows, message=message)
+
+
+def run_universe(
+    warehouse_path: str | Path, universe: UniverseConfig, *, full: bool = False, block_windows: int = 1000
+) -> UniverseResult:
+    """start → plan → fit every block → store, sequentially; failures are recorded and returned."""
+    run_id = None
+    windows = 0
+    try:
+        run_id = start_universe(warehouse_path, universe)
+        job = plan_universe(warehouse_path, universe, run_id, full=full, block_windows=block_windows)
+        windows = int(job.plan.ends.size)
+        t0 = time.perf_counter()
+        blocks = [
+            fit_block_step(job.prepared, universe, ends, run_id=run_id, with_bands=i == len(job.blocks) - 1)
+            for i, ends in enumerate(job.blocks)
+        ]
+        return store_universe(warehouse_path, job, blocks, seconds_fit=time.perf_counter() - t0)
+    except ShockflowError as exc:
+        return fail_universe(warehouse_path, universe, run_id, exc, windows=windows)
+
+
+# ------------------------------------------------------------------------------------------
+# Publish, export, summary
+# ------------------------------------------------------------------------------------------
+
+
+def publish_step(config: Config) -> PublishResult:
+    """Copy the warehouse's result tables into the serving snapshot (atomic swap)."""
+    from pipeline.publish import publish_snapshot
+
+    con = wh.connect(config.warehouse.path)
+    try:
+        return publish_snapshot(con, config.warehouse.snapshot)
+    finally:
+        con.close()
+
+
+def export_step(config: Config, universes: list[str], *, out_dir: str | Path | None = None) -> dict[str, Any]:
+    """Export reports for `universes` from the snapshot (pipeline.export, imported lazily)."""
+    from pipeline.export import export_all
+
+    return export_all(
+        config.warehouse.snapshot,
+        out_dir if out_dir is not None else config.export.directory,
+        formats=config.export.formats,
+        universes=universes,
+    )
+
+
+def exit_code(failures: int, successes: int) -> int:
+    """0: everything ran; 2: partial (something failed, the rest ran); 1: nothing ran."""
+    if failures == 0:
+        return 0
+    return 2 if successes else 1
