@@ -182,10 +182,15 @@ def gather(snap: Snapshot, universe: str, as_of: dt.date | None = None) -> Repor
                 if not decomps:
                     decomps.extend(derive_decompositions(info, p, notes))
 
+    runs = snap.runs(universe)
+    run_rows = runs.filter(pl.col("run_id") == run_id) if run_id is not None else runs.head(0)
+    before = None
+    if run_rows.height:
+        before = run_rows["finished"][0] or run_rows["started"][0]
     return ReportData(
         info=info, report_date=report_date, fitted_date=fitted, connectedness=conn,
         directional=direc, pairwise=pair, granger=gr, fits=fits, table=table, to_others=to_o,
         from_others=from_o, net=net, total=total, granger_f=gf, granger_p=gp,
-        responses=responses, decompositions=decomps, runs=snap.runs(universe),
-        batches=snap.source_batches(universe, report_date), run_id=run_id, notes=notes,
+        responses=responses, decompositions=decomps, runs=runs,
+        batches=snap.source_batches(universe, report_date, before), run_id=run_id, notes=notes,
     )

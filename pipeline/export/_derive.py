@@ -8,6 +8,7 @@ may show them even when the run kept only the scalar results. Bands need the win
 
 from __future__ import annotations
 
+import warnings
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -36,22 +37,63 @@ def process_from_params(info: UniverseInfo, params: dict[str, Any]) -> Any:
     return arlib.var_process(coefs, sigma, c, names=list(info.series))
 
 
+def _window_fit(info: UniverseInfo, params: dict[str, Any], proc: Any,
+                rows: tuple[list, np.ndarray] | None) -> tuple[Any, str]:
+    """Refit the window on its prepared rows; the fit only counts if it reproduces the stored
+    coefficients (else the rows are not the ones the run used). Returns (fit or None, why)."""
+    if rows is None:
+        return None, "the window's prepared rows are not in the snapshot"
+    _, y = rows
+    trend = str(info.config.get("trend", "c"))
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", arlib.UnstableProcessWarning)  # shown under health
+            fit = arlib.fit_var(y, int(params["lags"]), trend=trend, names=list(info.series))
+    except arlib.ArlibError as exc:
+        return None, f"refitting the window failed ({exc})"
+    # Same rows, same least squares: agreement to rounding (1e-8 relative) is expected.
+    if not np.allclose(fit.coefs, proc.coefs, rtol=1e-8, atol=1e-12):
+        return None, "the prepared rows do not reproduce the stored coefficients"
+    return fit, ""
+
+
 def derive_responses(info: UniverseInfo, params: dict[str, Any],
                      rows: tuple[list, np.ndarray] | None, notes: list[str]) -> ResponseSet:
-    """Impulse responses (H+1, n, n) of the window from its stored parameters.
+    """Impulse responses (H+1, n, n) of the window from its stored parameters, with bands.
 
-    `rows` (the window's prepared data) is accepted for bootstrap bands; without it, or while arlib
-    offers no band function, the responses carry no bands and a note says so.
+    Bands follow the universe's `bands` setting (method "bootstrap" or "asymptotic", draws,
+    seed, coverage) and need the window's prepared rows (`rows`: dates and y (T, n)); the refit
+    on them must reproduce the stored coefficients. Otherwise the responses carry no bands and a
+    note says why.
     """
     from pipeline.export._data import ResponseSet
 
     ident = _SHOCKS.get(info.identification.lower(), "cholesky")
     proc = process_from_params(info, params)
     resp = np.asarray(arlib.impulse_responses(proc, info.horizon, shocks=ident))
+    spec = info.config.get("bands") or {}
+    kind = str(spec.get("method", "none"))
+    lower = upper = coverage = None
+    if kind in ("bootstrap", "asymptotic"):
+        fit, why = _window_fit(info, params, proc, rows)
+        if fit is not None:
+            try:
+                b = arlib.irf_bands(fit, info.horizon, shocks=ident, kind=kind,
+                                    coverage=float(spec.get("coverage", 0.9)),
+                                    draws=int(spec.get("draws", 200)),
+                                    rng=int(spec.get("seed", 0)))
+            except arlib.ArlibError as exc:
+                why = f"arlib could not compute {kind} bands ({exc})"
+            else:
+                lower, upper, coverage = np.asarray(b.lower), np.asarray(b.upper), b.coverage
+        band_text = (f"{kind} bands from the window's prepared rows" if lower is not None
+                     else f"no bands: {why}")
+    else:
+        band_text = "no bands (the universe's `bands` method is 'none')"
     notes.append(f"Impulse responses were not stored by the run; derived with arlib from the "
-                 f"window's stored parameters ({ident} shocks, no bands).")
-    return ResponseSet(identification=ident, horizon=info.horizon, response=resp, lower=None,
-                       upper=None, coverage=None, origin="derived from stored parameters")
+                 f"window's stored parameters ({ident} shocks; {band_text}).")
+    return ResponseSet(identification=ident, horizon=info.horizon, response=resp, lower=lower,
+                       upper=upper, coverage=coverage, origin="derived from stored parameters")
 
 
 def derive_decompositions(info: UniverseInfo, params: dict[str, Any],

@@ -249,11 +249,14 @@ class Snapshot:
             [universe],
         )
 
-    def source_batches(self, universe: str, as_of: dt.date) -> pl.DataFrame:
-        """Ingest batches behind the universe's observations up to `as_of`, newest first.
+    def source_batches(self, universe: str, as_of: dt.date,
+                       before: dt.datetime | None = None) -> pl.DataFrame:
+        """Ingest batches behind the universe's results, newest first.
 
-        Uses `observations` when the snapshot carries it (the exact batches that supplied the
-        universe's series); otherwise every batch in `ingest_batches`. Empty when neither exists.
+        With `observations` in the snapshot: exactly the batches that supplied the universe's
+        series up to `as_of`. Without it (the published snapshot leaves observations in the
+        working warehouse): the batches that started before `before` (the run's finish), i.e.
+        the data the run could have read. Empty when the snapshot has no `ingest_batches`.
         """
         if not self.has("ingest_batches"):
             return pl.DataFrame()
@@ -267,7 +270,12 @@ class Snapshot:
                 "ORDER BY b.started DESC",
                 [universe, as_of],
             )
-        return self.query(f"SELECT {cols} FROM ingest_batches b ORDER BY b.started DESC")
+        return self.query(
+            f"SELECT {cols} FROM ingest_batches b "
+            "WHERE CAST(? AS TIMESTAMP) IS NULL OR b.started <= CAST(? AS TIMESTAMP) "
+            "ORDER BY b.started DESC",
+            [before, before],
+        )
 
 
 def open_snapshot(path: str | Path) -> Snapshot:

@@ -103,7 +103,8 @@ def snap(tmp_path_factory: pytest.TempPathFactory) -> Path:
     return build_snapshot(path, {
         "rates & fx": {"draws": 20},
         "derived": {"store_arrays": False, "skip_last": True, "seed": 9, "run_id": "run-test-2"},
-        "../escape": {"T": 140, "store_arrays": False, "seed": 5, "run_id": "run-test-3"},
+        "../escape": {"T": 140, "store_arrays": False, "seed": 5, "run_id": "run-test-3",
+                      "bands": "none"},
     })
 
 
@@ -237,7 +238,7 @@ def test_lineage_names_the_run(exported: dict[str, list[Path]]) -> None:
 
 def test_unstored_responses_are_derived_with_arlib(snap: Path,
                                                    exported: dict[str, list[Path]]) -> None:
-    """A run that kept only parameters: responses and decompositions equal arlib's on them."""
+    """A run that kept only parameters: responses, bands and decompositions equal arlib's."""
     html = html_of(exported, "derived")
     w = latest(snap, "derived")
     p = snapshot_frame(snap, "SELECT coefs, intercept, sigma_u FROM window_params WHERE "
@@ -245,20 +246,41 @@ def test_unstored_responses_are_derived_with_arlib(snap: Path,
     proc = arlib.var_process(np.reshape(p["coefs"], (1, 3, 3)), np.reshape(p["sigma_u"], (3, 3)),
                              p["intercept"])
     resp = arlib.impulse_responses(proc, 8, shocks="cholesky")
+    # Bands: the builder's universe config asks for 30 bootstrap draws, seed 3, 90%, on the
+    # window's prepared rows.
+    start = snapshot_frame(snap, "SELECT window_start FROM window_fits WHERE universe = ? AND "
+                           "window_end = ?", ["derived", w])["window_start"][0]
+    rows = (snapshot_frame(snap, "SELECT date, series, value FROM prepared WHERE universe = ? "
+                           "AND date BETWEEN ? AND ?", ["derived", start, w])
+            .pivot(on="series", index="date", values="value").sort("date")
+            .select("alpha", "beta", "gamma").to_numpy())
+    bands = arlib.irf_bands(arlib.fit_var(rows, 1), 8, shocks="cholesky", draws=30, rng=3,
+                            coverage=0.9)
     traces = plotly_traces(html, "fig-irf-0-0")
-    assert len(traces) == 9  # no bands: one trace per panel
+    assert len(traces) == 27
     for k in range(9):
         i, j = divmod(k, 3)
-        np.testing.assert_allclose(trace_array(traces[k]["y"]), resp[:, i, j], rtol=0, atol=1e-14)
-    rows = table_values(html, "decomposition")
+        up, low, mid = traces[3 * k: 3 * k + 3]
+        np.testing.assert_allclose(trace_array(mid["y"]), resp[:, i, j], rtol=0, atol=1e-14)
+        np.testing.assert_allclose(trace_array(low["y"]), bands.lower[:, i, j], rtol=0, atol=1e-12)
+        np.testing.assert_allclose(trace_array(up["y"]), bands.upper[:, i, j], rtol=0, atol=1e-12)
+    rows_shown = table_values(html, "decomposition")
     chol = 100.0 * arlib.variance_decomposition(proc, 8, method="cholesky")[-1]
     gen = 100.0 * arlib.variance_decomposition(proc, 8, method="generalized")[-1]
-    np.testing.assert_allclose(np.array(rows[:3]), chol, rtol=0, atol=1e-12)
-    np.testing.assert_allclose(np.array(rows[3:6]), gen, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(np.array(rows_shown[:3]), chol, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(np.array(rows_shown[3:6]), gen, rtol=0, atol=1e-12)
     # The generalized decomposition ×100 is the stored spillover table (same window, same H).
     np.testing.assert_allclose(np.array(table_values(html, "spillover")[:3])[:, :3], gen,
                                rtol=0, atol=1e-10)
     assert "derived with arlib from the window&#x27;s stored parameters" in html
+    assert "bootstrap bands from the window&#x27;s prepared rows" in html
+
+
+def test_derived_responses_without_bands_say_so(exported: dict[str, list[Path]]) -> None:
+    html = html_of(exported, "../escape")
+    assert len(plotly_traces(html, "fig-irf-0-0")) == 9  # one line per panel, no band traces
+    assert "no bands (the universe&#x27;s `bands` method is &#x27;none&#x27;)" in html
+    assert "no bands available" in html
 
 
 def test_skipped_latest_window_is_reported(snap: Path, exported: dict[str, list[Path]]) -> None:

@@ -78,13 +78,14 @@ def business_days(start: dt.date, count: int) -> list[dt.date]:
 def add_universe(con: duckdb.DuckDBPyConnection, name: str, *, n: int = 3, T: int = 220,
                  window: int = 120, step: int = 10, horizon: int = 8, seed: int = 7,
                  store_arrays: bool = True, skip_last: bool = False, run_id: str = "run-test-1",
-                 identification: str = "cholesky", draws: int = 30) -> dict:
+                 identification: str = "cholesky", draws: int = 30,
+                 bands: str = "bootstrap") -> dict:
     """Fit `name` window by window with arlib and insert every result table's rows."""
     names = [f"s{i}" for i in range(n)] if n != 3 else ["alpha", "beta", "gamma"]
     y = simulate(T, seed, n)
     dates = business_days(dt.date(2023, 1, 2), T)
     config = {"window": window, "step": step, "lags": 1, "trend": "c", "horizon": horizon,
-              "bands": {"method": "bootstrap", "draws": draws, "seed": 3}}
+              "bands": {"method": bands, "draws": draws, "seed": 3, "coverage": 0.9}}
     con.execute("INSERT INTO universes VALUES (?, ?, ?, ?, ?, ?, ?)",
                 [name, f"cfg-{name}", json.dumps(config), horizon, 0.05, identification, run_id])
     for i, s in enumerate(names):
