@@ -1,0 +1,123 @@
+"""Incremental planning: which windows are (re)fitted, reused or deleted (no engine needed)."""
+
+from __future__ import annotations
+
+import dataclasses
+from datetime import date, timedelta
+
+import numpy as np
+import polars as pl
+
+from pipeline.config import SeriesSpec, UniverseConfig
+from pipeline.fit import StoredState, data_fingerprint, plan_windows, window_grid
+from pipeline.prepare import Prepared
+
+U = UniverseConfig(name="u", series=(SeriesSpec("A", "level"), SeriesSpec("B", "level")), window=20, step=5, lags=1)
+
+
+def prepared(T: int, *, seed: int = 0, skip: int | None = None) -> Prepared:
+    rng = np.random.default_rng(seed)
+    dates = [date(2020, 1, 1) + timedelta(days=i) for i in range(T + 1)]
+    y = rng.standard_normal((T + 1, 2))
+    if skip is not None:
+        del dates[skip]
+        y = np.delete(y, skip, axis=0)
+    else:
+        dates, y = dates[:T], y[:T]
+    return Prepared("u", ("A", "B"), tuple(dates), y, pl.DataFrame(schema={"date": pl.Date, "reason": pl.String}))
+
+
+def stored_from(p: Prepared, u: UniverseConfig, *, ends: np.ndarray | None = None) -> StoredState:
+    """What the warehouse would hold after fitting `ends` (default: the whole grid) of `p`."""
+    grid_ends, grid_starts = window_grid(len(p.dates), u)
+    if ends is None:
+        ends = grid_ends
+    starts = grid_starts[np.isin(grid_ends, ends)]
+    windows = pl.DataFrame(
+        {"window_end": [p.dates[e] for e in ends], "window_start": [p.dates[s] for s in starts]},
+        schema={"window_end": pl.Date, "window_start": pl.Date},
+    )
+    return StoredState(config_hash=u.config_hash, windows=windows, prepared=p.frame)
+
+
+def test_grid_is_anchored_at_the_first_row() -> None:
+    ends, starts = window_grid(42, U)
+    assert ends.tolist() == [19, 24, 29, 34, 39]
+    assert starts.tolist() == [0, 5, 10, 15, 20]
+    ends, starts = window_grid(42, dataclasses.replace(U, expanding=True))
+    assert starts.tolist() == [0] * 5
+    assert window_grid(19, U)[0].size == 0
+
+
+def test_first_run_and_full_fit_everything() -> None:
+    p = prepared(42)
+    plan = plan_windows(p, U, stored=None)
+    assert plan.ends.tolist() == [19, 24, 29, 34, 39] and plan.delete_ends is None and plan.reason == "first run"
+    plan = plan_windows(p, U, stored=stored_from(p, U), full=True)
+    assert plan.delete_ends is None and plan.ends.size == 5 and plan.reason == "full refit requested"
+
+
+def test_same_data_is_a_noop() -> None:
+    p = prepared(42)
+    plan = plan_windows(p, U, stored=stored_from(p, U))
+    assert plan.is_noop and plan.reused == 5 and plan.reason == "nothing changed"
+
+
+def test_appended_rows_fit_only_new_windows() -> None:
+    u1 = dataclasses.replace(U, step=1)
+    old = prepared(42)
+    new = prepared(43)  # same first 42 rows (same seed), one more day
+    assert np.array_equal(new.y[:42], old.y)
+    plan = plan_windows(new, u1, stored=stored_from(old, u1))
+    assert plan.ends.tolist() == [42] and plan.delete_ends == [] and plan.reason == "1 new window(s)"
+    # with step 5, one new day does not reach the next grid point: nothing to fit, new data stored
+    plan5 = plan_windows(new, U, stored=stored_from(old, U))
+    assert plan5.ends.size == 0 and plan5.prepared_changed and not plan5.is_noop
+
+
+def test_revision_refits_exactly_the_windows_that_span_it() -> None:
+    old = prepared(42)
+    y = old.y.copy()
+    y[22, 0] += 1.0  # a revised value on row 22
+    new = dataclasses.replace(old, y=y)
+    plan = plan_windows(new, U, stored=stored_from(old, U))
+    # windows [5..24], [10..29], [15..34], [20..39] span row 22; [0..19] does not
+    assert plan.ends.tolist() == [24, 29, 34, 39]
+    assert plan.delete_ends == [old.dates[e] for e in (24, 29, 34, 39)]
+    assert plan.reason == "4 window(s) refitted after data changes"
+
+
+def test_removed_date_refits_windows_around_it() -> None:
+    old = prepared(42)
+    new = prepared(41, skip=30)  # the same data with the row of date index 30 deleted
+    assert new.dates[29] == old.dates[29] and new.dates[30] == old.dates[31]
+    plan = plan_windows(new, U, stored=stored_from(old, U))
+    # new grid ends 19, 24, 29, 34, 39: rows ≤ 29 are unchanged; windows ending at 34 and 39 now
+    # end on other dates (new windows) and the old ones there become stale
+    assert plan.ends.tolist() == [34, 39]
+    assert sorted(plan.delete_ends or []) == sorted([old.dates[34], old.dates[39]])
+
+
+def test_config_change_refits_everything() -> None:
+    p = prepared(42)
+    stored = stored_from(p, U)
+    changed = dataclasses.replace(U, horizon=5)
+    plan = plan_windows(p, changed, stored=stored)
+    assert plan.delete_ends is None and plan.ends.size == 5 and plan.reason.startswith("config changed")
+
+
+def test_missing_stored_window_is_fitted() -> None:
+    p = prepared(42)
+    ends = window_grid(42, U)[0]
+    stored = stored_from(p, U, ends=ends[[0, 1, 3, 4]])  # the window ending at row 29 is missing
+    plan = plan_windows(p, U, stored=stored)
+    assert plan.ends.tolist() == [29] and plan.delete_ends == []
+
+
+def test_fingerprint_tracks_values_and_dates() -> None:
+    p = prepared(42)
+    assert data_fingerprint(p) == data_fingerprint(prepared(42))
+    y = p.y.copy()
+    y[3, 1] = np.nan
+    assert data_fingerprint(dataclasses.replace(p, y=y)) != data_fingerprint(p)
+    assert data_fingerprint(prepared(42, seed=1)) != data_fingerprint(p)

@@ -1,0 +1,91 @@
+"""publish: a new snapshot file swapped in atomically; readers see the new data after a publish."""
+
+from __future__ import annotations
+
+from datetime import date
+from pathlib import Path
+
+import duckdb
+import polars as pl
+import pytest
+
+from pipeline import warehouse as wh
+from pipeline.errors import PublishError
+from pipeline.publish import open_snapshot, publish_snapshot
+from tests.pipeline.helpers import minimal_config
+
+
+def _write_total(con: duckdb.DuckDBPyConnection, cfg_universe, total: float) -> str:
+    run = wh.begin_run(con, universe="pair", config_hash="h", data_fingerprint=None, code_version="t")
+    conn = pl.DataFrame({"run_id": [run], "universe": ["pair"], "window_end": [date(2024, 1, 2)], "total": [total]})
+    wh.store_universe_results(
+        con, run_id=run, universe=cfg_universe, tables={"connectedness": conn}, replace_ends=None,
+        prepared=pl.DataFrame({"date": [date(2024, 1, 2)], "series": ["A"], "value": [0.5]}),
+        dropped=None, counts={"fitted": 1},
+    )
+    return run
+
+
+def test_publish_swaps_atomically_and_readers_see_new_data(tmp_path: Path) -> None:
+    cfg = minimal_config(tmp_path)
+    u = cfg.universes[0]
+    con = wh.connect(cfg.warehouse.path)
+    _write_total(con, u, 10.0)
+    first = publish_snapshot(con, cfg.warehouse.snapshot)
+    assert first.path == cfg.warehouse.snapshot and first.rows > 0
+    assert set(p.name for p in tmp_path.iterdir()) >= {"wh.duckdb", "serving.duckdb"}
+
+    old_reader = duckdb.connect(str(cfg.warehouse.snapshot), read_only=True)
+    assert old_reader.execute("SELECT total FROM connectedness").fetchall() == [(10.0,)]
+    tables = {r[0] for r in old_reader.execute("SELECT table_name FROM information_schema.tables").fetchall()}
+    assert tables == set(wh.SNAPSHOT_TABLES)  # observations and revisions stay in the warehouse
+
+    _write_total(con, u, 20.0)
+    publish_snapshot(con, cfg.warehouse.snapshot)
+    # the reader that held the old file keeps a consistent view of it
+    assert old_reader.execute("SELECT total FROM connectedness").fetchall() == [(10.0,)]
+    # open_snapshot never gets DuckDB's cached instance of the old file, even while it is open
+    fresh = open_snapshot(cfg.warehouse.snapshot)
+    assert fresh.execute("SELECT total FROM connectedness").fetchall() == [(20.0,)]
+    fresh.close()
+    # while a connection to the path is open, a plain connect() would return that cached old
+    # database; once it is closed, a new plain read-only connect sees the new file
+    old_reader.close()
+    reader = duckdb.connect(str(cfg.warehouse.snapshot), read_only=True)
+    assert reader.execute("SELECT total FROM connectedness").fetchall() == [(20.0,)]
+    assert reader.execute("SELECT count(*) FROM runs WHERE status = 'succeeded'").fetchall() == [(2,)]
+    reader.close()
+    con.close()
+    leftovers = [p.name for p in tmp_path.iterdir() if p.name.endswith((".tmp", ".wal"))]
+    assert leftovers == []
+
+
+def test_failed_publish_leaves_served_snapshot_unchanged(tmp_path: Path) -> None:
+    cfg = minimal_config(tmp_path)
+    con = wh.connect(cfg.warehouse.path)
+    _write_total(con, cfg.universes[0], 10.0)
+    target = tmp_path / "served_dir"
+    target.mkdir()
+    (target / "keep.txt").write_text("x")
+    with pytest.raises(PublishError, match=r"publishing the snapshot .*served_dir.* failed .*the served snapshot is unchanged"):
+        publish_snapshot(con, target)  # a directory cannot be replaced by a file
+    assert (target / "keep.txt").read_text() == "x"
+    assert [p.name for p in tmp_path.iterdir() if p.name.endswith(".tmp")] == []
+    con.close()
+
+
+def test_open_snapshot_missing(tmp_path: Path) -> None:
+    with pytest.raises(PublishError, match="does not exist yet; run `shockflow run"):
+        open_snapshot(tmp_path / "none.duckdb")
+
+
+def test_snapshot_path_with_quote(tmp_path: Path) -> None:
+    cfg = minimal_config(tmp_path)
+    con = wh.connect(cfg.warehouse.path)
+    _write_total(con, cfg.universes[0], 1.5)
+    odd = tmp_path / "it's here" / "serving.duckdb"
+    publish_snapshot(con, odd)
+    reader = open_snapshot(odd)
+    assert reader.execute("SELECT total FROM connectedness").fetchall() == [(1.5,)]
+    reader.close()
+    con.close()
