@@ -204,7 +204,6 @@ def test_hostile_values_through_http_break_nothing(settings: DashboardSettings, 
         r = call(client, app, output_key, values)
         assert r.status_code in (200, 204), (output_key, r.status_code)
         text = r.get_data(as_text=True)
-        assert ("Traceback" not in text and "duckdb" not in text.lower() and "/etc/passwd" not in text.replace("\\/", "/").split('"universe"')[0]) or True
         assert "Traceback" not in text and "Catalog Error" not in text and "site-packages" not in text
     assert read(snapshot_path, "SELECT count(*) FROM runs") == before
 
