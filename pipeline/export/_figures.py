@@ -51,9 +51,9 @@ def _base(fig: go.Figure, *, title: str, height: int) -> go.Figure:
         template="simple_white",
         title={"text": title, "x": 0.0, "xanchor": "left", "font": {"size": 15}},
         height=height,
-        margin={"l": 60, "r": 20, "t": 50, "b": 40},
+        margin={"l": 60, "r": 20, "t": 50, "b": 70},
         font={"family": "Helvetica, Arial, sans-serif", "size": 12},
-        legend={"orientation": "h", "yanchor": "top", "y": -0.14, "x": 0.0,
+        legend={"orientation": "h", "yanchor": "top", "y": -0.2, "x": 0.0,
                 "traceorder": "normal"},
         hovermode="x unified",
     )
@@ -160,11 +160,11 @@ def decomposition_figure(ds: DecompositionSet, names: tuple[str, ...]) -> go.Fig
             hovertemplate=f"%{{y}} from {s}: " + "%{x:.1f}%<extra></extra>",
         ))
     fig.update_layout(barmode="stack")
-    fig.update_xaxes(title_text="percent of forecast-error variance", range=[0, 100])
-    fig.update_layout(legend={"y": -0.25})
+    fig.update_xaxes(range=[0, 100], ticksuffix="%")
     fig.update_yaxes(autorange="reversed")
-    return _base(fig, title=f"{ds.method.capitalize()} decomposition at {ds.horizon} steps",
-                 height=max(260, 60 + 34 * len(names)))
+    return _base(fig, title=(f"{ds.method.capitalize()} decomposition at {ds.horizon} steps: "
+                             "percent of each series' forecast-error variance, by shock"),
+                 height=max(280, 110 + 34 * len(names)))
 
 
 def health_figure(fits: pl.DataFrame) -> go.Figure:

@@ -144,9 +144,9 @@ def _connectedness(d: ReportData, chart: _Charts) -> str:
 
 def _spillovers(d: ReportData) -> str:
     names = d.info.series
-    head = ['<section id="spillovers" class="major"><h2>Spillover table</h2>']
+    head = ['<section id="spillovers" class="major"><div class="keep"><h2>Spillover table</h2>']
     if d.table is None:
-        return head[0] + '<p class="note">No fitted window.</p></section>'
+        return head[0] + '<p class="note">No fitted window.</p></div></section>'
     head.append(
         f'<p class="note">Window ending {_esc(d.fitted_date)}. Cell (row, column): percent of the '
         f"row series' {d.info.horizon}-step forecast-error variance due to shocks in the column "
@@ -179,7 +179,7 @@ def _spillovers(d: ReportData) -> str:
         f'<tr data-row="total"><th class="rowhead">total connectedness</th>'
         f'{"".join("<td></td>" for _ in names)}{total}</tr>'
         "</tbody></table></div>")
-    return "".join(head) + table + "</section>"
+    return "".join(head) + table + "</div></section>"
 
 
 def _responses(d: ReportData, chart: _Charts) -> str:
@@ -190,12 +190,14 @@ def _responses(d: ReportData, chart: _Charts) -> str:
     for k, rs in enumerate(d.responses):
         band = (f"shaded: {rs.coverage:.0%} band" if rs.coverage else "shaded: band") \
             if rs.lower is not None else "no bands available"
-        out.append(f"<h3>{_esc(rs.identification.capitalize())} shocks</h3>"
+        out.append(f'<div class="keep"><h3>{_esc(rs.identification.capitalize())} shocks</h3>'
                    f'<p class="note">Window ending {_esc(d.fitted_date)}; horizons 0–{rs.horizon} '
                    f"(0 is impact); one-standard-deviation shocks; {band}; "
                    f"{_esc(rs.origin)}.</p>")
         for m, fig in enumerate(figs.response_figures(rs, d.info.series)):
             out.append(chart(fig, div_id=f"fig-irf-{k}-{m}"))
+            if m == 0:
+                out.append("</div>")  # heading kept with the first chart
     out.append("</section>")
     return "".join(out)
 
@@ -208,7 +210,7 @@ def _decompositions(d: ReportData, chart: _Charts) -> str:
         return "".join(out)
     for k, ds in enumerate(d.decompositions):
         last = 100.0 * ds.share[-1]
-        out.append(f"<h3>{_esc(ds.method.capitalize())}, {ds.horizon} steps</h3>"
+        out.append(f'<div class="keep"><h3>{_esc(ds.method.capitalize())}, {ds.horizon} steps</h3>'
                    f'<p class="note">Percent of each row series\' {ds.horizon}-step forecast-error '
                    f"variance due to shocks in each column series; rows sum to 100; "
                    f"{_esc(ds.origin)}.</p>")
@@ -220,7 +222,7 @@ def _decompositions(d: ReportData, chart: _Charts) -> str:
             for i, s in enumerate(names))
         out.append(f'<div class="tablewrap"><table class="decomposition" '
                    f'data-method="{_esc(ds.method)}"><thead><tr><th class="rowhead">variable ↓ / '
-                   f"shock →</th>{th}</tr></thead><tbody>{body}</tbody></table></div>")
+                   f"shock →</th>{th}</tr></thead><tbody>{body}</tbody></table></div></div>")
     out.append("</section>")
     return "".join(out)
 
@@ -228,9 +230,9 @@ def _decompositions(d: ReportData, chart: _Charts) -> str:
 def _granger(d: ReportData) -> str:
     names = d.info.series
     level = d.info.granger_level
-    out = ['<section id="granger" class="major"><h2>Granger causality</h2>']
+    out = ['<section id="granger" class="major"><div class="keep"><h2>Granger causality</h2>']
     if d.granger_p is None:
-        out.append('<p class="note">No fitted window.</p></section>')
+        out.append('<p class="note">No fitted window.</p></div></section>')
         return "".join(out)
     n = len(names)
     off = ~np.eye(n, dtype=bool)
@@ -251,7 +253,7 @@ def _granger(d: ReportData) -> str:
     out.append(f'<div class="tablewrap"><table class="granger" data-level="{level!r}">'
                "<caption>rows: caused · columns: causing · p-values</caption>"
                f'<thead><tr><th class="rowhead">caused ↓ / causing →</th>{th}</tr></thead>'
-               f"<tbody>{''.join(rows)}</tbody></table></div>")
+               f"<tbody>{''.join(rows)}</tbody></table></div></div>")
     # Persistence over the history: share of windows where each pair was significant.
     hist = d.granger.filter(pl.col("caused") != pl.col("causing"))
     if hist.height and hist["window_end"].n_unique() > 1:
