@@ -317,7 +317,7 @@ def schedule(config: ConfigOpt, debug: DebugOpt = False) -> None:
         cfg = _load(config)
         from pipeline.schedule import serve
 
-        serve(cfg)
+        serve(cfg, config_path=cfg.path)
         return 0
 
     _guard(debug, body)

@@ -30,7 +30,7 @@ from pipeline.errors import ShockflowError
 if TYPE_CHECKING:
     from pipeline.jobs import IngestResult, UniverseResult
 
-__all__ = ["NightlySummary", "nightly", "nightly_flow", "set_progress_hook", "task_runner"]
+__all__ = ["NightlySummary", "nightly", "nightly_flow", "nightly_run_flow", "set_progress_hook", "task_runner"]
 
 log = logging.getLogger("shockflow.flows")
 
@@ -255,8 +255,7 @@ def nightly(
     today: date | None = None,
 ) -> NightlySummary:
     """Run the nightly flow for a loaded config (the CLI's entry; starts Prefect's engine)."""
-    flow_fn = nightly_flow.with_options(task_runner=task_runner(config))
-    return flow_fn(str(config.path), universes=universes, full=full, export=export, today=today)
+    return nightly_flow(str(config.path), universes=universes, full=full, export=export, today=today)
 
 
 @flow(name="shockflow-nightly", persist_result=False, log_prints=False)
@@ -267,6 +266,23 @@ def nightly_flow(
     export: bool = True,
     today: date | None = None,
 ) -> NightlySummary:
-    """ingest → fit → publish → export for the config at `config_path` (what the schedule serves)."""
+    """ingest → fit → publish → export for the config at `config_path` (what the schedule serves).
+
+    Loads the config, then runs the work as a subflow whose task runner follows `[execution]`
+    (threads, or Dask), so a deployment of this flow honours the config too.
+    """
     config = load_config(config_path)
-    return _nightly_body(config, universes=universes, full=full, export=export, today=today or date.today())
+    run = nightly_run_flow.with_options(task_runner=task_runner(config))
+    return run(config, universes=universes, full=full, export=export, today=today or date.today())
+
+
+@flow(name="shockflow-nightly-run", persist_result=False, log_prints=False, validate_parameters=False)
+def nightly_run_flow(
+    config: Config,
+    universes: list[str] | None,
+    full: bool,
+    export: bool,
+    today: date,
+) -> NightlySummary:
+    """The nightly work for a loaded config (a subflow of nightly_flow)."""
+    return _nightly_body(config, universes=universes, full=full, export=export, today=today)
