@@ -182,6 +182,8 @@ def gather(snap: Snapshot, universe: str, as_of: dt.date | None = None) -> Repor
                 if not decomps:
                     decomps.extend(derive_decompositions(info, p, notes))
 
+    if run_id is None:  # nothing fitted: the universe's last run still explains why
+        run_id = info.run_id
     runs = snap.runs(universe)
     run_rows = runs.filter(pl.col("run_id") == run_id) if run_id is not None else runs.head(0)
     before = None

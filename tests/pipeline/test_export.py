@@ -298,6 +298,27 @@ def test_skipped_latest_window_is_reported(snap: Path, exported: dict[str, list[
     assert path.parent.parent.name == skipped.isoformat()
 
 
+def test_a_universe_with_no_fitted_window_still_reports(snap: Path, tmp_path: Path) -> None:
+    """Every window skipped: the report says so, lists the reasons and names the run."""
+    copy = tmp_path / "copy.duckdb"
+    copy.write_bytes(snap.read_bytes())
+    con = duckdb.connect(str(copy))
+    try:
+        for t in ("connectedness", "directional", "pairwise", "granger", "window_params"):
+            con.execute(f"DELETE FROM {t} WHERE universe = ?", ["../escape"])
+        con.execute("UPDATE window_fits SET skip_reason = 'series s1 is constant in the window', "
+                    "spectral_radius = NULL, stable = NULL, lags = NULL WHERE universe = ?",
+                    ["../escape"])
+    finally:
+        con.close()
+    paths = export_universe(copy, "../escape", tmp_path / "out", formats=("html", "parquet"))
+    html = next(p for p in paths if p.suffix == ".html").read_text(encoding="utf-8")
+    assert "No window up to this date was fitted" in html
+    assert html.count("series s1 is constant in the window") >= 2  # every skipped window listed
+    assert "run-test-3" in html[html.index('<section id="lineage"'):]
+    assert pl.read_parquet(next(p for p in paths if p.name == "connectedness.parquet")).height == 0
+
+
 # -- extracts -------------------------------------------------------------------------------------
 
 @pytest.mark.parametrize("table", ["connectedness", "directional", "pairwise", "granger",
