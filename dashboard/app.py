@@ -35,6 +35,8 @@ def create_app(settings_or_config: Any) -> Any:
     import dash
     from flask import abort, send_file
 
+    import arlib  # noqa: F401  (scipy loads here, once, not inside the first visitor's callbacks)
+
     from .callbacks import register
     from .data import Snapshot
     from .layout import build

@@ -419,7 +419,7 @@ def shares_view(snap: Snapshot, state: Any, ordering: Any, horizon: Any) -> View
     chol, csrc = _shares(snap, u, end, "cholesky", order, H)
     fig = figures.shares_figure(
         [("generalized (rows normalised to 100%)", gen),
-         ("Cholesky, order " + " → ".join(order), chol)],
+         ("Cholesky, order<br>" + " → ".join(order), chol)],
         u.series,
         title=f"Variance shares at {H} steps ahead, window ending {end}",
     )  # fmt: skip

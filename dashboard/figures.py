@@ -217,11 +217,15 @@ def index_figure(
     ]  # fmt: skip
     shapes: list[dict[str, Any]] = []
     if threshold is not None:
+        # each run is shaded from half a step before its first window to half a step after its last
+        pos = {d: k for k, d in enumerate(dates)}
         for a, b in stress_runs(dates, totals, threshold):
-            b_end = b if b != a else b + dt.timedelta(days=1)
+            ia, ib = pos[a], pos[b]
+            x0 = a - (a - dates[ia - 1]) / 2 if ia > 0 else a
+            x1 = b + (dates[ib + 1] - b) / 2 if ib + 1 < len(dates) else b
             shapes.append({
-                "type": "rect", "xref": "x", "yref": "paper", "x0": a.isoformat(),
-                "x1": b_end.isoformat(), "y0": 0, "y1": 1, "fillcolor": ORANGE, "opacity": 0.28,
+                "type": "rect", "xref": "x", "yref": "paper", "x0": x0.isoformat(),
+                "x1": x1.isoformat(), "y0": 0, "y1": 1, "fillcolor": ORANGE, "opacity": 0.28,
                 "line": {"width": 0}, "layer": "below",
             })  # fmt: skip
         data.append({
@@ -262,14 +266,13 @@ def index_figure(
 
 def _grid_titles(refs: list[list[tuple[str, str]]], layout: dict[str, Any],
                  cols: Sequence[str], rows: Sequence[str]) -> list[dict[str, Any]]:
+    """Column titles above the top row; row names as the y-axis titles of the first column."""
     anns = []
     for c, label in enumerate(cols):
         dom = layout[_axis_key(refs[0][c][0])]["domain"]
         anns.append(_text(label, (dom[0] + dom[1]) / 2, 1.0, yanchor="bottom", font={"size": 12}))
     for r, label in enumerate(rows):
-        dom = layout[_axis_key(refs[r][-1][1])]["domain"]
-        anns.append(_text(label, 1.005, (dom[0] + dom[1]) / 2, xanchor="left", textangle=90,
-                          font={"size": 11}))  # fmt: skip
+        layout[_axis_key(refs[r][0][1])]["title"] = {"text": label, "font": {"size": 11}, "standoff": 4}
     return anns
 
 
@@ -315,13 +318,12 @@ def responses_figure(
             axes[_axis_key(xr)].update(tickfont={"size": 10})
     for j in range(n):
         axes[_axis_key(refs[n - 1][j][0])]["title"] = {"text": "horizon", "font": {"size": 11}}
-    anns = _grid_titles(refs, axes, [f"shock: {s}" for s in names], list(names))
-    anns.append(_text(f"rows: responding series; columns: shocked series; units: {yunit}",
-                      0.0, -0.07 if n > 2 else -0.18, xanchor="left", yanchor="top",
-                      font={"size": 11, "color": "#444"}))  # fmt: skip
+    anns = _grid_titles(refs, axes, [f"shock to {s}" for s in names], list(names))
     layout = _layout(
-        height=max(380, 60 + 112 * n), title=title,
-        margin={"l": 55, "r": 40, "t": 90, "b": 70},
+        height=max(380, 70 + 112 * n),
+        title=f"{title}<br><span style='font-size:11px;color:#444'>rows: responding series; "
+        f"columns: shocked series; units: {yunit}</span>",
+        margin={"l": 70, "r": 20, "t": 100, "b": 50},
         legend={"orientation": "h", "x": 1.0, "xanchor": "right", "yanchor": "bottom",
                 "yref": "container", "y": 0.99},
         annotations=anns, **axes,
@@ -354,10 +356,10 @@ def responses_compare_figure(
             axes[_axis_key(xr)].update(tickfont={"size": 10})
     for j in range(n):
         axes[_axis_key(refs[n - 1][j][0])]["title"] = {"text": "horizon", "font": {"size": 11}}
-    anns = _grid_titles(refs, axes, [f"shock: {s}" for s in names], list(names))
+    anns = _grid_titles(refs, axes, [f"shock to {s}" for s in names], list(names))
     layout = _layout(
         height=max(380, 60 + 108 * n), title=title,
-        margin={"l": 55, "r": 40, "t": 90, "b": 50},
+        margin={"l": 70, "r": 20, "t": 90, "b": 50},
         legend={"orientation": "h", "x": 1.0, "xanchor": "right", "yanchor": "bottom",
                 "yref": "container", "y": 0.99},
         annotations=anns, **axes,
@@ -395,11 +397,11 @@ def shares_figure(
         axes[_axis_key(yr)].update(autorange="reversed")
         dom = axes[_axis_key(xr)]["domain"]
         anns.append(_text(panel_title, (dom[0] + dom[1]) / 2, 1.0, yanchor="bottom"))
-    axes["yaxis"]["title"] = {"text": "series (whose variance)"}
+    axes["yaxis"]["title"] = {"text": "series whose variance is split"}
     layout = _layout(
         height=max(330, 130 + 46 * n), title=title, barmode="stack", annotations=anns,
         legend={"title": {"text": "source of the shock"}, "traceorder": "normal"},
-        margin={"l": 60, "r": 20, "t": 80, "b": 40}, **axes,
+        margin={"l": 60, "r": 20, "t": 100, "b": 40}, **axes,
     )  # fmt: skip
     return {"data": data, "layout": layout}
 
@@ -443,16 +445,17 @@ def granger_figure(
         },
         {
             "type": "heatmap", "z": _matrix(pct), "x": list(names), "y": list(names),
-            "zmin": 0, "zmax": 100, "colorscale": SEQUENTIAL, "text": _heat_text(pct, ".0f"),
-            "texttemplate": "%{text}%", "colorbar": {"title": {"text": "% of windows"}, "x": 1.0, "len": 0.9},
+            "zmin": 0, "zmax": 100, "colorscale": SEQUENTIAL,
+            "text": [[t + "%" if t else "" for t in row] for row in _heat_text(pct, ".0f")],
+            "texttemplate": "%{text}", "colorbar": {"title": {"text": "% of windows"}, "x": 1.0, "len": 0.9},
             "hovertemplate": "%{x} leads %{y} in %{z:.1f}% of windows<extra></extra>",
             "xaxis": refs[0][1][0], "yaxis": refs[0][1][1],
         },
     ]  # fmt: skip
     anns = []
     for col, label in enumerate((
-        f"p-value at the window ending {window_end} (★: p < {level:g})",
-        f"% of {n_windows} windows with p < {level:g}, {date_label}",
+        f"p-value, window ending {window_end}<br>★: p < {level:g}",
+        f"% of {n_windows} windows with p < {level:g}<br>{date_label}",
     )):
         xr, yr = refs[0][col]
         axes[_axis_key(xr)].update(title={"text": "leading series (causing)"}, tickangle=-30)
@@ -462,7 +465,7 @@ def granger_figure(
     layout = _layout(
         height=max(360, 170 + 48 * len(names)),
         title="Granger causality: does the column series lead the row series?",
-        annotations=anns, margin={"l": 60, "r": 20, "t": 80, "b": 40}, **axes,
+        annotations=anns, margin={"l": 60, "r": 20, "t": 100, "b": 40}, **axes,
     )  # fmt: skip
     return {"data": data, "layout": layout}
 

@@ -172,14 +172,21 @@ def _tabs(series: Sequence[str], level: float) -> dcc.Tabs:
         ]),
         dcc.Tab(label="Own cycles", value=ids.TAB_CYCLES, children=[
             html.P(
-                "Each series' own AR dynamics (its lag order as in the window's VAR), fitted on the "
-                "window's prepared data: the implied spectral density and, where it peaks away from "
-                "zero frequency, the dominant cycle length in observations.", className="note",
+                "Each series on its own: a univariate AR (order chosen by AIC) fitted on the prepared "
+                "data of the window the views use; its implied spectral density and, where the "
+                "density peaks away from frequency zero, the dominant cycle length in observations.",
+                className="note",
             ),
             _graph(ids.CYCLES_GRAPH, height=460), _note(ids.CYCLES_NOTE), _csv("cycles"),
         ]),
     ]
-    return dcc.Tabs(id=ids.TABS, value=ids.TAB_PATHS, children=tabs, className="view-tabs")
+    for tab in tabs:
+        tab.className = "view-tab"
+        tab.selected_className = "view-tab--selected"
+    return dcc.Tabs(
+        id=ids.TABS, value=ids.TAB_PATHS, children=tabs, className="view-tabs",
+        parent_className="view-tabs-parent",
+    )  # fmt: skip
 
 
 def build(snap: Snapshot, settings: DashboardSettings) -> html.Div:
