@@ -23,12 +23,11 @@ from typing import Any
 
 import numpy as np
 
-from ._responses import SHOCKS, ma_kernel, resolve_order, response_kernel
+from ._responses import ma_kernel, resolve_order, response_kernel
 from ._validate import InvalidInputError, check_int, check_model, check_option, readonly
 
 #: Decomposition method -> the shock identification (key of `SHOCKS`) whose responses feed it.
 METHODS: dict[str, str] = {"cholesky": "cholesky", "generalized": "generalized"}
-assert set(METHODS.values()) <= set(SHOCKS)
 
 # ---------------------------------------------------------------------------------------------
 # kernels (leading batch axes allowed)
@@ -126,7 +125,7 @@ class Connectedness:
     to_others : (n,) Σ_{i≠j} table[i, j], what j transmits.
     net : (n,) to_others − from_others.
     pairwise_net : (n, n) [i, j] = table[j, i] − table[i, j], what i transmits to j net.
-    total : Σ_{i≠j} table[i, j] / n = mean(from_others), in [0, 100·(n−1)/n].
+    total : Σ_{i≠j} table[i, j] / n = mean(from_others), in [0, 100].
     horizon, method, names : as passed.
     """
 
