@@ -60,7 +60,7 @@ DECOMPOSITION_KINDS = ("cholesky", "generalized")
 #: Lag-order criteria (as in `select_lags`).
 CRITERIA = ("aic", "bic", "hq", "fpe")
 #: Above this condition number a window is refitted directly by QR instead of from cross-products.
-FAST_COND_LIMIT = 1e7
+FAST_COND_LIMIT = 1e6
 #: Working-memory budget per chunk of windows (bytes); bounds peak memory beyond the outputs.
 CHUNK_BYTES = 48 * 2**20
 
@@ -619,11 +619,12 @@ def _fit_group(
             else:
                 fr = _frame(data, finite, int(starts[chunk][0]), int(e[-1]), trend)
                 rows = np.arange(int(a[0]), int(e[-1]) + 1)
-                ys = (data - fr.mu) / fr.scale
+                lo = int(starts[chunk][0])
+                ys = np.full_like(data, np.nan)
+                ys[lo:] = (data[lo:] - fr.mu) / fr.scale
                 z = K.augmented_rows(ys, rows, p, _det_columns(rows, trend, fr), usable[rows])
-                terms = z[:, :, None] * z[:, None, :]
-                G = K.window_sums(terms, a - a[0], int(e[0] - a[0] + 1))
-                del terms, z
+                G = K.window_sums(z, a - a[0], int(e[0] - a[0] + 1))
+                del z
         _fit_chunk(data, usable, p, trend, fr, widx, G, out, timer)
 
 
@@ -636,13 +637,9 @@ def _expanding_grams(
     rows = np.arange(lo, int(ends[-1]) + 1)
     ys = (data - fr.mu) / fr.scale
     z = K.augmented_rows(ys, rows, p, _det_columns(rows, trend, fr), usable[rows])
-    terms = z[:, :, None] * z[:, None, :]
-    run = np.cumsum(terms, axis=0)
-    if carry["sum"] is not None:
-        run += carry["sum"]
-    G = run[ends - lo].copy()
+    G = K.running_sums(z, ends - lo, carry["sum"])
     carry["row"] = int(ends[-1]) + 1
-    carry["sum"] = run[-1].copy()
+    carry["sum"] = G[-1].copy()
     return G
 
 
@@ -662,8 +659,8 @@ def _fit_chunk(
             f"{k} coefficients per equation and a nonsingular residual covariance",
         )
     with timer("solve"):
-        sol = K.solve_grams(G, k)
-        coef_t, sse, gram_inv = sol["coef_t"], sol["sse"], sol["gram_inv"]
+        sol = K.solve_grams(G, k, k + n)
+        coef_t, sse, inv = sol["coef_t"], sol["sse"], sol["inv"]
         logdet = sol["logdet_sse"]
         cond = sol["cond"]
         direct = ~short & (~sol["ok"] | (cond > FAST_COND_LIMIT) | (sol["sse_pivot"] < 1e-10))
@@ -675,8 +672,8 @@ def _fit_chunk(
             except _Skip as exc:
                 out.skip(w, str(exc))
                 continue
-            coef_t[j], sse[j], gram_inv[j], logdet[j] = (
-                res["coef_t"], res["sse"], res["gram_inv"], res["logdet_sse"],
+            coef_t[j], sse[j], inv[j], logdet[j] = (
+                res["coef_t"], res["sse"], res["inv"], res["logdet_sse"],
             )  # fmt: skip
             override[j] = res
         live = out.skip_reason[widx] == ""
@@ -685,7 +682,7 @@ def _fit_chunk(
         if not live.all():  # keep skipped windows out of the batched arithmetic
             pos = np.cumsum(live) - 1
             override = {int(pos[j]): res for j, res in override.items()}
-            coef_t, sse, gram_inv = coef_t[live], sse[live], gram_inv[live]
+            coef_t, sse, inv = coef_t[live], sse[live], inv[live]
             logdet, cond, widx, nobs = logdet[live], cond[live], widx[live], nobs[live]
         dof = (nobs - k).astype(np.float64)
         sigma_s = sse / dof[:, None, None]  # Σ̂_u in working coordinates
@@ -708,7 +705,7 @@ def _fit_chunk(
         _responses_and_decompositions(acat, sigma_s, s, out, widx)
     if out.granger_f is not None:
         with timer("granger"):
-            F = K.granger_f(coef_t, gram_inv, np.diagonal(sigma_s, axis1=1, axis2=2), n, p, d)
+            F = K.granger_f(coef_t, inv, np.diagonal(sigma_s, axis1=1, axis2=2), n, p, d)
             df2 = n * (nobs - k)
             out.granger_f[widx] = F
             out.granger_p[widx] = K.f_survival(F, p, df2[:, None, None])
@@ -763,14 +760,13 @@ def _direct_window(
     col = np.sqrt((Zs * Zs).sum(axis=0))
     col[col == 0] = 1.0
     Q, R = np.linalg.qr(Zs / col)
-    Rinv = np.linalg.solve(R, np.eye(k)) / col[:, None]
+    Rinv = np.linalg.solve(R, np.eye(k)) / col[:, None]  # (Z'Z)^{-1} = Rinv Rinv'
     Bs = Rinv @ (Q.T @ Ys)
     Us = Ys - Zs @ Bs
     sse = Us.T @ Us
     _, logdet = np.linalg.slogdet(sse)
     return {
-        "coef_t": Bs.T, "sse": sse, "gram_inv": Rinv @ Rinv.T, "logdet_sse": logdet,
-        "params": B,
+        "coef_t": Bs.T, "sse": sse, "inv": Rinv.T, "logdet_sse": logdet, "params": B,
     }  # fmt: skip
 
 
@@ -822,10 +818,10 @@ def _responses_and_decompositions(
     steps = H if rk is not None else H - 1
     x0 = np.concatenate(impacts, axis=-1)
     X = K.propagate(acat, x0, steps)  # (W, steps+1, n, c·n)
-    sd = np.sqrt(np.diagonal(sigma_s, axis1=1, axis2=2))  # working-coordinate σ_jj^{1/2}
-    gen = X[..., :n] / sd[:, None, None, :]  # ψ_ij(h) = (Φ_h Σ e_j)_i / sqrt(σ_jj)
-    sq = (gen[:, :H] ** 2).cumsum(axis=1)  # Σ_{h<s} ψ_ij(h)², s = 1..H
-    table = 100.0 * sq[:, -1] / sq[:, -1].sum(axis=-1, keepdims=True)
+    var = np.diagonal(sigma_s, axis1=1, axis2=2)  # working-coordinate σ_jj
+    psi = X[:, :H, :, :n]  # Φ_h Σ for h < H; ψ_ij(h)² = (Φ_h Σ)_ij² / σ_jj
+    share = np.einsum("whij,whij->wij", psi, psi) / var[:, None, :]  # Σ_{h<H} ψ_ij(h)²
+    table = 100.0 * share / share.sum(axis=-1, keepdims=True)
     diag = np.diagonal(table, axis1=1, axis2=2)
     from_others = table.sum(axis=-1) - diag
     to_others = table.sum(axis=-2) - diag
@@ -835,6 +831,7 @@ def _responses_and_decompositions(
     out.net[widx] = to_others - from_others
     out.total[widx] = from_others.sum(axis=-1) / n
     if dk == "generalized":
+        sq = np.cumsum(psi * psi, axis=1) / var[:, None, None, :]  # Σ_{h<s} ψ_ij(h)²
         out.decomposition[widx] = sq / sq.sum(axis=-1, keepdims=True)
     elif dk == "cholesky":
         th = X[:, :H, :, n : 2 * n]
@@ -844,7 +841,7 @@ def _responses_and_decompositions(
         col = {"generalized": 0, "cholesky": 1, "unit": len(impacts) - 1}[rk]
         resp = X[..., col * n : (col + 1) * n]
         if rk == "generalized":
-            resp = resp / sd[:, None, None, :]
+            resp = resp / np.sqrt(var)[:, None, None, :]
         if rk == "unit":  # Φ_h = S Φ'_h S^{-1}
             out.responses[widx] = resp * (s[:, None] / s[None, :])
         else:  # Θ_h = S Θ'_h (Cholesky factor and generalized impacts scale with S)
@@ -909,13 +906,12 @@ def _select_orders(
         rows = np.arange(int(a.min()), int(e[-1]) + 1)
         ys = (data - fr.mu) / fr.scale
         z = K.augmented_rows(ys, rows, P, _det_columns(rows, trend, fr), usable[rows])
-        terms = z[:, :, None] * z[:, None, :]
-        if np.all(a == a[0]):
-            run = np.cumsum(terms, axis=0)
-            G = run[e - a[0]]
+        if expanding:
+            G = K.running_sums(z, e - a[0], None)
         else:
-            G = K.window_sums(terms, a - a[0], int(e[0] - a[0] + 1))
-        L, ok = K.cholesky_batch(G)
+            G = K.window_sums(z, a - a[0], int(e[0] - a[0] + 1))
+        sol = K.solve_grams(G, Kp, Kp + n)
+        L, ok = sol["L"], sol["ok"]
         T_eff = nobs[chunk].astype(np.float64)
         sse = K.nested_sse(L[:, Kp:, :Kp], L[:, Kp:, Kp:], [d + n * q for q in range(1, P + 1)])
         crit = np.empty((len(chunk), P))
@@ -926,9 +922,6 @@ def _select_orders(
             ld[sign <= 0] = np.nan
             crit[:, q - 1] = K.information_criteria_batch(ld, T_eff, n, d + n * q)[criterion]
         ok &= np.isfinite(crit).all(axis=1)
-        # cond check as in the fit: fall back to select_lags on the rows themselves
-        with np.errstate(invalid="ignore", divide="ignore"):
-            sol = K.solve_grams(G[:, : Kp + n, : Kp + n], Kp)
         for j in range(len(chunk)):
             w = chunk[j]
             if nobs[w] < Kp + n:

@@ -69,28 +69,56 @@ def augmented_rows(
     return z
 
 
-def window_sums(terms: np.ndarray, starts: np.ndarray, length: int) -> np.ndarray:
-    """Σ_{t=a}^{a+L−1} terms[t] for each a in `starts` (relative row indices), shape (W, ...).
+def packed_products(z: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
+    """Lower triangles of the outer products z_t z_t', packed row by row: (R, m(m+1)/2).
 
-    van Herk / Gil-Werman scheme: cut the rows into blocks of L starting at starts[0]; a window
-    starting at position i of block b is suffix_b(i) + prefix_{b+1}(i−1). Each window sum adds at
-    most two partial sums (no subtraction, so no cancellation). Cost: two cumulative sums over the
-    rows plus one addition per window.
+    Entry order is ``np.tril_indices(m)``: (0,0), (1,0), (1,1), (2,0), ...
     """
+    R, m = z.shape
+    if out is None:
+        out = np.empty((R, m * (m + 1) // 2))
+    off = 0
+    for i in range(m):
+        np.multiply(z[:, i : i + 1], z[:, : i + 1], out=out[:R, off : off + i + 1])
+        off += i + 1
+    return out
+
+
+def window_sums(z: np.ndarray, starts: np.ndarray, length: int) -> np.ndarray:
+    """Packed Σ_{t=a}^{a+L−1} z_t z_t' for each a in `starts` (row indices of z), (W, m(m+1)/2).
+
+    Block scheme (van Herk 1992; Gil & Werman 1993): cut the rows into blocks of L starting at
+    starts[0] and take running sums that restart at each block, pre_b(i) = Σ_{r<=i} of block b.
+    A window starting at position i of block b is tot_b + pre_{b+1}(i−1) − pre_b(i−1): the terms
+    combined never exceed two blocks' worth, so rounding stays at the level of summing one window
+    directly, whatever the length of the history (no running total over all rows is differenced).
+    """
+    m = z.shape[1]
     base = int(starts[0])
     rel = starts - base
     nblocks = int(rel[-1]) // length + 2
-    tail = terms.shape[1:]
-    blocks = np.zeros((nblocks * length, *tail))
-    avail = min(terms.shape[0] - base, nblocks * length)
-    blocks[:avail] = terms[base : base + avail]
-    blocks = blocks.reshape(nblocks, length, *tail)
-    prefix = np.cumsum(blocks, axis=1)  # prefix[b, i] = Σ blocks[b, 0..i]
-    suffix = np.cumsum(blocks[:, ::-1], axis=1)[:, ::-1]  # suffix[b, i] = Σ blocks[b, i..L−1]
+    rows = min(z.shape[0] - base, nblocks * length)
+    buf = np.zeros((nblocks * length, m * (m + 1) // 2))
+    packed_products(z[base : base + rows], out=buf)
+    pre = buf.reshape(nblocks, length, -1)
+    np.cumsum(pre, axis=1, out=pre)
     b, i = np.divmod(rel, length)
-    out = suffix[b, i]
-    inner = i > 0
-    out[inner] += prefix[b[inner] + 1, i[inner] - 1]
+    out = pre[b, length - 1]
+    inner = np.flatnonzero(i > 0)
+    if inner.size:
+        bi, ii = b[inner], i[inner] - 1
+        out[inner] += pre[bi + 1, ii] - pre[bi, ii]
+    return out
+
+
+def running_sums(z: np.ndarray, ends: np.ndarray, carry: np.ndarray | None) -> np.ndarray:
+    """Packed Σ_{t<=e} z_t z_t' for each e in `ends` (row indices of z), plus `carry` (the sum
+    over earlier rows), shape (W, m(m+1)/2). Only additions: no cancellation."""
+    buf = packed_products(z[: int(ends[-1]) + 1])
+    np.cumsum(buf, axis=0, out=buf)
+    out = buf[ends]
+    if carry is not None:
+        out += carry
     return out
 
 
@@ -99,12 +127,20 @@ def window_sums(terms: np.ndarray, starts: np.ndarray, length: int) -> np.ndarra
 # ---------------------------------------------------------------------------------------------
 
 
-def cholesky_batch(G: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Lower Cholesky factors of a batch (W, m, m) and a (W,) bool of success.
+def unpack_lower_rows(packed: np.ndarray, m: int) -> np.ndarray:
+    """(W, m, m) with the packed lower triangles filled in row by row (upper part zero)."""
+    out = np.zeros((packed.shape[0], m, m))
+    off = 0
+    for i in range(m):
+        out[:, i, : i + 1] = packed[:, off : off + i + 1]
+        off += i + 1
+    return out
 
-    LAPACK on the whole batch; if any matrix is not numerically positive definite the batch is
-    retried one matrix at a time so the failures can be flagged (their factor is NaN).
-    """
+
+def cholesky_batch(G: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Lower Cholesky factors of a batch (W, m, m) (LAPACK reads the lower triangle only) and a
+    (W,) bool of success. If any matrix is not numerically positive definite the batch is
+    retried one matrix at a time so the failures can be flagged (their factor is NaN)."""
     try:
         return np.linalg.cholesky(G), np.ones(G.shape[0], dtype=bool)
     except np.linalg.LinAlgError:
@@ -119,72 +155,72 @@ def cholesky_batch(G: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         return out, ok
 
 
-def triangular_inverse(L: np.ndarray) -> np.ndarray:
-    """Inverse of a batch of lower-triangular matrices (W, k, k), blocked with matrix products.
-
-    [[L11, 0], [L21, L22]]^{-1} = [[L11^{-1}, 0], [−L22^{-1} L21 L11^{-1}, L22^{-1}]],
-    recursing on halves down to blocks of 8, which are inverted by column substitution.
-    """
-    k = L.shape[-1]
-    if k <= 8:
-        out = np.zeros_like(L)
-        diag = np.diagonal(L, axis1=-2, axis2=-1)
-        for j in range(k):  # column j of L^{-1}: forward substitution on e_j
-            out[..., j, j] = 1.0 / diag[..., j]
-            for i in range(j + 1, k):
-                acc = np.einsum("...r,...r->...", L[..., i, j:i], out[..., j:i, j])
-                out[..., i, j] = -acc / diag[..., i]
-        return out
-    h = k // 2
-    inv11 = triangular_inverse(L[..., :h, :h])
-    inv22 = triangular_inverse(L[..., h:, h:])
-    out = np.zeros_like(L)
-    out[..., :h, :h] = inv11
-    out[..., h:, h:] = inv22
-    out[..., h:, :h] = -(inv22 @ (L[..., h:, :h] @ inv11))
-    return out
+def _tri_inv_small(L: np.ndarray) -> np.ndarray:
+    """Inverses of small lower-triangular blocks (W, b, b), row by row:
+    X_i = (e_i − L_{i,<i} X_{<i}) / L_ii."""
+    b = L.shape[-1]
+    X = np.zeros_like(L)
+    for i in range(b):
+        if i:
+            X[:, i, :i] = -np.einsum("wr,wrc->wc", L[:, i, :i], X[:, :i, :i])
+        X[:, i, i] += 1.0
+        X[:, i, : i + 1] /= L[:, i, i, None]
+    return X
 
 
-def solve_grams(G: np.ndarray, k: int) -> dict[str, np.ndarray]:
-    """Least squares for a batch of augmented cross-product matrices G (W, m, m).
+def triangular_inverse(L: np.ndarray, size: int = 8) -> np.ndarray:
+    """L^{-1} (W, k, k) for lower-triangular L by block forward substitution:
+    X_I = L_II^{-1} (E_I − L_{I,<I} X_{<I}), diagonal blocks of width <= `size`."""
+    W, k, _ = L.shape
+    X = np.zeros_like(L)
+    for j0 in range(0, k, size):
+        j1 = min(j0 + size, k)
+        Ld_inv = _tri_inv_small(L[:, j0:j1, j0:j1])
+        X[:, j0:j1, j0:j1] = Ld_inv
+        if j0:
+            X[:, j0:j1, :j0] = -(Ld_inv @ (L[:, j0:j1, :j0] @ X[:, :j0, :j0]))
+    return X
+
+
+def solve_grams(packed: np.ndarray, k: int, m: int) -> dict[str, np.ndarray]:
+    """Least squares for a batch of packed augmented cross-product matrices (W, m(m+1)/2).
 
     With G = L L' (L lower, blocks 11: regressors k×k, 21: series n×k, 22: n×n)::
 
         B' = L21 L11^{-1}            (n, k)  coefficients, row i = equation i
-        Û'Û = L22 L22'               (n, n)  residual cross-products
+        Û'Û = L22 L22'               (n, n)  residual cross-products, no cancellation
         (X'X)^{-1} = L11^{-T} L11^{-1}
         log det Û'Û = 2 Σ log diag L22
 
-    Returns arrays "coef_t", "sse", "gram_inv", "logdet_sse", "cond" (1-norm condition number of
-    the column-equilibrated X'X) and bool "ok" (Cholesky succeeded with positive pivots).
+    Returns "coef_t" (W, n, k), "sse" (W, n, n), "inv" = L11^{-1} (W, k, k), "logdet_sse",
+    "cond" (κ = k · Σ_i VIF_i, VIF_i = (X'X)_ii ((X'X)^{-1})_ii: the product of the traces of
+    the column-equilibrated X'X and its inverse, an upper bound on its 2-norm condition number,
+    at most k² times it; inf when the factorisation failed), "sse_pivot" (squared ratio of the
+    smallest to largest Cholesky pivot of Û'Û), "L" (W, m, m) and bool "ok".
     """
+    G = unpack_lower_rows(packed, m)
+    gdiag = np.diagonal(G, axis1=1, axis2=2)[:, :k].copy()
     L, ok = cholesky_batch(G)
-    L11 = L[:, :k, :k]
-    L21 = L[:, k:, :k]
+    inv = triangular_inverse(L[:, :k, :k])
     L22 = L[:, k:, k:]
-    inv = triangular_inverse(L11) if k else np.zeros((G.shape[0], 0, 0))
-    coef_t = L21 @ inv
-    sse = L22 @ np.swapaxes(L22, -1, -2)
-    gram_inv = np.swapaxes(inv, -1, -2) @ inv
-    d22 = np.diagonal(L22, axis1=-2, axis2=-1)
+    coef_t = L[:, k:, :k] @ inv
+    sse = L22 @ np.swapaxes(L22, 1, 2)
+    d22 = np.diagonal(L22, axis1=1, axis2=2)
     with np.errstate(divide="ignore", invalid="ignore"):
         logdet = 2.0 * np.log(d22).sum(axis=-1)
-        # κ_1(D X'X D), D = diag(X'X)^{-1/2}: the condition of the equilibrated cross-products
-        dxx = np.sqrt(np.diagonal(G[:, :k, :k], axis1=-2, axis2=-1))
-        gt = G[:, :k, :k] / (dxx[:, :, None] * dxx[:, None, :])
-        gti = gram_inv * (dxx[:, :, None] * dxx[:, None, :])
-        cond = np.abs(gt).sum(axis=-2).max(axis=-1) * np.abs(gti).sum(axis=-2).max(axis=-1)
-        # residual covariance conditioning proxy: ratio of Cholesky pivots of Û'Û
-        piv = (d22.min(axis=-1) / d22.max(axis=-1)) ** 2 if d22.shape[-1] else np.ones(len(G))
-    ok &= np.isfinite(cond) & np.isfinite(logdet)
+        vif = gdiag * np.einsum("wrc,wrc->wc", inv, inv)  # (X'X)_ii ((X'X)^{-1})_ii
+        cond = k * vif.sum(axis=-1)
+        piv = (d22.min(axis=-1) / d22.max(axis=-1)) ** 2
+    ok &= np.isfinite(cond) & np.isfinite(logdet) & np.isfinite(coef_t).all(axis=(1, 2))
     return {
         "coef_t": coef_t,
         "sse": sse,
-        "gram_inv": gram_inv,
+        "inv": inv,
         "logdet_sse": logdet,
         "cond": np.where(ok, cond, np.inf),
-        "sse_pivot": piv,
+        "sse_pivot": np.where(ok, piv, 0.0),
         "ok": ok,
+        "L": L,
     }
 
 
@@ -227,100 +263,132 @@ def spectral_radius_batch(
     p: int,
     *,
     squarings: int = 10,
-    max_dim: int = 4,
-    rank_tol: float = 1e-9,
-    resid_tol: float = 1e-11,
+    max_dim: int = 8,
+    rank_tol: float = 1e-12,
+    resid_tol: float = 1e-12,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Largest eigenvalue modulus of each companion matrix, and a (W,) bool "certified".
 
-    Method (Golub & Van Loan 2013, Secs. 7.3.1–7.3.2): Y = C^m / ||C^m|| for m = 2^squarings by
-    repeated squaring (normalised each step), so Y's range is the dominant invariant subspace up
-    to a contamination (|λ_{d+1}| / |λ_1|)^m. A sketch Y Ω (Ω fixed Gaussian, d_max + 1 columns)
-    orthonormalised by Gram–Schmidt reveals its dimension d <= d_max (columns whose residual
-    falls below `rank_tol` are dependent); the Ritz matrix B = Q' C Q (d×d) then carries the
-    dominant eigenvalues, ρ = max |eig(B)| (closed form for d <= 2). Certificate: the residual
-    ||C Q − Q B||_F <= resid_tol · ||C||_F (so eig(B) are eigenvalues of C to that accuracy) and
-    the rank test passed. Windows failing either are computed by LAPACK (`np.linalg.eigvals` on
-    the companion matrix, as `fit_var` does); the bool marks which path each window took.
+    Method (Golub & Van Loan 2013, Secs. 7.3.1–7.3.2):
+
+    1. Y = C^m / ||C^m||_F, m = 2^squarings, by repeated squaring (normalised every other step).
+       An eigenvalue λ_j appears in Y with weight about (|λ_j| / ρ)^m, so Y's range is the
+       dominant invariant subspace plus directions of weight below `rank_tol`.
+    2. A sketch Y Ω (Ω a fixed Gaussian N × (d_max + 1)) orthonormalised by Gram–Schmidt (twice)
+       gives Q (N × d): columns are kept while their residual exceeds `rank_tol`; a (d_max+1)-th
+       significant column means the subspace is not resolved (→ fallback).
+    3. Rayleigh–Ritz: B = Q' C Q (d × d); θ = the eigenvalue of B of largest modulus with
+       eigenvector s (closed form for d <= 2). Weakly represented directions in Q may be
+       inaccurate, but the dominant directions are resolved to rounding level, so θ is accurate.
+    4. Certificate: the Ritz pair's residual ||C Q s − θ Q s|| / ||s|| <= resid_tol · ||C||_F
+       makes θ an eigenvalue of a matrix within that distance of C; any eigenvalue larger than
+       |θ| would carry more weight in Y than θ's own and so would be among the Ritz values.
+
+    Windows failing a test (unresolved subspace, large residual, a near-double dominant pair
+    whose 2×2 closed form loses digits) are computed by LAPACK (`np.linalg.eigvals`, as
+    `fit_var` does).
     """
     W = acat.shape[0]
     N = n * p
-    out = np.empty(W)
-    cert = np.zeros(W, dtype=bool)
     if W == 0:
-        return out, cert
-    C = companion_batch(acat, n, p)
-    if N <= max_dim + 1:
-        return np.abs(np.linalg.eigvals(C)).max(axis=-1), cert
-    cnorm = np.sqrt(np.einsum("wij,wij->w", C, C))
-    Y = C / cnorm[:, None, None]
+        return np.empty(0), np.zeros(0, dtype=bool)
+    if N <= 4:
+        return np.abs(np.linalg.eigvals(companion_batch(acat, n, p))).max(axis=-1), np.zeros(
+            W, dtype=bool
+        )
+    cnorm = np.sqrt(np.einsum("wij,wij->w", acat, acat) + (N - n))  # ||C||_F
+    # C² without forming C: top rows A_1 [A_1..A_p] + [A_2..A_p, 0], then rows of C shifted down
+    if p == 1:
+        Y = acat @ acat
+    else:
+        Y = np.zeros((W, N, N))
+        np.matmul(acat[:, :, :n], acat, out=Y[:, :n, :])
+        Y[:, :n, : N - n] += acat[:, :, n:]
+        Y[:, n : 2 * n, :] = acat
+        if p > 2:
+            Y[:, 2 * n :, : N - 2 * n] = np.eye(N - 2 * n)
     good = np.ones(W, dtype=bool)
-    for _ in range(squarings):
-        Y = Y @ Y
-        s = np.sqrt(np.einsum("wij,wij->w", Y, Y))
-        fine = np.isfinite(s) & (s > 1e-280)
-        good &= fine
-        s[~fine] = 1.0
-        Y /= s[:, None, None]
-    dm = max_dim
+    for i in range(1, squarings + 1):  # Y ∝ C^(2^i)
+        if i > 1:
+            Y = Y @ Y
+        if i % 2 or i == squarings:
+            s = np.sqrt(np.einsum("wij,wij->w", Y, Y))
+            fine = np.isfinite(s) & (s > 1e-250)
+            good &= fine
+            s[~fine] = 1.0
+            Y /= s[:, None, None]
+    dm = min(max_dim, N - 1)
     omega = np.random.default_rng(_SKETCH_SEED).standard_normal((N, dm + 1))
     omega /= np.linalg.norm(omega, axis=0)
-    S = Y @ omega  # (W, N, dm+1)
-    Q = np.zeros((W, N, dm))
+    S = np.swapaxes(Y @ omega, 1, 2)  # (W, dm+1, N): sketch columns as rows
+    del Y
+    Qt = np.zeros((W, dm, N))  # orthonormal basis vectors as rows
     dim = np.zeros(W, dtype=np.int64)
-    growing = good.copy()
+    act = np.flatnonzero(good)  # windows still adding directions
     for j in range(dm + 1):
-        v = S[:, :, j]
-        if j:
-            Qj = Q[:, :, :j]
-            for _ in range(2):  # classical Gram–Schmidt, twice for orthogonality
-                v = v - np.einsum("wnj,wj->wn", Qj, np.einsum("wnj,wn->wj", Qj, v))
-        nv = np.sqrt(np.einsum("wn,wn->w", v, v))
-        new = growing & (nv > rank_tol)
-        if j == dm:
-            good &= ~new  # d > d_max: not resolved by this sketch
+        if act.size == 0:
             break
-        Q[new, :, j] = v[new] / nv[new, None]
-        dim += new
-        growing &= new
+        v = S[act, j, :]
+        if j:
+            Qj = Qt[act, :j, :]
+            for _ in range(2):  # classical Gram–Schmidt, twice for orthogonality
+                v = v - np.einsum("wjn,wj->wn", Qj, np.einsum("wjn,wn->wj", Qj, v))
+        nv = np.sqrt(np.einsum("wn,wn->w", v, v))
+        new = nv > rank_tol
+        if j == dm:
+            good[act[new]] = False  # more than d_max significant directions: not resolved
+            break
+        grow = act[new]
+        Qt[grow, j, :] = v[new] / nv[new, None]
+        dim[grow] += 1
+        act = grow
     good &= dim > 0
+    Q = np.swapaxes(Qt, 1, 2)  # (W, N, dm)
     # Ritz matrix B = Q' C Q using the companion structure: C Q = [acat @ Q ; Q shifted by n]
-    CQ = np.empty_like(Q)
-    CQ[:, :n, :] = acat @ Q
+    CQ = np.empty((W, N, dm))
+    np.matmul(acat, Q, out=CQ[:, :n, :])
     CQ[:, n:, :] = Q[:, : N - n, :]
-    B = np.swapaxes(Q, -1, -2) @ CQ
-    R = CQ - Q @ B
-    res = np.sqrt(np.einsum("wij,wij->w", R, R))
-    good &= res <= resid_tol * cnorm
-    rho = np.full(W, np.nan)
+    B = Qt @ CQ
+    theta = np.full(W, np.nan, dtype=np.complex128)
+    vec = np.zeros((W, dm), dtype=np.complex128)
     one = good & (dim == 1)
-    rho[one] = np.abs(B[one, 0, 0])
+    theta[one] = B[one, 0, 0]
+    vec[one, 0] = 1.0
     two = good & (dim == 2)
     if two.any():
         a, b, c, e = B[two, 0, 0], B[two, 0, 1], B[two, 1, 0], B[two, 1, 1]
         half = 0.5 * (a - e)
         disc = half * half + b * c
-        det = a * e - b * c
-        scale = half * half + np.abs(b * c)
-        real = disc >= 0
-        r2 = np.where(real, 0.5 * np.abs(a + e) + np.sqrt(np.abs(disc)), np.sqrt(np.abs(det)))
-        # near-repeated eigenvalues (disc ≈ 0) or cancelling determinants: leave to LAPACK
-        sharp = (np.abs(disc) > 1e-6 * scale) & (
-            real | (np.abs(det) > 1e-6 * (np.abs(a * e) + np.abs(b * c)))
-        )
-        rho[two] = r2
-        idx = np.flatnonzero(two)
-        good[idx[~sharp]] = False
-    many = good & (dim > 2)
+        root = np.sqrt(disc.astype(np.complex128))
+        mid = 0.5 * (a + e)
+        lam = np.where(np.abs(mid + root) >= np.abs(mid - root), mid + root, mid - root)
+        # eigenvector of [[a, b], [c, e]] for lam: (b, lam − a) or (lam − e, c), the longer
+        v1 = np.stack([b + 0j, lam - a], axis=-1)
+        v2 = np.stack([lam - e, c + 0j], axis=-1)
+        use1 = np.abs(v1).sum(axis=-1) >= np.abs(v2).sum(axis=-1)
+        sharp = np.abs(disc) > 1e-6 * (half * half + np.abs(b * c))  # not a near-double pair
+        theta[two] = lam
+        vec[two, :2] = np.where(use1[:, None], v1, v2)
+        good[np.flatnonzero(two)[~sharp]] = False
     for dd in range(3, dm + 1):
-        sel = many & (dim == dd)
+        sel = good & (dim == dd)
         if sel.any():
-            rho[sel] = np.abs(np.linalg.eigvals(B[sel, :dd, :dd])).max(axis=-1)
-    cert = good
-    out[good] = rho[good]
+            val, vecs = np.linalg.eig(B[sel, :dd, :dd])
+            top = np.argmax(np.abs(val), axis=-1)
+            pick = np.arange(val.shape[0])
+            theta[sel] = val[pick, top]
+            vec[sel, :dd] = vecs[pick, :, top]
+    # residual of the Ritz pair: C Q s − θ Q s
+    r = np.einsum("wnd,wd->wn", CQ, vec) - theta[:, None] * np.einsum("wnd,wd->wn", Q, vec)
+    resid = np.sqrt(np.einsum("wn,wn->w", r.real, r.real) + np.einsum("wn,wn->w", r.imag, r.imag))
+    snorm = np.sqrt(np.einsum("wd,wd->w", vec.real, vec.real) + np.einsum("wd,wd->w", vec.imag, vec.imag))
+    with np.errstate(invalid="ignore"):
+        good &= resid <= resid_tol * cnorm * snorm
+    out = np.empty(W)
+    out[good] = np.abs(theta[good])
     if (~good).any():
-        out[~good] = np.abs(np.linalg.eigvals(C[~good])).max(axis=-1)
-    return out, cert
+        out[~good] = np.abs(np.linalg.eigvals(companion_batch(acat[~good], n, p))).max(axis=-1)
+    return out, good
 
 
 # ---------------------------------------------------------------------------------------------
@@ -378,39 +446,45 @@ def f_survival(f: np.ndarray, df1: np.ndarray | int, df2: np.ndarray | int) -> n
 
 
 def granger_f(
-    coef_t: np.ndarray, gram_inv: np.ndarray, sigma_diag: np.ndarray, n: int, p: int, d: int
+    coef_t: np.ndarray, inv: np.ndarray, sigma_diag: np.ndarray, n: int, p: int, d: int
 ) -> np.ndarray:
     """F statistics (W, n, n) for "series j does not Granger-cause series i" (diagonal NaN).
 
     For one caused and one causing series the restriction picks the p coefficients b_ij of
     equation i on lags of j, and C((X'X)^{-1} ⊗ Σ̂_u)C' = σ_ii V_j with V_j the p×p block of
-    (X'X)^{-1} for those regressors, so (Lütkepohl 2005, eq. 3.6.5 divided by J = p)
+    (X'X)^{-1} = L^{-T} L^{-1} for those regressors, so (Lütkepohl 2005, eq. 3.6.5 over J = p)
 
         F_ij = b_ij' V_j^{-1} b_ij / (p σ_ii).
 
-    V_j is factored once per window and series by a batched Cholesky over the p×p blocks.
+    `inv` is L^{-1} (W, k, k); V_j is formed from its columns for series j's lags and factored
+    by a batched Cholesky over the p×p blocks (p is small).
     """
-    W = coef_t.shape[0]
-    lagblock = gram_inv[:, d:, d:].reshape(W, p, n, p, n)
-    V = np.diagonal(lagblock, axis1=2, axis2=4)  # (W, p, p, n): V[w, l, m, j]
-    V = np.moveaxis(V, -1, 1)  # (W, n_j, p, p)
+    W, k, _ = inv.shape
+    cols = inv[:, :, d:].reshape(W, k, p, n)  # cols[w, r, l, j] = L^{-1}[r, d + l·n + j]
+    cols = np.ascontiguousarray(cols.transpose(0, 3, 2, 1))  # (W, n_j, p, k)
+    V = cols @ np.swapaxes(cols, -1, -2)  # (W, n_j, p, p)
     b = coef_t[:, :, d:].reshape(W, n, p, n)  # b[w, i, l, j]
     b = np.moveaxis(b, -1, 2)  # (W, n_i, n_j, p)
-    # Cholesky of V (W, n_j, p, p), column by column (p is small)
-    Lc = np.zeros_like(V)
-    for j in range(p):
-        s = V[..., j, j] - np.einsum("...r,...r->...", Lc[..., j, :j], Lc[..., j, :j])
-        Lc[..., j, j] = np.sqrt(s)
-        for i in range(j + 1, p):
-            t = V[..., i, j] - np.einsum("...r,...r->...", Lc[..., i, :j], Lc[..., j, :j])
-            Lc[..., i, j] = t / Lc[..., j, j]
-    # forward substitution L z = b, broadcast over caused series i
-    Lb = Lc[:, None]  # (W, 1, n_j, p, p)
-    z = np.zeros_like(b)
-    for i in range(p):
-        acc = b[..., i] - np.einsum("...r,...r->...", Lb[..., i, :i], z[..., :i])
-        z[..., i] = acc / Lb[..., i, i]
-    quad = np.einsum("wijl,wijl->wij", z, z)
+    if p == 1:
+        quad = b[..., 0] ** 2 / V[:, None, :, 0, 0]
+    elif p == 2:  # closed form b' V^{-1} b for 2×2 V
+        v11, v12, v22 = V[:, None, :, 0, 0], V[:, None, :, 0, 1], V[:, None, :, 1, 1]
+        b1, b2 = b[..., 0], b[..., 1]
+        quad = (v22 * b1 * b1 - 2.0 * v12 * b1 * b2 + v11 * b2 * b2) / (v11 * v22 - v12 * v12)
+    else:
+        Lc = np.zeros_like(V)  # Cholesky of V, column by column
+        for j in range(p):
+            s = V[..., j, j] - np.einsum("...r,...r->...", Lc[..., j, :j], Lc[..., j, :j])
+            Lc[..., j, j] = np.sqrt(s)
+            for i in range(j + 1, p):
+                t = V[..., i, j] - np.einsum("...r,...r->...", Lc[..., i, :j], Lc[..., j, :j])
+                Lc[..., i, j] = t / Lc[..., j, j]
+        Lb = Lc[:, None]  # forward substitution L z = b, broadcast over caused series i
+        z = np.zeros_like(b)
+        for i in range(p):
+            acc = b[..., i] - np.einsum("...r,...r->...", Lb[..., i, :i], z[..., :i])
+            z[..., i] = acc / Lb[..., i, i]
+        quad = np.einsum("wijl,wijl->wij", z, z)
     F = quad / (p * sigma_diag[:, :, None])
     idx = np.arange(n)
     F[:, idx, idx] = np.nan
