@@ -935,7 +935,9 @@ def _select_orders(
                 orders[w] = int(np.argmin(crit[j])) + 1
                 continue
             if nobs[w] != ends[w] - starts[w] + 1 - P:
-                out.skip(w, "lag selection failed: ill-conditioned regressors in a window with gaps")
+                out.skip(
+                    w, "lag selection failed: ill-conditioned regressors in a window with gaps"
+                )
                 continue
             try:
                 with warnings.catch_warnings():

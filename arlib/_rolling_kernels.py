@@ -171,7 +171,7 @@ def _tri_inv_small(L: np.ndarray) -> np.ndarray:
 def triangular_inverse(L: np.ndarray, size: int = 8) -> np.ndarray:
     """L^{-1} (W, k, k) for lower-triangular L by block forward substitution:
     X_I = L_II^{-1} (E_I − L_{I,<I} X_{<I}), diagonal blocks of width <= `size`."""
-    W, k, _ = L.shape
+    k = L.shape[-1]
     X = np.zeros_like(L)
     for j0 in range(0, k, size):
         j1 = min(j0 + size, k)
@@ -381,7 +381,9 @@ def spectral_radius_batch(
     # residual of the Ritz pair: C Q s − θ Q s
     r = np.einsum("wnd,wd->wn", CQ, vec) - theta[:, None] * np.einsum("wnd,wd->wn", Q, vec)
     resid = np.sqrt(np.einsum("wn,wn->w", r.real, r.real) + np.einsum("wn,wn->w", r.imag, r.imag))
-    snorm = np.sqrt(np.einsum("wd,wd->w", vec.real, vec.real) + np.einsum("wd,wd->w", vec.imag, vec.imag))
+    snorm = np.sqrt(
+        np.einsum("wd,wd->w", vec.real, vec.real) + np.einsum("wd,wd->w", vec.imag, vec.imag)
+    )
     with np.errstate(invalid="ignore"):
         good &= resid <= resid_tol * cnorm * snorm
     out = np.empty(W)
