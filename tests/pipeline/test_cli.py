@@ -1,0 +1,141 @@
+"""`shockflow` end to end on a real open data set: the quarterly US macro data statsmodels ships
+(statsmodels.datasets.macrodata, 1959Q1–2009Q3), written to CSV by the test.
+
+The stored Granger tests of the newest window are checked against statsmodels' VAR on the same
+rows (statsmodels as a reference library, tests only).
+"""
+
+from __future__ import annotations
+
+from datetime import date
+from pathlib import Path
+
+import duckdb
+import numpy as np
+import polars as pl
+import pytest
+from typer.testing import CliRunner
+
+from pipeline.cli import app
+from tests.pipeline.helpers import write_config
+
+CONFIG = """
+[warehouse]
+path = "wh/macro.duckdb"
+snapshot = "wh/macro-serving.duckdb"
+
+[[sources]]
+name = "us_macro"
+kind = "csv"
+path = "macrodata.csv"
+
+[[universes]]
+name = "us_real"
+series = ["realgdp", "realcons", "realinv"]
+transform = "log_return"
+frequency = "monthly"   # quarter-end dates; the two months without data drop as holidays
+max_fill_gap = 0
+window = 80
+step = 4
+lags = 2
+horizon = 8
+identification = "generalized"
+
+[export]
+directory = "wh/exports"
+formats = ["csv"]
+"""
+
+
+def macro_csv(path: Path) -> pl.DataFrame:
+    from statsmodels.datasets import macrodata
+
+    raw = macrodata.load_pandas().data
+    ends = {1: (3, 31), 2: (6, 30), 3: (9, 30), 4: (12, 31)}
+    dates = [date(int(y), *ends[int(q)]) for y, q in zip(raw["year"], raw["quarter"], strict=True)]
+    df = pl.DataFrame(
+        {"date": dates, "realgdp": raw["realgdp"].to_numpy(), "realcons": raw["realcons"].to_numpy(), "realinv": raw["realinv"].to_numpy()}
+    )
+    df.write_csv(path)
+    return df
+
+
+@pytest.mark.prefect
+def test_cli_run_check_export_on_us_macro_data(prefect_harness: None, tmp_path: Path) -> None:
+    df = macro_csv(tmp_path / "macrodata.csv")
+    config = write_config(tmp_path, CONFIG)
+    runner = CliRunner()
+
+    checked = runner.invoke(app, ["check", "--config", str(config)])
+    assert checked.exit_code == 0, checked.output
+    assert "config ok: 1 source(s), 1 universe(s)" in checked.output
+    assert not (tmp_path / "wh").exists()  # check writes nothing
+
+    result = runner.invoke(app, ["run", "--config", str(config)])
+    assert result.exit_code == 0, result.output
+    assert "us_real" in result.output and "succeeded" in result.output
+
+    con = duckdb.connect(str(tmp_path / "wh" / "macro-serving.duckdb"), read_only=True)
+    try:
+        fits = con.execute("SELECT window_end, window_start, nobs FROM window_fits ORDER BY window_end").fetchall()
+        granger = con.execute(
+            "SELECT caused, causing, f_stat, p_value FROM granger WHERE window_end = ? ORDER BY ALL", [fits[-1][0]]
+        ).fetchall()
+    finally:
+        con.close()
+    # 203 quarters → 202 log returns; windows of 80 ending at rows 79, 83, ..., 199
+    assert len(fits) == 31
+    assert fits[-1][0] == date(2009, 3, 31) and fits[-1][2] == 78
+
+    # statsmodels' VAR(2) on the same 80 rows, F-form Granger test per pair
+    from statsmodels.tsa.api import VAR
+
+    names = ["realgdp", "realcons", "realinv"]
+    logs = np.log(df.select(names).to_numpy())
+    returns = np.diff(logs, axis=0)
+    rows = returns[199 - 79 : 199 + 1]
+    res = VAR(rows).fit(2, trend="c")
+    for caused, causing, f_stat, p_value in granger:
+        ref = res.test_causality(names.index(caused), names.index(causing), kind="f")
+        # 1e-8: arlib's agreement with statsmodels (tests/reference), stored as DOUBLE
+        assert f_stat == pytest.approx(ref.test_statistic, rel=1e-8)
+        assert p_value == pytest.approx(ref.pvalue, rel=1e-8, abs=1e-14)
+
+    again = runner.invoke(app, ["run", "--config", str(config)])
+    assert again.exit_code == 0, again.output
+    con = duckdb.connect(str(tmp_path / "wh" / "macro.duckdb"), read_only=True)
+    try:
+        last = con.execute("SELECT status, windows_fitted, message FROM runs ORDER BY started DESC LIMIT 1").fetchall()
+    finally:
+        con.close()
+    assert last == [("succeeded", 0, "nothing changed")]
+
+    out = tmp_path / "elsewhere"
+    exported = runner.invoke(app, ["export", "--config", str(config), "--out", str(out)])
+    assert exported.exit_code == 0, exported.output
+    assert any(p.suffix == ".csv" for p in out.rglob("*"))
+
+
+def test_cli_config_error_is_one_line_and_exit_1(tmp_path: Path) -> None:
+    config = write_config(tmp_path, CONFIG.replace("window = 80", "windw = 80"))
+    result = CliRunner().invoke(app, ["run", "--config", str(config)])
+    assert result.exit_code == 1
+    lines = [line for line in result.output.splitlines() if line.strip()]
+    assert len(lines) == 1 and lines[0].startswith("error: ")
+    assert "`universes['us_real'].windw` is not a known key (did you mean 'window'?)" in lines[0]
+    assert "Traceback" not in result.output
+
+
+def test_cli_debug_shows_traceback(tmp_path: Path) -> None:
+    config = write_config(tmp_path, CONFIG.replace("window = 80", "windw = 80"))
+    result = CliRunner().invoke(app, ["check", "--config", str(config), "--debug"])
+    assert result.exit_code == 1
+    assert "Traceback" in result.output and "ConfigError" in result.output
+
+
+def test_cli_unknown_universe(tmp_path: Path) -> None:
+    macro_csv(tmp_path / "macrodata.csv")
+    config = write_config(tmp_path, CONFIG)
+    result = CliRunner().invoke(app, ["run", "--config", str(config), "--universe", "us_rael"])
+    assert result.exit_code == 1
+    assert "no universe named 'us_rael' (did you mean 'us_real'?)" in result.output
