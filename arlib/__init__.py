@@ -30,6 +30,7 @@ from ._moments import (
     stationary_covariance,
 )
 from ._responses import impulse_responses, ma_coefficients
+from ._rolling import RollingVAR, rolling_var
 from ._validate import ArlibError, InvalidInputError, UnstableProcessWarning, VARLike
 
 __all__ = [
@@ -43,6 +44,7 @@ __all__ = [
     "LagSelection",
     "NormalityResult",
     "PortmanteauResult",
+    "RollingVAR",
     "SpectralPeak",
     "UnstableProcessWarning",
     "VARFit",
@@ -61,6 +63,7 @@ __all__ = [
     "ma_coefficients",
     "normality_test",
     "portmanteau_test",
+    "rolling_var",
     "select_lags",
     "simulate_var",
     "spectral_density",
