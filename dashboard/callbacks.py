@@ -418,7 +418,7 @@ def shares_view(snap: Snapshot, state: Any, ordering: Any, horizon: Any) -> View
     gen, gsrc = _shares(snap, u, end, "generalized", order, H)
     chol, csrc = _shares(snap, u, end, "cholesky", order, H)
     fig = figures.shares_figure(
-        [("generalized (rows normalised to 100%)", gen),
+        [("generalized<br>(rows normalised to 100%)", gen),
          ("Cholesky, order<br>" + " → ".join(order), chol)],
         u.series,
         title=f"Variance shares at {H} steps ahead, window ending {end}",
@@ -452,7 +452,7 @@ def leadlag_view(snap: Snapshot, state: Any, level: Any) -> ViewResult:
          "windows": count, "share_significant": _num(share[i, j])}
         for i in range(n) for j in range(n) if i != j
     ]  # fmt: skip
-    note = f"Window ending {end}; {count} windows between {window.label}; level {alpha:g}."
+    note = f"Window ending {end}; {count} windows from {window.label}; level {alpha:g}."
     return fig, rows, note
 
 
@@ -671,7 +671,7 @@ def cycles_view(snap: Snapshot, state: Any) -> ViewResult:
             notes.append(f"{name}: own AR not stationary (radius {own.spectral_radius:.3f}), no spectrum")
             continue
         density = np.asarray(arlib.spectral_density(own, 2 * np.pi * freqs))[:, 0, 0].real
-        peak = arlib.spectral_peak(own)
+        peak = arlib.spectral_peak(own, grid=1024)
         period = float(peak.period) if peak.has_cycle else None
         spectra.append((name, density, period))
         notes.append(f"{name} AR({p}): " + (f"{period:.1f} obs" if period is not None else "no cycle"))

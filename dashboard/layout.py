@@ -50,7 +50,7 @@ def _graph(graph_id: str, *, height: int = 420) -> dcc.Loading:
         dcc.Graph(
             id=graph_id,
             config={"displaylogo": False, "responsive": True, "toImageButtonOptions": {"format": "png"}},
-            style={"minHeight": f"{height}px"},
+            style={"minHeight": f"{min(height, 360)}px"},
         ),
         type="circle",
         delay_show=150,
