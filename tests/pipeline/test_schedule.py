@@ -1,8 +1,10 @@
-"""The nightly schedule: cron/time-zone validation, the deployment `serve` registers, a run
-triggered on it completes, and a Prefect server started by us comes up and goes away.
+"""The nightly schedule: cron/time-zone validation, the deployment `serve` registers, a nightly
+run triggered on it completes (ingest → fit → publish → export, the real flow), and a Prefect
+server started by us comes up and goes away.
 
 Prefect parts run for real: the test harness's temporary server, Prefect's `Runner` polling
 every second, `run_deployment`, and (in its own test) `prefect server start` as a subprocess.
+The data is an invented three-series price table (tests/pipeline/helpers.simulate_prices).
 """
 
 from __future__ import annotations
@@ -18,15 +20,17 @@ import pytest
 
 from pipeline.config import load_config
 from pipeline.errors import ScheduleError
+from pipeline.flows import nightly_flow
 from pipeline.schedule import (
     DEPLOYMENT_NAME,
-    PREFECT_QUIET_ENV,
     LocalPrefectServer,
     build_deployment,
     check_schedule,
     serve,
     server_home,
 )
+from tests.pipeline.helpers import simulate_prices
+from tests.pipeline.test_export import snapshot_frame
 
 CONFIG = """
 [warehouse]
@@ -40,9 +44,11 @@ path = "./markets.csv"
 
 [[universes]]
 name = "core"
-series = ["A", "B"]
-window = 40
+series = ["S0", "S1", "S2"]
+window = 60
+step = 20
 lags = 1
+horizon = 5
 
 [schedule]
 cron = "15 21 * * 1-5"
@@ -57,7 +63,7 @@ directory = "./exports"
 def config_file(tmp_path: Path) -> Path:
     path = tmp_path / "shockflow.toml"
     path.write_text(CONFIG, encoding="utf-8")
-    (tmp_path / "markets.csv").write_text("date,A,B\n2024-01-02,1,2\n", encoding="utf-8")
+    simulate_prices(160).write_csv(tmp_path / "markets.csv")
     return path
 
 
@@ -81,11 +87,9 @@ def test_good_schedule_is_normalised() -> None:
 
 
 def test_deployment_carries_cron_timezone_and_config_path(config_file: Path) -> None:
-    from tests.pipeline.test_schedule_probe import probe_nightly
-
     config = load_config(config_file)
-    d = build_deployment(config, config_path=config_file, flow=probe_nightly)
-    assert d.name == DEPLOYMENT_NAME
+    d = build_deployment(config, config_path=config_file)  # default: the nightly flow
+    assert (d.flow_name, d.name) == (nightly_flow.name, DEPLOYMENT_NAME)
     (s,) = d.schedules
     assert (s.schedule.cron, s.schedule.timezone) == ("15 21 * * 1-5", "Europe/London")
     assert s.active is True
@@ -98,43 +102,22 @@ def test_local_server_files_sit_beside_the_warehouse(config_file: Path) -> None:
     assert server_home(config) == config_file.parent / "wh.duckdb.prefect"
 
 
-# -- with Prefect ---------------------------------------------------------------------------------
-
-@pytest.fixture(scope="module")
-def harness():
-    from prefect.testing.utilities import prefect_test_harness
-
-    # The harness's server is a subprocess: it reads these from the environment.
-    saved = {k: os.environ.get(k) for k in PREFECT_QUIET_ENV}
-    os.environ.update(PREFECT_QUIET_ENV)
-    try:
-        with prefect_test_harness(server_startup_timeout=120):
-            yield
-    finally:
-        for k, v in saved.items():
-            if v is None:
-                os.environ.pop(k, None)
-            else:
-                os.environ[k] = v
-
+# -- with Prefect (the session's one harness: tests/pipeline/conftest.py) ------------------------
 
 @pytest.mark.prefect
 def test_served_deployment_has_the_cron_and_a_triggered_run_completes(
-        harness: None, config_file: Path) -> None:
+        prefect_harness: None, config_file: Path) -> None:
     from prefect.client.orchestration import get_client
     from prefect.deployments import run_deployment
 
-    from tests.pipeline.test_schedule_probe import probe_nightly
-
     config = load_config(config_file)
-    full_name = f"{probe_nightly.name}/{DEPLOYMENT_NAME}"
+    full_name = f"{nightly_flow.name}/{DEPLOYMENT_NAME}"
     ready: queue.Queue = queue.Queue()
     failed: list[BaseException] = []
 
     def target() -> None:
         try:
-            serve(config, config_path=config_file, flow=probe_nightly, query_seconds=1,
-                  on_ready=ready.put)
+            serve(config, config_path=config_file, query_seconds=1, on_ready=ready.put)
         except BaseException as exc:  # surfaced below
             failed.append(exc)
             ready.put(None)
@@ -152,11 +135,17 @@ def test_served_deployment_has_the_cron_and_a_triggered_run_completes(
         assert s.active and not d.paused
         assert d.parameters == {"config_path": str(config_file.resolve())}
 
-        run = run_deployment(full_name, timeout=60, poll_interval=1)
+        run = run_deployment(full_name, timeout=90, poll_interval=1)
         assert run.state is not None and run.state.is_completed(), run.state
-        # The run executed in the runner's subprocess with the configuration path.
-        marker = config_file.parent / "probe-ran.txt"
-        assert marker.read_text(encoding="utf-8") == str(config_file.resolve())
+        # The run, in the runner's subprocess, read this config: it filled the warehouse,
+        # published the snapshot and exported the report where the config says.
+        snap = config.warehouse.snapshot
+        counts = snapshot_frame(snap, "SELECT (SELECT count(*) FROM connectedness WHERE "
+                                "universe = ?) AS fitted, (SELECT count(*) FROM window_fits WHERE "
+                                "universe = ? AND skip_reason IS NULL) AS fits", ["core", "core"])
+        assert counts["fitted"][0] >= 4  # window 60, step 20 over 159 return rows
+        assert counts["fitted"][0] == counts["fits"][0]
+        assert list(config.export.directory.glob("*/core/core-*.html"))
     finally:
         # Let the run's process exit (the runner serves one run at a time) before stopping,
         # so the stop does not race the finished run's shutdown.
