@@ -1,0 +1,418 @@
+"""The rolling-window engine gives, window by window, the numbers of the single-fit functions.
+
+Reference for every window: `fit_var`, `connectedness`, `granger_test`, `impulse_responses`,
+`variance_decomposition`, `portmanteau_test` and `select_lags` on the same rows (those functions
+are themselves checked against published examples and statsmodels in tests/reference/), plus
+statsmodels' VAR directly as an outside reference library for a few windows, and LAPACK's
+eigenvalues for the spectral radius.
+
+Tolerance: the contract is agreement to 1e-8. The engine solves each window from cross-products
+by Cholesky; its relative error is about κ·1e-16 and windows with κ > 1e6 are refitted directly,
+so 1e-8 leaves a wide margin (observed differences are ~1e-13). Data are unit-scale, so an
+absolute floor of 1e-10 only matters for entries that are zero in exact arithmetic.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import pytest
+from scipy import stats
+
+import arlib
+from arlib import _rolling_kernels as K
+from arlib._diagnostics import portmanteau_test
+
+RTOL = 1e-8
+ATOL = 1e-10
+
+
+def close(actual: np.ndarray, expected: np.ndarray, what: str) -> None:
+    np.testing.assert_allclose(actual, expected, rtol=RTOL, atol=ATOL, err_msg=what)
+
+
+def random_var(n: int, p: int, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
+    """A random stable VAR(p): coefficients (p, n, n) with companion spectral radius <= 0.9,
+    and a random covariance with correlations (the scenario is invented for the test)."""
+    A = rng.standard_normal((p, n, n)) * 0.45 / np.sqrt(n) / p
+    radius = float(np.abs(np.linalg.eigvals(arlib.companion_matrix(A))).max())
+    if radius > 0.9:
+        A *= 0.9 / radius
+    F = rng.standard_normal((n, n)) / np.sqrt(n)
+    return A, F @ F.T + 0.5 * np.eye(n)
+
+
+def simulate(
+    n: int, p: int, T: int, seed: int, *, trend: str = "c", scale: float = 1.0
+) -> np.ndarray:
+    """T rows from a random stable VAR(p) with intercept (and a mild drift for "ct")."""
+    rng = np.random.default_rng(seed)
+    A, S = random_var(n, p, rng)
+    chol = np.linalg.cholesky(S)
+    c = rng.uniform(-0.5, 0.5, n)
+    y = np.zeros((T + 100, n))
+    for t in range(p, T + 100):
+        y[t] = c + sum(A[i] @ y[t - 1 - i] for i in range(p)) + chol @ rng.standard_normal(n)
+        if trend == "ct":
+            y[t] += 0.002 * t
+    return scale * y[100:]
+
+
+def check_window(res: arlib.RollingVAR, w: int, rows: np.ndarray, lags: int) -> None:
+    """Compare window w of `res` with the single-fit functions on `rows`."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", arlib.UnstableProcessWarning)
+        fit = arlib.fit_var(rows, lags, trend=res.trend)
+    n = fit.n
+    assert res.ok[w] and res.skip_reason[w] == ""
+    assert res.nobs[w] == fit.nobs and res.lags[w] == lags
+    close(res.coefs[w, :lags], fit.coefs, "coefs")
+    assert np.all(res.coefs[w, lags:] == 0.0)
+    close(res.sigma_u[w], fit.sigma_u, "sigma_u")
+    if fit.intercept is not None:
+        close(res.intercept[w], fit.intercept, "intercept")
+    if fit.trend_coef is not None:
+        close(res.trend_coef[w], fit.trend_coef, "trend_coef")
+    close(res.spectral_radius[w], fit.spectral_radius, "spectral radius")
+    for name in ("aic", "bic", "hq", "fpe"):
+        close(getattr(res, name)[w], getattr(fit, name), name)
+    conn = arlib.connectedness(fit, res.horizon)
+    close(res.pairwise[w], conn.table, "pairwise table")
+    close(res.total_connectedness[w], conn.total, "total connectedness")
+    close(res.to_others[w], conn.to_others, "to others")
+    close(res.from_others[w], conn.from_others, "from others")
+    close(res.net[w], conn.net, "net")
+    if res.granger_f is not None:
+        for i in range(n):
+            assert np.isnan(res.granger_f[w, i, i]) and np.isnan(res.granger_p[w, i, i])
+            for j in range(n):
+                if i != j:
+                    g = arlib.granger_test(fit, caused=i, causing=j)
+                    close(res.granger_f[w, i, j], g.f_stat, f"granger F [{i}, {j}]")
+                    close(res.granger_p[w, i, j], g.p_value, f"granger p [{i}, {j}]")
+                    assert tuple(res.granger_df[w]) == g.df
+    if res.responses is not None:
+        irf = arlib.impulse_responses(fit, res.horizon, shocks=res.response_kind)
+        close(res.responses[w], irf, f"{res.response_kind} responses")
+    if res.decomposition is not None:
+        dec = arlib.variance_decomposition(fit, res.horizon, method=res.decomposition_kind)
+        close(res.decomposition[w], dec, f"{res.decomposition_kind} decomposition")
+    if res.portmanteau_p is not None:
+        port = portmanteau_test(fit, res.portmanteau_lags)
+        close(res.portmanteau_p[w], port.adjusted_p_value, "portmanteau p-value")
+
+
+# n = 1..15 across the cases; lags 1–3; every trend; every stored identification
+CASES = [
+    (1, 1, "c", "unit", "cholesky"),
+    (1, 3, "ct", "generalized", "generalized"),
+    (2, 2, "n", "cholesky", "generalized"),
+    (3, 1, "ct", "generalized", "cholesky"),
+    (4, 3, "c", "unit", "generalized"),
+    (6, 2, "c", "cholesky", "cholesky"),
+    (9, 1, "n", "generalized", None),
+    (12, 2, "ct", None, "generalized"),
+    (15, 1, "c", "unit", None),
+    (15, 2, "ct", "cholesky", "cholesky"),
+]
+
+
+@pytest.mark.parametrize(("n", "p", "trend", "resp", "dec"), CASES)
+def test_windows_equal_single_fit_functions(
+    n: int, p: int, trend: str, resp: str | None, dec: str | None
+) -> None:
+    window = max(60, 2 * (p + 2 + n * p + n))
+    y = simulate(n, p, window + 90, seed=100 * n + 10 * p, trend=trend)
+    res = arlib.rolling_var(
+        y, window, p, 6, trend=trend, step=3, responses=resp, decomposition=dec,
+        portmanteau_lags=p + 4,
+    )  # fmt: skip
+    assert res.ok.all()
+    assert np.array_equal(res.ends, np.arange(window - 1, y.shape[0], 3))
+    rng = np.random.default_rng(n)
+    for w in rng.choice(len(res), size=5, replace=False):
+        check_window(res, int(w), y[res.starts[w] : res.ends[w] + 1], p)
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("n", list(range(1, 16)))
+@pytest.mark.parametrize("p", [1, 2, 3])
+@pytest.mark.parametrize("trend", ["n", "c", "ct"])
+def test_many_random_windows_equal_single_fits(n: int, p: int, trend: str) -> None:
+    window = max(50, p + 2 + n * p + n + 12)
+    y = simulate(n, p, window + 300, seed=7 * n + p, trend=trend)
+    res = arlib.rolling_var(y, window, p, 5, trend=trend, responses="generalized")
+    rng = np.random.default_rng(n * p)
+    for w in rng.choice(len(res), size=12, replace=False):
+        check_window(res, int(w), y[res.starts[w] : res.ends[w] + 1], p)
+
+
+def test_headline_shape_against_statsmodels() -> None:
+    """Outside reference: statsmodels' VAR on three windows (coefficients, Σ_u, the Granger F
+    statistic of its `test_causality`, which uses the same F(p, n·(T − k)) form)."""
+    sm_var = pytest.importorskip("statsmodels.tsa.api").VAR
+    y = simulate(5, 2, 400, seed=3)
+    res = arlib.rolling_var(y, 150, 2, 10)
+    for w in (0, 97, len(res) - 1):
+        sm = sm_var(y[res.starts[w] : res.ends[w] + 1]).fit(2, trend="c")
+        close(res.coefs[w], sm.coefs, "coefs vs statsmodels")
+        close(res.intercept[w], sm.intercept, "intercept vs statsmodels")
+        close(res.sigma_u[w], sm.sigma_u, "sigma_u vs statsmodels")
+        test = sm.test_causality(caused=1, causing=3, kind="f")
+        close(res.granger_f[w, 1, 3], test.test_statistic, "Granger F vs statsmodels")
+        close(res.granger_p[w, 1, 3], test.pvalue, "Granger p vs statsmodels")
+        assert tuple(res.granger_df[w]) == tuple(test.df)
+
+
+def test_expanding_windows_equal_fits_from_row_zero() -> None:
+    y = simulate(4, 2, 260, seed=11, trend="ct")
+    res = arlib.rolling_var(y, 80, 2, 5, trend="ct", expanding=True, step=7)
+    assert np.all(res.starts == 0)
+    assert np.array_equal(res.nobs, res.ends + 1 - 2)
+    for w in (0, 5, len(res) // 2, len(res) - 1):
+        check_window(res, w, y[: res.ends[w] + 1], 2)
+
+
+def test_after_and_ends_reproduce_the_full_run() -> None:
+    y = simulate(5, 2, 900, seed=5)
+    full = arlib.rolling_var(y, 120, 2, 8, responses="generalized")
+    # nightly case: only windows ending after a given row
+    new = arlib.rolling_var(y, 120, 2, 8, responses="generalized", after=850)
+    assert np.array_equal(new.ends, full.ends[full.ends > 850])
+    # blocks of ends, as the pipeline splits a universe across workers, joined back
+    parts = np.array_split(full.ends, 3)
+    blocks = [arlib.rolling_var(y, 120, 2, 8, responses="generalized", ends=e) for e in parts]
+    joined = arlib.RollingVAR.concat(blocks[::-1])
+    sel = full.ends > 850
+    for name in ("coefs", "intercept", "sigma_u", "spectral_radius", "aic", "pairwise",
+                 "total_connectedness", "granger_f", "granger_p", "responses", "nobs", "ends"):  # fmt: skip
+        np.testing.assert_allclose(getattr(new, name), getattr(full, name)[sel], rtol=1e-11,
+                                   atol=1e-13, err_msg=name)  # fmt: skip
+        np.testing.assert_allclose(getattr(joined, name), getattr(full, name), rtol=1e-11,
+                                   atol=1e-13, err_msg=name)  # fmt: skip
+    assert not joined.coefs.flags.writeable
+
+
+def test_sparse_explicit_ends() -> None:
+    y = simulate(3, 1, 700, seed=8)
+    res = arlib.rolling_var(y, 100, 1, 5, ends=np.array([99, 400, 401, 699]))
+    for w in range(4):
+        check_window(res, w, y[res.starts[w] : res.ends[w] + 1], 1)
+
+
+def test_gaps_use_only_complete_observations() -> None:
+    """A NaN row removes the observations that need it (itself and the next p rows)."""
+    n, p, window = 3, 2, 80
+    y = simulate(n, p, 300, seed=21)
+    y[150, 1] = np.nan  # one value missing: the whole row is a gap
+    res = arlib.rolling_var(y, window, p, 5, granger=True)
+    for w in range(len(res)):
+        s, e = res.starts[w], res.ends[w]
+        if e < 150 or s > 150:  # window without the gap: an ordinary fit
+            assert res.nobs[w] == window - p
+            continue
+        t = np.arange(s + p, e + 1)
+        keep = (t < 150) | (t > 150 + p)  # observations whose rows t−p..t avoid row 150
+        assert res.nobs[w] == keep.sum()
+    # reference for one window with the gap in the middle: least squares on complete rows
+    w = int(np.flatnonzero(res.starts == 120)[0])
+    t = np.arange(120 + p, res.ends[w] + 1)
+    t = t[(t < 150) | (t > 150 + p)]
+    Z = np.column_stack([np.ones(t.size)] + [y[t - lag] for lag in range(1, p + 1)])
+    B, *_ = np.linalg.lstsq(Z, y[t], rcond=None)
+    U = y[t] - Z @ B
+    close(res.intercept[w], B[0], "intercept with a gap")
+    close(res.coefs[w], B[1:].reshape(p, n, n).transpose(0, 2, 1), "coefs with a gap")
+    close(res.sigma_u[w], U.T @ U / (t.size - Z.shape[1]), "sigma_u with a gap")
+
+
+def test_gap_in_first_row_equals_fit_on_following_rows() -> None:
+    """With a constant only, a NaN first row leaves exactly the fit on the rows after it."""
+    y = simulate(3, 1, 200, seed=4)
+    y[50] = np.nan
+    res = arlib.rolling_var(y, 60, 1, 5, ends=np.array([109]))
+    assert res.starts[0] == 50
+    check_window(res, 0, y[51:110], 1)
+
+
+def test_windows_with_too_few_observations_are_skipped() -> None:
+    """Skipped exactly when fewer than k + n usable observations remain (k = 3, n = 2)."""
+    y = simulate(2, 1, 200, seed=9)
+    y[100:140] = np.nan
+    res = arlib.rolling_var(y, 45, 1, 5)
+    short = res.nobs < 5
+    assert short.sum() >= 5
+    assert not res.ok[short].any() and res.ok[~short].all()
+    for w in np.flatnonzero(short):
+        assert "usable observations" in res.skip_reason[w]
+        assert np.isnan(res.coefs[w]).all() and np.isnan(res.total_connectedness[w])
+        assert np.isnan(res.granger_p[w]).all()
+    edge = int(np.flatnonzero(~short & (res.starts > 95))[0])  # 5 observations after the gap
+    assert res.nobs[edge] == 5
+    check_window(res, edge, y[141 - 1 : res.ends[edge] + 1], 1)
+    fine = int(np.flatnonzero(res.ends < 100)[-1])
+    check_window(res, fine, y[res.starts[fine] : res.ends[fine] + 1], 1)
+
+
+def test_near_collinear_window_matches_direct_fit_or_is_marked() -> None:
+    """Series 2 = series 0 + tiny noise over rows 200..299. Windows there have a huge condition
+    number; they are refitted directly (as `fit_var`), so they still agree with `fit_var` to
+    1e-6 relative — the accuracy a direct fit itself has at this conditioning (κ ≈ 1e10 leaves
+    ~6 significant digits in the coefficients of the collinear pair, so the comparison uses
+    rtol 1e-6 for them). An exact copy makes the regressors singular: those windows are skipped
+    with fit_var's reason, the rest of the run is unaffected."""
+    rng = np.random.default_rng(2)
+    y = simulate(3, 1, 400, seed=12)
+    y[200:300, 2] = y[200:300, 0] + 1e-5 * rng.standard_normal(100)
+    res = arlib.rolling_var(y, 80, 1, 5)
+    near = (res.starts >= 200) & (res.ends < 300)
+    assert res.condition_number[near].min() > 1e6 > res.condition_number[res.ends < 190].max()
+    for w in np.flatnonzero(near)[::5]:
+        fit = arlib.fit_var(y[res.starts[w] : res.ends[w] + 1], 1)
+        np.testing.assert_allclose(res.coefs[w], fit.coefs, rtol=1e-6, atol=1e-6)
+        close(res.sigma_u[w], fit.sigma_u, "sigma_u (near collinear)")
+        close(res.total_connectedness[w], arlib.connectedness(fit, 5).total, "total")
+    exact = y.copy()
+    exact[200:300, 2] = 2.0 * exact[200:300, 0]
+    res2 = arlib.rolling_var(exact, 80, 1, 5)
+    inside = (res2.starts >= 200) & (res2.ends < 300)
+    assert not res2.ok[inside].any()
+    assert all("collinear" in r or "singular" in r for r in res2.skip_reason[inside])
+    assert res2.ok[res2.ends < 200].all()
+    np.testing.assert_allclose(
+        res2.coefs[res2.ends < 200], res.coefs[res.ends < 200], rtol=1e-12, atol=1e-14
+    )
+
+
+@pytest.mark.parametrize("criterion", ["aic", "bic", "hq", "fpe"])
+def test_lag_selection_equals_select_lags(criterion: str) -> None:
+    """The chosen order is select_lags' minimiser over p = 1..max_lags on the window's rows,
+    and the window is then fitted with that order."""
+    y = simulate(3, 2, 420, seed=31)
+    res = arlib.rolling_var(y, 90, None, 5, criterion=criterion, max_lags=4, step=11)
+    assert res.coefs.shape[1] == 4 and res.criterion == criterion
+    for w in range(len(res)):
+        rows = y[res.starts[w] : res.ends[w] + 1]
+        sel = arlib.select_lags(rows, 4)
+        expected = int(np.argmin(getattr(sel, criterion)[1:])) + 1
+        assert res.lags[w] == expected, (w, getattr(sel, criterion))
+    for w in (0, len(res) // 2, len(res) - 1):
+        check_window(res, w, y[res.starts[w] : res.ends[w] + 1], int(res.lags[w]))
+    if criterion == "aic":
+        assert len(set(res.lags.tolist())) > 1  # the check exercised several orders
+
+
+def test_univariate_window() -> None:
+    y = simulate(1, 2, 200, seed=1)[:, 0]
+    res = arlib.rolling_var(y, 60, 2, 5)
+    assert res.coefs.shape == (len(res), 2, 1, 1)
+    np.testing.assert_array_equal(res.total_connectedness, 0.0)
+    np.testing.assert_allclose(res.pairwise, 100.0, rtol=1e-14)
+    np.testing.assert_array_equal(res.net, 0.0)
+    assert np.isnan(res.granger_f).all() and np.isnan(res.granger_p).all()
+    check_window(res, 17, y[res.starts[17] : res.ends[17] + 1, None], 2)
+
+
+def test_result_shapes_and_read_only() -> None:
+    n, p, H = 4, 2, 7
+    y = simulate(n, p, 300, seed=2)
+    res = arlib.rolling_var(y, 100, p, H, responses="unit", decomposition="cholesky",
+                            portmanteau_lags=6, names=list("abcd"))  # fmt: skip
+    W = len(res)
+    assert W == 201 and res.names == ("a", "b", "c", "d")
+    shapes = {
+        "ends": (W,), "starts": (W,), "nobs": (W,), "lags": (W,), "coefs": (W, p, n, n),
+        "intercept": (W, n), "sigma_u": (W, n, n), "spectral_radius": (W,), "aic": (W,),
+        "bic": (W,), "hq": (W,), "fpe": (W,), "condition_number": (W,),
+        "total_connectedness": (W,), "to_others": (W, n), "from_others": (W, n),
+        "net": (W, n), "pairwise": (W, n, n), "granger_f": (W, n, n), "granger_p": (W, n, n),
+        "granger_df": (W, 2), "responses": (W, H + 1, n, n), "decomposition": (W, H, n, n),
+        "portmanteau_p": (W,), "skip_reason": (W,), "ok": (W,),
+    }  # fmt: skip
+    for name, shape in shapes.items():
+        arr = getattr(res, name)
+        assert arr.shape == shape, name
+        assert not arr.flags.writeable, name
+    assert res.trend_coef is None
+    np.testing.assert_allclose(res.pairwise.sum(axis=-1), 100.0, rtol=1e-12)
+    np.testing.assert_allclose(res.decomposition.sum(axis=-1), 1.0, rtol=1e-12)
+    np.testing.assert_allclose(res.total_connectedness, res.from_others.mean(axis=1), rtol=1e-12)
+    with pytest.raises(AttributeError):
+        res.window = 3  # type: ignore[misc]
+    assert "201 rolling windows" in repr(res)
+
+
+def test_bad_input_is_refused_with_the_fix() -> None:
+    y = simulate(3, 1, 200, seed=1)
+    bad = y.copy()
+    bad[17, 2] = np.inf
+    with pytest.raises(arlib.InvalidInputError, match="row 17 of series 'y2'"):
+        arlib.rolling_var(bad, 50, 1, 5)
+    with pytest.raises(arlib.InvalidInputError, match=r"window`=11 leaves 9 .* use window >= 12"):
+        arlib.rolling_var(y, 11, 2, 5)  # k = 1 + 3·2 = 7 coefficients, n = 3: 2 + 7 + 3 rows
+    with pytest.raises(arlib.InvalidInputError, match="criterion"):
+        arlib.rolling_var(y, 50, None, 5)
+    with pytest.raises(arlib.InvalidInputError, match="ends"):
+        arlib.rolling_var(y, 50, 1, 5, ends=np.array([10, 60]))
+    with pytest.raises(arlib.InvalidInputError, match="strictly increasing"):
+        arlib.rolling_var(y, 50, 1, 5, ends=np.array([80, 60]))
+    with pytest.raises(arlib.InvalidInputError, match="responses"):
+        arlib.rolling_var(y, 50, 1, 5, responses="orthogonal")
+    with pytest.raises(arlib.InvalidInputError, match="portmanteau_lags"):
+        arlib.rolling_var(y, 50, 2, 5, portmanteau_lags=2)
+    with pytest.raises(arlib.InvalidInputError, match="longer than the 200 rows"):
+        arlib.rolling_var(y, 201, 1, 5)
+
+
+# ---------------------------------------------------------------------------------------------
+# kernels
+# ---------------------------------------------------------------------------------------------
+
+
+def test_window_sums_equal_direct_sums() -> None:
+    rng = np.random.default_rng(0)
+    z = rng.standard_normal((300, 5)) + 100.0  # large means: cancellation would show
+    starts = np.array([3, 4, 50, 51, 52, 99, 130, 200])
+    got = K.window_sums(z, starts, 41)
+    il, jl = np.tril_indices(5)
+    for w, a in enumerate(starts):
+        direct = z[a : a + 41].T @ z[a : a + 41]
+        np.testing.assert_allclose(got[w], direct[il, jl], rtol=1e-14)
+
+
+def test_spectral_radius_kernel_matches_lapack() -> None:
+    """Certified squaring/Ritz path vs LAPACK eigenvalues, including hard spectra: equal moduli
+    (a real pair ±ρ, a complex pair with the modulus of a real root), a Jordan block, zero."""
+    rng = np.random.default_rng(5)
+    batches = []
+    for n, p in [(2, 1), (3, 2), (5, 3), (12, 2), (15, 1)]:
+        A = np.stack([random_var(n, p, rng)[0] for _ in range(40)])
+        batches.append((A, n, p))
+    rot = np.array([[0.0, -0.7], [0.7, 0.0]])
+    hard = np.zeros((4, 1, 4, 4))
+    hard[0, 0] = np.diag([0.7, -0.7, 0.2, 0.1])
+    hard[1, 0, :2, :2] = rot
+    hard[1, 0, 2, 2] = 0.7
+    hard[2, 0] = np.array([[0.6, 1.0, 0, 0], [0, 0.6, 0, 0], [0, 0, 0.1, 0], [0, 0, 0, 0.3]])
+    batches.append((hard, 4, 1))
+    for A, n, p in batches:
+        acat = np.concatenate(list(np.moveaxis(A, 1, 0)), axis=-1)
+        rho, certified = K.spectral_radius_batch(acat, n, p)
+        ref = np.abs(np.linalg.eigvals(arlib.companion_matrix(A))).max(axis=-1)
+        np.testing.assert_allclose(rho, ref, rtol=1e-10, atol=1e-12)
+        if n * p > 4:
+            assert certified.mean() > 0.5  # the fast path is exercised
+    acat = np.concatenate(list(np.moveaxis(batches[3][0], 1, 0)), axis=-1)
+    _, certified = K.spectral_radius_batch(acat, 12, 2)
+    assert certified.mean() > 0.9
+
+
+@pytest.mark.parametrize("df1", [1, 2, 3, 4, 6])
+def test_f_survival_matches_scipy(df1: int) -> None:
+    """Closed form for even df1 (Abramowitz & Stegun 1964, 26.6.4) vs scipy.stats.f.sf."""
+    f = np.array([0.0, 0.01, 0.5, 1.0, 2.5, 7.0, 30.0, np.nan])
+    df2 = np.array([20, 200, 2676, 2676, 999, 50, 3000, 40])
+    got = K.f_survival(f, df1, df2)
+    want = stats.f.sf(f, df1, df2)
+    np.testing.assert_allclose(got, want, rtol=1e-11, atol=1e-300)
