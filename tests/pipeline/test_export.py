@@ -285,6 +285,26 @@ def test_derived_responses_without_bands_say_so(exported: dict[str, list[Path]])
     assert "no bands available" in html
 
 
+def test_many_series_get_one_response_figure_per_shock(tmp_path: Path) -> None:
+    """Above six series the n × n grid splits into one figure per shock (responses wrapped)."""
+    path = build_snapshot(tmp_path / "s.duckdb", {"seven": {
+        "n": 7, "T": 150, "window": 120, "step": 30, "store_arrays": False, "bands": "none"}})
+    paths = export_universe(path, "seven", tmp_path / "out", formats=("html",))
+    html = paths[0].read_text(encoding="utf-8")
+    w = latest(path, "seven")
+    p = snapshot_frame(path, "SELECT coefs, sigma_u FROM window_params WHERE universe = ? AND "
+                       "window_end = ?", ["seven", w]).row(0, named=True)
+    resp = arlib.impulse_responses(
+        arlib.var_process(np.reshape(p["coefs"], (1, 7, 7)), np.reshape(p["sigma_u"], (7, 7))),
+        8, shocks="cholesky")
+    for shock in range(7):
+        traces = plotly_traces(html, f"fig-irf-0-{shock}")
+        assert len(traces) == 7
+        for i, tr in enumerate(traces):
+            np.testing.assert_allclose(trace_array(tr["y"]), resp[:, i, shock], rtol=0, atol=1e-14)
+    assert 'id="fig-irf-0-7"' not in html
+
+
 def test_skipped_latest_window_is_reported(snap: Path, exported: dict[str, list[Path]]) -> None:
     html = html_of(exported, "derived")
     skipped = snapshot_frame(snap, "SELECT window_end FROM window_fits WHERE universe = ? AND "
