@@ -1,0 +1,162 @@
+"""Where the fits run: threads in the flow's own process, or a dask.distributed cluster.
+
+``[execution] runner`` picks the Prefect task runner of the nightly work (:func:`task_runner`):
+
+- ``"local"`` (default): Prefect's thread pool in the flow process.
+- ``"dask"`` with ``address = "local"``: prefect-dask's ``DaskTaskRunner`` on an in-process
+  ``distributed.LocalCluster`` that this module configures (:func:`local_cluster_kwargs`): every
+  socket on 127.0.0.1 — the scheduler, the workers and the scheduler's diagnostics page, which
+  by default would listen on all interfaces — and its scratch space in a folder beside the
+  warehouse (:func:`scratch_folder`), created for the run and removed by Dask when it stops.
+- ``"dask"`` with ``address = "tcp://host:port"``: an existing Dask scheduler (the team's own
+  cluster). :func:`check_scheduler` first checks that something listens there, so a wrong address
+  fails at once with the fix instead of after Dask's connect timeout.
+
+What runs where (the flow decides what it submits; see pipeline.flows): workers only compute —
+the fit of a block of window ends of a universe (``jobs.fit_block_step``: prepared rows in,
+result tables out; no file, no database). Everything that touches a file stays in the flow's
+process on one node: reading sources, the single DuckDB writer (ingest, plan, store), publish
+and export. Results come back to the flow process, which writes them in one transaction per
+universe, so the warehouse has exactly one writer however many workers compute.
+
+Worker processes or threads (measured on the demo, 2 cores; bench figures in the report of the
+change): the rolling engine spends much of a block in Python between numpy calls, so two worker
+*threads* share one GIL and gain little over one; two worker *processes* run two blocks at once.
+Hence ``processes = True`` by default (:data:`LOCAL_PROCESSES`).
+"""
+
+from __future__ import annotations
+
+import socket
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+from urllib.parse import urlsplit
+
+from pipeline.errors import ShockflowError
+
+if TYPE_CHECKING:
+    from pipeline.config import Config
+
+__all__ = [
+    "LOCAL_PROCESSES",
+    "LOCAL_THREADS_PER_WORKER",
+    "LOCAL_WORKERS",
+    "LOOPBACK",
+    "ExecutionError",
+    "check_scheduler",
+    "describe",
+    "is_distributed",
+    "local_cluster_kwargs",
+    "scratch_folder",
+    "task_runner",
+]
+
+#: Every socket of the in-process cluster binds here.
+LOOPBACK = "127.0.0.1"
+#: Workers of the in-process cluster, one thread each (each fit is single-threaded numpy).
+LOCAL_WORKERS = 2
+LOCAL_THREADS_PER_WORKER = 1
+#: Worker processes (True) rather than threads of the flow process (measured, see module doc).
+LOCAL_PROCESSES = True
+#: Threads of the local (non-Dask) runner.
+LOCAL_THREADS = 4
+#: Seconds to wait for a TCP connection to an existing scheduler before giving up.
+CONNECT_TIMEOUT = 5.0
+
+
+class ExecutionError(ShockflowError):
+    """The configured execution backend cannot be used (e.g. no scheduler at the address)."""
+
+
+def scratch_folder(config: Config) -> Path:
+    """The in-process cluster's `local_directory`: ``.dask-scratch`` beside the warehouse file."""
+    return config.warehouse.path.parent / ".dask-scratch"
+
+
+def local_cluster_kwargs(
+    scratch: str | Path,
+    *,
+    n_workers: int = LOCAL_WORKERS,
+    threads_per_worker: int = LOCAL_THREADS_PER_WORKER,
+    processes: bool = LOCAL_PROCESSES,
+) -> dict[str, Any]:
+    """Keyword arguments of ``distributed.LocalCluster`` bound to loopback, scratch in `scratch`.
+
+    ``host`` binds the scheduler and the workers; ``dashboard_address`` binds the scheduler's
+    diagnostics page (port 0: any free port, so two runs never collide).
+    """
+    return {
+        "n_workers": n_workers,
+        "threads_per_worker": threads_per_worker,
+        "processes": processes,
+        # worker threads would default to Dask's in-process transport, which takes no host
+        "protocol": "tcp://",
+        "host": LOOPBACK,
+        "dashboard_address": f"{LOOPBACK}:0",
+        "local_directory": str(Path(scratch)),
+    }
+
+
+def is_distributed(config: Config) -> bool:
+    """True when the fits are submitted to a Dask cluster."""
+    return config.execution.runner == "dask"
+
+
+def describe(config: Config) -> str:
+    """One line for logs and the CLI: where the fits run."""
+    execution = config.execution
+    if execution.runner != "dask":
+        return f"fits run in this process ({LOCAL_THREADS} threads)"
+    if execution.address == "local":
+        kind = "processes" if LOCAL_PROCESSES else "threads"
+        return (
+            f"fits run on an in-process Dask cluster: {LOCAL_WORKERS} worker {kind} on {LOOPBACK}, "
+            f"scratch in {scratch_folder(config)}"
+        )
+    return f"fits run on the Dask cluster at {execution.address}; storing stays in this process"
+
+
+def check_scheduler(address: str, *, timeout: float = CONNECT_TIMEOUT) -> None:
+    """Raise ExecutionError unless a TCP connection to the scheduler at `address` opens.
+
+    `address` is ``tcp://host:port`` or ``tls://host:port`` (the config validates the scheme).
+    Only the connection is tried; Dask's own handshake follows when the flow starts.
+    """
+    parts = urlsplit(address)
+    host, port = parts.hostname, parts.port
+    if not host or port is None:
+        msg = (
+            f"[execution] address {address!r} has no host and port; "
+            "write it as 'tcp://host:8786' (the scheduler's address) or use 'local'"
+        )
+        raise ExecutionError(msg)
+    try:
+        with socket.create_connection((host, port), timeout=timeout):
+            pass
+    except OSError as exc:
+        reason = exc.strerror or type(exc).__name__
+        msg = (
+            f"[execution] address {address!r}: no Dask scheduler answers there ({reason}); "
+            "start one (`dask scheduler`, with workers that have shockflow installed) or set "
+            "address = 'local' for a cluster on this machine"
+        )
+        raise ExecutionError(msg) from None
+
+
+def task_runner(config: Config) -> Any:
+    """The Prefect task runner for `config`'s ``[execution]`` section (see the module doc)."""
+    execution = config.execution
+    if execution.runner != "dask":
+        from prefect.task_runners import ThreadPoolTaskRunner
+
+        return ThreadPoolTaskRunner(max_workers=LOCAL_THREADS)
+    from prefect_dask import DaskTaskRunner
+
+    if execution.address == "local":
+        return DaskTaskRunner(
+            cluster_class="distributed.LocalCluster",
+            cluster_kwargs=local_cluster_kwargs(scratch_folder(config)),
+        )
+    assert execution.address is not None  # the config requires it for runner = "dask"
+    check_scheduler(execution.address)
+    return DaskTaskRunner(address=execution.address)
