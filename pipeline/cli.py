@@ -187,6 +187,8 @@ def _report(summary: NightlySummary, wall: float, config: Config) -> None:
     out.print(_stages_line(summary, wall))
     if summary.published:
         out.print(f"snapshot published: {config.warehouse.snapshot}")
+    elif summary.publish_message and not summary.publish_failed:
+        out.print(f"snapshot not republished: {summary.publish_message}")
     n_files = sum(len(v) for v in summary.exported.values())
     if n_files:
         out.print(f"exports: {n_files} file(s) under {config.export.directory}")

@@ -59,6 +59,7 @@ class NightlySummary:
     universes: list[UniverseResult] = field(default_factory=list)
     published: bool = False
     publish_message: str | None = None
+    publish_failed: bool = False
     exported: dict[str, list[str]] = field(default_factory=dict)
     export_message: str | None = None
     interrupted_marked: int = 0
@@ -68,7 +69,7 @@ class NightlySummary:
     def failures(self) -> list[str]:
         out = [f"source {r.source!r}: {r.message}" for r in self.ingest if r.status != "succeeded"]
         out += [f"universe {r.universe!r}: {r.message}" for r in self.universes if r.status != "succeeded"]
-        if self.publish_message and not self.published:
+        if self.publish_message and not self.published and self.publish_failed:
             out.append(f"publish: {self.publish_message}")
         if self.export_message:
             out.append(f"export: {self.export_message}")
@@ -221,23 +222,30 @@ def _nightly_body(
         _progress("universes", universe.name, i + 1, len(selected))
     summary.seconds["fit"] = time.perf_counter() - t0
 
-    # publish when any universe succeeded (failed ones keep their previous results)
+    # publish when a universe's results changed (failed ones keep their previous results), or
+    # when there is no snapshot yet; a night with nothing new leaves the served file alone
     succeeded = [r.universe for r in summary.universes if r.status == "succeeded"]
+    changed = [r.universe for r in summary.universes if r.status == "succeeded" and r.changed]
     t0 = time.perf_counter()
-    if succeeded:
+    if changed or (succeeded and not config.warehouse.snapshot.exists()):
         try:
             publish_task(config)
             summary.published = True
         except Exception as exc:
             summary.publish_message = str(exc)
+            summary.publish_failed = True
+    elif succeeded:
+        summary.publish_message = "nothing changed; the served snapshot is already current"
     else:
         summary.publish_message = "no universe succeeded; the served snapshot is unchanged"
     summary.seconds["publish"] = time.perf_counter() - t0
 
+    # export the universes whose results changed (`shockflow export` re-exports on demand)
     t0 = time.perf_counter()
-    if export and summary.published and config.export.formats:
+    to_export = changed if summary.published else []
+    if export and to_export and config.export.formats:
         try:
-            written = export_task(config, succeeded)
+            written = export_task(config, to_export)
             summary.exported = {k: [str(p) for p in v] for k, v in written.items()}
         except Exception as exc:
             summary.export_message = str(exc)

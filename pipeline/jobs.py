@@ -169,6 +169,7 @@ class UniverseResult:
     reason: str = ""
     message: str | None = None
     seconds: dict[str, float] = field(default_factory=dict)
+    changed: bool = False  # results or prepared data were written (publish/export needed)
 
 
 def start_universe(warehouse_path: str | Path, universe: UniverseConfig) -> str:
@@ -253,8 +254,9 @@ def store_universe(
         con.close()
     seconds = {"prepare": job.seconds_prepare, "fit": seconds_fit, "store": time.perf_counter() - t0}
     log.info("universe %s: %d fitted, %d skipped, %d reused", job.universe.name, fitted, skipped, plan.reused)
+    changed = bool(plan.ends.size or plan.prepared_changed or plan.delete_ends is None or plan.delete_ends)
     return UniverseResult(
-        job.universe.name, "succeeded", job.run_id, fitted, skipped, 0, plan.reused, plan.reason, None, seconds
+        job.universe.name, "succeeded", job.run_id, fitted, skipped, 0, plan.reused, plan.reason, None, seconds, changed
     )
 
 

@@ -78,6 +78,8 @@ def test_nightly_flow_runs_what_it_can_and_reports_partial(prefect_harness: None
     again = nightly(cfg)
     assert [(r.universe, r.fitted, r.reused) for r in again.universes if r.status == "succeeded"] == [("trio", 0, 12)]
     assert again.revisions == 0 and again.exit_code == 2
+    assert not again.published and again.publish_message == "nothing changed; the served snapshot is already current"
+    assert again.exported == {}
 
 
 def test_nothing_runs_gives_exit_code_1(prefect_harness: None, tmp_path: Path) -> None:
