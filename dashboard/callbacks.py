@@ -320,7 +320,7 @@ def _bootstrap_band(
     y = snap.prepared(u, fit.window_start, fit.window_end)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", arlib.UnstableProcessWarning)
-        model = arlib.fit_var(y, fit.lags, names=u.series)
+        model = arlib.fit_var(y, fit.lags, trend=u.trend, names=u.series)
         bands = arlib.irf_bands(
             model, horizon, shocks=identification, cumulative=cumulative,
             order=list(order) if identification == "cholesky" else None,
@@ -359,7 +359,11 @@ def paths_view(
     band_note = "no band"
     if band == "stored":
         if lower is None or upper is None:
-            band_note = "no stored band for this choice (stored bands cover the stored identification, non-cumulative)"
+            band_note = (
+                "no stored band for this window and choice (the pipeline stores bands for its own "
+                "identification, non-cumulative, usually at the latest window); pick 'compute a "
+                "bootstrap band now'"
+            )
         else:
             band_note = "stored band"
     elif band == "bootstrap":
@@ -599,7 +603,7 @@ def compare_view(
 def health_view(snap: Snapshot, state: Any, near_one: Any = 0.98) -> ViewResult:
     """Lag order, spectral radius, residual test and observations over the date window."""
     window = snap.window(state)
-    near = parse_fraction(near_one, "near-one threshold", 0.5, 1.0)
+    near = parse_fraction(near_one, "near-one threshold", 0.0, 1.0)
     rows_db = snap.health(window)
     if not rows_db:
         raise WindowError(f"no windows between {window.label}")

@@ -25,6 +25,7 @@ from __future__ import annotations
 import contextlib
 import dataclasses
 import datetime as dt
+import json
 import os
 import re
 import threading
@@ -124,6 +125,7 @@ class Universe:
     horizon: int
     granger_level: float
     identification: str
+    trend: str = "c"
 
 
 @dataclasses.dataclass(frozen=True)
@@ -137,6 +139,15 @@ class Fit:
     coefs: np.ndarray
     intercept: np.ndarray
     sigma_u: np.ndarray
+
+
+def _trend(config_json: Any) -> str:
+    """The deterministic terms the universe's fits used ("n", "c", "ct"), from its stored config."""
+    try:
+        trend = json.loads(config_json).get("trend", "c")
+    except (TypeError, ValueError, AttributeError):
+        return "c"
+    return trend if trend in ("n", "c", "ct") else "c"
 
 
 def _array(values: Sequence[float] | None, shape: tuple[int, ...]) -> np.ndarray | None:
@@ -337,17 +348,17 @@ class Snapshot:
 
     def _universes(self) -> dict[str, Universe]:
         rows = self.reader.rows(
-            "SELECT u.universe, u.horizon, u.granger_level, u.identification, s.series "
-            "FROM universes u JOIN universe_series s USING (universe) "
+            "SELECT u.universe, u.horizon, u.granger_level, u.identification, u.config_json, "
+            "s.series FROM universes u JOIN universe_series s USING (universe) "
             "ORDER BY u.universe, s.position"
         )
         out: dict[str, list[Any]] = {}
-        for name, horizon, level, ident, series in rows:
-            entry = out.setdefault(name, [int(horizon), float(level), str(ident), []])
-            entry[3].append(series)
+        for name, horizon, level, ident, config_json, series in rows:
+            entry = out.setdefault(name, [int(horizon), float(level), str(ident), _trend(config_json), []])
+            entry[4].append(series)
         return {
-            name: Universe(name, tuple(series), horizon, level, ident)
-            for name, (horizon, level, ident, series) in out.items()
+            name: Universe(name, tuple(series), horizon, level, ident, trend)
+            for name, (horizon, level, ident, trend, series) in out.items()
         }
 
     def universe(self, name: Any) -> Universe:

@@ -1,8 +1,10 @@
 """Fixtures for the dashboard tests: one serving snapshot per session, and helpers to read it.
 
-The snapshot comes from the real pipeline when it can run (`pipeline.flows`/`pipeline.cli` with a
-``run`` entry); otherwise from `tests.dashboard._snapshot`, which fits the same tables with arlib
-on a small simulated data set. `SNAPSHOT_SOURCE` says which one this session uses.
+`snapshot_path` is made by the real pipeline (`tests.dashboard._pipeline`: ingest, rolling fits,
+publish and export over the invented demo data, the job's own steps without Prefect) whenever the
+pipeline and arlib's rolling engine import; otherwise — and always for `built_snapshot_path` — by
+`tests.dashboard._snapshot`, which fits the documented tables with arlib on a small simulated data
+set and includes a skipped window. The header line of the pytest run says which one is in use.
 """
 
 from __future__ import annotations
@@ -18,9 +20,18 @@ import pytest
 
 from dashboard.data import Snapshot
 
+from . import _pipeline
 from ._snapshot import write_snapshot
 
-SNAPSHOT_SOURCE = "arlib-built test snapshot (tests/dashboard/_snapshot.py)"
+SNAPSHOT_SOURCE = (
+    "real pipeline over the demo data (tests/dashboard/_pipeline.py)"
+    if _pipeline.available()
+    else "arlib-built test snapshot (tests/dashboard/_snapshot.py): the pipeline cannot run here"
+)
+
+
+def pytest_report_header() -> str:
+    return f"dashboard snapshot: {SNAPSHOT_SOURCE}"
 
 
 def read(path: Path, sql: str, params: Sequence[Any] = ()) -> list[tuple[Any, ...]]:
@@ -36,9 +47,23 @@ def read(path: Path, sql: str, params: Sequence[Any] = ()) -> list[tuple[Any, ..
 
 
 @pytest.fixture(scope="session")
-def snapshot_path(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    folder = tmp_path_factory.mktemp("serving")
-    return write_snapshot(folder / "serving.duckdb")
+def pipeline_output(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, Path | None]:
+    """(serving snapshot, export folder or None), made once per session."""
+    folder = tmp_path_factory.mktemp("pipeline")
+    if _pipeline.available():
+        return _pipeline.build(folder)
+    return write_snapshot(folder / "serving.duckdb"), None
+
+
+@pytest.fixture(scope="session")
+def snapshot_path(pipeline_output: tuple[Path, Path | None]) -> Path:
+    return pipeline_output[0]
+
+
+@pytest.fixture(scope="session")
+def built_snapshot_path(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """The arlib-built snapshot (simulated data, one skipped window), whatever the pipeline can do."""
+    return write_snapshot(tmp_path_factory.mktemp("built") / "serving.duckdb")
 
 
 @pytest.fixture(scope="session")

@@ -186,16 +186,20 @@ def test_compare_view_change_is_b_minus_a(snap: Snapshot, snapshot_path: Path, s
     assert r1b[0]["a_window"].startswith(lo.isoformat())
 
 
-def test_health_view_flags_and_skips(snap: Snapshot, snapshot_path: Path, state: dict[str, str], universe_name: str) -> None:
-    fig, rows, note = cb.health_view(snap, state, 0.5000001)
+def test_health_view_flags_and_skips(built_snapshot_path: Path) -> None:
+    snap, snapshot_path, universe_name = Snapshot(built_snapshot_path), built_snapshot_path, "demo_four"
+    state = {"universe": universe_name, "start": None, "end": None}
+    fig, rows, note = cb.health_view(snap, state, 0.2)
     _valid(fig)
     stored = read(snapshot_path, "SELECT count(*), count(skip_reason) FROM window_fits WHERE universe = ?", [universe_name])[0]
     assert len(rows) == stored[0]
     skipped = cb.skipped_rows(rows)
     assert len(skipped) == stored[1] >= 1
     assert "skipped" in note
+    radii = [r for (r,) in read(snapshot_path, "SELECT spectral_radius FROM window_fits WHERE universe = ? AND skip_reason IS NULL", [universe_name])]
     flagged = [r for r in rows if r["radius_flag"]]
-    assert all(r["spectral_radius"] >= 0.5000001 for r in flagged)
+    assert len(flagged) == sum(r >= 0.2 for r in radii) > 0
+    assert all(r["spectral_radius"] >= 0.2 for r in flagged)
     names = [t.get("name", "") for t in fig["data"]]
     assert any(name.startswith("skipped window") for name in names)
 

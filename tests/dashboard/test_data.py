@@ -56,9 +56,11 @@ def test_index_in_window_matches_file(snap: Snapshot, snapshot_path: Path, unive
     assert got == want and len(got) > 3
 
 
-def test_fitted_end_skips_skipped_windows(snap: Snapshot, snapshot_path: Path, universe_name: str) -> None:
+def test_fitted_end_skips_skipped_windows(built_snapshot_path: Path) -> None:
+    snap = Snapshot(built_snapshot_path)
+    universe_name = "demo_four"
     skipped = read(
-        snapshot_path,
+        built_snapshot_path,
         "SELECT window_end FROM window_fits WHERE universe = ? AND skip_reason IS NOT NULL",
         [universe_name],
     )
@@ -100,7 +102,7 @@ def test_refit_on_prepared_rows_reproduces_stored_model(snap: Snapshot, universe
     end = snap.fitted_end(DateWindow(universe_name, *bounds))
     fit = snap.fit(u, end)
     y = snap.prepared(u, fit.window_start, fit.window_end)
-    refit = arlib.fit_var(y, fit.lags, names=u.series)
+    refit = arlib.fit_var(y, fit.lags, trend=u.trend, names=u.series)
     np.testing.assert_allclose(refit.coefs, fit.coefs, rtol=1e-9, atol=1e-12)
     np.testing.assert_allclose(refit.sigma_u, fit.sigma_u, rtol=1e-9, atol=1e-12)
 
