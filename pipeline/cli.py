@@ -19,6 +19,7 @@ from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
 from rich.console import Console
+from rich.markup import escape
 from rich.table import Table
 
 from pipeline.errors import ShockflowError
@@ -68,7 +69,7 @@ def _fail(exc: BaseException, debug: bool) -> typer.Exit:
     if debug:
         console.print_exception()
     text = str(exc) if isinstance(exc, ShockflowError) else f"{type(exc).__name__}: {exc}"
-    console.print(f"[bold red]error:[/] {text}", soft_wrap=True)
+    console.print(f"[bold red]error:[/] {escape(text)}", soft_wrap=True)
     return typer.Exit(1)
 
 
@@ -106,7 +107,7 @@ def _summary_table(summary: NightlySummary, wall: float) -> Table:
         table.add_row(
             r.universe, f"[{style}]{r.status}[/]", str(r.fitted), str(r.skipped), str(r.failed), str(r.reused),
             f"{s.get('prepare', 0):.2f}", f"{s.get('fit', 0):.2f}", f"{s.get('store', 0):.2f}",
-            r.message or r.reason,
+            escape(r.message or r.reason),
         )
     return table
 
@@ -120,7 +121,7 @@ def _sources_table(summary: NightlySummary) -> Table:
         rate = f"{r.rows_read / r.seconds:,.0f}" if r.seconds > 0 and r.rows_read else "-"
         table.add_row(
             r.source, f"[{style}]{r.status}[/]", f"{r.rows_read:,}", f"{r.rows_new:,}", f"{r.rows_revised:,}",
-            f"{r.seconds:.2f}", rate, r.message or "",
+            f"{r.seconds:.2f}", rate, escape(r.message or ""),
         )
     return table
 
@@ -154,6 +155,9 @@ def _run(
     )
 
     from pipeline import flows
+    from pipeline._logs import quiet_tracebacks
+
+    quiet_tracebacks(debug)  # Prefect's console logs: one line per failure unless --debug
 
     if universes:
         for name in universes:
@@ -193,7 +197,7 @@ def _report(summary: NightlySummary, wall: float, config: Config) -> None:
     if n_files:
         out.print(f"exports: {n_files} file(s) under {config.export.directory}")
     for failure in summary.failures:
-        console.print(f"[bold red]failed:[/] {failure}", soft_wrap=True)
+        console.print(f"[bold red]failed:[/] {escape(failure)}", soft_wrap=True)
     if summary.interrupted_marked:
         console.print(f"[yellow]note:[/] {summary.interrupted_marked} run(s) left running by an earlier process were marked failed")
 
@@ -247,7 +251,7 @@ def check(config: ConfigOpt, debug: DebugOpt = False) -> None:
             try:
                 frame = read_source(source)
             except ShockflowError as exc:
-                table.add_row(source.name, source.kind, "[red]failed[/]", "", "", "", "", str(exc))
+                table.add_row(source.name, source.kind, "[red]failed[/]", "", "", "", "", escape(str(exc)))
                 problems.append(str(exc))
                 continue
             available[source.name] = set(frame.series)
@@ -270,7 +274,7 @@ def check(config: ConfigOpt, debug: DebugOpt = False) -> None:
             if not _writable_folder(folder):
                 problems.append(f"{cfg.path}: {label} folder {str(folder)!r} cannot be written; choose a writable folder")
         for p in problems:
-            console.print(f"[bold red]error:[/] {p}", soft_wrap=True)
+            console.print(f"[bold red]error:[/] {escape(p)}", soft_wrap=True)
         if not problems:
             out.print(f"config ok: {len(cfg.sources)} source(s), {len(cfg.universes)} universe(s)")
             return 0
