@@ -13,7 +13,7 @@ Sections (every key is documented in the README):
 - ``[[universes]]`` name, series, transform, frequency, max_fill_gap, window, step, expanding,
   lags | [universes.lag_selection], trend, horizon, identification, cholesky_order (the series
   are then stored and fitted in that order, which is the Cholesky order),
-  [universes.bands], granger_level, portmanteau_lags
+  [universes.bands], granger_level, portmanteau_lags, arrays_every
 - ``[schedule]`` cron, timezone
 - ``[export]`` directory, formats
 - ``[dashboard]`` host, port, token | username + password, or the *_env names of variables holding them
@@ -165,6 +165,9 @@ class UniverseConfig:
     bands: Bands = field(default_factory=Bands)
     granger_level: float = 0.05
     portmanteau_lags: int | None = None
+    #: store responses and decompositions for every `arrays_every`-th window of the grid (and for
+    #: the newest window of each run); 1 = every window. Other windows' arrays are derived on demand.
+    arrays_every: int = 1
 
     @property
     def names(self) -> tuple[str, ...]:
@@ -205,6 +208,7 @@ class UniverseConfig:
             "bands": dataclasses.asdict(self.bands),
             "granger_level": self.granger_level,
             "portmanteau_lags": self.residual_test_lags,
+            "arrays_every": self.arrays_every,
         }
 
     @property
@@ -618,6 +622,7 @@ def _load_universe(t: _Table) -> UniverseConfig:
             t.fail(f"{t.where}.bands.coverage", f"is {bands.coverage}", "use a level in [0.5, 1), e.g. 0.9")
     granger_level = t.get("granger_level", float, 0.05)
     portmanteau_lags = t.integer("portmanteau_lags", None, minimum=1)
+    arrays_every = t.integer("arrays_every", 1, minimum=1)
     t.finish()
 
     if (lags is None) == (lag_selection is None):
@@ -682,6 +687,7 @@ def _load_universe(t: _Table) -> UniverseConfig:
         bands=bands,
         granger_level=granger_level,
         portmanteau_lags=portmanteau_lags,
+        arrays_every=arrays_every,
     )
 
 

@@ -260,10 +260,12 @@ def result_tables(
     *,
     run_id: str,
     bands: tuple[np.ndarray, np.ndarray, float] | None = None,
+    last_block: bool = True,
 ) -> dict[str, pl.DataFrame]:
     """The engine's result as the warehouse's per-window tables (docs/warehouse.md).
 
     bands: optional (lower, upper, coverage) with lower/upper (H+1, n, n) for the LAST fitted window.
+    last_block: this block holds the universe's newest window (which always gets its arrays).
     """
     names = list(prepared.names)
     n = len(names)
@@ -353,12 +355,19 @@ def result_tables(
             "sigma_u": _flat(np.asarray(rolling.sigma_u)[k]),
         }
     )
+    # arrays for windows on the sub-grid (grid index divisible by arrays_every) and the newest one
+    grid_index = (ends - (universe.window - 1)) // universe.step
+    keep = grid_index[k] % universe.arrays_every == 0
+    if last_block and K:
+        keep[-1] = True
+    ka = k[keep]
+    Ka = ka.size
     if rolling.responses is not None:
-        resp = np.asarray(rolling.responses)[k]
-        lower_rows: list[list[float] | None] = [None] * K
-        upper_rows: list[list[float] | None] = [None] * K
-        coverage_rows: list[float | None] = [None] * K
-        if bands is not None and K:
+        resp = np.asarray(rolling.responses)[ka]
+        lower_rows: list[list[float] | None] = [None] * Ka
+        upper_rows: list[list[float] | None] = [None] * Ka
+        coverage_rows: list[float | None] = [None] * Ka
+        if bands is not None and Ka:
             lo, hi, cov = bands
             lower_rows[-1] = np.ravel(lo).tolist()
             upper_rows[-1] = np.ravel(hi).tolist()
@@ -368,9 +377,9 @@ def result_tables(
         coverage = pl.Series(coverage_rows, dtype=pl.Float64)
         tables["responses"] = pl.DataFrame(
             {
-                **head(k),
-                "identification": [universe.identification] * K,
-                "horizon": pl.Series([universe.horizon] * K, dtype=pl.Int32),
+                **head(ka),
+                "identification": [universe.identification] * Ka,
+                "horizon": pl.Series([universe.horizon] * Ka, dtype=pl.Int32),
                 "response": _flat(resp),
                 "lower": lower,
                 "upper": upper,
@@ -380,10 +389,10 @@ def result_tables(
     if rolling.decomposition is not None:
         tables["decompositions"] = pl.DataFrame(
             {
-                **head(k),
-                "method": [universe.identification] * K,
-                "horizon": pl.Series([universe.horizon] * K, dtype=pl.Int32),
-                "share": _flat(np.asarray(rolling.decomposition)[k]),
+                **head(ka),
+                "method": [universe.identification] * Ka,
+                "horizon": pl.Series([universe.horizon] * Ka, dtype=pl.Int32),
+                "share": _flat(np.asarray(rolling.decomposition)[ka]),
             }
         )
     return tables

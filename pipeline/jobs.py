@@ -210,10 +210,13 @@ def plan_universe(
 def fit_block_step(
     prepared: Prepared, universe: UniverseConfig, ends: np.ndarray, *, run_id: str, with_bands: bool
 ) -> dict[str, pl.DataFrame]:
-    """Fit one block of window ends and return its result tables (pure compute, no I/O)."""
+    """Fit one block of window ends and return its result tables (pure compute, no I/O).
+
+    with_bands: this is the universe's last block (its newest window gets bands and arrays).
+    """
     rolling = fit_block(prepared, universe, ends)
     bands = latest_window_bands(prepared, universe, rolling) if with_bands else None
-    return result_tables(rolling, prepared, universe, run_id=run_id, bands=bands)
+    return result_tables(rolling, prepared, universe, run_id=run_id, bands=bands, last_block=with_bands)
 
 
 def store_universe(

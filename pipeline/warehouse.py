@@ -288,29 +288,36 @@ def upsert_observations(
     with transaction(con, path=path, action=f"storing observations of source {source!r}"):
         con.register(view, table)
         try:
-            con.execute(f"CREATE OR REPLACE TEMP TABLE _inc AS SELECT series, date, value FROM {view}")
+            empty = not con.execute("SELECT EXISTS (SELECT 1 FROM observations)").fetchall()[0][0]
+            if empty:  # first ingest: nothing to compare with
+                new = con.execute(
+                    f"INSERT INTO observations SELECT series, date, value, ?, ? FROM {view}", [source, batch_id]
+                ).fetchall()
+                revised = [(0,)]
+            else:  # one join: each incoming row with the stored value (NULL when new)
+                con.execute(
+                    "CREATE OR REPLACE TEMP TABLE _inc AS SELECT i.series, i.date, i.value, o.value AS old "
+                    f"FROM {view} i LEFT JOIN observations o ON o.series = i.series AND o.date = i.date"
+                )
+                revised = con.execute(
+                    "INSERT INTO revisions SELECT ?, series, date, old, value FROM _inc "
+                    "WHERE old IS NOT NULL AND old <> value",
+                    [batch_id],
+                ).fetchall()
+                if revised[0][0]:
+                    con.execute(
+                        "UPDATE observations AS o SET value = i.value, source = ?, batch_id = ? FROM _inc i "
+                        "WHERE i.old IS NOT NULL AND i.old <> i.value AND o.series = i.series AND o.date = i.date",
+                        [source, batch_id],
+                    )
+                new = con.execute(
+                    "INSERT INTO observations SELECT series, date, value, ?, ? FROM _inc WHERE old IS NULL",
+                    [source, batch_id],
+                ).fetchall()
+                con.execute("DROP TABLE _inc")
         finally:
             con.unregister(view)
-        revised = con.execute(
-            "INSERT INTO revisions SELECT ?, i.series, i.date, o.value, i.value FROM _inc i "
-            "JOIN observations o ON o.series = i.series AND o.date = i.date WHERE o.value <> i.value",
-            [batch_id],
-        ).fetchone()
-        if revised and revised[0]:
-            con.execute(
-                "UPDATE observations AS o SET value = i.value, source = ?, batch_id = ? FROM _inc i "
-                "WHERE o.series = i.series AND o.date = i.date AND o.value <> i.value",
-                [source, batch_id],
-            )
-        new = con.execute(
-            "INSERT INTO observations SELECT i.series, i.date, i.value, ?, ? FROM _inc i "
-            "ANTI JOIN observations o ON o.series = i.series AND o.date = i.date",
-            [source, batch_id],
-        ).fetchone()
-        con.execute("DROP TABLE _inc")
-    return IngestCounts(
-        rows_read=frame.height, rows_new=int(new[0]) if new else 0, rows_revised=int(revised[0]) if revised else 0
-    )
+    return IngestCounts(rows_read=frame.height, rows_new=int(new[0][0]), rows_revised=int(revised[0][0]))
 
 
 def read_observations(con: duckdb.DuckDBPyConnection, series: list[str] | tuple[str, ...]) -> pl.DataFrame:

@@ -11,7 +11,7 @@ import polars as pl
 
 from pipeline.errors import SourceError
 from pipeline.sources._frame import SourceFrame
-from pipeline.sources._rows import from_table
+from pipeline.sources._rows import MISSING_MARKERS, from_table
 
 if TYPE_CHECKING:
     from pipeline.config import SourceConfig
@@ -33,7 +33,11 @@ def resolve_glob(source: SourceConfig) -> list[str]:
 
 
 def parse_csv_bytes(data: bytes, *, origin: str, source: SourceConfig, today: date) -> pl.DataFrame:
-    """CSV bytes → validated long rows. Everything is read as text, then checked cell by cell."""
+    """CSV bytes → validated long rows.
+
+    Numbers are parsed by the CSV reader (fast); if any cell does not parse, the file is read again
+    as text and checked cell by cell, so the error names the line, the series and the value.
+    """
     if not data.strip():
         msg = f"{origin}: the file is empty; check the export that wrote it"
         raise SourceError(msg)
@@ -46,19 +50,43 @@ def parse_csv_bytes(data: bytes, *, origin: str, source: SourceConfig, today: da
             "re-save the file as UTF-8"
         )
         raise SourceError(msg) from None
+    raw = text.encode() if data.startswith(b"\xef\xbb\xbf") else data
+    df = _read_typed(raw, source)
+    if df is None:  # some cell is not a plain number: read everything as text for exact errors
+        try:
+            df = pl.read_csv(raw, separator=source.delimiter, infer_schema=False, has_header=True)
+        except pl.exceptions.PolarsError as exc:
+            first = " ".join(str(exc).split())[:300]
+            msg = f"{origin}: not a readable CSV ({first}); check the delimiter and that every row has the header's columns"
+            raise SourceError(msg) from None
+    return from_table(df, origin=origin, source=source, today=today)
+
+
+def _read_typed(data: bytes, source: SourceConfig) -> pl.DataFrame | None:
+    """Fast path: value columns parsed as Float64 by the CSV reader (missing markers → null).
+
+    Returns None when any cell does not parse (text, padded numbers, a ragged row); the caller
+    then reads every cell as text and the row checks name the exact cell.
+    """
     try:
-        df = pl.read_csv(
-            text.encode(),
+        header = pl.read_csv(data, separator=source.delimiter, n_rows=0, infer_schema=False).columns
+    except pl.exceptions.PolarsError:
+        return None
+    if source.layout == "wide":
+        numeric = [c for c in header if c.strip() != source.date_column]
+    else:
+        numeric = [c for c in header if c.strip() == source.value_column]
+    try:
+        return pl.read_csv(
+            data,
             separator=source.delimiter,
             infer_schema=False,
             has_header=True,
-            truncate_ragged_lines=False,
+            schema_overrides={c: pl.Float64 for c in numeric},
+            null_values=list(MISSING_MARKERS),
         )
-    except pl.exceptions.PolarsError as exc:
-        first = " ".join(str(exc).split())[:300]
-        msg = f"{origin}: not a readable CSV ({first}); check the delimiter and that every row has the header's columns"
-        raise SourceError(msg) from None
-    return from_table(df, origin=origin, source=source, today=today)
+    except pl.exceptions.PolarsError:
+        return None
 
 
 def read_csv(source: SourceConfig, *, today: date) -> SourceFrame:

@@ -183,6 +183,42 @@ def _require_columns(df: pl.DataFrame, names: list[str], *, origin: str, source:
         raise SourceError(msg)
 
 
+def _values_frame(vals: pl.DataFrame, *, origin: str, lines: pl.Series | None) -> pl.DataFrame:
+    """All value columns of a wide table → Float64 in one pass; errors name the first bad cell."""
+    markers = list(MISSING_MARKERS)
+    exprs = []
+    for name, dtype in vals.schema.items():
+        col = pl.col(name)
+        if dtype == pl.String:
+            text = col.str.strip_chars()
+            exprs.append(pl.when(text.is_in(markers)).then(None).otherwise(text).cast(pl.Float64, strict=False).alias(name))
+        elif dtype.is_numeric() or dtype == pl.Null:
+            exprs.append(col.cast(pl.Float64).fill_nan(None).alias(name))
+        else:
+            msg = f"{origin}: column {name!r} has type {dtype}; give it numbers"
+            raise DataError(msg)
+    floats = vals.select(exprs)
+    # a text cell that is neither a number nor a missing marker: find the first, report it
+    text_cols = [n for n, d in vals.schema.items() if d == pl.String]
+    if text_cols:
+        lost = vals.select(
+            [(floats[n].is_null() & vals[n].is_not_null() & ~vals[n].str.strip_chars().is_in(markers)).alias(n) for n in text_cols]
+        )
+        if lost.select(pl.any_horizontal(pl.all()).any()).item():
+            for n in text_cols:
+                _parse_values(vals[n], origin=origin, series=n, lines=lines)  # raises with line and value
+    huge = floats.select(pl.any_horizontal((pl.all().abs() >= MAX_ABS_VALUE).fill_null(False)).any()).item()
+    if huge:
+        for n in floats.columns:
+            _parse_values(floats[n], origin=origin, series=n, lines=lines)  # raises with line and value
+    counts = floats.null_count().row(0, named=True)
+    for n, missing in counts.items():
+        if missing == floats.height:
+            msg = f"{origin}: column {n!r} has no values (all missing); remove the column or fill it"
+            raise DataError(msg)
+    return floats
+
+
 def from_wide(
     df: pl.DataFrame, *, origin: str, source: SourceConfig, today: date, first_line: int | None = 2
 ) -> pl.DataFrame:
@@ -197,19 +233,16 @@ def from_wide(
     dates = _parse_dates(
         df[source.date_column], origin=origin, column=source.date_column, date_format=source.date_format, lines=lines
     )
-    columns: dict[str, pl.Series] = {}
-    for name in value_columns:
-        values = _parse_values(df[name], origin=origin, series=name, lines=lines)
-        if values.null_count() == values.len():
-            msg = f"{origin}: column {name!r} has no values (all missing); remove the column or fill it"
-            raise DataError(msg)
-        columns[name] = values
-    wide = pl.DataFrame({"date": dates, **columns})
+    floats = _values_frame(df.select(value_columns), origin=origin, lines=lines)
+    wide = floats.with_columns(dates.alias("date"))
     if lines is not None:
         wide = wide.with_columns(lines.alias("_line"))
-    long = wide.unpivot(index=["date", *(["_line"] if lines is not None else [])], variable_name="series", value_name="value")
-    long = long.drop_nulls("value")
-    return _finish(long, origin=origin, today=today)
+    repeated = bool(dates.is_duplicated().any())
+    wide = wide.sort("date")
+    index = ["date", *(["_line"] if lines is not None else [])]
+    long = wide.unpivot(on=value_columns, index=index, variable_name="series", value_name="value").drop_nulls("value")
+    # one column per series: duplicates can only come from a repeated date
+    return _finish(long, origin=origin, today=today, check_duplicates=repeated, presorted=True)
 
 
 def from_long(
@@ -252,8 +285,14 @@ def from_table(
     return reader(df, origin=origin, source=source, today=today, first_line=first_line)
 
 
-def _finish(long: pl.DataFrame, *, origin: str, today: date) -> pl.DataFrame:
-    """Future dates, conflicting duplicates, exact duplicates, sorting."""
+def _finish(
+    long: pl.DataFrame, *, origin: str, today: date, check_duplicates: bool = True, presorted: bool = False
+) -> pl.DataFrame:
+    """Future dates, conflicting duplicates, exact duplicates, sorting.
+
+    presorted: rows are already grouped by series with dates ascending (wide input), so the final
+    sort is skipped.
+    """
     has_line = "_line" in long.columns
     future = long.filter(pl.col("date") > today)
     if future.height:
@@ -264,8 +303,8 @@ def _finish(long: pl.DataFrame, *, origin: str, today: date) -> pl.DataFrame:
             "fix the date (a typo or a forecast in the source)"
         )
         raise DataError(msg)
-    duplicated = long.select(pl.struct("series", "date").is_duplicated()).to_series()
-    if duplicated.any():
+    duplicated = long.select(pl.struct("series", "date").is_duplicated()).to_series() if check_duplicates else None
+    if duplicated is not None and duplicated.any():
         dupes = long.filter(duplicated)
         counts = dupes.group_by("series", "date").agg(
             pl.col("value").n_unique().alias("distinct"),
@@ -283,6 +322,5 @@ def _finish(long: pl.DataFrame, *, origin: str, today: date) -> pl.DataFrame:
             )
             raise DataError(msg)
         long = long.unique(subset=["series", "date"], keep="first", maintain_order=True)
-    return long.select(
-        pl.col("series").cast(pl.String), pl.col("date").cast(pl.Date), pl.col("value").cast(pl.Float64)
-    ).sort("series", "date")
+    out = long.select(pl.col("series").cast(pl.String), pl.col("date").cast(pl.Date), pl.col("value").cast(pl.Float64))
+    return out if presorted else out.sort("series", "date")

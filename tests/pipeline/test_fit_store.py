@@ -254,3 +254,16 @@ def test_windows_with_too_few_rows_are_skipped_with_reason(tmp_path: Path) -> No
     assert skipped.height == r.skipped
     assert skipped["spectral_radius"].null_count() == skipped.height
     assert all(isinstance(s, str) and s for s in skipped["skip_reason"].to_list())
+
+
+def test_arrays_every_thins_responses_but_keeps_the_newest(tmp_path: Path) -> None:
+    cfg = setup(tmp_path, extra="arrays_every = 7\n")
+    ingest(cfg)
+    r = jobs.run_universe(cfg.warehouse.path, cfg.universes[0], block_windows=8)  # 4 blocks
+    assert r.fitted == 30
+    got = results(cfg)
+    ends = got["window_fits"]["window_end"].to_list()
+    expected = [ends[i] for i in range(0, 30, 7)] + [ends[-1]]
+    assert got["responses"]["window_end"].to_list() == expected
+    assert got["decompositions"]["window_end"].to_list() == expected
+    assert got["connectedness"].height == 30  # every window keeps its connectedness and Granger rows
