@@ -62,7 +62,10 @@ CRITERIA = ("aic", "bic", "hq", "fpe")
 #: Above this condition number a window is refitted directly by QR instead of from cross-products.
 FAST_COND_LIMIT = 1e6
 #: Working-memory budget per chunk of windows (bytes); bounds peak memory beyond the outputs.
-CHUNK_BYTES = 48 * 2**20
+CHUNK_BYTES = 64 * 2**20
+#: Budget (bytes) and window cap for one block of packed cross-product sums.
+GRAM_BYTES = 64 * 2**20
+MAX_GRAM_WINDOWS = 2048
 
 
 # ---------------------------------------------------------------------------------------------
@@ -606,26 +609,32 @@ def _fit_group(
     out.nobs[idx] = cum[ends + 1] - cum[first]
     extra = (out.responses is not None) + (out.decomposition is not None)
     size = _chunk_size(n, p, d, out.H, extra)
+    m = d + n * (p + 1)
+    # cross-product sums over larger blocks (packed: m(m+1)/2 numbers per window), so the rows
+    # shared by neighbouring windows are summed once; the per-window stages then run in
+    # memory-bounded sub-chunks
+    gram_block = int(np.clip(GRAM_BYTES // (8 * m * (m + 1) // 2), size, MAX_GRAM_WINDOWS))
     if expanding:
         fr = _frame(data, finite, 0, int(ends[-1]), trend)
         carry = {"row": p, "sum": None}
-    for chunk in _chunks(ends, size, expanding):
-        widx = idx[chunk]
-        e = ends[chunk]
-        a = first[chunk]
+    for block in _chunks(ends, gram_block, expanding):
+        e = ends[block]
+        a = first[block]
         with timer("gram"):
             if expanding:
                 G = _expanding_grams(data, usable, p, trend, fr, e, carry)
             else:
-                fr = _frame(data, finite, int(starts[chunk][0]), int(e[-1]), trend)
+                lo = int(starts[block][0])
+                fr = _frame(data, finite, lo, int(e[-1]), trend)
                 rows = np.arange(int(a[0]), int(e[-1]) + 1)
-                lo = int(starts[chunk][0])
                 ys = np.full_like(data, np.nan)
                 ys[lo:] = (data[lo:] - fr.mu) / fr.scale
                 z = K.augmented_rows(ys, rows, p, _det_columns(rows, trend, fr), usable[rows])
                 G = K.window_sums(z, a - a[0], int(e[0] - a[0] + 1))
                 del z
-        _fit_chunk(data, usable, p, trend, fr, widx, G, out, timer)
+        for sub in range(0, block.size, size):
+            part = slice(sub, sub + size)
+            _fit_chunk(data, usable, p, trend, fr, idx[block[part]], G[part], out, timer)
 
 
 def _expanding_grams(

@@ -38,10 +38,20 @@ def _call(client: Any, app: Any, prefix: str, values: dict[str, Any]) -> float:
 
     def pid(s: dict[str, Any]) -> str:
         cid = s["id"]
-        return (cid if isinstance(cid, str) else json.dumps(cid, sort_keys=True, separators=(",", ":"))) + "." + s["property"]
+        return (
+            (
+                cid
+                if isinstance(cid, str)
+                else json.dumps(cid, sort_keys=True, separators=(",", ":"))
+            )
+            + "."
+            + s["property"]
+        )
 
     def fill(specs: list[dict[str, Any]]) -> list[dict[str, Any]]:
-        return [{"id": s["id"], "property": s["property"], "value": values.get(pid(s))} for s in specs]
+        return [
+            {"id": s["id"], "property": s["property"], "value": values.get(pid(s))} for s in specs
+        ]
 
     outputs = []
     for part in key.strip(".").split("..."):
@@ -71,7 +81,9 @@ def _windows(snap: Any, universe: str, count: int) -> list[dict[str, str]]:
     span = max(2, len(ends) // 5)
     for k in range(1, count):
         j = min(len(ends) - 1, span + (k * (len(ends) - span - 1)) // max(1, count - 1))
-        out.append({"universe": universe, "start": ends[j - span].isoformat(), "end": ends[j].isoformat()})
+        out.append(
+            {"universe": universe, "start": ends[j - span].isoformat(), "end": ends[j].isoformat()}
+        )
     return out
 
 
@@ -88,19 +100,120 @@ def run(snapshot: Path, *, repeats: int = 15) -> list[dict[str, Any]]:
     order = [*u.series[::-1]]
     states = _windows(snap, universe, repeats)
     cases: list[tuple[str, str, Any]] = [
-        ("date window (sync)", "..window-start.value", lambda s: {"window-start.value": s["start"], "universe.value": universe, "window-end.value": s["end"]}),
-        ("connectedness index", "..index-graph.figure", lambda s: {"window-state.data": s, "stress-quantile.value": 0.9}),
-        ("shock paths, generalized", "..paths-graph.figure", lambda s: {"window-state.data": s, "identification.value": "generalized", "cholesky-ordering.value": list(u.series), "cumulative.value": [], "horizon.value": u.horizon, "bands.value": "stored", "views.value": "paths"}),
-        ("shock paths, Cholesky reordered, cumulative", "..paths-graph.figure", lambda s: {"window-state.data": s, "identification.value": "cholesky", "cholesky-ordering.value": order, "cumulative.value": ["cumulative"], "horizon.value": u.horizon + 10, "bands.value": "none", "views.value": "paths"}),
-        ("variance shares", "..shares-graph.figure", lambda s: {"window-state.data": s, "cholesky-ordering.value": order, "horizon.value": u.horizon, "views.value": "shares"}),
-        ("lead-lag", "..leadlag-graph.figure", lambda s: {"window-state.data": s, "granger-level.value": u.granger_level, "views.value": "leadlag"}),
-        ("network, window end", "..network-graph.figure", lambda s: {"window-state.data": s, "network-mode.value": "end", "network-size.value": "to", "views.value": "network"}),
-        ("network, averaged", "..network-graph.figure", lambda s: {"window-state.data": s, "network-mode.value": "mean", "network-size.value": "from", "views.value": "network"}),
-        ("compare windows", "..compare-pairs-graph.figure", lambda s: {"window-state.data": s, "identification.value": "generalized", "cholesky-ordering.value": list(u.series), "horizon.value": u.horizon, "views.value": "compare"}),
-        ("model health", "..health-graph.figure", lambda s: {"window-state.data": s, "near-one.value": 0.98, "views.value": "health"}),
-        ("own cycles", "..cycles-graph.figure", lambda s: {"window-state.data": s, "views.value": "cycles"}),
+        (
+            "date window (sync)",
+            "..window-start.value",
+            lambda s: {
+                "window-start.value": s["start"],
+                "universe.value": universe,
+                "window-end.value": s["end"],
+            },
+        ),
+        (
+            "connectedness index",
+            "..index-graph.figure",
+            lambda s: {"window-state.data": s, "stress-quantile.value": 0.9},
+        ),
+        (
+            "shock paths, generalized",
+            "..paths-graph.figure",
+            lambda s: {
+                "window-state.data": s,
+                "identification.value": "generalized",
+                "cholesky-ordering.value": list(u.series),
+                "cumulative.value": [],
+                "horizon.value": u.horizon,
+                "bands.value": "stored",
+                "views.value": "paths",
+            },
+        ),
+        (
+            "shock paths, Cholesky reordered, cumulative",
+            "..paths-graph.figure",
+            lambda s: {
+                "window-state.data": s,
+                "identification.value": "cholesky",
+                "cholesky-ordering.value": order,
+                "cumulative.value": ["cumulative"],
+                "horizon.value": u.horizon + 10,
+                "bands.value": "none",
+                "views.value": "paths",
+            },
+        ),
+        (
+            "variance shares",
+            "..shares-graph.figure",
+            lambda s: {
+                "window-state.data": s,
+                "cholesky-ordering.value": order,
+                "horizon.value": u.horizon,
+                "views.value": "shares",
+            },
+        ),
+        (
+            "lead-lag",
+            "..leadlag-graph.figure",
+            lambda s: {
+                "window-state.data": s,
+                "granger-level.value": u.granger_level,
+                "views.value": "leadlag",
+            },
+        ),
+        (
+            "network, window end",
+            "..network-graph.figure",
+            lambda s: {
+                "window-state.data": s,
+                "network-mode.value": "end",
+                "network-size.value": "to",
+                "views.value": "network",
+            },
+        ),
+        (
+            "network, averaged",
+            "..network-graph.figure",
+            lambda s: {
+                "window-state.data": s,
+                "network-mode.value": "mean",
+                "network-size.value": "from",
+                "views.value": "network",
+            },
+        ),
+        (
+            "compare windows",
+            "..compare-pairs-graph.figure",
+            lambda s: {
+                "window-state.data": s,
+                "identification.value": "generalized",
+                "cholesky-ordering.value": list(u.series),
+                "horizon.value": u.horizon,
+                "views.value": "compare",
+            },
+        ),
+        (
+            "model health",
+            "..health-graph.figure",
+            lambda s: {"window-state.data": s, "near-one.value": 0.98, "views.value": "health"},
+        ),
+        (
+            "own cycles",
+            "..cycles-graph.figure",
+            lambda s: {"window-state.data": s, "views.value": "cycles"},
+        ),
     ]
-    on_demand = ("shock paths + bootstrap band (on demand)", "..paths-graph.figure", lambda s: {"window-state.data": s, "identification.value": "generalized", "cholesky-ordering.value": list(u.series), "cumulative.value": [], "horizon.value": u.horizon, "bands.value": "bootstrap", "views.value": "paths"})
+    on_demand = (
+        "shock paths + bootstrap band (on demand)",
+        "..paths-graph.figure",
+        lambda s: {
+            "window-state.data": s,
+            "identification.value": "generalized",
+            "cholesky-ordering.value": list(u.series),
+            "cumulative.value": [],
+            "horizon.value": u.horizon,
+            "bands.value": "bootstrap",
+            "views.value": "paths",
+        },
+    )
     results = []
     for name, prefix, make in [*cases, on_demand]:
         _call(client, app, prefix, make(states[0]))  # warm (first import/compile paths)
@@ -127,12 +240,17 @@ def _default_snapshot() -> tuple[Path, str]:
 
     folder = Path(tempfile.mkdtemp(prefix="shockflow-bench-"))
     path = write_snapshot(folder / "serving.duckdb", T=1500, window=250, step=5)
-    return path, f"simulated 4-series test snapshot {path} (no demo snapshot found; run `make demo` first)"
+    return (
+        path,
+        f"simulated 4-series test snapshot {path} (no demo snapshot found; run `make demo` first)",
+    )
 
 
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--config", type=Path, help="pipeline config; its [warehouse] snapshot is read")
+    parser.add_argument(
+        "--config", type=Path, help="pipeline config; its [warehouse] snapshot is read"
+    )
     parser.add_argument("--snapshot", type=Path, help="serving snapshot file")
     parser.add_argument("--repeats", type=int, default=15)
     args = parser.parse_args(argv)
@@ -146,11 +264,17 @@ def main(argv: list[str] | None = None) -> int:
     else:
         snapshot, label = _default_snapshot()
     rows = run(snapshot, repeats=args.repeats)
-    print(f"dashboard callbacks — {label}; {args.repeats} requests each; target median < {TARGET_MS:.0f} ms")
+    print(
+        f"dashboard callbacks — {label}; {args.repeats} requests each; target median < {TARGET_MS:.0f} ms"
+    )
     print(f"{'callback':45s} {'median ms':>10s} {'p95 ms':>9s} {'max ms':>9s}  target")
     for r in rows:
-        verdict = "(on demand)" if r["on_demand"] else ("ok" if r["median_ms"] < TARGET_MS else "SLOW")
-        print(f"{r['callback']:45s} {r['median_ms']:10.1f} {r['p95_ms']:9.1f} {r['max_ms']:9.1f}  {verdict}")
+        verdict = (
+            "(on demand)" if r["on_demand"] else ("ok" if r["median_ms"] < TARGET_MS else "SLOW")
+        )
+        print(
+            f"{r['callback']:45s} {r['median_ms']:10.1f} {r['p95_ms']:9.1f} {r['max_ms']:9.1f}  {verdict}"
+        )
     slow = [r for r in rows if not r["on_demand"] and r["median_ms"] >= TARGET_MS]
     return 1 if slow else 0
 
