@@ -130,6 +130,8 @@ def export_universe(
     """
     fmts = _check_formats(formats)
     day = _check_as_of(as_of)
+    if "pdf" in fmts and chromium_path is not None:
+        find_chromium(chromium_path)  # a wrong browser path fails before any work
     with open_snapshot(snapshot_path) as snap:
         data = gather(snap, universe, day)
     return _write(data, out_dir, fmts, chromium_path)
@@ -152,6 +154,8 @@ def export_all(
     """
     fmts = _check_formats(formats)
     day = _check_as_of(as_of)
+    if "pdf" in fmts and chromium_path is not None:
+        find_chromium(chromium_path)
     written: dict[str, list[Path]] = {}
     failures: list[str] = []
     snap: Snapshot

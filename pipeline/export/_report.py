@@ -19,13 +19,12 @@ from string import Template
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
+import plotly.io as pio
 import polars as pl
 
 from pipeline.export import _figures as figs
 
 if TYPE_CHECKING:
-    import plotly.graph_objects as go
-
     from pipeline.export._data import ReportData
 
 __all__ = ["CAUTION", "render_report"]
@@ -93,9 +92,9 @@ class _Charts:
     def __init__(self) -> None:
         self.count = 0
 
-    def __call__(self, fig: go.Figure, *, div_id: str) -> str:
-        inner = fig.to_html(full_html=False, include_plotlyjs=self.count == 0,
-                            config=_PLOTLY_CONFIG, div_id=div_id)
+    def __call__(self, fig: dict[str, Any], *, div_id: str) -> str:
+        inner = pio.to_html(fig, full_html=False, include_plotlyjs=self.count == 0,
+                            config=_PLOTLY_CONFIG, div_id=div_id, validate=False)
         self.count += 1
         return f'<div class="chart">{inner}</div>'
 
