@@ -9,6 +9,7 @@ The data is an invented three-series price table (tests/pipeline/helpers.simulat
 
 from __future__ import annotations
 
+import dataclasses
 import os
 import queue
 import threading
@@ -18,7 +19,7 @@ from pathlib import Path
 
 import pytest
 
-from pipeline.config import load_config
+from pipeline.config import ScheduleConfig, load_config
 from pipeline.errors import ScheduleError
 from pipeline.flows import nightly_flow
 from pipeline.schedule import (
@@ -100,6 +101,14 @@ def test_deployment_carries_cron_timezone_and_config_path(config_file: Path) -> 
 def test_local_server_files_sit_beside_the_warehouse(config_file: Path) -> None:
     config = load_config(config_file)
     assert server_home(config) == config_file.parent / "wh.duckdb.prefect"
+
+
+def test_serve_refuses_a_bad_schedule_before_starting_anything(config_file: Path) -> None:
+    config = load_config(config_file)
+    bad = dataclasses.replace(config, schedule=ScheduleConfig(cron="0 22 * * 8", timezone="UTC"))
+    with pytest.raises(ScheduleError, match=r"\[schedule\] in .*shockflow.toml cron '0 22 \* \* 8'"):
+        serve(bad, config_path=config_file, api_url=None)
+    assert not server_home(config).exists()  # no Prefect server was started
 
 
 # -- with Prefect (the session's one harness: tests/pipeline/conftest.py) ------------------------
