@@ -196,7 +196,11 @@ def _nightly_body(
         _progress("ingest", source.name, i + 1, len(futures))
     summary.seconds["ingest"] = time.perf_counter() - t0
 
-    # universes
+    # universes (arlib — numpy/scipy — is imported once up front and timed on its own)
+    t0 = time.perf_counter()
+    import arlib  # noqa: F401
+
+    summary.seconds["import arlib"] = time.perf_counter() - t0
     t0 = time.perf_counter()
     selected = [config.universe(n) for n in universes] if universes else list(config.universes)
     for i, universe in enumerate(selected):
