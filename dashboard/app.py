@@ -54,7 +54,7 @@ def create_app(settings_or_config: Any) -> Any:
     )
     auth.install(app.server, token=settings.token, username=settings.username, password=settings.password)
     app.layout = lambda: build(snap, settings)
-    register(app, snap)
+    register(app, snap, settings)
 
     @app.server.route("/reports/<path:name>")
     def _report(name: str) -> Any:

@@ -652,7 +652,9 @@ def cycles_view(snap: Snapshot, state: Any) -> ViewResult:
     Each series gets a univariate AR fitted on the window's prepared rows, its order chosen by AIC
     among 1..max(`OWN_MAX_LAGS`, the VAR's lag order); arlib gives its spectral density f(ω) (Hamilton 1994, eq. 10.4.43 with n = 1) and the
     frequency where it peaks. A peak strictly between 0 and π is a dominant cycle of period 2π/ω*
-    observations; a peak at 0 means persistence without a cycle.
+    observations; a peak at 0 means persistence without a cycle. The chart divides each density by
+    the series' variance γ(0) (the density integrates to it over [−π, π]), so series in different
+    units share an axis on which white noise is flat at 1/(2π).
     """
     import arlib
 
@@ -675,14 +677,15 @@ def cycles_view(snap: Snapshot, state: Any) -> ViewResult:
             notes.append(f"{name}: own AR not stationary (radius {own.spectral_radius:.3f}), no spectrum")
             continue
         density = np.asarray(arlib.spectral_density(own, 2 * np.pi * freqs))[:, 0, 0].real
+        variance = float(np.asarray(arlib.stationary_covariance(own))[0, 0])
         peak = arlib.spectral_peak(own, grid=1024)
         period = float(peak.period) if peak.has_cycle else None
-        spectra.append((name, density, period))
+        spectra.append((name, density / variance, period))
         notes.append(f"{name} AR({p}): " + (f"{period:.1f} obs" if period is not None else "no cycle"))
         rows.extend(
             {"window_end": _iso(end), "series": name, "ar_lags": p,
              "frequency_cycles_per_obs": float(f), "density": _num(d),
-             "dominant_period_obs": period}
+             "density_over_variance": _num(d / variance), "dominant_period_obs": period}
             for f, d in zip(freqs, density, strict=True)
         )  # fmt: skip
     if not spectra:
@@ -749,13 +752,18 @@ def csv_file(rows: Any, chart: Any, state: Any) -> dict[str, Any] | None:
 # ---------------------------------------------------------------------------------------------
 
 
-def register(app: Any, snap: Snapshot) -> None:
+def register(app: Any, snap: Snapshot, settings: Any = None) -> None:
     """Attach every callback to `app` (a `dash.Dash` whose layout comes from `layout.build`)."""
     from dash import MATCH, Input, Output, State, ctx, no_update
     from dash.exceptions import PreventUpdate
 
     from . import ids
-    from .layout import skipped_table
+    from .layout import report_links, skipped_table
+
+    @app.callback(Output(ids.REPORTS, "children"), Input(ids.UNIVERSE, "value"))
+    def _reports(universe):  # type: ignore[no-untyped-def]
+        export_dir = getattr(settings, "export_dir", None)
+        return report_links(export_dir, universe if isinstance(universe, str) else None)
 
     @app.callback(
         Output(ids.START, "value"), Output(ids.END, "value"), Output(ids.WINDOW, "data"),

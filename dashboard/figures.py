@@ -439,7 +439,8 @@ def granger_figure(
         {
             "type": "heatmap", "z": _matrix(pvalues), "x": list(names), "y": list(names),
             "zmin": 0, "zmax": 1, "colorscale": SEQUENTIAL, "reversescale": True, "text": text,
-            "texttemplate": "%{text}", "colorbar": {"title": {"text": "p-value"}, "x": 0.4, "len": 0.9},
+            "texttemplate": "%{text}", "colorbar": {"title": {"text": "p-value"}, "x": axes["xaxis"]["domain"][1] + 0.01,
+                                              "xanchor": "left", "len": 0.9, "thickness": 12},
             "hovertemplate": "does %{x} lead %{y}?<br>p = %{z:.4f}<extra></extra>",
             "xaxis": refs[0][0][0], "yaxis": refs[0][0][1],
         },
@@ -447,7 +448,8 @@ def granger_figure(
             "type": "heatmap", "z": _matrix(pct), "x": list(names), "y": list(names),
             "zmin": 0, "zmax": 100, "colorscale": SEQUENTIAL,
             "text": [[t + "%" if t else "" for t in row] for row in _heat_text(pct, ".0f")],
-            "texttemplate": "%{text}", "colorbar": {"title": {"text": "% of windows"}, "x": 1.0, "len": 0.9},
+            "texttemplate": "%{text}", "colorbar": {"title": {"text": "% of windows"}, "x": 1.01, "xanchor": "left",
+                                              "len": 0.9, "thickness": 12},
             "hovertemplate": "%{x} leads %{y} in %{z:.1f}% of windows<extra></extra>",
             "xaxis": refs[0][1][0], "yaxis": refs[0][1][1],
         },
@@ -571,20 +573,20 @@ def pairwise_compare_figure(
     lim = lim or 1.0
     both = np.concatenate([first.ravel(), second.ravel()])
     top = float(np.nanmax(both)) if np.isfinite(both).any() else 100.0
-    axes, refs = _grid(1, 3, hgap=0.11, vgap=0.0)
+    axes, refs = _grid(1, 3, hgap=0.14, vgap=0.0)
     data = []
     anns = []
     specs = (
-        (first, SEQUENTIAL, 0.0, top, 0.26, ".1f", "%", f"A: {labels[0]}"),
-        (second, SEQUENTIAL, 0.0, top, 0.63, ".1f", "%", f"B: {labels[1]}"),
-        (diff, DIVERGING, -lim, lim, 1.0, "+.1f", "pp", "change B − A, pp"),
+        (first, SEQUENTIAL, 0.0, top, axes["xaxis"]["domain"][1] + 0.005, ".1f", "%", f"A: {labels[0]}"),
+        (second, SEQUENTIAL, 0.0, top, axes["xaxis2"]["domain"][1] + 0.005, ".1f", "%", f"B: {labels[1]}"),
+        (diff, DIVERGING, -lim, lim, 1.005, "+.1f", "pp", "change B − A, pp"),
     )
     for col, (z, scale, zmin, zmax, cb_x, fmt, unit, label) in enumerate(specs):
         xr, yr = refs[0][col]
         data.append({
             "type": "heatmap", "z": _matrix(z), "x": list(names), "y": list(names),
             "zmin": zmin, "zmax": zmax, "colorscale": scale, "text": _heat_text(z, fmt),
-            "texttemplate": "%{text}", "colorbar": {"x": cb_x, "len": 0.9, "thickness": 10,
+            "texttemplate": "%{text}", "colorbar": {"x": cb_x, "xanchor": "left", "len": 0.9, "thickness": 10,
                                                     "title": {"text": unit}},
             "hovertemplate": "%{y} ← %{x}: %{z:.2f}<extra></extra>", "xaxis": xr, "yaxis": yr,
         })  # fmt: skip
@@ -706,7 +708,9 @@ def cycles_figure(
     """Each series' AR spectral density against frequency, with its dominant cycle marked.
 
     frequencies : (F,) in cycles per observation, 0..0.5.
-    spectra : (name, (F,) density, peak period in observations or None).
+    spectra : (name, (F,) density divided by the series' variance, peak period or None). On this
+    scale white noise is flat at 1/(2π) (drawn dashed) whatever the series' units, so series of
+    different units share one axis.
     """
     freqs = np.asarray(frequencies, dtype=float)
     periods = [None if f <= 0 else 1.0 / f for f in freqs]
@@ -730,10 +734,16 @@ def cycles_figure(
                 "name": f"{name}: cycle of {period:.1f} obs",
                 "hovertemplate": f"{name}: dominant cycle {period:.1f} observations<extra></extra>",
             })  # fmt: skip
+    white = 1.0 / (2.0 * np.pi)
+    data.append({
+        "type": "scatter", "mode": "lines", "x": [0.0, 0.5], "y": [white, white],
+        "line": {"color": GREY, "dash": "dash", "width": 1}, "name": "white noise (no dynamics)",
+        "hoverinfo": "skip",
+    })  # fmt: skip
     layout = _layout(
         height=470, title=title,
         xaxis=_axis(title={"text": "frequency (cycles per observation; period = 1 / frequency)"},
                     range=[0, 0.5]),
-        yaxis=_axis(title={"text": "spectral density (log scale)"}, type="log"),
+        yaxis=_axis(title={"text": "spectral density ÷ variance (log scale)"}, type="log"),
     )  # fmt: skip
     return {"data": data, "layout": layout}

@@ -78,10 +78,11 @@ def skipped_table(rows: Sequence[tuple[str, str]]) -> html.Div:
     )
 
 
-def _reports(settings: DashboardSettings) -> html.Div:
-    files = latest_reports(settings.export_dir)
+def report_links(export_dir: Any, universe: str | None) -> list[Any]:
+    """Links to the newest exported reports, the chosen universe's first (served by /reports/)."""
+    files = latest_reports(export_dir, prefer=universe)
     if not files:
-        return html.Div("No exported report yet.", id=ids.REPORTS, className="reports")
+        return [html.Span("No exported report yet.", className="note")]
     links: list[Any] = [html.Span("Exported reports: ", className="ctl-label")]
     for k, (rel, mtime) in enumerate(files[:4]):
         stamp = dt.datetime.fromtimestamp(mtime).strftime("%Y-%m-%d %H:%M")
@@ -92,7 +93,11 @@ def _reports(settings: DashboardSettings) -> html.Div:
                 href=href, title=f"{rel} ({stamp})", target="_blank", className="report-link",
             )
         )  # fmt: skip
-    return html.Div(links, id=ids.REPORTS, className="reports")
+    return links
+
+
+def _reports(settings: DashboardSettings, universe: str | None) -> html.Div:
+    return html.Div(report_links(settings.export_dir, universe), id=ids.REPORTS, className="reports")
 
 
 def _paths_tab(series: Sequence[str]) -> list[Any]:
@@ -242,7 +247,8 @@ def build(snap: Snapshot, settings: DashboardSettings) -> html.Div:
         body.append(html.Div(problem, className="problem"))
     body += [
         _graph(ids.INDEX_GRAPH, height=270),
-        html.Div([html.P(id=ids.STATUS, className="note"), _csv("index"), _reports(settings)],
+        html.Div([html.P(id=ids.STATUS, className="note"), _csv("index"),
+                  _reports(settings, names[0] if names else None)],
                  className="under-index"),
         _tabs(first.series if first else (), first.granger_level if first else 0.05),
         dcc.Store(id=ids.WINDOW),

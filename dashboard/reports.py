@@ -51,11 +51,13 @@ def resolve_report(export_dir: Path | None, name: object) -> Path | None:
     return real
 
 
-def latest_reports(export_dir: Path | None, *, limit: int = 8) -> list[tuple[str, float]]:
+def latest_reports(
+    export_dir: Path | None, *, limit: int = 8, prefer: str | None = None
+) -> list[tuple[str, float]]:
     """Report files under `export_dir` as (relative name, mtime), newest first, at most `limit`.
 
-    HTML and PDF reports come before data tables of the same age; only names `resolve_report`
-    would accept are listed.
+    Files of universe `prefer` (a folder or file-name prefix of that name) come first, then HTML
+    and PDF reports before data tables; only names `resolve_report` would accept are listed.
     """
     if export_dir is None:
         return []
@@ -76,6 +78,9 @@ def latest_reports(export_dir: Path | None, *, limit: int = 8) -> list[tuple[str
             if path is None:
                 continue
             rank = 0 if f.lower().endswith((".html", ".pdf")) else 1
+            parts = rel.split("/")
+            if prefer and not (prefer in parts[:-1] or parts[-1].startswith(prefer)):
+                rank += 2
             found.append((rel, path.stat().st_mtime, rank))
     found.sort(key=lambda x: (x[2], -x[1]))
     return [(rel, mtime) for rel, mtime, _ in found[:limit]]

@@ -236,6 +236,10 @@ def test_csv_download_callback_sends_rows_and_safe_name(settings: DashboardSetti
 def test_reports_listed_newest_first_and_served(settings: DashboardSettings, export_dir: Path) -> None:
     names = [n for n, _ in latest_reports(export_dir)]
     assert names == ["demo_four/report-2024-01-02.html", "demo_four/report-2024-01-01.html"]
+    (export_dir / "other").mkdir()
+    (export_dir / "other" / "other-2030.html").write_text("newest, another universe")
+    assert latest_reports(export_dir)[0][0] == "other/other-2030.html"
+    assert latest_reports(export_dir, prefer="demo_four")[0][0] == "demo_four/report-2024-01-02.html"
     client = create_app(settings).server.test_client()
     r = client.get("/reports/demo_four/report-2024-01-02.html")
     assert r.status_code == 200 and r.data == b"<html>report one</html>"
