@@ -627,8 +627,9 @@ def _fit_group(
                 lo = int(starts[block][0])
                 fr = _frame(data, finite, lo, int(e[-1]), trend)
                 rows = np.arange(int(a[0]), int(e[-1]) + 1)
-                ys = np.full_like(data, np.nan)
-                ys[lo:] = (data[lo:] - fr.mu) / fr.scale
+                hi = int(e[-1]) + 1
+                ys = np.full((hi, n), np.nan)  # scaled rows of this block only
+                ys[lo:] = (data[lo:hi] - fr.mu) / fr.scale
                 z = K.augmented_rows(ys, rows, p, _det_columns(rows, trend, fr), usable[rows])
                 G = K.window_sums(z, a - a[0], int(e[0] - a[0] + 1))
                 del z
@@ -762,7 +763,8 @@ def _direct_window(
     except InvalidInputError as exc:
         raise _Skip(f"not fitted: {exc}".replace("`y` ", "the window ")) from None
     # the same fit in working coordinates (so the batched steps downstream apply unchanged)
-    ys = (data - fr.mu) / fr.scale
+    ys = np.full((end + 1, n), np.nan)
+    ys[start:] = (data[start : end + 1] - fr.mu) / fr.scale
     z = K.augmented_rows(ys, rows, p, _det_columns(rows, trend, fr), np.ones(rows.size, bool))
     k = z.shape[1] - n
     Zs, Ys = z[:, :k], z[:, k:]
@@ -869,21 +871,28 @@ def _portmanteau(
     n = data.shape[1]
     h = int(out.h_port)  # type: ignore[arg-type]
     k = coef_t.shape[-1]
-    ys = (data - fr.mu) / fr.scale
-    full = nobs == (out.ends[widx] - out.starts[widx] + 1 - p)
+    span = out.ends[widx] - out.starts[widx] + 1 - p
+    full = (nobs == span) & (out.skip_reason[widx] == "")
     df = n * n * (h - p)
-    for j in np.flatnonzero(full & (out.skip_reason[widx] == "")):
-        w = widx[j]
-        rows = np.arange(out.starts[w] + p, out.ends[w] + 1)
+    for T in np.unique(span[full]):  # one batch per residual length (one for rolling windows)
+        sel = np.flatnonzero(full & (span == T))
+        first = out.starts[widx[sel]] + p
+        lo, hi = int(first.min()), int(first.max()) + int(T)
+        rows = np.arange(lo, hi)
+        ys = np.full((hi, n), np.nan)
+        ys[lo - p :] = (data[lo - p : hi] - fr.mu) / fr.scale
         z = K.augmented_rows(ys, rows, p, _det_columns(rows, trend, fr), np.ones(rows.size, bool))
-        u = z[:, k:] - z[:, :k] @ coef_t[j].T
-        T = u.shape[0]
-        c0_inv = np.linalg.inv(u.T @ u / T)
-        stat = 0.0
+        zw = z[(first - lo)[:, None] + np.arange(T)[None, :]]  # (Wg, T, m) window rows
+        u = zw[..., k:] - zw[..., :k] @ np.swapaxes(coef_t[sel], 1, 2)  # residuals (Wg, T, n)
+        c0 = np.swapaxes(u, 1, 2) @ u / T
+        c0_inv = np.linalg.inv(c0)
+        stat = np.zeros(sel.size)
         for i in range(1, h + 1):
-            ci = u[i:].T @ u[:-i] / T
-            stat += np.trace(ci.T @ c0_inv @ ci @ c0_inv) / (T - i)
-        out.portmanteau_p[w] = stats.chi2.sf(T * T * stat, df)
+            ci = np.swapaxes(u[:, i:], 1, 2) @ u[:, :-i] / T  # Ĉ_i = T^{-1} Σ_t û_t û_{t−i}'
+            # tr(Ĉ_i' Ĉ_0^{-1} Ĉ_i Ĉ_0^{-1}) = Σ (Ĉ_0^{-1} Ĉ_i) ⊙ (Ĉ_i Ĉ_0^{-1})
+            a, b = c0_inv @ ci, ci @ c0_inv
+            stat += np.einsum("wij,wij->w", a, b) / (T - i)
+        out.portmanteau_p[widx[sel]] = stats.chi2.sf(T * T * stat, df)
 
 
 # ---------------------------------------------------------------------------------------------
