@@ -339,12 +339,17 @@ SHAPE_CASES = [
     ),
     Case(
         "constant-stretch", constant_stretch, "skipped",
-        r"series 'EX_B' is constant in this window; a VAR needs series that vary",
+        # inside the flat stretch: constant; where the stretch starts at the window's first row:
+        # EX_B's lag (or EX_B itself) is the only thing moving, named as such
+        r"series 'EX_B' is constant in this window; a VAR needs series that vary"
+        r"|not fitted: the window gives \(nearly\) perfectly collinear regressors \['EX_B\.L1'\] .*"
+        r"|not fitted: the window yields a singular residual covariance .*some series \(e\.g\. 'EX_B'\) is an exact function of the lags of the others — drop it",
         universe="extra_trio", extra={"min_skipped": 20},
     ),
     Case(
         "collinear-series", collinear, "skipped",
-        r"not fitted: .*(collinear|singular|rank).*",
+        r"not fitted: the window gives \(nearly\) perfectly collinear regressors \['EX_A\.L1', 'EX_C\.L1'\] \(reciprocal condition number [-+.e\d]+ < 1e-10 after scaling columns\); "
+        r"a series is a linear combination of others, or of the constant/trend — drop one of the series involved or use fewer lags",
         universe="extra_trio", extra={"min_skipped": 20},
     ),
     Case(
