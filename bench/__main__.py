@@ -16,6 +16,7 @@ import time
 #: Benchmark cases: name -> "module:function" (the function takes no arguments).
 CASES: dict[str, str] = {
     "rolling": "bench.rolling:main",
+    "dashboard": "bench.dashboard_callbacks:case",
 }
 
 

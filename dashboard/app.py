@@ -98,6 +98,8 @@ def serve(
     settings = _settings(config_or_settings).with_address(host, port)
     check_bind(settings)
     app = create_app(settings)
+    # one line per request on stderr drowns the start-up message; keep warnings and errors only
+    logging.getLogger("werkzeug").setLevel(logging.WARNING)
     server = make_server(settings.host, settings.port, app.server, threaded=True)
     shown = f"[{settings.host}]" if ":" in settings.host else settings.host
     print(

@@ -20,6 +20,7 @@ import math
 import re
 import warnings
 from collections.abc import Callable, Sequence
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -640,9 +641,48 @@ def skipped_rows(rows: Rows) -> list[tuple[str, str]]:
 
 
 #: Frequencies of the own-cycle spectra, cycles per observation (ω = 2π f radians).
-CYCLE_FREQUENCIES = np.linspace(0.0, 0.5, 241)
+CYCLE_FREQUENCIES = np.linspace(0.0, 0.5, 161)
 #: Largest own-AR order tried (AIC picks among 1..max(this, the window's VAR lag order)).
-OWN_MAX_LAGS = 8
+OWN_MAX_LAGS = 6
+
+
+@dataclass(frozen=True)
+class _OwnCycle:
+    """One series' own-AR spectrum: AR order, density (F,), variance, dominant period or None."""
+
+    name: str
+    lags: int
+    density: np.ndarray | None
+    variance: float
+    period: float | None
+    radius: float
+
+
+def _own_cycles(snap: Snapshot, u: Universe, end: dt.date) -> list[_OwnCycle]:
+    """Fit each series' own AR on the window's prepared rows (cached per snapshot file and window)."""
+    import arlib
+
+    def compute() -> list[_OwnCycle]:
+        fit = snap.fit(u, end)
+        y = snap.prepared(u, fit.window_start, fit.window_end)
+        out = []
+        for i, name in enumerate(u.series):
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", arlib.UnstableProcessWarning)
+                choice = arlib.select_lags(y[:, i], max(OWN_MAX_LAGS, fit.lags), names=[name])
+                p = max(1, int(choice.best["aic"]))
+                own = arlib.fit_var(y[:, i], p, names=[name])
+            if not own.is_stable:
+                out.append(_OwnCycle(name, p, None, math.nan, None, float(own.spectral_radius)))
+                continue
+            density = np.asarray(arlib.spectral_density(own, 2 * np.pi * CYCLE_FREQUENCIES))[:, 0, 0].real
+            variance = float(np.asarray(arlib.stationary_covariance(own))[0, 0])
+            peak = arlib.spectral_peak(own, grid=1024)
+            period = float(peak.period) if peak.has_cycle else None
+            out.append(_OwnCycle(name, p, density, variance, period, float(own.spectral_radius)))
+        return out
+
+    return snap.cached(("own-cycles", u.name, end), compute)  # type: ignore[no-any-return]
 
 
 @_guard
@@ -650,43 +690,34 @@ def cycles_view(snap: Snapshot, state: Any) -> ViewResult:
     """Per series: the spectral density implied by its own AR, fitted on the reference window.
 
     Each series gets a univariate AR fitted on the window's prepared rows, its order chosen by AIC
-    among 1..max(`OWN_MAX_LAGS`, the VAR's lag order); arlib gives its spectral density f(ω) (Hamilton 1994, eq. 10.4.43 with n = 1) and the
-    frequency where it peaks. A peak strictly between 0 and π is a dominant cycle of period 2π/ω*
-    observations; a peak at 0 means persistence without a cycle. The chart divides each density by
-    the series' variance γ(0) (the density integrates to it over [−π, π]), so series in different
-    units share an axis on which white noise is flat at 1/(2π).
+    among 1..max(`OWN_MAX_LAGS`, the VAR's lag order); arlib gives its spectral density f(ω)
+    (Hamilton 1994, eq. 10.4.43 with n = 1) and the frequency where it peaks. A peak strictly
+    between 0 and π is a dominant cycle of period 2π/ω* observations; a peak at 0 means
+    persistence without a cycle. The chart divides each density by the series' variance γ(0) (the
+    density integrates to it over [−π, π]), so series in different units share an axis on which
+    white noise is flat at 1/(2π).
     """
-    import arlib
-
     window = snap.window(state)
     u = snap.universe(window.universe)
     end = snap.fitted_end(window)
-    fit = snap.fit(u, end)
-    y = snap.prepared(u, fit.window_start, fit.window_end)
     freqs = CYCLE_FREQUENCIES
     spectra: list[tuple[str, np.ndarray, float | None]] = []
     rows: Rows = []
     notes: list[str] = []
-    for i, name in enumerate(u.series):
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", arlib.UnstableProcessWarning)
-            choice = arlib.select_lags(y[:, i], max(OWN_MAX_LAGS, fit.lags), names=[name])
-            p = max(1, int(choice.best["aic"]))
-            own = arlib.fit_var(y[:, i], p, names=[name])
-        if not own.is_stable:
-            notes.append(f"{name}: own AR not stationary (radius {own.spectral_radius:.3f}), no spectrum")
+    end_text = end.isoformat()
+    freq_list = freqs.tolist()
+    for c in _own_cycles(snap, u, end):
+        if c.density is None:
+            notes.append(f"{c.name}: own AR({c.lags}) not stationary (radius {c.radius:.3f}), no spectrum")
             continue
-        density = np.asarray(arlib.spectral_density(own, 2 * np.pi * freqs))[:, 0, 0].real
-        variance = float(np.asarray(arlib.stationary_covariance(own))[0, 0])
-        peak = arlib.spectral_peak(own, grid=1024)
-        period = float(peak.period) if peak.has_cycle else None
-        spectra.append((name, density / variance, period))
-        notes.append(f"{name} AR({p}): " + (f"{period:.1f} obs" if period is not None else "no cycle"))
+        spectra.append((c.name, c.density / c.variance, c.period))
+        notes.append(f"{c.name} AR({c.lags}): " + (f"{c.period:.1f} obs" if c.period is not None else "no cycle"))
+        scaled = (c.density / c.variance).tolist()
         rows.extend(
-            {"window_end": _iso(end), "series": name, "ar_lags": p,
-             "frequency_cycles_per_obs": float(f), "density": _num(d),
-             "density_over_variance": _num(d / variance), "dominant_period_obs": period}
-            for f, d in zip(freqs, density, strict=True)
+            {"window_end": end_text, "series": c.name, "ar_lags": c.lags,
+             "frequency_cycles_per_obs": f, "density": d, "density_over_variance": r,
+             "dominant_period_obs": c.period}
+            for f, d, r in zip(freq_list, c.density.tolist(), scaled, strict=True)
         )  # fmt: skip
     if not spectra:
         raise WindowError(f"no series has a stationary own AR in the window ending {end}")

@@ -66,6 +66,8 @@ TABLE_COLUMNS: dict[str, tuple[str, ...]] = {
 }
 
 _MAX_DATE_TEXT = 32
+#: Most values a `Snapshot` keeps per file (universes, bounds, derived per-window results).
+_CACHE_ENTRIES = 512
 #: A date, optionally followed by a time of day (which is ignored), as date inputs and plotly send.
 _DATE_TEXT = re.compile(r"^\d{4}-\d{2}-\d{2}([ T]\d{2}:\d{2}(:\d{2}(\.\d{1,9})?)?)?$")
 
@@ -272,6 +274,11 @@ class SnapshotReader:
         with self.cursor() as cur:
             return cur.execute(sql, list(params)).fetchall()
 
+    def arrays(self, sql: str, params: Sequence[Any] = ()) -> dict[str, np.ndarray]:
+        """One parameterised statement's columns as numpy arrays (for large results)."""
+        with self.cursor() as cur:
+            return dict(cur.execute(sql, list(params)).fetchnumpy())
+
     def close(self) -> None:
         with self._lock:
             handle, self._handle = self._handle, None
@@ -289,6 +296,10 @@ class Snapshot:
         self._cache_generation = -1
         self._cache: dict[Any, Any] = {}
 
+    def cached(self, key: Any, compute: Callable[[], Any]) -> Any:
+        """`compute()` once per snapshot file and `key` (a replaced file starts afresh)."""
+        return self._cached(key, compute)
+
     def _cached(self, key: Any, compute: Callable[[], Any]) -> Any:
         generation = self.reader.current_generation()
         with self._cache_lock:
@@ -300,6 +311,8 @@ class Snapshot:
         value = compute()
         with self._cache_lock:
             if generation == self._cache_generation:
+                if len(self._cache) >= _CACHE_ENTRIES:  # bounded: start afresh rather than grow
+                    self._cache = {}
                 self._cache[key] = value
         return value
 
@@ -316,7 +329,8 @@ class Snapshot:
         select_params: Sequence[Any] = (),
         group_by: Sequence[str] = (),
         order_by: Sequence[str] = ("window_end",),
-    ) -> list[tuple[Any, ...]]:
+        as_arrays: bool = False,
+    ) -> Any:
         """Rows of `table` for ``window.universe`` with `date_column` inside the window (inclusive).
 
         `table`, `columns`, `date_column`, `where`, `group_by` and `order_by` are constants of this
@@ -339,6 +353,8 @@ class Snapshot:
             + (f" ORDER BY {', '.join(order_by)}" if order_by else "")
         )
         values = [*select_params, window.universe, window.start, window.end, *params]
+        if as_arrays:
+            return self.reader.arrays(sql, values)
         return self.reader.rows(sql, values)
 
     # -- universes ----------------------------------------------------------------------------
@@ -549,15 +565,17 @@ class Snapshot:
 
     def prepared(self, universe: Universe, start: dt.date, end: dt.date) -> np.ndarray:
         """The transformed data (T, n) the window's fit used, oldest row first, series in order."""
-        rows = self._select_window(
+        cols = self._select_window(
             "prepared", ["date", "series", "value"], DateWindow(universe.name, start, end),
-            date_column="date", order_by=("date",),
+            date_column="date", order_by=("date",), as_arrays=True,
         )
         pos = {s: i for i, s in enumerate(universe.series)}
-        dates = sorted({r[0] for r in rows})
-        at = {d: i for i, d in enumerate(dates)}
-        out = np.full((len(dates), len(pos)), np.nan)
-        for d, s, v in rows:
-            if s in pos and v is not None:
-                out[at[d], pos[s]] = float(v)
+        dates, row = np.unique(np.asarray(cols["date"]), return_inverse=True)
+        names, which = np.unique(np.asarray(cols["series"], dtype=object), return_inverse=True)
+        col = np.array([pos.get(str(name), -1) for name in names], dtype=np.int64)[which]
+        values = np.ma.filled(np.ma.asarray(cols["value"], dtype=np.float64), np.nan)
+        keep = col >= 0
+        out = np.full((dates.size, len(pos)), np.nan)
+        out[row[keep], col[keep]] = values[keep]
+        # a date with any series missing cannot enter a VAR; the pipeline's fits skip it too
         return out[~np.isnan(out).any(axis=1)]
