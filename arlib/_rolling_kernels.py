@@ -432,6 +432,21 @@ def f_survival(f: np.ndarray, df1: np.ndarray | int, df2: np.ndarray | int) -> n
     (Abramowitz & Stegun 1964, 26.6.4); odd df1 use scipy's incomplete beta (`special.fdtrc`).
     """
     f = np.asarray(f, dtype=np.float64)
+    if np.ndim(df1) == 0 and int(df1) % 2 == 0 and int(df1) > 0:  # common case: one even df1
+        a = float(df1)
+        b = np.asarray(df2, dtype=np.float64)
+        with np.errstate(invalid="ignore"):
+            ratio = a * np.maximum(f, 0.0) / b  # x = 1 / (1 + ratio), 1 − x = ratio / (1 + ratio)
+            out = np.exp(-0.5 * b * np.log1p(ratio))  # x^{df2/2}
+            if a > 2:
+                one_minus = ratio / (1.0 + ratio)
+                term = np.ones_like(out)
+                total = np.ones_like(out)
+                for j in range(1, int(a) // 2):
+                    term = term * (0.5 * b + j - 1) / j * one_minus
+                    total += term
+                out *= total
+        return out
     d1 = np.broadcast_to(np.asarray(df1, dtype=np.float64), f.shape)
     d2 = np.broadcast_to(np.asarray(df2, dtype=np.float64), f.shape)
     out = np.full(f.shape, np.nan)
@@ -440,7 +455,7 @@ def f_survival(f: np.ndarray, df1: np.ndarray | int, df2: np.ndarray | int) -> n
     if even.any():
         fe, a, b = np.maximum(f[even], 0.0), d1[even], d2[even]
         x = b / (b + a * fe)
-        half_b = 0.5 * b
+        half_b = 0.5 * b  # general path: df1 varies or is odd somewhere
         term = np.ones_like(fe)
         total = np.ones_like(fe)
         one_minus = a * fe / (b + a * fe)
@@ -476,10 +491,18 @@ def granger_f(
     b = np.moveaxis(b, -1, 2)  # (W, n_i, n_j, p)
     if p == 1:
         quad = b[..., 0] ** 2 / V[:, None, :, 0, 0]
-    elif p == 2:  # closed form b' V^{-1} b for 2×2 V
+    elif p == 2:  # closed form b' V^{-1} b = (v22 b1² − 2 v12 b1 b2 + v11 b2²) / det V
         v11, v12, v22 = V[:, None, :, 0, 0], V[:, None, :, 0, 1], V[:, None, :, 1, 1]
         b1, b2 = b[..., 0], b[..., 1]
-        quad = (v22 * b1 * b1 - 2.0 * v12 * b1 * b2 + v11 * b2 * b2) / (v11 * v22 - v12 * v12)
+        quad = b1 * b1
+        quad *= v22
+        cross = b1 * b2
+        cross *= 2.0 * v12
+        quad -= cross
+        np.multiply(b2, b2, out=cross)
+        cross *= v11
+        quad += cross
+        quad /= v11 * v22 - v12 * v12
     else:
         Lc = np.zeros_like(V)  # Cholesky of V, column by column
         for j in range(p):
