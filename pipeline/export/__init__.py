@@ -1,7 +1,22 @@
 """Report exports: a self-contained HTML report, CSV/Parquet extracts and a PDF per universe.
 
 Everything is read from the serving snapshot (read-only, parameterised queries) and written under
-``<out_dir>/<date>/<universe>/``, where <date> is the universe's latest window end (or `as_of`).
+``<out_dir>/<date>/<universe>/``, where <date> is the universe's latest window end (or `as_of`)
+and <universe> the name reduced to letters, digits, `.`, `_`, `-` (checked to stay inside
+`out_dir`):
+
+- ``<universe>-<date>.html`` — one file, plotly.js inlined, opens with no network: the caution;
+  at a glance; total connectedness over time and net transmitters; the latest spillover table
+  (with from/to others, net, total); the impulse-response grid with bands (stored by the run, or
+  derived with arlib from the stored parameters and prepared rows); variance decompositions;
+  Granger p-values at the universe's level (and how often each pair was significant); model
+  health (spectral radius, lags, the latest fit's criteria, skipped windows with reasons); the
+  lineage (run id, configuration hash, data fingerprint, code version, times, source batches).
+- ``<table>.csv`` / ``<table>.parquet`` for connectedness, directional, pairwise, granger,
+  window_fits, runs (full history up to the date) and responses, decompositions (long rows of
+  the report's window).
+- ``<universe>-<date>.pdf`` — the HTML printed by headless Chromium (skipped, with a warning,
+  when no Chromium is installed).
 """
 
 from __future__ import annotations
