@@ -820,15 +820,17 @@ def register(app: Any, snap: Snapshot, settings: Any = None) -> None:
 
     @app.callback(
         Output(ids.ORDERING, "options"), Output(ids.ORDERING, "value"), Output(ids.HORIZON, "value"),
-        Output(ids.LEVEL, "value"),
+        Output(ids.LEVEL, "value"), Output(ids.IDENTIFICATION, "value"),
         Input(ids.UNIVERSE, "value"), prevent_initial_call=True,
     )  # fmt: skip
     def _universe_defaults(universe):  # type: ignore[no-untyped-def]
+        """A new universe brings its own series, horizon, test level and identification."""
         try:
             u = snap.universe(universe)
         except DashboardError:
             raise PreventUpdate from None
-        return list(u.series), list(u.series), u.horizon, u.granger_level
+        ident = u.identification if u.identification in IDENTIFICATIONS else "generalized"
+        return list(u.series), list(u.series), u.horizon, u.granger_level, ident
 
     @app.callback(
         Output(ids.INDEX_GRAPH, "figure"), Output(ids.chart_data("index"), "data"),

@@ -100,12 +100,12 @@ def _reports(settings: DashboardSettings, universe: str | None) -> html.Div:
     return html.Div(report_links(settings.export_dir, universe), id=ids.REPORTS, className="reports")
 
 
-def _paths_tab(series: Sequence[str]) -> list[Any]:
+def _paths_tab(series: Sequence[str], identification: str) -> list[Any]:
     return [
         html.Div(
             [
                 _label("Identification", dcc.RadioItems(
-                    id=ids.IDENTIFICATION, value="generalized", inline=True,
+                    id=ids.IDENTIFICATION, value=identification, inline=True,
                     options=[{"label": v, "value": k} for k, v in IDENTIFICATIONS.items()],
                 )),
                 _label("Paths", dcc.Checklist(
@@ -125,9 +125,9 @@ def _paths_tab(series: Sequence[str]) -> list[Any]:
     ]
 
 
-def _tabs(series: Sequence[str], level: float) -> dcc.Tabs:
+def _tabs(series: Sequence[str], level: float, identification: str) -> dcc.Tabs:
     tabs = [
-        dcc.Tab(label="Shock paths", value=ids.TAB_PATHS, children=_paths_tab(series)),
+        dcc.Tab(label="Shock paths", value=ids.TAB_PATHS, children=_paths_tab(series, identification)),
         dcc.Tab(label="Variance shares", value=ids.TAB_SHARES, children=[
             _graph(ids.SHARES_GRAPH), _note(ids.SHARES_NOTE), _csv("shares"),
         ]),
@@ -250,7 +250,10 @@ def build(snap: Snapshot, settings: DashboardSettings) -> html.Div:
         html.Div([html.P(id=ids.STATUS, className="note"), _csv("index"),
                   _reports(settings, names[0] if names else None)],
                  className="under-index"),
-        _tabs(first.series if first else (), first.granger_level if first else 0.05),
+        _tabs(
+            first.series if first else (), first.granger_level if first else 0.05,
+            first.identification if first and first.identification in IDENTIFICATIONS else "generalized",
+        ),
         dcc.Store(id=ids.WINDOW),
         html.Footer(
             [html.Strong("Caution. "), CAUTION],

@@ -265,3 +265,33 @@ def test_csv_download_equals_the_snapshot(page: Any, snapshot_path: Path, univer
     for r in rows:
         assert r["window_end"] == used.isoformat()
         assert float(r["p_value"]) == pytest.approx(stored[(r["caused"], r["causing"])], rel=1e-12)
+
+
+def test_switching_universe_resets_window_and_controls(page: Any, snapshot_path: Path, universe_name: str, bounds: tuple[dt.date, dt.date]) -> None:
+    others = [u for (u,) in read(snapshot_path, "SELECT universe FROM universes WHERE universe <> ? ORDER BY 1", [universe_name])]
+    if not others:
+        pytest.skip("the snapshot holds one universe")
+    other = others[0]
+    ((lo, hi),) = read(snapshot_path, "SELECT min(window_end), max(window_end) FROM window_fits WHERE universe = ?", [other])
+    series = [s for (s,) in read(snapshot_path, "SELECT series FROM universe_series WHERE universe = ? ORDER BY position", [other])]
+    page.get_by_text("Shock paths", exact=True).click()
+    page.locator("#universe").click()
+    page.get_by_role("option", name=other, exact=True).click()
+    wait_text(page, "#window-note", f"Date window {lo} to {hi}")
+    assert page.input_value("#window-start") == lo.isoformat()
+    # the ordering control now lists the new universe's series, and the grid shows them
+    page.wait_for_function(
+        "n => { const gd = document.querySelector('#paths-graph .js-plotly-plot');"
+        " return gd && gd.data && gd.data.filter(t => t.name === 'response').length === n; }",
+        arg=len(series) ** 2,
+    )
+    shown = [t for t in traces(page, "paths-graph") if t.get("name") == "response"]
+    assert shown[0]["meta"] == [series[0], series[0]]
+    assert other in layout(page, "index-graph")["title"]["text"]
+    # and the universe's own identification is selected
+    ident = read(snapshot_path, "SELECT identification FROM universes WHERE universe = ?", [other])[0][0]
+    assert page.locator(f"#identification input[value={ident}]").is_checked()
+    page.screenshot(path=str(ARTIFACTS / "04-other-universe.png"))
+    page.locator("#universe").click()
+    page.get_by_role("option", name=universe_name, exact=True).click()
+    wait_text(page, "#window-note", f"Date window {bounds[0]} to {bounds[1]}")
