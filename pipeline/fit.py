@@ -29,6 +29,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import polars as pl
 
+from pipeline._reasons import name_series
 from pipeline.errors import FitError
 
 if TYPE_CHECKING:
@@ -282,7 +283,8 @@ def result_tables(
         return {"run_id": [run_id] * m, "universe": [universe.name] * m, "window_end": e}
 
     radius = np.asarray(rolling.spectral_radius, dtype=np.float64)
-    reasons = [r if r else None for r in np.asarray(rolling.skip_reason, dtype=object).tolist()]
+    # arlib names columns by position ('y1', 'series 1'): store the universe's series names instead
+    reasons = [name_series(r, names) if r else None for r in np.asarray(rolling.skip_reason, dtype=object).tolist()]
     portmanteau = rolling.portmanteau_p if rolling.portmanteau_p is not None else np.full(W, np.nan)
     window_fits = pl.DataFrame(
         {
