@@ -270,7 +270,7 @@ def spectral_radius_batch(
     p: int,
     *,
     squarings: int = 10,
-    max_dim: int = 8,
+    max_dim: int | None = None,
     rank_tol: float = 1e-12,
     resid_tol: float = 1e-12,
 ) -> tuple[np.ndarray, np.ndarray]:
@@ -281,9 +281,10 @@ def spectral_radius_batch(
     1. Y = C^m / ||C^m||_F, m = 2^squarings, by repeated squaring (normalised every other step).
        An eigenvalue λ_j appears in Y with weight about (|λ_j| / ρ)^m, so Y's range is the
        dominant invariant subspace plus directions of weight below `rank_tol`.
-    2. A sketch Y Ω (Ω a fixed Gaussian N × (d_max + 1)) orthonormalised by Gram–Schmidt (twice)
-       gives Q (N × d): columns are kept while their residual exceeds `rank_tol`; a (d_max+1)-th
-       significant column means the subspace is not resolved (→ fallback).
+    2. A sketch Y Ω (Ω a fixed Gaussian N × (d_max + 1), d_max = max(8, N // 5) by default:
+       larger companions crowd more eigenvalues near the top) orthonormalised by Gram–Schmidt
+       (twice) gives Q (N × d): columns are kept while their residual exceeds `rank_tol`; a
+       (d_max+1)-th significant column means the subspace is not resolved (→ fallback).
     3. Rayleigh–Ritz: B = Q' C Q (d × d); θ = the eigenvalue of B of largest modulus with
        eigenvector s (closed form for d <= 2). Weakly represented directions in Q may be
        inaccurate, but the dominant directions are resolved to rounding level, so θ is accurate.
@@ -324,7 +325,7 @@ def spectral_radius_batch(
             good &= fine
             s[~fine] = 1.0
             Y /= s[:, None, None]
-    dm = min(max_dim, N - 1)
+    dm = min(max(8, N // 5) if max_dim is None else max_dim, N - 1)
     omega = np.random.default_rng(_SKETCH_SEED).standard_normal((N, dm + 1))
     omega /= np.linalg.norm(omega, axis=0)
     S = np.swapaxes(Y @ omega, 1, 2)  # (W, dm+1, N): sketch columns as rows
