@@ -82,14 +82,20 @@ def available() -> bool:
     return hasattr(arlib, "rolling_var")
 
 
-def build(folder: Path, *, export: bool = True) -> tuple[Path, Path]:
-    """Run ingest → fit → publish (→ export) into `folder`; returns (snapshot, export folder)."""
-    from pipeline import jobs
+def config_in(folder: Path) -> object:
+    """The small config, written into `folder` (its warehouse, snapshot and exports land there)."""
     from pipeline.config import load_config
 
     config_path = folder / "shockflow.toml"
     config_path.write_text(CONFIG.format(data=DATA.as_posix()), encoding="utf-8")
-    config = load_config(config_path)
+    return load_config(config_path)
+
+
+def build(folder: Path, *, export: bool = True) -> tuple[Path, Path]:
+    """Run ingest → fit → publish (→ export) into `folder`; returns (snapshot, export folder)."""
+    from pipeline import jobs
+
+    config = config_in(folder)
     for source in config.sources:
         result = jobs.ingest_source(config.warehouse.path, source)
         if result.status != "succeeded":
