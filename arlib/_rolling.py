@@ -623,10 +623,10 @@ def _fit_group(
     extra = (out.responses is not None) + (out.decomposition is not None)
     size = _chunk_size(n, p, d, out.H, extra)
     m = d + n * (p + 1)
-    # cross-product sums over larger blocks (packed: m(m+1)/2 numbers per window), so the rows
+    # cross-product sums over larger blocks (at most m² numbers per window), so the rows
     # shared by neighbouring windows are summed once; the per-window stages then run in
     # memory-bounded sub-chunks
-    gram_block = int(np.clip(GRAM_BYTES // (8 * m * (m + 1) // 2), size, MAX_GRAM_WINDOWS))
+    gram_block = int(np.clip(GRAM_BYTES // (8 * m * m), size, MAX_GRAM_WINDOWS))
     if expanding:
         fr = _frame(data, finite, 0, int(ends[-1]), trend)
         carry = {"row": p, "sum": None}

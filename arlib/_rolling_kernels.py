@@ -85,7 +85,8 @@ def packed_products(z: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
 
 
 def window_sums(z: np.ndarray, starts: np.ndarray, length: int) -> np.ndarray:
-    """Packed Σ_{t=a}^{a+L−1} z_t z_t' for each a in `starts` (row indices of z), (W, m(m+1)/2).
+    """Σ_{t=a}^{a+L−1} z_t z_t' for each a in `starts` (row indices of z): packed lower
+    triangles (W, m(m+1)/2), or for consecutive starts the lower triangles in place (W, m, m).
 
     Block scheme (van Herk 1992; Gil & Werman 1993): cut the rows into blocks of L starting at
     starts[0] and take running sums that restart at each block, pre_b(i) = Σ_{r<=i} of block b.
@@ -103,12 +104,20 @@ def window_sums(z: np.ndarray, starts: np.ndarray, length: int) -> np.ndarray:
     pre = buf.reshape(nblocks, length, -1)
     np.cumsum(pre, axis=1, out=pre)
     W = rel.shape[0]
-    if rel[-1] == W - 1:  # consecutive starts (step 1): whole blocks by slicing, no gathers
-        out = np.empty((nblocks - 1, length, buf.shape[1]))
-        out[:, 0] = pre[:-1, length - 1]
-        np.subtract(pre[1:, : length - 1], pre[:-1, : length - 1], out=out[:, 1:])
-        out[:, 1:] += pre[:-1, length - 1, None]
-        return out.reshape(-1, buf.shape[1])[:W]
+    if rel[-1] == W - 1:  # consecutive starts (step 1): whole blocks by slicing, no gathers,
+        # written straight into the (W, m, m) lower triangles the factorisation reads
+        G = np.zeros(((nblocks - 1) * length, m, m))
+        G4 = G.reshape(nblocks - 1, length, m, m)
+        tot = pre[:-1, length - 1]
+        off = 0
+        for r in range(m):
+            sl = slice(off, off + r + 1)
+            G4[:, 0, r, : r + 1] = tot[:, sl]
+            dst = G4[:, 1:, r, : r + 1]
+            np.subtract(pre[1:, : length - 1, sl], pre[:-1, : length - 1, sl], out=dst)
+            dst += tot[:, None, sl]
+            off += r + 1
+        return G[:W]
     b, i = np.divmod(rel, length)
     out = pre[b, length - 1]
     inner = np.flatnonzero(i > 0)
@@ -190,7 +199,8 @@ def triangular_inverse(L: np.ndarray, size: int = 8) -> np.ndarray:
 
 
 def solve_grams(packed: np.ndarray, k: int, m: int) -> dict[str, np.ndarray]:
-    """Least squares for a batch of packed augmented cross-product matrices (W, m(m+1)/2).
+    """Least squares for a batch of augmented cross-product matrices, packed (W, m(m+1)/2) or
+    as lower triangles (W, m, m) (overwritten).
 
     With G = L L' (L lower, blocks 11: regressors k×k, 21: series n×k, 22: n×n)::
 
@@ -205,7 +215,7 @@ def solve_grams(packed: np.ndarray, k: int, m: int) -> dict[str, np.ndarray]:
     at most k² times it; inf when the factorisation failed), "sse_pivot" (squared ratio of the
     smallest to largest Cholesky pivot of Û'Û), "L" (W, m, m) and bool "ok".
     """
-    G = unpack_lower_rows(packed, m)
+    G = packed if packed.ndim == 3 else unpack_lower_rows(packed, m)
     gdiag = np.diagonal(G, axis1=1, axis2=2)[:, :k].copy()
     L, ok = cholesky_batch(G)
     inv = triangular_inverse(L[:, :k, :k])

@@ -374,11 +374,18 @@ def test_window_sums_equal_direct_sums() -> None:
     rng = np.random.default_rng(0)
     z = rng.standard_normal((300, 5)) + 100.0  # large means: cancellation would show
     starts = np.array([3, 4, 50, 51, 52, 99, 130, 200])
-    got = K.window_sums(z, starts, 41)
+    got = K.window_sums(z, starts, 41)  # scattered starts: packed lower triangles
     il, jl = np.tril_indices(5)
     for w, a in enumerate(starts):
         direct = z[a : a + 41].T @ z[a : a + 41]
         np.testing.assert_allclose(got[w], direct[il, jl], rtol=1e-14)
+    consecutive = np.arange(7, 190)
+    full = K.window_sums(z, consecutive, 41)  # step 1: lower triangles in place
+    assert full.shape == (consecutive.size, 5, 5)
+    for w, a in enumerate(consecutive):
+        direct = z[a : a + 41].T @ z[a : a + 41]
+        np.testing.assert_allclose(full[w][il, jl], direct[il, jl], rtol=1e-14)
+        assert np.all(full[w][np.triu_indices(5, 1)] == 0.0)
 
 
 def test_spectral_radius_kernel_matches_lapack() -> None:
