@@ -2,4 +2,5 @@
 
 from pipeline.cli import main
 
-main()
+if __name__ == "__main__":  # Dask's worker processes re-import this module: never run it twice
+    main()

@@ -1,9 +1,10 @@
 """Prefect 3 flows: the nightly job as thin ordering of tasks around the plain steps of pipeline.jobs.
 
-nightly flow = mark interrupted runs → ingest (one read task per source, submitted in parallel; each
-store runs in the flow process, one writer) → per universe: start + plan (in process) → fit blocks
-(submitted: threads locally, Dask workers with ``[execution] runner = "dask"``) → store (in process,
-one transaction) → publish (atomic snapshot swap) → export.
+nightly flow = mark interrupted runs → ingest (one read task per source, in parallel on a thread
+pool of the flow process; each store runs in the flow process, one writer) → every universe: start
++ plan (in process), then all fit blocks of all universes submitted at once (threads locally, Dask
+workers with ``[execution] runner = "dask"``, see pipeline.execution) → per universe, store (in
+process, one transaction) → publish (atomic snapshot swap) → export.
 
 A failing source or universe is recorded (ingest_batches / runs) and the others continue. Nothing
 here reads the environment: the CLI sets Prefect's settings before importing this module.
@@ -22,7 +23,7 @@ from typing import TYPE_CHECKING, Any
 from prefect import flow, task
 from prefect.cache_policies import NO_CACHE
 
-from pipeline import jobs
+from pipeline import execution, jobs
 from pipeline import warehouse as wh
 from pipeline.config import Config, load_config
 from pipeline.errors import ShockflowError
@@ -127,33 +128,8 @@ def export_task(config: Config, universes: list[str]) -> Any:
 
 
 def task_runner(config: Config) -> Any:
-    """Prefect task runner for `[execution]`: threads locally, or prefect-dask on a cluster.
-
-    Dask: ``address = "local"`` starts an in-process LocalCluster bound to 127.0.0.1 (its
-    diagnostics page too) with its scratch folder beside the warehouse; any other address is an
-    existing scheduler. Workers only compute; every write happens in the flow process.
-    """
-    execution = config.execution
-    if execution.runner == "dask":
-        from prefect_dask import DaskTaskRunner
-
-        if execution.address == "local":
-            scratch = config.warehouse.path.parent / ".dask-scratch"
-            return DaskTaskRunner(
-                cluster_class="distributed.LocalCluster",
-                cluster_kwargs={
-                    "n_workers": 2,
-                    "threads_per_worker": 1,
-                    "processes": True,
-                    "host": "127.0.0.1",
-                    "dashboard_address": "127.0.0.1:0",
-                    "local_directory": str(scratch),
-                },
-            )
-        return DaskTaskRunner(address=execution.address)
-    from prefect.task_runners import ThreadPoolTaskRunner
-
-    return ThreadPoolTaskRunner(max_workers=4)
+    """Prefect task runner for `[execution]` (pipeline.execution): threads, or a Dask cluster."""
+    return execution.task_runner(config)
 
 
 def _resolve(future: Any) -> tuple[Any, BaseException | None]:
@@ -187,13 +163,15 @@ def _nightly_body(
     # ingest: reads in parallel, stores one at a time in this process
     t0 = time.perf_counter()
     started = {s.name: time.perf_counter() for s in config.sources}
-    futures = [(s, read_source_task.submit(s, today)) for s in config.sources]
-    for i, (source, future) in enumerate(futures):
-        frame, exc = _resolve(future)
-        secs = time.perf_counter() - started[source.name]
-        error = None if exc is None else (str(exc) if isinstance(exc, ShockflowError) else f"{type(exc).__name__}: {exc}")
-        summary.ingest.append(store_source_task(path, source.name, frame, error, secs))
-        _progress("ingest", source.name, i + 1, len(futures))
+    # (reads use a thread pool of this process even with Dask: the sources are this node's files)
+    with execution.io_task_runner() as io:
+        futures = [(s, io.submit(read_source_task, {"source": s, "today": today})) for s in config.sources]
+        for i, (source, future) in enumerate(futures):
+            frame, exc = _resolve(future)
+            secs = time.perf_counter() - started[source.name]
+            error = None if exc is None else (str(exc) if isinstance(exc, ShockflowError) else f"{type(exc).__name__}: {exc}")
+            summary.ingest.append(store_source_task(path, source.name, frame, error, secs))
+            _progress("ingest", source.name, i + 1, len(futures))
     summary.seconds["ingest"] = time.perf_counter() - t0
 
     # universes (arlib — numpy/scipy — is imported once up front and timed on its own)
@@ -203,27 +181,34 @@ def _nightly_body(
     summary.seconds["import arlib"] = time.perf_counter() - t0
     t0 = time.perf_counter()
     selected = [config.universe(n) for n in universes] if universes else list(config.universes)
-    for i, universe in enumerate(selected):
+    # plan every universe and submit all their blocks first, so the task runner's workers (threads
+    # or Dask) fit universes side by side; then store each in turn here (DuckDB has one writer)
+    results: dict[str, UniverseResult] = {}
+    pending: list[tuple[Any, str, Any, list[Any], float]] = []
+    for universe in selected:
         run_id = None
-        windows = 0
         try:
             run_id = jobs.start_universe(path, universe)
             job = plan_universe_task(path, universe, run_id, full, config.execution.block_windows)
-            windows = int(job.plan.ends.size)
-            t_fit = time.perf_counter()
             block_futures = [
                 fit_block_task.submit(job.prepared, universe, ends, run_id, b == len(job.blocks) - 1, b)
                 for b, ends in enumerate(job.blocks)
             ]
+            pending.append((universe, run_id, job, block_futures, time.perf_counter()))
+        except Exception as exc:  # recorded; the other universes continue
+            results[universe.name] = jobs.fail_universe(path, universe, run_id, exc)
+    for i, (universe, run_id, job, block_futures, t_fit) in enumerate(pending):
+        try:
             blocks = []
             for b, fut in enumerate(block_futures):
                 blocks.append(fut.result())
                 _progress(f"fit {universe.name}", f"block {b + 1}", b + 1, len(block_futures))
             result = store_universe_task(path, job, blocks, time.perf_counter() - t_fit)
         except Exception as exc:  # recorded; the other universes continue
-            result = jobs.fail_universe(path, universe, run_id, exc, windows=windows)
-        summary.universes.append(result)
-        _progress("universes", universe.name, i + 1, len(selected))
+            result = jobs.fail_universe(path, universe, run_id, exc, windows=int(job.plan.ends.size))
+        results[universe.name] = result
+        _progress("universes", universe.name, i + 1, len(pending))
+    summary.universes = [results[u.name] for u in selected]
     summary.seconds["fit"] = time.perf_counter() - t0
 
     # publish when a universe's results changed (failed ones keep their previous results), or
