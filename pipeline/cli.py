@@ -50,6 +50,8 @@ PREFECT_DEFAULTS = {
     "DO_NOT_TRACK": "1",
     "PREFECT_SERVER_EPHEMERAL_STARTUP_TIMEOUT_SECONDS": "120",
     "PREFECT_LOGGING_LEVEL": "WARNING",
+    # the pipeline's own loggers (shockflow.*) go to Prefect's handlers (and its UI) too
+    "PREFECT_LOGGING_EXTRA_LOGGERS": "shockflow",
 }
 
 

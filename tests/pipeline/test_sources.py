@@ -110,6 +110,13 @@ def test_cleaning_rules(tmp_path: Path) -> None:
     assert read(tmp_path / "c.csv", text).equals(EXPECTED)
 
 
+def test_byte_order_mark_and_fast_path_agree(tmp_path: Path) -> None:
+    # plain numbers take the typed fast path; a BOM or padded cells take the text path: same rows
+    assert read(tmp_path / "plain.csv", WIDE).equals(EXPECTED)
+    assert read(tmp_path / "bom.csv", b"\xef\xbb\xbf" + WIDE.encode()).equals(EXPECTED)
+    assert read(tmp_path / "pad.csv", WIDE.replace(",101.5,", ", 101.5 ,")).equals(EXPECTED)
+
+
 def test_custom_columns_and_format(tmp_path: Path) -> None:
     text = "when;name;px\n02/01/2024;A;100\n03/01/2024;A;101,5\n"
     path = tmp_path / "x.csv"
