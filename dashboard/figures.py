@@ -254,7 +254,7 @@ def index_figure(
             rangeslider={"visible": True, "thickness": 0.18},
         ),
         yaxis=_axis(title={"text": "index, %"}, rangemode="tozero"),
-        uirevision=universe,
+        uirevision=f"{universe}|{start}|{end}",  # a new window applies its range; zooms persist otherwise
     )  # fmt: skip
     return {"data": data, "layout": layout}
 
