@@ -10,7 +10,9 @@
   warehouse (:func:`scratch_folder`; Dask removes each worker's folder in it when it stops).
 - ``"dask"`` with ``address = "tcp://host:port"``: an existing Dask scheduler (the team's own
   cluster). :func:`check_scheduler` first checks that something listens there, so a wrong address
-  fails at once with the fix instead of after Dask's connect timeout.
+  fails at once with the fix instead of after Dask's connect timeout; :func:`check_prefect_api`
+  refuses a cluster on other machines while Prefect runs on its temporary local server, which
+  those workers could not reach.
 
 What runs where (the flow decides what it submits; see pipeline.flows): workers only compute —
 the fit of a block of window ends of a universe (``jobs.fit_block_step``: prepared rows in,
@@ -32,6 +34,7 @@ default 1000) keep the per-task cost small beside the compute.
 
 from __future__ import annotations
 
+import ipaddress
 import socket
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -48,6 +51,7 @@ __all__ = [
     "LOCAL_WORKERS",
     "LOOPBACK",
     "ExecutionError",
+    "check_prefect_api",
     "check_scheduler",
     "describe",
     "is_distributed",
@@ -148,6 +152,36 @@ def check_scheduler(address: str, *, timeout: float = CONNECT_TIMEOUT) -> None:
         raise ExecutionError(msg) from None
 
 
+def _is_loopback_host(host: str) -> bool:
+    if host == "localhost":
+        return True
+    try:
+        return ipaddress.ip_address(host).is_loopback
+    except ValueError:
+        return False
+
+
+def check_prefect_api(address: str, api_url: str | None) -> None:
+    """Raise ExecutionError when workers at `address` could not report to Prefect.
+
+    Each Dask worker runs Prefect's task engine, which records its task run through the Prefect
+    API the flow uses. With no ``PREFECT_API_URL`` (`api_url` None) that is Prefect's temporary
+    server on 127.0.0.1 of the flow's machine, which workers on other machines cannot reach (each
+    would start a temporary server of its own, and the runs would be recorded there). A scheduler
+    on this machine is accepted without one.
+    """
+    host = urlsplit(address).hostname or ""
+    if api_url or _is_loopback_host(host):
+        return
+    msg = (
+        f"[execution] address {address!r} is a cluster on other machines, but PREFECT_API_URL is "
+        "not set: its workers could not reach Prefect's temporary server on this machine; run a "
+        "Prefect server both can reach and set PREFECT_API_URL (e.g. http://prefect.internal:4200/api) "
+        "for the flow and on every worker"
+    )
+    raise ExecutionError(msg)
+
+
 def task_runner(config: Config) -> Any:
     """The Prefect task runner for `config`'s ``[execution]`` section (see the module doc)."""
     execution = config.execution
@@ -163,6 +197,9 @@ def task_runner(config: Config) -> Any:
             cluster_kwargs=local_cluster_kwargs(scratch_folder(config)),
         )
     assert execution.address is not None  # the config requires it for runner = "dask"
+    from prefect.settings import get_current_settings
+
+    check_prefect_api(execution.address, get_current_settings().api.url)
     check_scheduler(execution.address)
     return DaskTaskRunner(address=execution.address)
 

@@ -181,3 +181,11 @@ def test_unreachable_scheduler_fails_at_once_naming_the_address_and_the_fix(tmp_
     with pytest.raises(execution.ExecutionError, match=re.escape(address)) as err:
         execution.task_runner(config)
     assert "address = 'local'" in str(err.value)
+
+
+def test_a_cluster_on_other_machines_needs_a_shared_prefect_server() -> None:
+    remote = "tcp://192.0.2.10:8786"  # TEST-NET-1 (RFC 5737): never a real host
+    with pytest.raises(execution.ExecutionError, match="PREFECT_API_URL"):
+        execution.check_prefect_api(remote, None)
+    execution.check_prefect_api(remote, "http://prefect.internal:4200/api")
+    execution.check_prefect_api("tcp://127.0.0.1:8786", None)  # this machine: the temporary server will do
