@@ -315,3 +315,14 @@ def test_no_credentials_means_open_on_loopback_only(snapshot_path: Path) -> None
     r = client.get("/")
     assert r.status_code == 200
     assert r.headers["X-Frame-Options"] == "DENY"
+
+
+def test_public_surface_is_pinned() -> None:
+    import dashboard
+
+    assert dashboard.__all__ == [
+        "DashboardError", "DashboardSettings", "InsecureBindError", "SnapshotMissingError",
+        "WindowError", "create_app", "serve",
+    ]
+    assert dashboard.__all__ == sorted(dashboard.__all__)
+    assert callable(dashboard.create_app) and callable(dashboard.serve)
