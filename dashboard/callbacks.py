@@ -424,9 +424,12 @@ def shares_view(snap: Snapshot, state: Any, ordering: Any, horizon: Any) -> View
     chol, csrc = _shares(snap, u, end, "cholesky", order, H)
     fig = figures.shares_figure(
         [("generalized<br>(rows normalised to 100%)", gen),
-         ("Cholesky, order<br>" + " → ".join(order), chol)],
+         ("Cholesky<br>(recursive order in the title)", chol)],
         u.series,
-        title=f"Variance shares at {H} steps ahead, window ending {end}",
+        title=(
+            f"Variance shares at {H} steps ahead, window ending {end}<br><span style='font-size:11px;"
+            f"color:#444'>Cholesky order (first = most exogenous): {' → '.join(order)}</span>"
+        ),
     )  # fmt: skip
     rows = [
         {"window_end": _iso(end), "steps": H, "method": m, "series": u.series[i],

@@ -401,7 +401,7 @@ def shares_figure(
     layout = _layout(
         height=max(330, 130 + 46 * n), title=title, barmode="stack", annotations=anns,
         legend={"title": {"text": "source of the shock"}, "traceorder": "normal"},
-        margin={"l": 60, "r": 20, "t": 100, "b": 40}, **axes,
+        margin={"l": 60, "r": 20, "t": 120, "b": 40}, **axes,
     )  # fmt: skip
     return {"data": data, "layout": layout}
 
