@@ -105,7 +105,9 @@ class WindowPlan:
 
     ends: (W,) row indexes of the windows to fit, ascending. delete_ends: stored window ends to
     delete before inserting (refits and stale ends), or None to delete every window of the
-    universe (full refit). prepared_changed: whether the stored prepared data must be replaced.
+    universe (full refit). prepared_changed: whether the stored prepared data must be updated;
+    prepared_dates: the dates whose prepared rows changed, appeared or disappeared (None = replace
+    the universe's prepared rows whole).
     """
 
     ends: np.ndarray
@@ -115,6 +117,7 @@ class WindowPlan:
     candidates: int = 0
     reused: int = 0
     notes: list[str] = field(default_factory=list)
+    prepared_dates: list[date] | None = None
 
     @property
     def is_noop(self) -> bool:
@@ -202,6 +205,7 @@ def plan_windows(
         ends=fit_ends,
         delete_ends=delete,
         prepared_changed=prepared_changed,
+        prepared_dates=sorted(changed | removed),
         reason=reason,
         candidates=int(ends.size),
         reused=int(ends.size - fit_ends.size),

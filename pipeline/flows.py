@@ -152,13 +152,23 @@ def _nightly_body(
     export: bool,
     today: date,
 ) -> NightlySummary:
+    # one anchor connection for the whole run: steps share the open database (see wh.hold)
+    with wh.hold(config.warehouse.path) as con:
+        return _nightly_steps(config, con, universes=universes, full=full, export=export, today=today)
+
+
+def _nightly_steps(
+    config: Config,
+    con: Any,
+    *,
+    universes: list[str] | None,
+    full: bool,
+    export: bool,
+    today: date,
+) -> NightlySummary:
     summary = NightlySummary()
     path = config.warehouse.path
-    con = wh.connect(path)
-    try:
-        summary.interrupted_marked = wh.mark_interrupted(con, path=path)
-    finally:
-        con.close()
+    summary.interrupted_marked = wh.mark_interrupted(con, path=path)
 
     # ingest: reads in parallel, stores one at a time in this process
     t0 = time.perf_counter()

@@ -249,6 +249,7 @@ def store_universe(
             prepared=job.prepared.frame if plan.prepared_changed else None,
             dropped=job.prepared.dropped if plan.prepared_changed else None,
             counts={"fitted": fitted, "skipped": skipped, "failed": 0},
+            prepared_dates=plan.prepared_dates if plan.delete_ends is not None else None,
             data_fingerprint=job.fingerprint,
             message=message,
             path=warehouse_path,
@@ -290,6 +291,11 @@ def run_universe(
     warehouse_path: str | Path, universe: UniverseConfig, *, full: bool = False, block_windows: int = 1000
 ) -> UniverseResult:
     """start → plan → fit every block → store, sequentially; failures are recorded and returned."""
+    with wh.hold(warehouse_path):
+        return _run_universe(warehouse_path, universe, full=full, block_windows=block_windows)
+
+
+def _run_universe(warehouse_path: str | Path, universe: UniverseConfig, *, full: bool, block_windows: int) -> UniverseResult:
     run_id = None
     windows = 0
     try:

@@ -4,7 +4,10 @@ The dashboard opens only the serving snapshot, read-only. DuckDB lets no other p
 that one process holds read-write, so readers never touch the working warehouse: after a run the
 pipeline writes every table of ``SNAPSHOT_TABLES`` into ``.<snapshot>.<id>.tmp`` in the same folder
 (ATTACH, CREATE TABLE … AS SELECT, DETACH — DETACH checkpoints, so the file is complete and has no
-WAL), fsyncs it, and ``os.replace``s it over the served file. A reader that still holds the old
+WAL), fsyncs it, and ``os.replace``s it over the served file. A nightly publish starts the new file
+from a byte copy of the served one and rewrites only the windows that changed (see
+:func:`publish_snapshot`), so its cost follows the night's changes, not the history. Temporary files left by a publish
+that was killed midway are deleted by the next publish. A reader that still holds the old
 file keeps a consistent view of the previous run; a reader that opens after the swap sees the new
 one; nobody ever sees a half-written file.
 
@@ -15,7 +18,9 @@ avoids the cache (an in-memory database that ATTACHes the file), so it always op
 
 from __future__ import annotations
 
+import glob
 import os
+import shutil
 import time
 import uuid
 from dataclasses import dataclass
@@ -24,7 +29,7 @@ from pathlib import Path
 import duckdb
 
 from pipeline.errors import PublishError
-from pipeline.warehouse import SNAPSHOT_TABLES, TABLES
+from pipeline.warehouse import RESULT_TABLES, SCHEMA_VERSION, SNAPSHOT_TABLES, TABLES
 
 __all__ = ["PublishResult", "open_snapshot", "publish_snapshot"]
 
@@ -38,6 +43,8 @@ class PublishResult:
     rows: int
     bytes: int
     seconds: float
+    incremental: bool = False
+    windows_synced: int = 0
 
 
 def _order_by(table: str) -> str:
@@ -46,10 +53,16 @@ def _order_by(table: str) -> str:
     return f" ORDER BY {', '.join(keys)}" if keys else ""
 
 
-def publish_snapshot(con: duckdb.DuckDBPyConnection, snapshot: str | Path) -> PublishResult:
+def publish_snapshot(con: duckdb.DuckDBPyConnection, snapshot: str | Path, *, incremental: bool = True) -> PublishResult:
     """Write the snapshot tables of the warehouse open on `con` to `snapshot`, atomically.
 
     `con` is a read-write connection to the working warehouse (the pipeline's own).
+
+    incremental: when the served snapshot exists with this schema version, start from a byte copy
+    of it and bring it level with the warehouse: the small tables are replaced whole, and in the
+    per-window result tables only the windows whose ``window_fits.run_id`` differs between the two
+    (refitted, new or deleted windows) are rewritten. Otherwise every table is copied. Either way
+    the result is written to a new file and swapped in.
     """
     t0 = time.perf_counter()
     target = Path(snapshot)
@@ -61,11 +74,26 @@ def publish_snapshot(con: duckdb.DuckDBPyConnection, snapshot: str | Path) -> Pu
     tmp = target.with_name(f".{target.name}.{uuid.uuid4().hex[:8]}.tmp")
     alias = f"snap_{uuid.uuid4().hex[:8]}"
     rows = 0
+    synced = 0
+    used_copy = False
     try:
-        con.execute(f"ATTACH '{_sql_path(tmp)}' AS {alias}")
+        if incremental and target.is_file():
+            shutil.copyfile(target, tmp)
+            con.execute(f"ATTACH '{_sql_path(tmp)}' AS {alias}")
+            if _compatible(con, alias):
+                used_copy = True
+            else:
+                con.execute(f"DETACH {alias}")
+                _cleanup(tmp)
+        if not used_copy:
+            con.execute(f"ATTACH '{_sql_path(tmp)}' AS {alias}")
         try:
+            if used_copy:
+                synced = _sync(con, alias)
+            else:
+                for table in SNAPSHOT_TABLES:
+                    con.execute(f"CREATE TABLE {alias}.{table} AS SELECT * FROM main.{table}{_order_by(table)}")
             for table in SNAPSHOT_TABLES:
-                con.execute(f"CREATE TABLE {alias}.{table} AS SELECT * FROM main.{table}{_order_by(table)}")
                 rows += con.execute(f"SELECT count(*) FROM {alias}.{table}").fetchall()[0][0]
         finally:
             con.execute(f"DETACH {alias}")
@@ -82,8 +110,84 @@ def publish_snapshot(con: duckdb.DuckDBPyConnection, snapshot: str | Path) -> Pu
         msg = f"publishing the snapshot {str(target)!r} failed ({exc.strerror}); the served snapshot is unchanged — check the folder's permissions and free space"
         raise PublishError(msg) from None
     return PublishResult(
-        path=target, tables=len(SNAPSHOT_TABLES), rows=rows, bytes=target.stat().st_size, seconds=time.perf_counter() - t0
+        path=target, tables=len(SNAPSHOT_TABLES), rows=rows, bytes=target.stat().st_size,
+        seconds=time.perf_counter() - t0, incremental=used_copy, windows_synced=synced,
     )
+
+
+def _compatible(con: duckdb.DuckDBPyConnection, alias: str) -> bool:
+    """The attached copy has every snapshot table and this schema version."""
+    names = {
+        r[0]
+        for r in con.execute(
+            "SELECT table_name FROM information_schema.tables WHERE table_catalog = ?", [alias]
+        ).fetchall()
+    }
+    if not set(SNAPSHOT_TABLES) <= names:
+        return False
+    version = con.execute(f"SELECT max(version) FROM {alias}.schema_version").fetchall()[0][0]
+    if version != SCHEMA_VERSION:
+        return False
+    for table in SNAPSHOT_TABLES:  # same columns in the same order
+        cols = [
+            r[0]
+            for r in con.execute(
+                "SELECT column_name FROM information_schema.columns WHERE table_catalog = ? AND table_name = ? "
+                "ORDER BY ordinal_position",
+                [alias, table],
+            ).fetchall()
+        ]
+        main_cols = [
+            r[0]
+            for r in con.execute(
+                "SELECT column_name FROM information_schema.columns WHERE table_catalog = current_database() "
+                "AND table_schema = 'main' AND table_name = ? ORDER BY ordinal_position",
+                [table],
+            ).fetchall()
+        ]
+        if cols != main_cols:
+            return False
+    return True
+
+
+def _sync(con: duckdb.DuckDBPyConnection, alias: str) -> int:
+    """Bring the attached snapshot copy level with the warehouse; returns windows rewritten."""
+    con.execute("BEGIN TRANSACTION")
+    try:
+        for table in SNAPSHOT_TABLES:
+            if table in RESULT_TABLES:
+                continue
+            con.execute(f"DELETE FROM {alias}.{table}")
+            con.execute(f"INSERT INTO {alias}.{table} SELECT * FROM main.{table}{_order_by(table)}")
+        # windows written by another run than the one the snapshot holds, or on one side only
+        con.execute(
+            "CREATE OR REPLACE TEMP TABLE _publish_diff AS "
+            "SELECT coalesce(m.universe, s.universe) AS universe, coalesce(m.window_end, s.window_end) AS window_end "
+            f"FROM main.window_fits m FULL JOIN {alias}.window_fits s "
+            "ON m.universe = s.universe AND m.window_end = s.window_end "
+            "WHERE m.run_id IS DISTINCT FROM s.run_id"
+        )
+        synced = con.execute("SELECT count(*) FROM _publish_diff").fetchall()[0][0]
+        if synced:
+            for table in RESULT_TABLES:
+                con.execute(
+                    f"DELETE FROM {alias}.{table} t USING _publish_diff d "
+                    "WHERE t.universe = d.universe AND t.window_end = d.window_end"
+                )
+                con.execute(
+                    f"INSERT INTO {alias}.{table} SELECT t.* FROM main.{table} t "
+                    "SEMI JOIN _publish_diff d ON t.universe = d.universe AND t.window_end = d.window_end "
+                    "ORDER BY t.universe, t.window_end"
+                )
+        con.execute("DROP TABLE _publish_diff")
+        con.execute("COMMIT")
+    except BaseException:
+        try:
+            con.execute("ROLLBACK")
+        except duckdb.Error:
+            pass
+        raise
+    return int(synced)
 
 
 def _sql_path(path: Path) -> str:
@@ -99,6 +203,23 @@ def _cleanup(tmp: Path) -> None:
             pass
         except OSError:
             pass
+
+
+def _remove_stale(target: Path) -> int:
+    """Delete temporary files of earlier publishes that never finished (a killed process).
+
+    Only the process holding the working warehouse read-write publishes, so any
+    ``.<snapshot>.<id>.tmp`` (and its ``.wal``) found now belongs to a dead publish.
+    """
+    removed = 0
+    for p in target.parent.glob(f".{glob.escape(target.name)}.*.tmp*"):
+        if p.suffix in (".tmp", ".wal"):
+            try:
+                p.unlink()
+                removed += 1
+            except OSError:
+                pass
+    return removed
 
 
 def _fsync_dir(folder: Path) -> None:

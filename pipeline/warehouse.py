@@ -44,6 +44,7 @@ __all__ = [
     "ensure_schema",
     "fail_run",
     "finish_batch",
+    "hold",
     "mark_interrupted",
     "new_id",
     "query",
@@ -176,6 +177,21 @@ def _rollback(con: duckdb.DuckDBPyConnection) -> None:
         con.execute("ROLLBACK")
     except duckdb.Error:
         pass
+
+
+@contextmanager
+def hold(path: str | Path) -> Iterator[duckdb.DuckDBPyConnection]:
+    """Keep the warehouse open for a whole run.
+
+    DuckDB checkpoints a database when its last connection closes; steps that each open and close
+    their own connection would checkpoint (and reopen) between every step. While this anchor is
+    open, those connections share the open database.
+    """
+    con = connect(path)
+    try:
+        yield con
+    finally:
+        con.close()
 
 
 @contextmanager
@@ -395,6 +411,7 @@ def store_universe_results(
     prepared: pl.DataFrame | None,
     dropped: pl.DataFrame | None,
     counts: Mapping[str, int],
+    prepared_dates: list[date] | None = None,
     data_fingerprint: str | None = None,
     message: str | None = None,
     path: str | Path = "?",
@@ -404,7 +421,8 @@ def store_universe_results(
     tables: result table name → frame with the table's columns (run_id and universe included).
     replace_ends: window ends whose old rows are deleted first (None = delete all of the universe's
     window rows: a full refit). prepared / dropped: the universe's new prepared data and dropped
-    dates (None = leave the stored ones, used when nothing changed).
+    dates (None = leave the stored ones, used when nothing changed). prepared_dates: only these
+    dates' prepared rows are replaced (None = all of the universe's).
     """
     name = universe.name
     with transaction(con, path=path, action=f"storing results of universe {name!r}"):
@@ -427,7 +445,19 @@ def store_universe_results(
                 _insert(con, t, tables[t])
         if prepared is not None:
             for t in UNIVERSE_TABLES:
+                if t == "prepared" and prepared_dates is not None:
+                    continue
                 con.execute(f"DELETE FROM {t} WHERE universe = ?", [name])
+            if prepared_dates is not None:
+                dates_view = f"_dates_{uuid.uuid4().hex[:8]}"
+                con.register(dates_view, pa.table({"date": pa.array(prepared_dates, type=pa.date32())}))
+                try:
+                    con.execute(
+                        f"DELETE FROM prepared WHERE universe = ? AND date IN (SELECT date FROM {dates_view})", [name]
+                    )
+                finally:
+                    con.unregister(dates_view)
+                prepared = prepared.filter(pl.col("date").is_in(prepared_dates))
             con.execute(
                 "INSERT INTO universes VALUES (?, ?, ?, ?, ?, ?, ?)",
                 [

@@ -17,9 +17,11 @@ from tests.pipeline.helpers import minimal_config
 
 def _write_total(con: duckdb.DuckDBPyConnection, cfg_universe, total: float) -> str:
     run = wh.begin_run(con, universe="pair", config_hash="h", data_fingerprint=None, code_version="t")
-    conn = pl.DataFrame({"run_id": [run], "universe": ["pair"], "window_end": [date(2024, 1, 2)], "total": [total]})
+    key = {"run_id": [run], "universe": ["pair"], "window_end": [date(2024, 1, 2)]}
+    conn = pl.DataFrame({**key, "total": [total]})
+    fits = pl.DataFrame({**key, "window_start": [date(2023, 1, 2)], "nobs": [40], "lags": [1]})
     wh.store_universe_results(
-        con, run_id=run, universe=cfg_universe, tables={"connectedness": conn}, replace_ends=None,
+        con, run_id=run, universe=cfg_universe, tables={"window_fits": fits, "connectedness": conn}, replace_ends=None,
         prepared=pl.DataFrame({"date": [date(2024, 1, 2)], "series": ["A"], "value": [0.5]}),
         dropped=None, counts={"fitted": 1},
     )
@@ -41,7 +43,8 @@ def test_publish_swaps_atomically_and_readers_see_new_data(tmp_path: Path) -> No
     assert tables == set(wh.SNAPSHOT_TABLES)  # observations and revisions stay in the warehouse
 
     _write_total(con, u, 20.0)
-    publish_snapshot(con, cfg.warehouse.snapshot)
+    second = publish_snapshot(con, cfg.warehouse.snapshot)
+    assert second.incremental and second.windows_synced == 1  # started from the served file
     # the reader that held the old file keeps a consistent view of it
     assert old_reader.execute("SELECT total FROM connectedness").fetchall() == [(10.0,)]
     # open_snapshot never gets DuckDB's cached instance of the old file, even while it is open
@@ -87,5 +90,40 @@ def test_snapshot_path_with_quote(tmp_path: Path) -> None:
     publish_snapshot(con, odd)
     reader = open_snapshot(odd)
     assert reader.execute("SELECT total FROM connectedness").fetchall() == [(1.5,)]
+    reader.close()
+    con.close()
+
+
+def test_incremental_publish_equals_a_full_copy(tmp_path: Path) -> None:
+    cfg = minimal_config(tmp_path)
+    u = cfg.universes[0]
+    con = wh.connect(cfg.warehouse.path)
+    _write_total(con, u, 10.0)
+    publish_snapshot(con, cfg.warehouse.snapshot)
+    _write_total(con, u, 30.0)
+    inc = publish_snapshot(con, cfg.warehouse.snapshot)
+    full_path = tmp_path / "full.duckdb"
+    full = publish_snapshot(con, full_path, incremental=False)
+    assert inc.incremental and not full.incremental and inc.rows == full.rows
+    a, b = open_snapshot(cfg.warehouse.snapshot), open_snapshot(full_path)
+    for table in wh.SNAPSHOT_TABLES:
+        q = f"SELECT * FROM {table} ORDER BY ALL"
+        assert a.execute(q).fetchall() == b.execute(q).fetchall(), table
+    a.close()
+    b.close()
+    con.close()
+
+
+def test_snapshot_of_another_schema_is_rebuilt(tmp_path: Path) -> None:
+    cfg = minimal_config(tmp_path)
+    con = wh.connect(cfg.warehouse.path)
+    _write_total(con, cfg.universes[0], 10.0)
+    other = duckdb.connect(str(cfg.warehouse.snapshot))
+    other.execute("CREATE TABLE connectedness (x INTEGER)")
+    other.close()
+    res = publish_snapshot(con, cfg.warehouse.snapshot)
+    assert not res.incremental
+    reader = open_snapshot(cfg.warehouse.snapshot)
+    assert reader.execute("SELECT total FROM connectedness").fetchall() == [(10.0,)]
     reader.close()
     con.close()
