@@ -288,7 +288,7 @@ def spectral_radius_batch(
 
     Method (Golub & Van Loan 2013, Secs. 7.3.1–7.3.2):
 
-    1. Y = C^m / ||C^m||_F, m = 2^squarings, by repeated squaring (normalised every other step).
+    1. Y = C^m / ||C^m||_F, m = 2^squarings, by repeated squaring (rescaled every third step).
        An eigenvalue λ_j appears in Y with weight about (|λ_j| / ρ)^m, so Y's range is the
        dominant invariant subspace plus directions of weight below `rank_tol`.
     2. A sketch Y Ω (Ω a fixed Gaussian N × (d_max + 1), d_max = max(8, N // 5) by default:
@@ -329,12 +329,14 @@ def spectral_radius_batch(
     for i in range(1, squarings + 1):  # Y ∝ C^(2^i)
         if i > 1:
             Y = Y @ Y
-        if i % 2 or i == squarings:
+        # rescale to ||Y||_F = 1 every third step: in between ||Y|| can only fall (to no less
+        # than ρ(Y)^8 of a unit-norm Y), never overflow
+        if i % 3 == 1 or i == squarings:
             s = np.sqrt(np.einsum("wij,wij->w", Y, Y))
             fine = np.isfinite(s) & (s > 1e-250)
             good &= fine
             s[~fine] = 1.0
-            Y /= s[:, None, None]
+            Y *= (1.0 / s)[:, None, None]
     dm = min(max(8, N // 5) if max_dim is None else max_dim, N - 1)
     omega = np.random.default_rng(_SKETCH_SEED).standard_normal((N, dm + 1))
     omega /= np.linalg.norm(omega, axis=0)
