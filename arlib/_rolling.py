@@ -38,7 +38,8 @@ solve, and every fitted window agrees with `fit_var` to about 1e-10 relative or 
 Cost
 ----
 Per window: O(m²) for its cross-products plus a fixed amount of batched small-matrix
-arithmetic; no per-window Python loop. With `after=` or `ends=` only the requested windows and
+arithmetic; no per-window linear algebra is driven from Python except for the rare windows
+refitted directly. With `after=` or `ends=` only the requested windows and
 the rows they span are touched (expanding windows: the running sums from row 0 are O(T·m²)).
 
 References
