@@ -139,3 +139,26 @@ def test_cli_unknown_universe(tmp_path: Path) -> None:
     result = CliRunner().invoke(app, ["run", "--config", str(config), "--universe", "us_rael"])
     assert result.exit_code == 1
     assert "no universe named 'us_rael' (did you mean 'us_real'?)" in result.output
+
+
+def test_cli_check_names_missing_series_and_failed_source(tmp_path: Path) -> None:
+    macro_csv(tmp_path / "macrodata.csv")
+    text = CONFIG.replace('"realinv"]', '"realinvest"]') + '\n[[sources]]\nname = "gone"\nkind = "csv"\npath = "gone/*.csv"\n'
+    config = write_config(tmp_path, text)
+    result = CliRunner().invoke(app, ["check", "--config", str(config)])
+    assert result.exit_code == 2  # one source read, problems found
+    flat = " ".join(result.output.split())
+    assert "no file matches path" in flat
+    assert "lists series 'realinvest', which no source provides (did you mean 'realinv'?)" in flat
+    assert not (tmp_path / "wh").exists()
+
+
+def test_prefect_environment_defaults_do_not_override() -> None:
+    from pipeline.cli import prefect_environment
+
+    env = {"PREFECT_LOGGING_LEVEL": "DEBUG"}
+    prefect_environment(env)
+    assert env["PREFECT_LOGGING_LEVEL"] == "DEBUG"
+    assert env["PREFECT_SERVER_ANALYTICS_ENABLED"] == "false"
+    assert env["PREFECT_SERVER_EPHEMERAL_STARTUP_TIMEOUT_SECONDS"] == "120"
+    assert env["DO_NOT_TRACK"] == "1"
