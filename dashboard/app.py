@@ -53,6 +53,16 @@ def create_app(settings_or_config: Any) -> Any:
         suppress_callback_exceptions=True,
     )
     auth.install(app.server, token=settings.token, username=settings.username, password=settings.password)
+
+    # one snapshot file per request: a publish mid-request never mixes two runs in one answer
+    @app.server.before_request
+    def _pin_snapshot() -> None:
+        snap.reader.begin_pin()
+
+    @app.server.teardown_request
+    def _unpin_snapshot(exc: BaseException | None) -> None:
+        snap.reader.end_pin()
+
     app.layout = lambda: build(snap, settings)
     register(app, snap, settings)
 

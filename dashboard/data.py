@@ -211,7 +211,10 @@ class _Handle:
 class SnapshotReader:
     """Opens the serving snapshot read-only and reopens it when the file is replaced.
 
-    Thread-safe: each query runs on its own DuckDB cursor of the current handle.
+    Thread-safe: each query runs on its own DuckDB cursor of the current handle. Inside
+    :meth:`pinned` every query of the calling thread reads the same file — the one current at the
+    block's first query — so one request never mixes two published snapshots (the app pins each
+    HTTP request).
     """
 
     def __init__(self, path: str | os.PathLike[str]) -> None:
@@ -219,6 +222,31 @@ class SnapshotReader:
         self._lock = threading.Lock()
         self._handle: _Handle | None = None
         self._generation = 0
+        self._pin = threading.local()  # .active: bool, .handle: _Handle | None (per thread)
+
+    def begin_pin(self) -> bool:
+        """Start pinning this thread's queries to one file; False if already pinned (nested)."""
+        if getattr(self._pin, "active", False):
+            return False
+        self._pin.active, self._pin.handle = True, None
+        return True
+
+    def end_pin(self) -> None:
+        """Stop pinning; the pinned file is released (closed if it was replaced meanwhile)."""
+        handle = getattr(self._pin, "handle", None)
+        self._pin.active, self._pin.handle = False, None
+        if handle is not None:
+            handle.release()
+
+    @contextlib.contextmanager
+    def pinned(self) -> Iterator[None]:
+        """Every query of this thread inside the block reads the same snapshot file."""
+        started = self.begin_pin()
+        try:
+            yield
+        finally:
+            if started:
+                self.end_pin()
 
     def _identity(self) -> tuple[int, ...]:
         try:
@@ -232,6 +260,10 @@ class SnapshotReader:
         return (st.st_dev, st.st_ino, st.st_mtime_ns, st.st_size)
 
     def _current(self) -> _Handle:
+        pinned = getattr(self._pin, "handle", None)
+        if pinned is not None:
+            pinned.acquire()
+            return pinned
         identity = self._identity()
         with self._lock:
             handle = self._handle
@@ -243,6 +275,9 @@ class SnapshotReader:
                     handle.retire()
                 handle = fresh
             handle.acquire()
+            if getattr(self._pin, "active", False):
+                handle.acquire()  # the pin's own reference, released by end_pin
+                self._pin.handle = handle
             return handle
 
     @property
@@ -302,6 +337,8 @@ class Snapshot:
 
     def _cached(self, key: Any, compute: Callable[[], Any]) -> Any:
         generation = self.reader.current_generation()
+        if generation < self._cache_generation:  # a request pinned to a replaced file: no caching
+            return compute()
         with self._cache_lock:
             if generation != self._cache_generation:
                 self._cache = {}
