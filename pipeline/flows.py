@@ -221,12 +221,17 @@ def _nightly_steps(
     summary.universes = [results[u.name] for u in selected]
     summary.seconds["fit"] = time.perf_counter() - t0
 
-    # publish when a universe's results changed (failed ones keep their previous results), or
-    # when there is no snapshot yet; a night with nothing new leaves the served file alone
+    # publish when a universe's results changed (failed ones keep their previous results), when
+    # there is no snapshot yet, or when the snapshot lags the warehouse (an earlier run was killed
+    # between storing and publishing); a night with nothing new leaves the served file alone
     succeeded = [r.universe for r in summary.universes if r.status == "succeeded"]
-    changed = [r.universe for r in summary.universes if r.status == "succeeded" and r.changed]
     t0 = time.perf_counter()
-    if changed or (succeeded and not config.warehouse.snapshot.exists()):
+    stale = jobs.stale_step(config) if succeeded else []
+    changed = [
+        r.universe for r in summary.universes
+        if r.status == "succeeded" and (r.changed or (stale is not None and r.universe in stale))
+    ]
+    if changed or (succeeded and stale is None):
         try:
             publish_task(config)
             summary.published = True

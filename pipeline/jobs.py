@@ -53,6 +53,7 @@ __all__ = [
     "publish_step",
     "read_source_step",
     "run_universe",
+    "stale_step",
     "start_universe",
     "store_ingest",
     "store_universe",
@@ -324,6 +325,20 @@ def publish_step(config: Config) -> PublishResult:
     con = wh.connect(config.warehouse.path)
     try:
         return publish_snapshot(con, config.warehouse.snapshot)
+    finally:
+        con.close()
+
+
+def stale_step(config: Config) -> list[str] | None:
+    """Universes whose served results lag the warehouse (None: no readable snapshot yet).
+
+    Non-empty after a run that stored results but was killed before it published them.
+    """
+    from pipeline.publish import stale_universes
+
+    con = wh.connect(config.warehouse.path)
+    try:
+        return stale_universes(con, config.warehouse.snapshot)
     finally:
         con.close()
 

@@ -31,7 +31,7 @@ import duckdb
 from pipeline.errors import PublishError
 from pipeline.warehouse import RESULT_TABLES, SCHEMA_VERSION, SNAPSHOT_TABLES, TABLES
 
-__all__ = ["PublishResult", "open_snapshot", "publish_snapshot"]
+__all__ = ["PublishResult", "open_snapshot", "publish_snapshot", "stale_universes"]
 
 
 @dataclass(frozen=True)
@@ -71,6 +71,7 @@ def publish_snapshot(con: duckdb.DuckDBPyConnection, snapshot: str | Path, *, in
     except OSError as exc:
         msg = f"snapshot folder {str(target.parent)!r} cannot be created ({exc.strerror}); fix [warehouse] snapshot"
         raise PublishError(msg) from None
+    _remove_stale(target)
     tmp = target.with_name(f".{target.name}.{uuid.uuid4().hex[:8]}.tmp")
     alias = f"snap_{uuid.uuid4().hex[:8]}"
     rows = 0
@@ -113,6 +114,41 @@ def publish_snapshot(con: duckdb.DuckDBPyConnection, snapshot: str | Path, *, in
         path=target, tables=len(SNAPSHOT_TABLES), rows=rows, bytes=target.stat().st_size,
         seconds=time.perf_counter() - t0, incremental=used_copy, windows_synced=synced,
     )
+
+
+def stale_universes(con: duckdb.DuckDBPyConnection, snapshot: str | Path) -> list[str] | None:
+    """Universes whose results in the served snapshot differ from the warehouse's; None = no snapshot.
+
+    Compared by the run that wrote each window (``window_fits``: universe, window_end, run_id) and
+    each universe's bookkeeping row (``universes``). A run killed after storing its results but
+    before publishing leaves exactly this difference; the next run publishes it even when it has
+    nothing new of its own. A snapshot that cannot be read counts as missing.
+    """
+    target = Path(snapshot)
+    if not target.is_file():
+        return None
+    alias = f"served_{uuid.uuid4().hex[:8]}"
+    try:
+        con.execute(f"ATTACH '{_sql_path(target)}' AS {alias} (READ_ONLY)")
+    except duckdb.Error:
+        return None
+    try:
+        rows = con.execute(
+            "SELECT DISTINCT universe FROM ("
+            "(SELECT universe, window_end, run_id FROM main.window_fits "
+            f" EXCEPT SELECT universe, window_end, run_id FROM {alias}.window_fits) UNION ALL "
+            f"(SELECT universe, window_end, run_id FROM {alias}.window_fits "
+            " EXCEPT SELECT universe, window_end, run_id FROM main.window_fits) UNION ALL "
+            "(SELECT universe, NULL, run_id FROM main.universes "
+            f" EXCEPT SELECT universe, NULL, run_id FROM {alias}.universes) UNION ALL "
+            f"(SELECT universe, NULL, run_id FROM {alias}.universes "
+            " EXCEPT SELECT universe, NULL, run_id FROM main.universes)) ORDER BY universe"
+        ).fetchall()
+    except duckdb.Error:
+        return None
+    finally:
+        con.execute(f"DETACH {alias}")
+    return [r[0] for r in rows]
 
 
 def _compatible(con: duckdb.DuckDBPyConnection, alias: str) -> bool:
