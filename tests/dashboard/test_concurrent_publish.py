@@ -13,6 +13,10 @@ Every answer must be HTTP 200 and wholly one snapshot's: the connectedness histo
 or the new snapshot's (and its note computed from those same rows, every row inside the chosen
 window); the shock-path grid equal to that snapshot's stored responses at its newest window; the
 date-window bounds one snapshot's. Once the run has ended, answers show the new snapshot.
+
+A second test swaps two snapshots back and forth (the pipeline's publish, 12 times) under load
+with different newest windows, so a view whose queries straddled a swap would be caught mixing
+them (before the app pinned each request to one file it did, a few times in every thousand).
 """
 
 from __future__ import annotations
