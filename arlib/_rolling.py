@@ -708,33 +708,37 @@ def _fit_chunk(
             override = {int(pos[j]): res for j, res in override.items()}
             coef_t, sse, inv = coef_t[live], sse[live], inv[live]
             logdet, cond, widx, nobs = logdet[live], cond[live], widx[live], nobs[live]
+        # bulk writes go through a slice when the windows are contiguous (the usual case)
+        ws: Any = (
+            slice(int(widx[0]), int(widx[-1]) + 1) if widx[-1] - widx[0] == widx.size - 1 else widx
+        )
         dof = (nobs - k).astype(np.float64)
         sigma_s = sse / dof[:, None, None]  # Σ̂_u in working coordinates
         acat = coef_t[:, :, d:]  # (W, n, n·p) = [A'_1 ... A'_p] in working coordinates
         s = fr.scale
         ratio = s[:, None] / s[None, :]  # A_l = S A'_l S^{-1}
         coefs = acat.reshape(-1, n, p, n).transpose(0, 2, 1, 3) * ratio
-        out.coefs[widx, :p] = coefs
-        out.coefs[widx, p:] = 0.0
-        out.sigma_u[widx] = sigma_s * np.outer(s, s)
+        out.coefs[ws, :p] = coefs
+        out.coefs[ws, p:] = 0.0
+        out.sigma_u[ws] = sigma_s * np.outer(s, s)
         _deterministic(coef_t, coefs, trend, fr, out, widx, override)
         logdet_ml = logdet + 2.0 * np.log(s).sum() - n * np.log(nobs)
         for name, val in K.information_criteria_batch(logdet_ml, nobs, n, k).items():
-            out.ic[name][widx] = val
-        out.condition_number[widx] = cond
+            out.ic[name][ws] = val
+        out.condition_number[ws] = cond
     with timer("spectral radius"):
         rho, _ = K.spectral_radius_batch(acat, n, p)
-        out.spectral_radius[widx] = rho
+        out.spectral_radius[ws] = rho
     with timer("connectedness"):
-        _responses_and_decompositions(acat, sigma_s, s, out, widx)
+        _responses_and_decompositions(acat, sigma_s, s, out, ws)
     if out.granger_f is not None and out.granger_p is not None and out.granger_df is not None:
         with timer("granger"):
             F = K.granger_f(coef_t, inv, np.diagonal(sigma_s, axis1=1, axis2=2), n, p, d)
             df2 = n * (nobs - k)
-            out.granger_f[widx] = F
-            out.granger_p[widx] = K.f_survival(F, p, df2[:, None, None])
-            out.granger_df[widx, 0] = p
-            out.granger_df[widx, 1] = df2
+            out.granger_f[ws] = F
+            out.granger_p[ws] = K.f_survival(F, p, df2[:, None, None])
+            out.granger_df[ws, 0] = p
+            out.granger_df[ws, 1] = df2
     if out.portmanteau_p is not None:
         with timer("portmanteau"):
             _portmanteau(data, usable, p, trend, fr, coef_t, sse, nobs, out, widx)
@@ -824,7 +828,7 @@ def _deterministic(
 
 
 def _responses_and_decompositions(
-    acat: np.ndarray, sigma_s: np.ndarray, s: np.ndarray, out: _Outputs, widx: np.ndarray
+    acat: np.ndarray, sigma_s: np.ndarray, s: np.ndarray, out: _Outputs, widx: Any
 ) -> None:
     """Connectedness (always) and stored responses / decompositions, in one MA recursion.
 
