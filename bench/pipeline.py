@@ -34,7 +34,9 @@ def _write_inputs(folder: Path, series: int, days: int) -> Path:
     dates = pl.date_range(pl.date(2000, 1, 3), pl.date(2100, 1, 1), "1d", eager=True)
     dates = dates.filter(dates.dt.weekday() <= 5)[: days + 1]
     levels = 100.0 * np.exp(np.cumsum(rng.standard_normal((days + 1, series)) * 0.01, axis=0))
-    frame = pl.DataFrame({"date": dates, **{f"X{j:03d}": np.round(levels[:, j], 6) for j in range(series)}})
+    frame = pl.DataFrame(
+        {"date": dates, **{f"X{j:03d}": np.round(levels[:, j], 6) for j in range(series)}}
+    )
     frame.head(days).write_csv(folder / "prices.csv")
     frame.write_csv(folder / "prices_next_day.csv")
     universes = "\n".join(
@@ -55,7 +57,7 @@ arrays_every = 20
         '[warehouse]\npath = "wh.duckdb"\nsnapshot = "serving.duckdb"\n\n'
         '[[sources]]\nname = "prices"\nkind = "csv"\npath = "prices.csv"\n'
         + universes
-        + '\n[export]\nformats = []\n',
+        + "\n[export]\nformats = []\n",
         encoding="utf-8",
     )
     return config
@@ -146,33 +148,54 @@ def run(series: int = 200, days: int = 6000, keep: Path | None = None) -> dict[s
 
 
 def _print(out: dict[str, float], series: int, days: int) -> None:
-    print(f"pipeline case: {series} series × {days} days (wide CSV), 3 universes × 12 series, window 250, step 1")
+    print(
+        f"pipeline case: {series} series × {days} days (wide CSV), 3 universes × 12 series, window 250, step 1"
+    )
     print(f"{'stage':44s} {'value':>12s}  target")
     ok = out["ingest_rows_per_s"] >= TARGET_INGEST_ROWS_PER_S
     rows = [
         ("ingest rows", f"{out['rows']:,.0f}", ""),
         ("ingest read + validate (s)", f"{out['read_validate_s']:.2f}", ""),
         ("ingest upsert (s)", f"{out['upsert_s']:.2f}", ""),
-        ("ingest rows/s", f"{out['ingest_rows_per_s']:,.0f}", f">= 1,000,000 {'ok' if ok else 'MISSED'}"),
+        (
+            "ingest rows/s",
+            f"{out['ingest_rows_per_s']:,.0f}",
+            f">= 1,000,000 {'ok' if ok else 'MISSED'}",
+        ),
     ]
     for u in range(3):
         rows.append(
-            (f"full fit u{u}: windows / fit s / store s",
-             f"{out[f'full_u{u}_windows']:.0f} / {out[f'full_u{u}_fit_s']:.2f} / {out[f'full_u{u}_store_s']:.2f}", "")
+            (
+                f"full fit u{u}: windows / fit s / store s",
+                f"{out[f'full_u{u}_windows']:.0f} / {out[f'full_u{u}_fit_s']:.2f} / {out[f'full_u{u}_store_s']:.2f}",
+                "",
+            )
         )
     rows += [
         ("full fit + store, 3 universes (s)", f"{out['full_fit_store_s']:.2f}", ""),
         ("publish after the full fit (s)", f"{out['full_publish_s']:.2f}", ""),
         ("snapshot size (MB)", f"{out['snapshot_mb']:.1f}", ""),
-        ("Prefect start-up (temporary server, s)", f"{out['prefect_startup_s']:.2f}", "reported apart"),
+        (
+            "Prefect start-up (temporary server, s)",
+            f"{out['prefect_startup_s']:.2f}",
+            "reported apart",
+        ),
     ]
     for k, v in out.items():
-        if k.startswith("nightly_") and k.endswith("_s") and k not in ("nightly_work_s", "nightly_wall_s"):
+        if (
+            k.startswith("nightly_")
+            and k.endswith("_s")
+            and k not in ("nightly_work_s", "nightly_wall_s")
+        ):
             rows.append((f"nightly {k[8:-2]} (s)", f"{v:.2f}", ""))
     ok = out["nightly_work_s"] <= TARGET_NIGHTLY_WORK_S
     rows += [
         ("nightly windows fitted", f"{out['nightly_fitted']:.0f}", ""),
-        ("nightly work (ingest + fit + publish, s)", f"{out['nightly_work_s']:.2f}", f"<= 3 {'ok' if ok else 'MISSED'}"),
+        (
+            "nightly work (ingest + fit + publish, s)",
+            f"{out['nightly_work_s']:.2f}",
+            f"<= 3 {'ok' if ok else 'MISSED'}",
+        ),
         ("nightly wall incl. Prefect orchestration (s)", f"{out['nightly_wall_s']:.2f}", ""),
     ]
     for name, value, target in rows:
