@@ -391,6 +391,7 @@ def rolling_var(
 
     finite = np.isfinite(data).all(axis=1)
     out = _Outputs(W, n, P, H, trend, bool(granger), responses, decomposition, h_port)
+    out.names = labels  # series names used in skip reasons
     out.ends[:] = end_rows
     out.starts[:] = starts
     if lags is None:
@@ -510,6 +511,7 @@ class _Outputs:
         self.h_port = h_port
         self.portmanteau_p = np.full(W, nan) if h_port is not None else None
         self.skip_reason = np.full(W, "", dtype=object)
+        self.names: tuple[str, ...] = tuple(f"y{i}" for i in range(n))
 
     def skip(self, w: np.ndarray | int, reason: str) -> None:
         self.skip_reason[w] = reason
@@ -692,7 +694,9 @@ def _fit_chunk(
         for j in np.flatnonzero(direct):
             w = int(widx[j])
             try:
-                res = _direct_window(data, usable, p, trend, fr, out.starts[w], out.ends[w])
+                res = _direct_window(
+                    data, usable, p, trend, fr, out.starts[w], out.ends[w], out.names
+                )
             except _Skip as exc:
                 out.skip(w, str(exc))
                 continue
@@ -749,8 +753,9 @@ class _Skip(Exception):
 
 
 def _direct_window(
-    data: np.ndarray, usable: np.ndarray, p: int, trend: str, fr: _Frame, start: int, end: int
-) -> dict[str, np.ndarray]:
+    data: np.ndarray, usable: np.ndarray, p: int, trend: str, fr: _Frame, start: int, end: int,
+    names: tuple[str, ...],
+) -> dict[str, np.ndarray]:  # fmt: skip
     """Refit one window from its rows by QR, as `fit_var` would, in the chunk's coordinates.
 
     Raises _Skip with `fit_var`'s own message when it would refuse the rows (a constant series,
@@ -759,13 +764,15 @@ def _direct_window(
     n = data.shape[1]
     rows = np.arange(start + p, end + 1)
     rows = rows[usable[rows]]
-    names = tuple(f"y{i}" for i in range(n))
     Y = data[rows]
     span = np.ptp(data[start : end + 1][np.isfinite(data[start : end + 1]).all(axis=1)], axis=0)
     size = np.abs(Y).max(axis=0)
     flat = np.flatnonzero(span <= 1e-12 * size)
     if flat.size:
-        msg = f"series {int(flat[0])} is constant in this window; a VAR needs series that vary"
+        msg = (
+            f"series {names[int(flat[0])]!r} is constant in this window; a VAR needs series "
+            "that vary"
+        )
         raise _Skip(msg)
     # fit_var's own design (trend counts rows from 1 at the window's first row) and checks
     det = np.column_stack(
@@ -979,7 +986,9 @@ def _select_orders(
             try:
                 with warnings.catch_warnings():
                     warnings.simplefilter("ignore")
-                    sel = select_lags(data[starts[w] : ends[w] + 1], P, trend=trend)
+                    sel = select_lags(
+                        data[starts[w] : ends[w] + 1], P, trend=trend, names=out.names
+                    )
             except InvalidInputError as exc:
                 out.skip(w, f"lag selection failed: {exc}".replace("`y` ", "the window "))
                 continue

@@ -275,10 +275,11 @@ def test_near_collinear_window_matches_direct_fit_or_is_marked() -> None:
         close(res.total_connectedness[w], arlib.connectedness(fit, 5).total, "total")
     exact = y.copy()
     exact[200:300, 2] = 2.0 * exact[200:300, 0]
-    res2 = arlib.rolling_var(exact, 80, 1, 5)
+    res2 = arlib.rolling_var(exact, 80, 1, 5, names=["rates", "fx", "equity"])
     inside = (res2.starts >= 200) & (res2.ends < 300)
     assert not res2.ok[inside].any()
     assert all("collinear" in r or "singular" in r for r in res2.skip_reason[inside])
+    assert any("'rates.L1', 'equity.L1'" in r for r in res2.skip_reason[inside])  # by name
     assert res2.ok[res2.ends < 200].all()
     np.testing.assert_allclose(
         res2.coefs[res2.ends < 200], res.coefs[res.ends < 200], rtol=1e-12, atol=1e-14
