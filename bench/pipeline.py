@@ -192,6 +192,11 @@ def _print(out: dict[str, float], series: int, days: int) -> None:
     rows += [
         ("nightly windows fitted", f"{out['nightly_fitted']:.0f}", ""),
         (
+            "  of the fit stage: prepare+fit+store steps (s)",
+            f"{out['nightly_steps_in_fit']:.2f}",
+            "rest: Prefect tasks",
+        ),
+        (
             "nightly work (ingest + fit + publish, s)",
             f"{out['nightly_work_s']:.2f}",
             f"<= 3 {'ok' if ok else 'MISSED'}",
