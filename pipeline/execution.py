@@ -53,8 +53,6 @@ __all__ = [
     "ExecutionError",
     "check_prefect_api",
     "check_scheduler",
-    "describe",
-    "is_distributed",
     "local_cluster_kwargs",
     "scratch_folder",
     "task_runner",
@@ -104,25 +102,6 @@ def local_cluster_kwargs(
         "dashboard_address": f"{LOOPBACK}:0",
         "local_directory": str(Path(scratch)),
     }
-
-
-def is_distributed(config: Config) -> bool:
-    """True when the fits are submitted to a Dask cluster."""
-    return config.execution.runner == "dask"
-
-
-def describe(config: Config) -> str:
-    """One line for logs and the CLI: where the fits run."""
-    execution = config.execution
-    if execution.runner != "dask":
-        return f"fits run in this process ({LOCAL_THREADS} threads)"
-    if execution.address == "local":
-        kind = "processes" if LOCAL_PROCESSES else "threads"
-        return (
-            f"fits run on an in-process Dask cluster: {LOCAL_WORKERS} worker {kind} on {LOOPBACK}, "
-            f"scratch in {scratch_folder(config)}"
-        )
-    return f"fits run on the Dask cluster at {execution.address}; storing stays in this process"
 
 
 def check_scheduler(address: str, *, timeout: float = CONNECT_TIMEOUT) -> None:
