@@ -53,6 +53,7 @@ __all__ = [
     "ExecutionError",
     "check_prefect_api",
     "check_scheduler",
+    "io_task_runner",
     "local_cluster_kwargs",
     "scratch_folder",
     "task_runner",
@@ -60,7 +61,7 @@ __all__ = [
 
 #: Every socket of the in-process cluster binds here.
 LOOPBACK = "127.0.0.1"
-#: Workers of the in-process cluster, one thread each (each fit is single-threaded numpy).
+#: Workers of the in-process cluster, one thread each (one fit block at a time per worker).
 LOCAL_WORKERS = 2
 LOCAL_THREADS_PER_WORKER = 1
 #: Worker threads of the flow's process, not processes (measured, see the module doc).
