@@ -232,6 +232,14 @@ def build_old(folder: Path, *, lags: int, cutoff: str = OLD_CUTOFF) -> Any:
     return config
 
 
+def wait_for_each_kind(answers: list[tuple[str, float, float, Any]], *, since: float, timeout: float = 120.0) -> None:
+    """Block until every request kind has an answer to a request sent after `since` (monotonic)."""
+    deadline = time.monotonic() + timeout
+    while {a[0] for a in list(answers) if a[1] > since} != {"index", "paths", "window"}:
+        assert time.monotonic() < deadline, "the dashboard stopped answering"
+        time.sleep(0.05)
+
+
 def test_dashboard_answers_consistently_while_another_process_runs_and_publishes(tmp_path: Path) -> None:
     from werkzeug.serving import make_server
 
@@ -289,7 +297,7 @@ def test_dashboard_answers_consistently_while_another_process_runs_and_publishes
     try:
         for c in clients:
             c.start()
-        time.sleep(0.5)
+        wait_for_each_kind(answers, since=0.0)  # every kind answered before the run starts
         # the new run, in another process: full data, lag order 2 (every window refitted, new ones added)
         write_data(tmp_path / "data", None)
         write_config(tmp_path, lags=2)
@@ -301,7 +309,7 @@ def test_dashboard_answers_consistently_while_another_process_runs_and_publishes
         )  # fmt: skip
         run_ended = time.monotonic()
         assert proc.returncode == 0, proc.stderr[-2000:]
-        time.sleep(1.0)
+        wait_for_each_kind(answers, since=run_ended)  # and again after it ended
     finally:
         stop.set()
         for c in clients:
