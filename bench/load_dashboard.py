@@ -65,7 +65,11 @@ serve(DashboardSettings(snapshot=sys.argv[1], host="127.0.0.1", port=0), ready=r
 
 def _pid(spec: dict[str, Any]) -> str:
     cid = spec["id"]
-    return (cid if isinstance(cid, str) else json.dumps(cid, sort_keys=True, separators=(",", ":"))) + "." + spec["property"]
+    return (
+        (cid if isinstance(cid, str) else json.dumps(cid, sort_keys=True, separators=(",", ":")))
+        + "."
+        + spec["property"]
+    )
 
 
 def _outputs(key: str) -> list[dict[str, Any]]:
@@ -76,7 +80,9 @@ def _outputs(key: str) -> list[dict[str, Any]]:
     return out
 
 
-def callback_body(dependencies: list[dict[str, Any]], output_prefix: str, values: dict[str, Any]) -> bytes:
+def callback_body(
+    dependencies: list[dict[str, Any]], output_prefix: str, values: dict[str, Any]
+) -> bytes:
     """The JSON body the browser posts for the callback whose output key starts with `output_prefix`.
 
     `dependencies` is the server's ``/_dash-dependencies`` list; `values` maps "id.property" to the
@@ -85,7 +91,9 @@ def callback_body(dependencies: list[dict[str, Any]], output_prefix: str, values
     spec = next(d for d in dependencies if d["output"].startswith(output_prefix))
 
     def fill(specs: list[dict[str, Any]]) -> list[dict[str, Any]]:
-        return [{"id": s["id"], "property": s["property"], "value": values.get(_pid(s))} for s in specs]
+        return [
+            {"id": s["id"], "property": s["property"], "value": values.get(_pid(s))} for s in specs
+        ]
 
     body = {
         "output": spec["output"], "outputs": _outputs(spec["output"]), "inputs": fill(spec["inputs"]),
@@ -100,11 +108,15 @@ def _windows(ends: list[Any], universe: str, count: int) -> list[dict[str, str]]
     span = max(2, len(ends) // 5)
     for k in range(1, count):
         j = min(len(ends) - 1, span + (k * (len(ends) - span - 1)) // max(1, count - 1))
-        out.append({"universe": universe, "start": ends[j - span].isoformat(), "end": ends[j].isoformat()})
+        out.append(
+            {"universe": universe, "start": ends[j - span].isoformat(), "end": ends[j].isoformat()}
+        )
     return out
 
 
-def build_requests(snapshot: Path, dependencies: list[dict[str, Any]], *, windows: int = 8) -> list[tuple[str, bytes]]:
+def build_requests(
+    snapshot: Path, dependencies: list[dict[str, Any]], *, windows: int = 8
+) -> list[tuple[str, bytes]]:
     """(view name, body) for every view × date window of every universe in the snapshot."""
     from dashboard.data import Snapshot
 
@@ -131,7 +143,10 @@ def build_requests(snapshot: Path, dependencies: list[dict[str, Any]], *, window
                     ("model health", "..health-graph.figure", {"window-state.data": s, "near-one.value": 0.98, "views.value": "health"}),
                     ("own cycles", "..cycles-graph.figure", {"window-state.data": s, "views.value": "cycles"}),
                 ]  # fmt: skip
-                out.extend((view, callback_body(dependencies, prefix, values)) for view, prefix, values in views)
+                out.extend(
+                    (view, callback_body(dependencies, prefix, values))
+                    for view, prefix, values in views
+                )
         if not out:
             msg = f"snapshot {snapshot} holds no fitted windows; run the pipeline first"
             raise SystemExit(msg)
@@ -147,7 +162,10 @@ class Server:
     """`dashboard.serve` in a child process on 127.0.0.1:<free port>; stopped on exit."""
 
     def __init__(self, snapshot: Path) -> None:
-        env = {**os.environ, "PYTHONPATH": str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", "")}
+        env = {
+            **os.environ,
+            "PYTHONPATH": str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", ""),
+        }
         self.proc = subprocess.Popen(
             [sys.executable, "-c", SERVER, str(snapshot)],
             stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True, env=env, cwd=ROOT,
@@ -220,7 +238,10 @@ class LoadResult:
 
 def _post(base: str, body: bytes) -> tuple[int, bytes]:
     req = urllib.request.Request(
-        base + "_dash-update-component", data=body, method="POST", headers={"Content-Type": "application/json"}
+        base + "_dash-update-component",
+        data=body,
+        method="POST",
+        headers={"Content-Type": "application/json"},
     )
     try:
         with urllib.request.urlopen(req, timeout=REQUEST_TIMEOUT) as r:
@@ -299,7 +320,9 @@ def run(
     each view and window, own-cycle fits included), then for each pace in `paces` (think seconds,
     0 = back to back) `clients` clients load it. Returns (cold pass, [load per pace])."""
     if not Path(snapshot).is_file():
-        msg = f"no serving snapshot at {snapshot}; build the demo first: `shockflow demo --no-serve`"
+        msg = (
+            f"no serving snapshot at {snapshot}; build the demo first: `shockflow demo --no-serve`"
+        )
         raise SystemExit(msg)
     with Server(Path(snapshot)) as server:
         dependencies = server.get_json("_dash-dependencies")
@@ -308,7 +331,14 @@ def run(
         loads = []
         for think in paces:
             cpu0 = server.cpu_seconds()
-            result = drive(server.base, requests, clients=clients, seconds=seconds, max_requests=max_requests, think=think)
+            result = drive(
+                server.base,
+                requests,
+                clients=clients,
+                seconds=seconds,
+                max_requests=max_requests,
+                think=think,
+            )
             cpu1 = server.cpu_seconds()
             if cpu0 is not None and cpu1 is not None:
                 result.server_cpu_s = cpu1 - cpu0
@@ -343,7 +373,9 @@ def report(result: LoadResult) -> str:
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--snapshot", type=Path, help="serving snapshot file (default: the demo's)")
-    parser.add_argument("--config", type=Path, help="pipeline config; its [warehouse] snapshot is served")
+    parser.add_argument(
+        "--config", type=Path, help="pipeline config; its [warehouse] snapshot is served"
+    )
     parser.add_argument("--clients", type=int, default=20)
     parser.add_argument("--seconds", type=float, default=30.0)
     parser.add_argument("--max-requests", type=int, default=100_000)
@@ -363,7 +395,13 @@ def main(argv: list[str] | None = None) -> int:
     else:
         snapshot = DEMO_SNAPSHOT
     paces = tuple(args.think) if args.think else (0.0, 1.0)
-    cold, loads = run(snapshot, clients=args.clients, seconds=args.seconds, max_requests=args.max_requests, paces=paces)
+    cold, loads = run(
+        snapshot,
+        clients=args.clients,
+        seconds=args.seconds,
+        max_requests=args.max_requests,
+        paces=paces,
+    )
     print(f"dashboard under load — {snapshot}")
     print(
         f"first answer for each of {cold.served + len(cold.errors)} view × window requests (cold, one client): "
