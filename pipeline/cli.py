@@ -267,7 +267,12 @@ def check(config: ConfigOpt, debug: DebugOpt = False) -> None:
             try:
                 check_series_coverage(cfg, available)
             except ShockflowError as exc:
-                problems.append(str(exc))
+                unread = [s.name for s in cfg.sources if s.name not in available]
+                note = (
+                    f" (source(s) {', '.join(map(repr, unread))} could not be read above and may provide it)"
+                    if unread else ""
+                )  # fmt: skip
+                problems.append(str(exc) + note)
         for label, folder in (
             ("[warehouse] path", cfg.warehouse.path.parent),
             ("[warehouse] snapshot", cfg.warehouse.snapshot.parent),

@@ -161,7 +161,14 @@ def test_source_glob_matches_nothing(night: Night) -> None:
     assert_kept(before, after, untouched=["rates_pair"], grown=["stocks"])
     assert of_universe(after["window_fits"], "stocks").height == of_universe(before["window_fits"], "stocks").height + 1
     check = night.check()
-    assert check.exit_code == 2 and check.lines("error:")[0] == f"error: {message}", check.stderr
+    assert check.exit_code == 2, check.stderr
+    first, *rest = check.lines("error:")
+    assert first == f"error: {message}"
+    # the universe over that source's series is reported too, pointing at the unread source
+    assert rest == [
+        f"error: {night.config}: universe 'rates_pair' lists series 'RT_X', which no source provides; fix the name "
+        "or add a source that has it (source(s) 'rates' could not be read above and may provide it)"
+    ], check.stderr
 
 
 def test_export_directory_cannot_be_written(night: Night) -> None:
