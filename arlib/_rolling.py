@@ -22,18 +22,34 @@ residual covariance singular (the checks `fit_var` makes).
 
 Accuracy
 --------
-Each chunk of windows is centred and scaled (per series, over the rows the chunk spans) before
-cross-products are formed; window sums of cross-products never difference running totals over
-the history (block prefix sums, see `_rolling_kernels.window_sums`); each window is solved by a
-Cholesky factorisation of its augmented cross-product matrix, which also yields the residual
+Cross-products are formed in shifted coordinates (each series less a shift close to its values
+in the window, see Reproducibility) and summed without differencing running totals over the
+history (`_rolling_kernels.anchored_window_sums`); each window is solved by a Cholesky
+factorisation of its augmented cross-product matrix, which also yields the residual
 cross-products without cancellation. The loss of accuracy is about κ·1e-16 relative, where κ is
-`condition_number` = k · Σ_i VIF_i (the product of the traces of the column-equilibrated X'X and
-of its inverse: an upper bound on its 2-norm condition number, at most k² times it). Windows with
-κ > `FAST_COND_LIMIT` (1e6), a failed factorisation or a near-singular residual covariance are
-refitted directly from their rows by QR — the computation `fit_var` performs — and skipped with
-`fit_var`'s own reason when it would refuse them (collinear regressors, a constant series, a
-singular residual covariance). So no reported number rests on an ill-conditioned cross-product
-solve, and every fitted window agrees with `fit_var` to about 1e-10 relative or better.
+`condition_number` = k'·Σ_i VIF_i over the k' non-constant regressors (centred when the model has
+an intercept): trace(R)·trace(R^{-1}) of their correlation matrix R, an upper bound on its 2-norm
+condition number (at most k'² times it), and a property of the window's rows alone. Windows with
+κ > `FAST_COND_LIMIT` (1e6), whose shifted cross-products are conditioned worse than
+`WORK_COND_LIMIT` (1e7), whose residual cross-products come near singular (`SSE_COND_LIMIT`) or
+whose factorisation fails are refitted directly from their rows by QR — the computation
+`fit_var` performs — and skipped with `fit_var`'s own reason when it would refuse them (collinear
+regressors, a constant series, a singular residual covariance); their κ then comes from the QR
+factor. So no reported number rests on an ill-conditioned cross-product solve, and every fitted
+window agrees with `fit_var` to about 1e-10 relative or better.
+
+Reproducibility
+---------------
+Every number of a window is a function of that window's rows (and of their row numbers, which
+fix a grid): the same bit for bit in a full run, an `after=` run, `ends=` blocks joined with
+`RollingVAR.concat`, a run on a shorter or longer history, and whatever the internal chunking.
+Rolling windows are grouped by the block of L = window − p rows (blocks at multiples of L from
+row 0) that holds their first observation; all windows of a block contain its last row and the
+p rows before it, whose mean is the group's shift, and each window's sum runs outwards from that
+row in a fixed order. Expanding windows all contain the first window's rows (their shift) and
+sum over blocks at fixed multiples of `EXPANDING_BLOCK` rows. The batched steps that follow treat
+each window independently of the others in its batch. Refit decisions and skip reasons follow
+from these numbers, so they are reproducible too.
 
 Cost
 ----
@@ -56,10 +72,11 @@ import warnings
 from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass, fields
+from itertools import pairwise
 from typing import Any
 
 import numpy as np
-from scipy import stats
+from scipy import linalg, stats
 
 from . import _rolling_kernels as K
 from ._estimate import TREND_TERMS, _check_sigma, _least_squares, _regressor_names, select_lags
@@ -71,13 +88,17 @@ RESPONSE_KINDS = ("cholesky", "generalized", "unit")
 DECOMPOSITION_KINDS = ("cholesky", "generalized")
 #: Lag-order criteria (as in `select_lags`).
 CRITERIA = ("aic", "bic", "hq", "fpe")
-#: Above this condition number (k·ΣVIF) a window is refitted by QR instead of from cross-products.
+#: Above this condition number (`condition_number`) a window is refitted directly by QR.
 FAST_COND_LIMIT = 1e6
+#: ... or above this bound for the cross-products as factorised (working coordinates: the
+#: window's shift and trend scaling included), what the factorisation's rounding depends on.
+WORK_COND_LIMIT = 1e7
+#: ... or above this bound trace(Û'Û) trace((Û'Û)^{-1}) for the residual cross-products: every
+#: window `fit_var` would refuse as having a singular residual covariance (eigenvalue ratio
+#: below 1e-12) exceeds 1e12 here, so it is refitted and refused as `fit_var` refuses it.
+SSE_COND_LIMIT = 1e10
 #: Working-memory budget per chunk of windows (bytes); bounds peak memory beyond the outputs.
 CHUNK_BYTES = 64 * 2**20
-#: Budget (bytes) and window cap for one block of packed cross-product sums.
-GRAM_BYTES = 64 * 2**20
-MAX_GRAM_WINDOWS = 2048
 
 
 # ---------------------------------------------------------------------------------------------
@@ -104,9 +125,11 @@ class RollingVAR:
     sigma_u : (W, n, n) Σ̂_u = Û'Û / (nobs − k).
     spectral_radius : (W,) largest eigenvalue modulus of the companion matrix.
     aic, bic, hq, fpe : (W,) information criteria, the convention of `fit_var`.
-    condition_number : (W,) κ = k · Σ_i VIF_i of the centred and scaled regressors, an upper
-        bound (within a factor k²) on the 2-norm condition number of their column-equilibrated
-        X'X; windows above `FAST_COND_LIMIT` (1e6) were refitted directly by QR.
+    condition_number : (W,) κ = k'·Σ_i VIF_i over the window's k' non-constant regressors
+        (centred when there is an intercept): trace(R)·trace(R^{-1}) of their correlation matrix
+        R, between its 2-norm condition number and k'² times it; a function of the window's rows
+        alone. Windows above `FAST_COND_LIMIT` (1e6) were refitted directly by QR (κ from the QR
+        factor).
     total_connectedness : (W,) percent, Σ_{i≠j} pairwise[i, j] / n.
     to_others, from_others, net : (W, n) percent; sums of off-diagonal pairwise entries over
         rows (to, column j) and columns (from, row i); net = to − from.
@@ -397,14 +420,15 @@ def rolling_var(
     if lags is None:
         with timer("lag selection"):
             orders = _select_orders(
-                data, finite, P, trend, end_rows, starts, str(criterion), out, bool(expanding)
-            )
+                data, finite, P, trend, end_rows, starts, str(criterion), out, bool(expanding),
+                win,
+            )  # fmt: skip
     else:
         orders = np.full(W, P)
     out.lags[:] = np.maximum(orders, 0)
     for p in np.unique(orders[orders > 0]):
         idx = np.flatnonzero(orders == p)
-        _fit_group(data, finite, int(p), trend, idx, out, expanding, timer)
+        _fit_group(data, finite, int(p), trend, idx, out, bool(expanding), win, timer)
     return out.finish(labels, win, stp, trend, H, bool(expanding), criterion)
 
 
@@ -549,55 +573,146 @@ class _Outputs:
 
 
 # ---------------------------------------------------------------------------------------------
-# chunk planning and working coordinates
+# working coordinates and cross-product sums, reproducible window by window
 # ---------------------------------------------------------------------------------------------
+
+#: Rows per block of the running sums of expanding windows (blocks start at multiples of it).
+EXPANDING_BLOCK = 256
 
 
 @dataclass
-class _Frame:
-    """Working coordinates of one chunk: y' = (y − μ) / s per series, trend τ' = (t − τ0) / τs."""
+class _Frames:
+    """Working coordinates per window: y' = y − μ per series, trend τ' = (t − τ0) / τs.
+
+    mu (W, n), tau0 (W,), tau_scale (W,) with τs a power of two. Windows whose cross-products
+    are summed together share a frame, taken from rows that every one of them contains (see
+    `_gram_chunks`), so a window's frame is a function of its own rows.
+    """
 
     mu: np.ndarray
-    scale: np.ndarray
-    tau0: float
-    tau_scale: float
+    tau0: np.ndarray
+    tau_scale: np.ndarray
+
+    def take(self, sel: Any) -> _Frames:
+        return _Frames(self.mu[sel], self.tau0[sel], self.tau_scale[sel])
 
 
-def _frame(data: np.ndarray, finite: np.ndarray, lo: int, hi: int, trend: str) -> _Frame:
-    rows = data[lo : hi + 1][finite[lo : hi + 1]]
+def _shift(data: np.ndarray, lo: int, hi: int, trend: str) -> np.ndarray:
+    """μ (n,): mean of each series' finite values in rows lo..hi−1 (0 where there is none).
+    Zero for trend "n": without an intercept a shift would change the model."""
     n = data.shape[1]
-    if rows.shape[0] == 0:
-        return _Frame(np.zeros(n), np.ones(n), 0.5 * (lo + hi), 1.0)
-    if trend == "n":  # no intercept: centring would change the model, so only scale
-        mu = np.zeros(n)
-        scale = np.sqrt((rows * rows).mean(axis=0))
-    else:
-        mu = rows.mean(axis=0)
-        scale = rows.std(axis=0)
-    scale[~(scale > 0)] = 1.0
-    return _Frame(mu, scale, 0.5 * (lo + hi), max(0.5 * (hi - lo), 1.0))
+    if trend == "n":
+        return np.zeros(n)
+    rows = data[lo:hi]
+    fin = np.isfinite(rows)
+    count = fin.sum(axis=0)
+    total = np.where(fin, rows, 0.0).sum(axis=0)
+    return np.where(count > 0, total / np.maximum(count, 1), 0.0)
 
 
-def _det_columns(rows: np.ndarray, trend: str, fr: _Frame) -> np.ndarray:
-    cols = []
-    for term in TREND_TERMS[trend]:
-        cols.append(np.ones(rows.shape[0]) if term == "const" else (rows - fr.tau0) / fr.tau_scale)
-    return np.column_stack(cols) if cols else np.empty((rows.shape[0], 0))
+def _pow2(x: float) -> float:
+    """The power of two nearest to x (>= 1); dividing by it is exact."""
+    return float(2.0 ** round(np.log2(max(x, 1.0))))
 
 
-def _chunks(ends: np.ndarray, max_windows: int, expanding: bool) -> list[np.ndarray]:
-    """Split window positions into chunks of consecutive windows whose rows span little more
-    than `max_windows` windows' worth (so sparse explicit ends cost per window, not per row)."""
+def _design(
+    data: np.ndarray, usable: np.ndarray, lo: int, hi: int, p: int, trend: str, mu: np.ndarray,
+    tau0: float, tau_scale: float,
+) -> np.ndarray:  # fmt: skip
+    """(hi − lo, m) augmented rows z_t = [det_t, y_{t−1} − μ, ..., y_{t−p} − μ, y_t − μ] for
+    rows t = lo..hi−1, det_t = [1, (t − τ0)/τs] as the trend asks; zero where t is not usable."""
+    n = data.shape[1]
+    terms = TREND_TERMS[trend]
+    d = len(terms)
+    R = hi - lo
+    base = max(lo - p, 0)
+    ys = np.full((R + p, n), np.nan)  # ys[i] = y_{lo−p+i} − μ
+    ys[base - (lo - p) :] = data[base:hi] - mu
+    z = np.empty((R, d + n * (p + 1)))
+    for c, term in enumerate(terms):
+        z[:, c] = 1.0 if term == "const" else (np.arange(lo, hi) - tau0) / tau_scale
+    for lag in range(1, p + 1):
+        z[:, d + (lag - 1) * n : d + lag * n] = ys[p - lag : p - lag + R]
+    z[:, d + p * n :] = ys[p:]
+    z[~usable[lo:hi]] = 0.0
+    return z
+
+
+def _group_chunks(group: np.ndarray, size: int) -> list[np.ndarray]:
+    """Consecutive positions cut into chunks of at most `size`, whole runs of one group together
+    where they fit (a group's rows are then multiplied out once)."""
+    W = group.shape[0]
+    edges = np.flatnonzero(np.diff(group)) + 1
     out: list[np.ndarray] = []
-    W = ends.shape[0]
-    i = 0
-    while i < W:
-        j = i + 1
-        while j < W and j - i < max_windows and (expanding or ends[j] - ends[i] < max_windows):
-            j += 1
-        out.append(np.arange(i, j))
-        i = j
+    lo = 0
+    for s, t in zip(np.concatenate([[0], edges]), np.concatenate([edges, [W]]), strict=True):
+        if t - lo > size and s > lo:
+            out.append(np.arange(lo, s))
+            lo = int(s)
+        while t - lo > size:
+            out.append(np.arange(lo, lo + size))
+            lo += size
+    if lo < W:
+        out.append(np.arange(lo, W))
     return out
+
+
+def _gram_chunks(
+    data: np.ndarray, usable: np.ndarray, p: int, trend: str, first: np.ndarray,
+    ends: np.ndarray, win: int, expanding: bool, size: int, timer: Any,
+) -> Iterator[tuple[np.ndarray, np.ndarray, _Frames]]:  # fmt: skip
+    """Yield (positions, G, frames) for consecutive chunks of the windows (positions index
+    `ends`): G (Wc, m, m) lower triangles of Σ z_t z_t' over each window's observation rows
+    first..end, in the window's frame.
+
+    Reproducibility: a window's G and frame depend on its own rows and a fixed grid only —
+    never on which other windows are computed with it (`after=`, `ends=`, chunking) nor on rows
+    outside it. Rolling windows have L = window − p observation rows; they are grouped by the
+    block of L rows (blocks start at multiples of L from row 0) holding their first observation.
+    Every window of block b contains the anchor row cut − 1 = (b + 1)·L − 1 and the p rows
+    before it, so the group's shift μ is the mean of those p + 1 rows and its trend is centred
+    at the anchor; sums run outwards from the anchor (`anchored_window_sums`). Expanding windows
+    all contain rows 0..window−1, which give the shift; their sums run over fixed blocks of
+    `EXPANDING_BLOCK` rows (`running_block_sums`).
+    """
+    n = data.shape[1]
+    m = len(TREND_TERMS[trend]) + n * (p + 1)
+    W = ends.shape[0]
+    if expanding:
+        mu = _shift(data, 0, win, trend)
+        tau_s = _pow2(win)
+        row0, carry = 0, np.zeros(m * (m + 1) // 2)
+        for s in range(0, W, size):
+            pos = np.arange(s, min(s + size, W))
+            e = ends[pos]
+            with timer("gram"):
+                z = _design(data, usable, row0, int(e[-1]) + 1, p, trend, mu, 0.0, tau_s)
+                G, row0, carry = K.running_block_sums(z, row0, e, EXPANDING_BLOCK, carry)
+            frames = _Frames(
+                np.tile(mu, (pos.size, 1)), np.zeros(pos.size), np.full(pos.size, tau_s)
+            )
+            yield pos, G, frames
+        return
+    L = win - p
+    tau_s = _pow2(L / 2)
+    group = first // L
+    for pos in _group_chunks(group, size):
+        with timer("gram"):
+            G = np.empty((pos.size, m, m))
+            mu = np.empty((pos.size, n))
+            tau0 = np.empty(pos.size)
+            g = group[pos]
+            edges = np.concatenate([[0], np.flatnonzero(np.diff(g)) + 1, [pos.size]])
+            for s, t in pairwise(edges):
+                cut = int(g[s] + 1) * L
+                mu_b = _shift(data, cut - 1 - p, cut, trend)
+                a = first[pos[s:t]]
+                lo, hi = int(a[0]), int(a[-1]) + L
+                z = _design(data, usable, lo, hi, p, trend, mu_b, cut - 1.0, tau_s)
+                G[s:t] = K.anchored_window_sums(z, a - lo, cut - lo, L)
+                mu[s:t] = mu_b
+                tau0[s:t] = cut - 1.0
+        yield pos, G, _Frames(mu, tau0, np.full(pos.size, tau_s))
 
 
 def _chunk_size(n: int, p: int, d: int, H: int, extra: int) -> int:
@@ -613,68 +728,30 @@ def _chunk_size(n: int, p: int, d: int, H: int, extra: int) -> int:
 
 def _fit_group(
     data: np.ndarray, finite: np.ndarray, p: int, trend: str, idx: np.ndarray,
-    out: _Outputs, expanding: bool, timer: Any,
+    out: _Outputs, expanding: bool, win: int, timer: Any,
 ) -> None:  # fmt: skip
     n = data.shape[1]
     d = len(TREND_TERMS[trend])
     usable = K.usable_observations(finite, p)
     cum = np.concatenate([[0], np.cumsum(usable)])
     ends = out.ends[idx]
-    starts = out.starts[idx]
-    first = starts + p  # first observation row of each window
+    first = out.starts[idx] + p  # first observation row of each window
     out.nobs[idx] = cum[ends + 1] - cum[first]
     extra = (out.responses is not None) + (out.decomposition is not None)
     size = _chunk_size(n, p, d, out.H, extra)
-    m = d + n * (p + 1)
-    # cross-product sums over larger blocks (at most m² numbers per window), so the rows
-    # shared by neighbouring windows are summed once; the per-window stages then run in
-    # memory-bounded sub-chunks
-    gram_block = int(np.clip(GRAM_BYTES // (8 * m * m), size, MAX_GRAM_WINDOWS))
-    if expanding:
-        fr = _frame(data, finite, 0, int(ends[-1]), trend)
-        carry = {"row": p, "sum": None}
-    for block in _chunks(ends, gram_block, expanding):
-        e = ends[block]
-        a = first[block]
-        with timer("gram"):
-            if expanding:
-                G = _expanding_grams(data, usable, p, trend, fr, e, carry)
-            else:
-                lo = int(starts[block][0])
-                fr = _frame(data, finite, lo, int(e[-1]), trend)
-                rows = np.arange(int(a[0]), int(e[-1]) + 1)
-                hi = int(e[-1]) + 1
-                ys = np.full((hi, n), np.nan)  # scaled rows of this block only
-                ys[lo:] = (data[lo:hi] - fr.mu) / fr.scale
-                z = K.augmented_rows(ys, rows, p, _det_columns(rows, trend, fr), usable[rows])
-                G = K.window_sums(z, a - a[0], int(e[0] - a[0] + 1))
-                del z
-        for sub in range(0, block.size, size):
-            part = slice(sub, sub + size)
-            _fit_chunk(data, usable, p, trend, fr, idx[block[part]], G[part], out, timer)
-
-
-def _expanding_grams(
-    data: np.ndarray, usable: np.ndarray, p: int, trend: str, fr: _Frame, ends: np.ndarray,
-    carry: dict[str, Any],
-) -> np.ndarray:  # fmt: skip
-    """Σ_{t=p}^{e} z_t z_t' for each end e, continuing the running sum kept in `carry`."""
-    lo = int(carry["row"])
-    rows = np.arange(lo, int(ends[-1]) + 1)
-    ys = (data - fr.mu) / fr.scale
-    z = K.augmented_rows(ys, rows, p, _det_columns(rows, trend, fr), usable[rows])
-    G = K.running_sums(z, ends - lo, carry["sum"])
-    carry["row"] = int(ends[-1]) + 1
-    carry["sum"] = G[-1].copy()
-    return G
+    for pos, G, frames in _gram_chunks(
+        data, usable, p, trend, first, ends, win, expanding, size, timer
+    ):
+        _fit_chunk(data, usable, p, trend, frames, idx[pos], G, out, timer)
 
 
 def _fit_chunk(
-    data: np.ndarray, usable: np.ndarray, p: int, trend: str, fr: _Frame, widx: np.ndarray,
-    G: np.ndarray, out: _Outputs, timer: Any,
+    data: np.ndarray, usable: np.ndarray, p: int, trend: str, frames: _Frames,
+    widx: np.ndarray, G: np.ndarray, out: _Outputs, timer: Any,
 ) -> None:  # fmt: skip
     n = data.shape[1]
-    d = len(TREND_TERMS[trend])
+    terms = TREND_TERMS[trend]
+    d = len(terms)
     k = d + n * p
     nobs = out.nobs[widx]
     short = nobs < k + n
@@ -685,23 +762,27 @@ def _fit_chunk(
             f"{k} coefficients per equation and a nonsingular residual covariance",
         )
     with timer("solve"):
-        sol = K.solve_grams(G, k, k + n)
+        sol = K.solve_grams(G, k, k + n, int("const" in terms))
         coef_t, sse, inv = sol["coef_t"], sol["sse"], sol["inv"]
-        logdet = sol["logdet_sse"]
-        cond = sol["cond"]
-        direct = ~short & (~sol["ok"] | (cond > FAST_COND_LIMIT) | (sol["sse_pivot"] < 1e-10))
-        override: dict[int, dict[str, np.ndarray]] = {}
+        logdet, cond = sol["logdet_sse"], sol["cond"]
+        direct = ~short & (
+            ~sol["ok"]
+            | (cond > FAST_COND_LIMIT)
+            | (sol["cond_work"] > WORK_COND_LIMIT)
+            | (sol["sse_cond"] > SSE_COND_LIMIT)
+        )
+        override: dict[int, dict[str, Any]] = {}
         for j in np.flatnonzero(direct):
             w = int(widx[j])
             try:
                 res = _direct_window(
-                    data, usable, p, trend, fr, out.starts[w], out.ends[w], out.names
+                    data, usable, p, trend, frames.take(j), out.starts[w], out.ends[w], out.names
                 )
             except _Skip as exc:
                 out.skip(w, str(exc))
                 continue
-            coef_t[j], sse[j], inv[j], logdet[j] = (
-                res["coef_t"], res["sse"], res["inv"], res["logdet_sse"],
+            coef_t[j], sse[j], inv[j], logdet[j], cond[j] = (
+                res["coef_t"], res["sse"], res["inv"], res["logdet_sse"], res["cond"],
             )  # fmt: skip
             override[int(j)] = res
         live = out.skip_reason[widx] == ""
@@ -712,32 +793,31 @@ def _fit_chunk(
             override = {int(pos[j]): res for j, res in override.items()}
             coef_t, sse, inv = coef_t[live], sse[live], inv[live]
             logdet, cond, widx, nobs = logdet[live], cond[live], widx[live], nobs[live]
+            frames = frames.take(live)
         # bulk writes go through a slice when the windows are contiguous (the usual case)
         ws: Any = (
             slice(int(widx[0]), int(widx[-1]) + 1) if widx[-1] - widx[0] == widx.size - 1 else widx
         )
         dof = (nobs - k).astype(np.float64)
-        sigma_s = sse / dof[:, None, None]  # Σ̂_u in working coordinates
-        acat = coef_t[:, :, d:]  # (W, n, n·p) = [A'_1 ... A'_p] in working coordinates
-        s = fr.scale
-        ratio = s[:, None] / s[None, :]  # A_l = S A'_l S^{-1}
-        coefs = acat.reshape(-1, n, p, n).transpose(0, 2, 1, 3) * ratio
+        sigma = sse / dof[:, None, None]  # Σ̂_u (a shift leaves it unchanged)
+        acat = coef_t[:, :, d:]  # (W, n, n·p) = [A_1 ... A_p]
+        coefs = acat.reshape(-1, n, p, n).transpose(0, 2, 1, 3)
         out.coefs[ws, :p] = coefs
         out.coefs[ws, p:] = 0.0
-        out.sigma_u[ws] = sigma_s * np.outer(s, s)
-        _deterministic(coef_t, coefs, trend, fr, out, widx, override)
-        logdet_ml = logdet + 2.0 * np.log(s).sum() - n * np.log(nobs)
+        out.sigma_u[ws] = sigma
+        _deterministic(coef_t, coefs, trend, frames, out, widx, override)
+        logdet_ml = logdet - n * np.log(nobs)
         for name, val in K.information_criteria_batch(logdet_ml, nobs, n, k).items():
             out.ic[name][ws] = val
         out.condition_number[ws] = cond
     with timer("spectral radius"):
-        rho, _ = K.spectral_radius_batch(acat, n, p)
+        rho, _ = K.spectral_radius_batch(_balanced(acat, sigma, p), n, p)
         out.spectral_radius[ws] = rho
     with timer("connectedness"):
-        _responses_and_decompositions(acat, sigma_s, s, out, ws)
+        _responses_and_decompositions(acat, sigma, out, ws)
     if out.granger_f is not None and out.granger_p is not None and out.granger_df is not None:
         with timer("granger"):
-            F = K.granger_f(coef_t, inv, np.diagonal(sigma_s, axis1=1, axis2=2), n, p, d)
+            F = K.granger_f(coef_t, inv, np.diagonal(sigma, axis1=1, axis2=2), n, p, d)
             df2 = n * (nobs - k)
             out.granger_f[ws] = F
             out.granger_p[ws] = K.f_survival(F, p, df2[:, None, None])
@@ -745,7 +825,20 @@ def _fit_chunk(
             out.granger_df[ws, 1] = df2
     if out.portmanteau_p is not None:
         with timer("portmanteau"):
-            _portmanteau(data, usable, p, trend, fr, coef_t, sse, nobs, out, widx)
+            _portmanteau(data, p, trend, frames, coef_t, nobs, out, widx)
+
+
+def _balanced(acat: np.ndarray, sigma: np.ndarray, p: int) -> np.ndarray:
+    """D^{-1} A_l D for every lag, D = diag of powers of two nearest each series' residual
+    standard deviation: a similarity (same eigenvalues) computed without rounding, which keeps
+    the companion matrix's entries on one scale for the spectral radius kernel."""
+    var = np.diagonal(sigma, axis1=1, axis2=2)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        e = np.rint(0.5 * np.log2(var))
+    e = np.clip(np.nan_to_num(e), -400, 400).astype(np.int64)
+    s = np.ldexp(1.0, e)  # (W, n)
+    ratio = s[:, None, :] / s[:, :, None]  # [w, i, j] = s_j / s_i
+    return acat * np.tile(ratio, (1, 1, p))
 
 
 class _Skip(Exception):
@@ -753,13 +846,15 @@ class _Skip(Exception):
 
 
 def _direct_window(
-    data: np.ndarray, usable: np.ndarray, p: int, trend: str, fr: _Frame, start: int, end: int,
-    names: tuple[str, ...],
-) -> dict[str, np.ndarray]:  # fmt: skip
-    """Refit one window from its rows by QR, as `fit_var` would, in the chunk's coordinates.
+    data: np.ndarray, usable: np.ndarray, p: int, trend: str, frame: _Frames, start: int,
+    end: int, names: tuple[str, ...],
+) -> dict[str, Any]:  # fmt: skip
+    """Refit one window from its rows by QR, as `fit_var` would, in the window's frame.
 
     Raises _Skip with `fit_var`'s own message when it would refuse the rows (a constant series,
-    collinear regressors, a singular residual covariance).
+    collinear regressors, a singular residual covariance). Also returns the condition measure κ
+    of `_rolling_kernels.solve_grams` from the QR factor of the centred, column-scaled
+    regressors (accurate where the cross-products are not).
     """
     n = data.shape[1]
     rows = np.arange(start + p, end + 1)
@@ -788,9 +883,10 @@ def _direct_window(
     except InvalidInputError as exc:
         raise _Skip(f"not fitted: {exc}".replace("`y` ", "the window ")) from None
     # the same fit in working coordinates (so the batched steps downstream apply unchanged)
-    ys = np.full((end + 1, n), np.nan)
-    ys[start:] = (data[start : end + 1] - fr.mu) / fr.scale
-    z = K.augmented_rows(ys, rows, p, _det_columns(rows, trend, fr), np.ones(rows.size, bool))
+    z = _design(
+        data, usable, start + p, end + 1, p, trend, frame.mu, float(frame.tau0),
+        float(frame.tau_scale),
+    )[usable[start + p : end + 1]]  # fmt: skip
     k = z.shape[1] - n
     Zs, Ys = z[:, :k], z[:, k:]
     col = np.sqrt((Zs * Zs).sum(axis=0))
@@ -801,30 +897,40 @@ def _direct_window(
     Us = Ys - Zs @ Bs
     sse = Us.T @ Us
     _, logdet = np.linalg.slogdet(sse)
+    c = int("const" in TREND_TERMS[trend])
+    X = Zs[:, c:] - Zs[:, c:].mean(axis=0) if c else Zs
+    norm = np.sqrt((X * X).sum(axis=0))
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        Rc = np.linalg.qr(X / norm, mode="r")
+        Rc_inv = linalg.solve_triangular(Rc, np.eye(k - c))
+        cond = float((k - c) * (Rc_inv * Rc_inv).sum())  # trace(R) trace(R^{-1}), R = corr.
+    if not np.isfinite(cond) or not np.all(norm > 0):
+        cond = np.inf
     return {
         "coef_t": Bs.T, "sse": sse, "inv": Rinv.T, "logdet_sse": logdet, "params": B,
+        "cond": cond,
     }  # fmt: skip
 
 
 def _deterministic(
-    coef_t: np.ndarray, coefs: np.ndarray, trend: str, fr: _Frame, out: _Outputs,
-    widx: np.ndarray, override: dict[int, dict[str, np.ndarray]],
+    coef_t: np.ndarray, coefs: np.ndarray, trend: str, frames: _Frames, out: _Outputs,
+    widx: np.ndarray, override: dict[int, dict[str, Any]],
 ) -> None:  # fmt: skip
-    """Intercept and trend slope in the original coordinates of each window.
+    """Intercept and trend slope of each window in the original coordinates.
 
-    Working model y'_t = a' + b'τ'_t + Σ A'_l y'_{t−l}, y' = (y − μ)/s, τ' = (t − τ0)/τs; with the
-    window trend τ_t = t − start + 1 this is y_t = c + δ τ_t + Σ A_l y_{t−l} with
-    δ = s ⊙ b' / τs and c = μ + s ⊙ a' − (Σ_l A_l) μ + δ (start − 1 − τ0).
+    Working model y_t − μ = a' + b'τ'_t + Σ A_l (y_{t−l} − μ), τ' = (t − τ0)/τs; with the
+    window trend τ_t = t − start + 1 this is y_t = c + δ τ_t + Σ A_l y_{t−l} with δ = b'/τs and
+    c = μ + a' − (Σ_l A_l) μ + δ (start − 1 − τ0).
     """
     terms = TREND_TERMS[trend]
     if not terms:
         return
-    s = fr.scale
-    c = fr.mu + s * coef_t[:, :, 0] - coefs.sum(axis=1) @ fr.mu
+    mu = frames.mu
+    c = mu + coef_t[:, :, 0] - (coefs.sum(axis=1) @ mu[:, :, None])[:, :, 0]
     if "trend" in terms and out.trend_coef is not None:
-        delta = s * coef_t[:, :, 1] / fr.tau_scale
+        delta = coef_t[:, :, 1] / frames.tau_scale[:, None]
         start = out.starts[widx].astype(np.float64)
-        c = c + delta * (start - 1.0 - fr.tau0)[:, None]
+        c = c + delta * (start - 1.0 - frames.tau0)[:, None]
         out.trend_coef[widx] = delta
     assert out.intercept is not None
     out.intercept[widx] = c
@@ -835,7 +941,7 @@ def _deterministic(
 
 
 def _responses_and_decompositions(
-    acat: np.ndarray, sigma_s: np.ndarray, s: np.ndarray, out: _Outputs, widx: Any
+    acat: np.ndarray, sigma: np.ndarray, out: _Outputs, widx: Any
 ) -> None:
     """Connectedness (always) and stored responses / decompositions, in one MA recursion.
 
@@ -846,16 +952,16 @@ def _responses_and_decompositions(
     n, H = out.n, out.H
     W = acat.shape[0]
     rk, dk = out.response_kind, out.decomposition_kind
-    impacts = [sigma_s]  # generalized (unnormalised) always: connectedness
+    impacts = [sigma]  # generalized (unnormalised) always: connectedness
     if "cholesky" in (rk, dk):
-        chol = np.linalg.cholesky(sigma_s)
+        chol = np.linalg.cholesky(sigma)
         impacts.append(chol)
     if rk == "unit":
         impacts.append(np.broadcast_to(np.eye(n), (W, n, n)))
     steps = H if rk is not None else H - 1
     x0 = np.concatenate(impacts, axis=-1)
     X = K.propagate(acat, x0, steps)  # (W, steps+1, n, c·n)
-    var = np.diagonal(sigma_s, axis1=1, axis2=2)  # working-coordinate σ_jj
+    var = np.diagonal(sigma, axis1=1, axis2=2)  # σ_jj
     psi = X[:, :H, :, :n]  # Φ_h Σ for h < H; ψ_ij(h)² = (Φ_h Σ)_ij² / σ_jj
     share = np.einsum("whij,whij->wij", psi, psi) / var[:, None, :]  # Σ_{h<H} ψ_ij(h)²
     table = 100.0 * share / share.sum(axis=-1, keepdims=True)
@@ -879,37 +985,39 @@ def _responses_and_decompositions(
         resp = X[..., col * n : (col + 1) * n]
         if rk == "generalized":
             resp = resp / np.sqrt(var)[:, None, None, :]
-        if rk == "unit":  # Φ_h = S Φ'_h S^{-1}
-            out.responses[widx] = resp * (s[:, None] / s[None, :])
-        else:  # Θ_h = S Θ'_h (Cholesky factor and generalized impacts scale with S)
-            out.responses[widx] = resp * s[:, None]
+        out.responses[widx] = resp
 
 
 def _portmanteau(
-    data: np.ndarray, usable: np.ndarray, p: int, trend: str, fr: _Frame, coef_t: np.ndarray,
-    sse: np.ndarray, nobs: np.ndarray, out: _Outputs, widx: np.ndarray,
+    data: np.ndarray, p: int, trend: str, frames: _Frames, coef_t: np.ndarray,
+    nobs: np.ndarray, out: _Outputs, widx: np.ndarray,
 ) -> None:  # fmt: skip
     """Adjusted portmanteau p-value per window from its residuals (Lütkepohl 2005, eq. 4.4.24).
 
     Q̄_h = T² Σ_{i=1}^{h} (T − i)^{-1} tr(Ĉ_i' Ĉ_0^{-1} Ĉ_i Ĉ_0^{-1}), Ĉ_i = T^{-1} Σ û_t û_{t−i}',
-    ≈ χ²(n²(h − p)). The statistic is invariant to the working coordinates' scaling.
+    ≈ χ²(n²(h − p)). Residuals are formed in each window's own frame.
     """
     n = data.shape[1]
     h = int(out.h_port)  # type: ignore[arg-type]
-    k = coef_t.shape[-1]
+    terms = TREND_TERMS[trend]
+    d = len(terms)
     span = out.ends[widx] - out.starts[widx] + 1 - p
     full = (nobs == span) & (out.skip_reason[widx] == "")
     df = n * n * (h - p)
     for T in np.unique(span[full]):  # one batch per residual length (one for rolling windows)
         sel = np.flatnonzero(full & (span == T))
         first = out.starts[widx[sel]] + p
-        lo, hi = int(first.min()), int(first.max()) + int(T)
-        rows = np.arange(lo, hi)
-        ys = np.full((hi, n), np.nan)
-        ys[lo - p :] = (data[lo - p : hi] - fr.mu) / fr.scale
-        z = K.augmented_rows(ys, rows, p, _det_columns(rows, trend, fr), np.ones(rows.size, bool))
-        zw = z[(first - lo)[:, None] + np.arange(T)[None, :]]  # (Wg, T, m) window rows
-        u = zw[..., k:] - zw[..., :k] @ np.swapaxes(coef_t[sel], 1, 2)  # residuals (Wg, T, n)
+        fr = frames.take(sel)
+        rows = first[:, None] + np.arange(-p, T)[None, :]  # (Wg, T + p) window rows
+        yw = data[rows] - fr.mu[:, None, :]
+        zx = np.empty((sel.size, T, d + n * p))
+        for c, term in enumerate(terms):
+            zx[:, :, c] = 1.0 if term == "const" else (
+                (rows[:, p:] - fr.tau0[:, None]) / fr.tau_scale[:, None]
+            )  # fmt: skip
+        for lag in range(1, p + 1):
+            zx[:, :, d + (lag - 1) * n : d + lag * n] = yw[:, p - lag : p - lag + T]
+        u = yw[:, p:] - zx @ np.swapaxes(coef_t[sel], 1, 2)  # residuals (Wg, T, n)
         c0 = np.swapaxes(u, 1, 2) @ u / T
         c0_inv = np.linalg.inv(c0)
         stat = np.zeros(sel.size)
@@ -928,7 +1036,7 @@ def _portmanteau(
 
 def _select_orders(
     data: np.ndarray, finite: np.ndarray, P: int, trend: str, ends: np.ndarray,
-    starts: np.ndarray, criterion: str, out: _Outputs, expanding: bool,
+    starts: np.ndarray, criterion: str, out: _Outputs, expanding: bool, win: int,
 ) -> np.ndarray:  # fmt: skip
     """Chosen p in 1..P per window (0 where skipped), comparing orders on the common sample.
 
@@ -936,7 +1044,8 @@ def _select_orders(
     residual cross-products (`nested_sse`); criteria as `select_lags` (same sample, T − P).
     """
     n = data.shape[1]
-    d = len(TREND_TERMS[trend])
+    terms = TREND_TERMS[trend]
+    d = len(terms)
     Kp = d + n * P
     usable = K.usable_observations(finite, P)
     cum = np.concatenate([[0], np.cumsum(usable)])
@@ -944,28 +1053,26 @@ def _select_orders(
     nobs = cum[ends + 1] - cum[first]
     orders = np.zeros(ends.shape[0], dtype=np.int64)
     size = _chunk_size(n, P, d, 1, 0)
-    for chunk in _chunks(ends, size, expanding):
-        e, a = ends[chunk], first[chunk]
-        fr = _frame(data, finite, int(starts[chunk][0]), int(e[-1]), trend)
-        rows = np.arange(int(a.min()), int(e[-1]) + 1)
-        ys = (data - fr.mu) / fr.scale
-        z = K.augmented_rows(ys, rows, P, _det_columns(rows, trend, fr), usable[rows])
-        if expanding:
-            G = K.running_sums(z, e - a[0], None)
-        else:
-            G = K.window_sums(z, a - a[0], int(e[0] - a[0] + 1))
-        sol = K.solve_grams(G, Kp, Kp + n)
-        L, ok = sol["L"], sol["ok"]
+    for chunk, G, _ in _gram_chunks(
+        data, usable, P, trend, first, ends, win, expanding, size, _NoTimer()
+    ):
+        sol = K.solve_grams(G, Kp, Kp + n, int("const" in terms))
+        L = sol["L"]
         T_eff = nobs[chunk].astype(np.float64)
         sse = K.nested_sse(L[:, Kp:, :Kp], L[:, Kp:, Kp:], [d + n * q for q in range(1, P + 1)])
         crit = np.empty((len(chunk), P))
         for q in range(1, P + 1):
             with np.errstate(invalid="ignore", divide="ignore"):
                 sign, ld = np.linalg.slogdet(sse[q - 1] / T_eff[:, None, None])
-            ld = ld + 2.0 * np.log(fr.scale).sum()
             ld[sign <= 0] = np.nan
             crit[:, q - 1] = K.information_criteria_batch(ld, T_eff, n, d + n * q)[criterion]
-        ok &= np.isfinite(crit).all(axis=1)
+        fast = (
+            sol["ok"]
+            & np.isfinite(crit).all(axis=1)
+            & (sol["cond"] <= FAST_COND_LIMIT)
+            & (sol["cond_work"] <= WORK_COND_LIMIT)
+            & (sol["sse_cond"] <= SSE_COND_LIMIT)
+        )
         for j in range(len(chunk)):
             w = chunk[j]
             if nobs[w] < Kp + n:
@@ -975,7 +1082,7 @@ def _select_orders(
                     f"needed with max_lags={P}",
                 )
                 continue
-            if ok[j] and sol["cond"][j] <= FAST_COND_LIMIT:
+            if fast[j]:
                 orders[w] = int(np.argmin(crit[j])) + 1
                 continue
             if nobs[w] != ends[w] - starts[w] + 1 - P:

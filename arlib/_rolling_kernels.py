@@ -7,10 +7,11 @@ m = k + n columns of the augmented row z_t = [x_t', y_t']', N = n·p companion s
 The arithmetic follows the single-fit functions (`_estimate`, `_responses`, `_decompose`,
 `_causality`) equation by equation; only the order of operations is arranged for batches:
 
-- window sums of z_t z_t' by the van Herk / Gil-Werman block scheme (prefix and suffix sums
-  inside blocks of the window length): every window sum is a sum of at most two partial sums of
-  non-negative-definite terms, never a difference of two large running totals, so no precision is
-  lost to cancellation, whatever the length of the history;
+- window sums of z_t z_t' by the van Herk / Gil-Werman block scheme: a suffix sum and a prefix
+  sum meeting at an anchor row of a fixed grid, each accumulated in a fixed order, so a window's
+  sum is a sum of non-negative-definite terms (never a difference of two large running totals:
+  no cancellation, whatever the length of the history) and the same bit for bit whichever other
+  windows are computed with it;
 - one Cholesky factorisation of the augmented cross-product matrix gives the coefficients, the
   residual cross-products (without forming Y'Y − Y'X B, another cancellation avoided) and
   (X'X)^{-1};
@@ -50,25 +51,6 @@ def usable_observations(finite_rows: np.ndarray, lags: int) -> np.ndarray:
     return ok
 
 
-def augmented_rows(
-    ys: np.ndarray, rows: np.ndarray, lags: int, det: np.ndarray, use: np.ndarray
-) -> np.ndarray:
-    """(R, m) rows z_t = [det_t, y_{t−1}, ..., y_{t−p}, y_t] for t in `rows`; zero where not `use`.
-
-    `ys` (T, n) is the (scaled) data with NaN allowed in unused rows; `det` (R, d).
-    """
-    R = rows.shape[0]
-    n = ys.shape[1]
-    d = det.shape[1]
-    z = np.empty((R, d + n * (lags + 1)))
-    z[:, :d] = det
-    for lag in range(1, lags + 1):
-        z[:, d + (lag - 1) * n : d + lag * n] = ys[rows - lag]
-    z[:, d + lags * n :] = ys[rows]
-    z[~use] = 0.0
-    return z
-
-
 def packed_products(z: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
     """Lower triangles of the outer products z_t z_t', packed row by row: (R, m(m+1)/2).
 
@@ -84,73 +66,99 @@ def packed_products(z: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
     return out
 
 
-def window_sums(z: np.ndarray, starts: np.ndarray, length: int) -> np.ndarray:
-    """Σ_{t=a}^{a+L−1} z_t z_t' for each a in `starts` (row indices of z): packed lower
-    triangles (W, m(m+1)/2), or for consecutive starts the lower triangles in place (W, m, m).
+def _lower_from_packed(
+    out: np.ndarray, a: np.ndarray, ia: np.ndarray | slice, b: np.ndarray | None,
+    ib: np.ndarray | slice,
+) -> None:  # fmt: skip
+    """out[:, r, :r+1] = a[ia, row r] (+ b[ib, row r]) for every row r of the packed triangles."""
+    m = out.shape[-1]
+    off = 0
+    for r in range(m):
+        sl = slice(off, off + r + 1)
+        if b is None:
+            out[:, r, : r + 1] = a[ia, sl]
+        else:
+            np.add(a[ia, sl], b[ib, sl], out=out[:, r, : r + 1])
+        off += r + 1
 
-    Block scheme (van Herk 1992; Gil & Werman 1993): cut the rows into blocks of L starting at
-    starts[0] and take running sums that restart at each block, pre_b(i) = Σ_{r<=i} of block b.
-    A window starting at position i of block b is tot_b + pre_{b+1}(i−1) − pre_b(i−1): the terms
-    combined never exceed two blocks' worth, so rounding stays at the level of summing one window
-    directly, whatever the length of the history (no running total over all rows is differenced).
+
+def anchored_window_sums(z: np.ndarray, first: np.ndarray, cut: int, length: int) -> np.ndarray:
+    """Σ_{t=a}^{a+L−1} z_t z_t' for each a in `first` (increasing row indices of z, all with
+    cut − L <= a < cut), as lower triangles (W, m, m) with the upper part zero.
+
+    Every window of length L starting in rows cut − L .. cut − 1 contains row cut − 1, and its
+    sum is split there: the suffix Σ_{t=a}^{cut−1}, accumulated from row cut − 1 backwards, plus
+    the prefix Σ_{t=cut}^{a+L−1}, accumulated from row `cut` forwards. The additions a window's
+    sum goes through are fixed by its own rows and the anchor alone, whichever other windows are
+    computed with it, so every sum is reproducible bit for bit; and each adds up one window's
+    worth of non-negative-definite terms, no running total over the history is differenced
+    (the block scheme of van Herk 1992 / Gil & Werman 1993, one block per anchor).
+    """
+    W = first.shape[0]
+    m = z.shape[1]
+    lo = int(first[0])
+    hi = int(first[-1]) + length
+    suf = packed_products(z[lo:cut])
+    back = suf[::-1]
+    np.cumsum(back, axis=0, out=back)  # suf[i] = Σ_{t=lo+i}^{cut−1}, accumulated from cut−1 down
+    pre = packed_products(z[cut:hi]) if hi > cut else np.zeros((0, m * (m + 1) // 2))
+    np.cumsum(pre, axis=0, out=pre)  # pre[j] = Σ_{t=cut}^{cut+j}
+    ia = first - lo
+    ib = first + length - 1 - cut  # −1 only for a = cut − L (the window ends at row cut − 1)
+    G = np.zeros((W, m, m))
+    s = 0
+    if ib[0] < 0:
+        _lower_from_packed(G[:1], suf, ia[:1], None, ia[:1])
+        s = 1
+    if s < W:
+        if int(ia[-1] - ia[s]) == W - 1 - s:  # consecutive starts: slices, no gathers
+            i0, j0 = int(ia[s]), int(ib[s])
+            _lower_from_packed(G[s:], suf, slice(i0, i0 + W - s), pre, slice(j0, j0 + W - s))
+        else:
+            _lower_from_packed(G[s:], suf, ia[s:], pre, ib[s:])
+    return G
+
+
+def running_block_sums(
+    z: np.ndarray, row0: int, ends: np.ndarray, block: int, carry: np.ndarray
+) -> tuple[np.ndarray, int, np.ndarray]:
+    """Σ_{t<=e} z_t z_t' for each e in `ends` (increasing absolute rows), lower triangles
+    (W, m, m). `z` holds rows row0 .. ends[-1] (row0 a multiple of `block`) and `carry` the packed
+    sum of every row before row0.
+
+    Rows are cut into blocks of `block` rows at fixed absolute multiples; within a block the
+    products are accumulated forwards, and block totals are added to the carried sum one after
+    another, so the sum for an end e is S_j + pre_j(e) computed the same way whichever ends are
+    requested together (reproducible bit for bit). Only additions: no cancellation.
+
+    Returns (G, row0 of the last end's block, carried sum at that row) to continue from.
     """
     m = z.shape[1]
-    base = int(starts[0])
-    rel = starts - base
-    nblocks = int(rel[-1]) // length + 2
-    rows = min(z.shape[0] - base, nblocks * length)
-    buf = np.zeros((nblocks * length, m * (m + 1) // 2))
-    packed_products(z[base : base + rows], out=buf)
-    pre = buf.reshape(nblocks, length, -1)
+    R = z.shape[0]
+    nb = -(-R // block)
+    buf = np.zeros((nb * block, m * (m + 1) // 2))
+    packed_products(z, out=buf)
+    pre = buf.reshape(nb, block, -1)
     np.cumsum(pre, axis=1, out=pre)
-    W = rel.shape[0]
-    if rel[-1] == W - 1:  # consecutive starts (step 1): whole blocks by slicing, no gathers,
-        # written straight into the (W, m, m) lower triangles the factorisation reads
-        G = np.zeros(((nblocks - 1) * length, m, m))
-        G4 = G.reshape(nblocks - 1, length, m, m)
-        tot = pre[:-1, length - 1]
-        off = 0
-        for r in range(m):
-            sl = slice(off, off + r + 1)
-            G4[:, 0, r, : r + 1] = tot[:, sl]
-            dst = G4[:, 1:, r, : r + 1]
-            np.subtract(pre[1:, : length - 1, sl], pre[:-1, : length - 1, sl], out=dst)
-            dst += tot[:, None, sl]
-            off += r + 1
-        return G[:W]
-    b, i = np.divmod(rel, length)
-    out = pre[b, length - 1]
-    inner = np.flatnonzero(i > 0)
-    if inner.size:
-        bi, ii = b[inner], i[inner] - 1
-        out[inner] += pre[bi + 1, ii] - pre[bi, ii]
-    return out
-
-
-def running_sums(z: np.ndarray, ends: np.ndarray, carry: np.ndarray | None) -> np.ndarray:
-    """Packed Σ_{t<=e} z_t z_t' for each e in `ends` (row indices of z), plus `carry` (the sum
-    over earlier rows), shape (W, m(m+1)/2). Only additions: no cancellation."""
-    buf = packed_products(z[: int(ends[-1]) + 1])
-    np.cumsum(buf, axis=0, out=buf)
-    out = buf[ends]
-    if carry is not None:
-        out += carry
-    return out
+    S = np.empty((nb, pre.shape[-1]))
+    S[0] = carry
+    for j in range(1, nb):
+        np.add(S[j - 1], pre[j - 1, block - 1], out=S[j])
+    rel = ends - row0
+    jb, ib = np.divmod(rel, block)
+    G = np.zeros((ends.shape[0], m, m))
+    off = 0
+    for r in range(m):
+        sl = slice(off, off + r + 1)
+        np.add(S[jb, sl], pre[jb, ib, sl], out=G[:, r, : r + 1])
+        off += r + 1
+    last = int(jb[-1])
+    return G, row0 + last * block, S[last].copy()
 
 
 # ---------------------------------------------------------------------------------------------
 # least squares from the augmented cross-product matrix
 # ---------------------------------------------------------------------------------------------
-
-
-def unpack_lower_rows(packed: np.ndarray, m: int) -> np.ndarray:
-    """(W, m, m) with the packed lower triangles filled in row by row (upper part zero)."""
-    out = np.zeros((packed.shape[0], m, m))
-    off = 0
-    for i in range(m):
-        out[:, i, : i + 1] = packed[:, off : off + i + 1]
-        off += i + 1
-    return out
 
 
 def cholesky_batch(G: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -198,9 +206,9 @@ def triangular_inverse(L: np.ndarray, size: int = 8) -> np.ndarray:
     return X
 
 
-def solve_grams(packed: np.ndarray, k: int, m: int) -> dict[str, np.ndarray]:
-    """Least squares for a batch of augmented cross-product matrices, packed (W, m(m+1)/2) or
-    as lower triangles (W, m, m) (overwritten).
+def solve_grams(G: np.ndarray, k: int, m: int, centred: int) -> dict[str, np.ndarray]:
+    """Least squares for a batch of augmented cross-product matrices given as lower triangles
+    (W, m, m), columns ordered [deterministic terms, lagged series | series].
 
     With G = L L' (L lower, blocks 11: regressors k×k, 21: series n×k, 22: n×n)::
 
@@ -209,13 +217,22 @@ def solve_grams(packed: np.ndarray, k: int, m: int) -> dict[str, np.ndarray]:
         (X'X)^{-1} = L11^{-T} L11^{-1}
         log det Û'Û = 2 Σ log diag L22
 
+    Condition measures (all bounds of the form trace(M) trace(M^{-1}) >= cond_2(M)):
+
+    - "cond" κ = k' Σ_i VIF_i over the k' = k − `centred` regressors after the first `centred`
+      (1 when column 0 is the constant: those regressors are then centred), VIF_i = C_ii (C^{-1})_ii
+      for C = X̃'X̃ the cross-products of the centred regressors: trace(R) trace(R^{-1}) of their
+      correlation matrix R, between cond_2(R) and k'² cond_2(R). It depends on the window's rows
+      only — not on where the columns were shifted to before the products were formed: C is the
+      Schur complement L̃ L̃' (L̃ = rows/columns >= `centred` of L11) and C^{-1} the trailing block
+      of (X'X)^{-1} (Golub & Van Loan 2013, Sec. 4.2).
+    - "cond_work" the same bound for X'X as factorised (working coordinates, constant included):
+      what the rounding of this factorisation depends on.
+    - "sse_cond" trace(Û'Û) trace((Û'Û)^{-1}) >= cond_2(Û'Û).
+
     Returns "coef_t" (W, n, k), "sse" (W, n, n), "inv" = L11^{-1} (W, k, k), "logdet_sse",
-    "cond" (κ = k · Σ_i VIF_i, VIF_i = (X'X)_ii ((X'X)^{-1})_ii: the product of the traces of
-    the column-equilibrated X'X and its inverse, an upper bound on its 2-norm condition number,
-    at most k² times it; inf when the factorisation failed), "sse_pivot" (squared ratio of the
-    smallest to largest Cholesky pivot of Û'Û), "L" (W, m, m) and bool "ok".
+    "cond", "cond_work", "sse_cond" (inf where the factorisation failed), "L" and bool "ok".
     """
-    G = packed if packed.ndim == 3 else unpack_lower_rows(packed, m)
     gdiag = np.diagonal(G, axis1=1, axis2=2)[:, :k].copy()
     L, ok = cholesky_batch(G)
     inv = triangular_inverse(L[:, :k, :k])
@@ -223,22 +240,45 @@ def solve_grams(packed: np.ndarray, k: int, m: int) -> dict[str, np.ndarray]:
     coef_t = L[:, k:, :k] @ inv
     sse = L22 @ np.swapaxes(L22, 1, 2)
     d22 = np.diagonal(L22, axis1=1, axis2=2)
-    with np.errstate(divide="ignore", invalid="ignore"):
+    c = centred
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         logdet = 2.0 * np.log(d22).sum(axis=-1)
-        vif = gdiag * np.einsum("wrc,wrc->wc", inv, inv)  # (X'X)_ii ((X'X)^{-1})_ii
-        cond = k * vif.sum(axis=-1)
-        piv = (d22.min(axis=-1) / d22.max(axis=-1)) ** 2
-    ok &= np.isfinite(cond) & np.isfinite(logdet) & np.isfinite(coef_t).all(axis=(1, 2))
+        inv_diag = _sum_squares(inv, axis=1)  # ((X'X)^{-1})_ii = Σ_r (L^{-1})_ri²
+        cond_work = k * (gdiag * inv_diag).sum(axis=-1)
+        Lc = L[:, c:k, c:k]
+        cdiag = _sum_squares(Lc, axis=2)  # C_ii = Σ_{c'} L̃_ic'²
+        cond = (k - c) * (cdiag * inv_diag[:, c:]).sum(axis=-1)
+        sse_cond = _sum_squares(L22, axis=(1, 2)) * _sum_squares(
+            triangular_inverse(L22), axis=(1, 2)
+        )
+    ok &= np.isfinite(cond_work) & np.isfinite(logdet) & np.isfinite(coef_t).all(axis=(1, 2))
+    ok &= np.isfinite(sse_cond)
+    bad = ~ok
+    for arr in (cond, cond_work, sse_cond):
+        arr[bad] = np.inf
     return {
         "coef_t": coef_t,
         "sse": sse,
         "inv": inv,
         "logdet_sse": logdet,
-        "cond": np.where(ok, cond, np.inf),
-        "sse_pivot": np.where(ok, piv, 0.0),
+        "cond": cond,
+        "cond_work": cond_work,
+        "sse_cond": sse_cond,
         "ok": ok,
         "L": L,
     }
+
+
+def _sum_squares(x: np.ndarray, axis: int | tuple[int, ...]) -> np.ndarray:
+    """Σ x² over `axis`, added in index order one slice at a time: the same additions whatever
+    the batch size (a reduction's internal blocking could otherwise depend on the array shape)."""
+    axes = (axis,) if isinstance(axis, int) else axis
+    moved = np.moveaxis(x, axes, tuple(range(x.ndim - len(axes), x.ndim)))
+    flat = moved.reshape(*moved.shape[: x.ndim - len(axes)], -1)
+    out = np.zeros(flat.shape[:-1])
+    for i in range(flat.shape[-1]):
+        out += flat[..., i] * flat[..., i]
+    return out
 
 
 def nested_sse(L_y: np.ndarray, L22: np.ndarray, k_of: list[int]) -> list[np.ndarray]:
