@@ -193,6 +193,8 @@ def _classify(night: Night, before: dict[str, pl.DataFrame], finished: bool) -> 
         return "start-up"
     if runs.height == 0:
         return "between ingest and fit"
+    if (runs["status"] == "failed").any():
+        return "after a universe run failed"
     if (runs["status"] == "running").any():
         # the run keeps one connection open throughout, so the WAL cannot tell fit from write;
         # what was stored can: nothing yet (fitting, or writing the first universe) or some
@@ -203,26 +205,52 @@ def _classify(night: Night, before: dict[str, pl.DataFrame], finished: bool) -> 
     return "after the fits were stored (publish or export)"
 
 
+@pytest.fixture(scope="session")
+def child_work_seconds(fault_night_one: Night, reference: Reference, prefect_api: str, tmp_path_factory: pytest.TempPathFactory) -> float:
+    """Seconds from a child's first warehouse open to its exit, in one uninterrupted child run.
+
+    That child's night must also end with the tables of the in-process reference run.
+    """
+    from tests.faults.conftest import write_night_two
+
+    night = fault_night_one.copy(tmp_path_factory.mktemp("faults-calibration") / "scenario")
+    write_night_two(night)
+    child = _spawn(night, prefect_api, "none")
+    opened = _wait_until_open(child, night.warehouse)
+    _out, err = child.communicate(timeout=600)
+    seconds = time.monotonic() - opened
+    assert child.returncode == 0, err
+    tables = night.tables()
+    for t in (*UNIVERSE_TABLES, "observations", "revisions"):
+        assert _rows(tables[t]) == _rows(reference.tables[t]), t
+    return seconds
+
+
+def _wait_until_open(child: subprocess.Popen[str], warehouse: Path) -> float:
+    deadline = time.monotonic() + 600
+    while child.poll() is None and not _warehouse_open(child.pid, warehouse):
+        assert time.monotonic() < deadline, "the child never opened the warehouse"
+        time.sleep(0.002)
+    return time.monotonic()
+
+
 SEEDS = [pytest.param(0), *[pytest.param(s, marks=pytest.mark.slow) for s in range(1, 9)]]
 
 
 @pytest.mark.parametrize("seed", SEEDS)
-def test_kill_at_a_random_moment(seed: int, night_two: Night, fault_night_one: Night, reference: Reference, prefect_api: str) -> None:
-    """The delay after the child first opens the warehouse is uniform on [0, the reference run's time)."""
-    delay = float(np.random.default_rng(seed).uniform(0.0, reference.seconds))
+def test_kill_at_a_random_moment(seed: int, night_two: Night, fault_night_one: Night, reference: Reference, child_work_seconds: float, prefect_api: str) -> None:
+    """The delay after the child first opens the warehouse is uniform on [0, an uninterrupted child's time)."""
+    delay = float(np.random.default_rng(seed).uniform(0.0, child_work_seconds))
     before = night_two.tables()
 
     def kill() -> str:
         child = _spawn(night_two, prefect_api, "none")
-        deadline = time.monotonic() + 600
-        while child.poll() is None and not _warehouse_open(child.pid, night_two.warehouse):
-            assert time.monotonic() < deadline, "the child never opened the warehouse"
-            time.sleep(0.005)
-        time.sleep(delay)
+        opened = _wait_until_open(child, night_two.warehouse)
+        time.sleep(max(0.0, opened + delay - time.monotonic()))
         finished = child.poll() is not None
         if not finished:
             os.kill(child.pid, signal.SIGKILL)
         child.communicate(timeout=600)
-        return _classify(night_two, before, finished)
+        return f"{_classify(night_two, before, finished)} at {delay:.2f} s of {child_work_seconds:.2f} s"
 
     _survive(night_two, fault_night_one, reference, kill)
