@@ -792,7 +792,7 @@ def register(app: Any, snap: Snapshot, settings: Any = None) -> None:
     from dash.exceptions import PreventUpdate
 
     from . import ids
-    from .layout import report_links, skipped_table
+    from .layout import as_json, report_links, skipped_table
 
     @app.callback(Output(ids.REPORTS, "children"), Input(ids.UNIVERSE, "value"))
     def _reports(universe):  # type: ignore[no-untyped-def]
@@ -908,7 +908,7 @@ def register(app: Any, snap: Snapshot, settings: Any = None) -> None:
     def _health(state, near, tab):  # type: ignore[no-untyped-def]
         tab_gate(ids.TAB_HEALTH, tab)
         fig, rows, note = health_view(snap, state, near)
-        return fig, rows, note, skipped_table(skipped_rows(rows))
+        return fig, rows, note, as_json(skipped_table(skipped_rows(rows)))
 
     @app.callback(
         Output(ids.CYCLES_GRAPH, "figure"), Output(ids.chart_data("cycles"), "data"),

@@ -22,6 +22,7 @@ docs/warehouse.md; `_array` restores them. Series order is ``universe_series.pos
 
 from __future__ import annotations
 
+import bisect
 import contextlib
 import dataclasses
 import datetime as dt
@@ -29,6 +30,7 @@ import json
 import os
 import re
 import threading
+from collections import OrderedDict
 from collections.abc import Callable, Iterator, Sequence
 from pathlib import Path
 from typing import Any
@@ -65,9 +67,37 @@ TABLE_COLUMNS: dict[str, tuple[str, ...]] = {
     "prepared": ("universe", "date", "series", "value"),
 }
 
+#: Tables a `Snapshot` keeps whole per universe as rows (columns, order); see `Snapshot._rows_of`.
+_ROW_TABLES: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
+    "window_fits": (
+        ("window_end", "window_start", "nobs", "lags", "spectral_radius", "stable", "portmanteau_p",
+         "aic", "condition_number", "skip_reason"),
+        ("window_end",),
+    ),
+    "connectedness": (("window_end", "total"), ("window_end",)),
+    "directional": (
+        ("window_end", "series", "to_others", "from_others", "net"), ("window_end", "series")
+    ),
+}
+_SKIP_REASON = 9  # position of skip_reason in the window_fits rows above
+#: Tables a `Snapshot` keeps per universe as (W, n, n) arrays: (row label, column label, value).
+_CUBE_TABLES = {
+    "pairwise": ("target", "source", "share"),
+    "granger": ("caused", "causing", "p_value"),
+}
+#: Tables of arrays read in blocks of windows: (columns, filter on the variant or "").
+_ARRAY_TABLES: dict[str, tuple[tuple[str, ...], str]] = {
+    "responses": (("horizon", "response", "lower", "upper", "coverage"), "identification = ?"),
+    "decompositions": (("horizon", "share"), "method = ?"),
+    "window_params": (("lags", "coefs", "intercept", "sigma_u"), ""),
+}
+#: Consecutive windows fetched together from an array table.
+_BLOCK_WINDOWS = 64
+
 _MAX_DATE_TEXT = 32
-#: Most values a `Snapshot` keeps per file (universes, bounds, derived per-window results).
-_CACHE_ENTRIES = 512
+#: Most values a `Snapshot` keeps per file and process, and their total size (bytes, estimated).
+_CACHE_ENTRIES = 1024
+_CACHE_BYTES = 192 * 2**20
 #: A date, optionally followed by a time of day (which is ignored), as date inputs and plotly send.
 _DATE_TEXT = re.compile(r"^\d{4}-\d{2}-\d{2}([ T]\d{2}:\d{2}(:\d{2}(\.\d{1,9})?)?)?$")
 
@@ -314,6 +344,11 @@ class SnapshotReader:
         with self.cursor() as cur:
             return dict(cur.execute(sql, list(params)).fetchnumpy())
 
+    def arrow(self, sql: str, params: Sequence[Any] = ()) -> Any:
+        """One parameterised statement's result as a `pyarrow.Table` (list columns stay flat)."""
+        with self.cursor() as cur:
+            return cur.sql(sql, params=list(params)).to_arrow_table()
+
     def close(self) -> None:
         with self._lock:
             handle, self._handle = self._handle, None
@@ -321,37 +356,118 @@ class SnapshotReader:
             handle.retire()
 
 
+@dataclasses.dataclass(frozen=True)
+class _Rows:
+    """One universe's rows of a per-window table, ordered by window end (bisect finds a window).
+
+    `ends[k]` is the window end of `rows[k]`; a window may own several rows (one per series).
+    """
+
+    ends: list[dt.date]
+    rows: list[tuple[Any, ...]]
+
+    def between(self, start: dt.date, end: dt.date) -> list[tuple[Any, ...]]:
+        """Rows whose window end lies in [start, end] (inclusive), in stored order."""
+        return self.rows[bisect.bisect_left(self.ends, start) : bisect.bisect_right(self.ends, end)]
+
+
+@dataclasses.dataclass(frozen=True)
+class _Cube:
+    """One universe's (row label × column label) table per window end, as dense arrays.
+
+    ``values`` (W, n, n) [window, row series, column series], NaN where a row is missing or NULL;
+    ``present`` (W, n, n) True where the snapshot has a row; ``ends`` the W window ends, ascending.
+    Series positions follow ``universe_series.position``; labels outside the universe are dropped.
+    """
+
+    ends: list[dt.date]
+    values: np.ndarray
+    present: np.ndarray
+
+    def span(self, start: dt.date, end: dt.date) -> slice:
+        return slice(bisect.bisect_left(self.ends, start), bisect.bisect_right(self.ends, end))
+
+
+def _nbytes(value: Any) -> int:
+    """Rough size of a cached value (numpy arrays and Arrow tables counted; the rest nominal)."""
+    if isinstance(value, np.ndarray):
+        return int(value.nbytes)
+    if isinstance(value, _Cube):
+        return int(value.values.nbytes + value.present.nbytes) + 16 * len(value.ends)
+    if isinstance(value, _Rows):
+        return 160 * len(value.rows)
+    if isinstance(value, _Block):
+        return value.nbytes
+    if isinstance(value, (list, tuple, dict)):
+        return 64 * len(value) + 256
+    return 1024
+
+
+@dataclasses.dataclass(frozen=True)
+class _Block:
+    """Array rows of one universe for a run of consecutive window ends: end → the row's values.
+
+    Fetched in one statement through Arrow (one scan of the list columns serves `_BLOCK_WINDOWS`
+    windows); each array is a read-only view of the fetched buffer, flat in C order.
+    """
+
+    rows: dict[dt.date, tuple[Any, ...]]
+    nbytes: int
+
+
 class Snapshot:
-    """The dashboard's questions to the snapshot, each one parameterised statement."""
+    """The dashboard's questions to the snapshot, each one parameterised statement.
+
+    Answers are read through caches kept per snapshot file (the reader's generation: a replaced
+    file starts afresh) and per process, bounded in entries and bytes, least recently used first out:
+
+    - per universe, the small per-window tables as rows ordered by window end (window fits, the
+      connectedness index, directional spillovers), so a date window is two bisections;
+    - per universe, the pairwise spillover and Granger tables as dense (W, n, n) arrays, so a mean
+      over a date window is one numpy reduction;
+    - the array tables (responses, decompositions, window parameters) in blocks of consecutive
+      windows, one Arrow fetch per block: DuckDB decodes a table's list columns a row group at a
+      time whatever the filter, so one window costs a scan and a block costs about the same.
+    """
 
     def __init__(self, reader: SnapshotReader | str | os.PathLike[str]) -> None:
         self.reader = reader if isinstance(reader, SnapshotReader) else SnapshotReader(reader)
-        # small per-file caches, keyed by the reader's generation (a replaced file clears them)
         self._cache_lock = threading.Lock()
         self._cache_generation = -1
-        self._cache: dict[Any, Any] = {}
+        self._cache: OrderedDict[Any, tuple[Any, int]] = OrderedDict()
+        self._cache_bytes = 0
 
     def cached(self, key: Any, compute: Callable[[], Any]) -> Any:
         """`compute()` once per snapshot file and `key` (a replaced file starts afresh)."""
         return self._cached(key, compute)
 
     def _cached(self, key: Any, compute: Callable[[], Any]) -> Any:
-        generation = self.reader.current_generation()
-        if generation < self._cache_generation:  # a request pinned to a replaced file: no caching
-            return compute()
-        with self._cache_lock:
-            if generation != self._cache_generation:
-                self._cache = {}
-                self._cache_generation = generation
-            if key in self._cache:
-                return self._cache[key]
-        value = compute()
-        with self._cache_lock:
-            if generation == self._cache_generation:
-                if len(self._cache) >= _CACHE_ENTRIES:  # bounded: start afresh rather than grow
-                    self._cache = {}
-                self._cache[key] = value
-        return value
+        # pinned: the generation read here and every query of compute() see the same file
+        with self.reader.pinned():
+            generation = self.reader.current_generation()
+            if generation < self._cache_generation:  # a request pinned to a replaced file
+                return compute()
+            with self._cache_lock:
+                if generation != self._cache_generation:
+                    self._cache.clear()
+                    self._cache_bytes = 0
+                    self._cache_generation = generation
+                hit = self._cache.get(key)
+                if hit is not None:
+                    self._cache.move_to_end(key)
+                    return hit[0]
+            value = compute()
+            size = _nbytes(value)
+            with self._cache_lock:
+                if generation == self._cache_generation and key not in self._cache:
+                    self._cache[key] = (value, size)
+                    self._cache_bytes += size
+                    while self._cache and (
+                        len(self._cache) > _CACHE_ENTRIES or self._cache_bytes > _CACHE_BYTES
+                    ):
+                        _, (_, old) = self._cache.popitem(last=False)
+                        self._cache_bytes -= old
+            return value
 
     # -- the one date-window helper -------------------------------------------------------------
     def _select_window(
@@ -367,6 +483,7 @@ class Snapshot:
         group_by: Sequence[str] = (),
         order_by: Sequence[str] = ("window_end",),
         as_arrays: bool = False,
+        as_arrow: bool = False,
     ) -> Any:
         """Rows of `table` for ``window.universe`` with `date_column` inside the window (inclusive).
 
@@ -374,7 +491,7 @@ class Snapshot:
         module (plain column names are checked against `TABLE_COLUMNS`); `where` may hold ``?``
         placeholders whose values come in `params` (`select_params` for placeholders inside
         `columns`) — values from the browser never enter the SQL text. Every select-by-date-window
-        in the dashboard goes through here.
+        that reaches DuckDB goes through here (the cached tables are filtered in memory).
         """
         known = TABLE_COLUMNS[table]
         plain = [c for c in (*columns, date_column, *group_by, *order_by) if c.isidentifier()]
@@ -390,6 +507,8 @@ class Snapshot:
             + (f" ORDER BY {', '.join(order_by)}" if order_by else "")
         )
         values = [*select_params, window.universe, window.start, window.end, *params]
+        if as_arrow:
+            return self.reader.arrow(sql, values)
         if as_arrays:
             return self.reader.arrays(sql, values)
         return self.reader.rows(sql, values)
@@ -423,15 +542,92 @@ class Snapshot:
             raise WindowError(msg)
         return universes[name]
 
+    # -- per-universe tables kept in memory --------------------------------------------------------
+    def _rows_of(self, table: str, universe: str) -> _Rows:
+        """All rows of `universe` in one of the small per-window tables, ordered by window end."""
+        columns, order = _ROW_TABLES[table]
+
+        def load() -> _Rows:
+            rows = self._select_window(
+                table, columns, DateWindow(universe, dt.date.min, dt.date.max), order_by=order
+            )
+            return _Rows([r[0] for r in rows], rows)
+
+        return self._cached(("rows", table, universe), load)  # type: ignore[no-any-return]
+
+    def _cube(self, table: str, universe: Universe) -> _Cube:
+        """`universe`'s pairwise or Granger table for every window, as (W, n, n) arrays."""
+        row_col, col_col, value_col = _CUBE_TABLES[table]
+
+        def load() -> _Cube:
+            cols = self._select_window(
+                table, ["window_end", row_col, col_col, value_col],
+                DateWindow(universe.name, dt.date.min, dt.date.max), order_by=(), as_arrays=True,
+            )  # fmt: skip
+            n = len(universe.series)
+            ends, w = np.unique(np.asarray(cols["window_end"]), return_inverse=True)
+            pos = {s: i for i, s in enumerate(universe.series)}
+
+            def positions(labels: Any) -> np.ndarray:
+                names, which = np.unique(np.asarray(labels, dtype=object).astype(str), return_inverse=True)
+                return np.array([pos.get(x, -1) for x in names.tolist()], dtype=np.int64)[which]
+
+            i, j = positions(cols[row_col]), positions(cols[col_col])
+            keep = (i >= 0) & (j >= 0)
+            values = np.full((ends.size, n, n), np.nan)
+            present = np.zeros((ends.size, n, n), dtype=bool)
+            raw = np.ma.filled(np.ma.asarray(cols[value_col], dtype=np.float64), np.nan)
+            values[w[keep], i[keep], j[keep]] = raw[keep]
+            present[w[keep], i[keep], j[keep]] = True
+            values.flags.writeable = False
+            present.flags.writeable = False
+            return _Cube(ends.astype("datetime64[D]").tolist(), values, present)
+
+        return self._cached(("cube", table, universe.name), load)  # type: ignore[no-any-return]
+
+    def _block(self, table: str, universe: str, end: dt.date, variant: str | None = None) -> _Block | None:
+        """The block of `table`'s array rows holding window `end` (None: `end` is no stored window).
+
+        Blocks are runs of `_BLOCK_WINDOWS` consecutive window ends of ``window_fits``; `variant` is
+        the identification (responses) or method (decompositions).
+        """
+        ends = self._rows_of("window_fits", universe).ends
+        k = bisect.bisect_left(ends, end)
+        if k == len(ends) or ends[k] != end:
+            return None
+        b = k // _BLOCK_WINDOWS
+        lo, hi = ends[b * _BLOCK_WINDOWS], ends[min(len(ends), (b + 1) * _BLOCK_WINDOWS) - 1]
+        columns, where = _ARRAY_TABLES[table]
+
+        def load() -> _Block:
+            table_ = self._select_window(
+                table, ["window_end", *columns], DateWindow(universe, lo, hi), where=where,
+                params=[] if variant is None else [variant], order_by=(), as_arrow=True,
+            )  # fmt: skip
+            decoded = []
+            for name in ("window_end", *columns):
+                col = table_.column(name).combine_chunks()
+                if hasattr(col, "offsets"):  # a list column: one flat buffer, offsets per row
+                    flat = col.values.to_numpy(zero_copy_only=False)
+                    offsets = col.offsets.to_numpy()
+                    valid = col.is_valid().to_numpy(zero_copy_only=False)
+                    decoded.append([
+                        flat[offsets[r] : offsets[r + 1]] if valid[r] else None for r in range(len(col))
+                    ])  # fmt: skip
+                else:
+                    decoded.append(col.to_pylist())
+            rows = {r[0]: r[1:] for r in zip(*decoded, strict=True)}
+            return _Block(rows, int(table_.nbytes) + 256 * len(rows))
+
+        return self._cached(("block", table, universe, variant, b), load)  # type: ignore[no-any-return]
+
     def date_bounds(self, universe: str) -> tuple[dt.date, dt.date]:
         """First and last window end stored for `universe`."""
-        ((lo, hi),) = self._cached(("bounds", universe), lambda: self.reader.rows(
-            "SELECT min(window_end), max(window_end) FROM window_fits WHERE universe = ?", [universe]
-        ))
-        if lo is None:
+        ends = self._rows_of("window_fits", universe).ends
+        if not ends:
             msg = f"universe {universe!r} has no windows in the snapshot yet"
             raise WindowError(msg)
-        return lo, hi
+        return ends[0], ends[-1]
 
     def window(self, state: Any) -> DateWindow:
         """Validate the browser's window state ``{"universe", "start", "end"}`` into a `DateWindow`.
@@ -454,40 +650,28 @@ class Snapshot:
     # -- time series over the window --------------------------------------------------------------
     def index_history(self, universe: str) -> list[tuple[dt.date, float]]:
         """The whole connectedness index history of `universe` (the overview chart)."""
-        return self.reader.rows(
-            "SELECT window_end, total FROM connectedness WHERE universe = ? ORDER BY window_end",
-            [universe],
-        )
+        return list(self._rows_of("connectedness", universe).rows)
 
     def index_in(self, window: DateWindow) -> list[tuple[dt.date, float]]:
-        return self._select_window("connectedness", ["window_end", "total"], window)
+        return self._rows_of("connectedness", window.universe).between(window.start, window.end)
 
     def fitted_end(self, window: DateWindow) -> dt.date:
         """The last window end inside `window` with a fitted model (the views' reference window)."""
-        rows = self._select_window(
-            "window_fits", ["max(window_end)"], window, where="skip_reason IS NULL", order_by=()
-        )
-        (end,) = rows[0]
-        if end is None:
-            msg = f"no fitted window of {window.universe!r} ends between {window.label}; widen the range"
-            raise WindowError(msg)
-        return end
+        rows = self._rows_of("window_fits", window.universe).between(window.start, window.end)
+        for row in reversed(rows):
+            if row[_SKIP_REASON] is None:
+                return row[0]  # type: ignore[no-any-return]
+        msg = f"no fitted window of {window.universe!r} ends between {window.label}; widen the range"
+        raise WindowError(msg)
 
     def health(self, window: DateWindow) -> list[tuple[Any, ...]]:
-        """Per window: end, start, nobs, lags, spectral radius, stable, portmanteau p, skip reason."""
-        return self._select_window(
-            "window_fits",
-            ["window_end", "window_start", "nobs", "lags", "spectral_radius", "stable",
-             "portmanteau_p", "aic", "condition_number", "skip_reason"],
-            window,
-        )
+        """Per window: end, start, nobs, lags, spectral radius, stable, portmanteau p, aic,
+        condition number, skip reason."""
+        return self._rows_of("window_fits", window.universe).between(window.start, window.end)
 
     def directional(self, window: DateWindow) -> list[tuple[Any, ...]]:
         """Per window and series: to others, from others, net (percent)."""
-        return self._select_window(
-            "directional", ["window_end", "series", "to_others", "from_others", "net"], window,
-            order_by=("window_end", "series"),
-        )
+        return self._rows_of("directional", window.universe).between(window.start, window.end)
 
     # -- tables at one window end or averaged over the window -------------------------------------------
     def _square(self, universe: Universe, rows: Sequence[tuple[Any, Any, Any]]) -> np.ndarray:
@@ -499,62 +683,73 @@ class Snapshot:
                 out[pos[a], pos[b]] = float(value)
         return out
 
+    def _at(self, table: str, universe: Universe, end: dt.date) -> np.ndarray:
+        cube = self._cube(table, universe)
+        k = bisect.bisect_left(cube.ends, end)
+        if k == len(cube.ends) or cube.ends[k] != end:
+            n = len(universe.series)
+            return np.full((n, n), np.nan)
+        return cube.values[k].copy()
+
     def pairwise_at(self, universe: Universe, end: dt.date) -> np.ndarray:
         """(n, n) table [target, source]: percent of target's variance due to source's shocks."""
-        rows = self._select_window(
-            "pairwise", ["target", "source", "share"], DateWindow(universe.name, end, end), order_by=()
-        )
-        return self._square(universe, rows)
+        return self._at("pairwise", universe, end)
 
     def pairwise_mean(self, window: DateWindow, universe: Universe) -> tuple[np.ndarray, int]:
-        """(n, n) table [target, source] averaged over the window's windows, and how many."""
-        rows = self._select_window(
-            "pairwise", ["target", "source", "avg(share)", "count(*)"], window,
-            group_by=("target", "source"), order_by=(),
-        )
-        count = max((int(r[3]) for r in rows), default=0)
-        return self._square(universe, [r[:3] for r in rows]), count
+        """(n, n) table [target, source] averaged over the window's windows, and how many.
+
+        Per cell: the mean of its non-NULL shares (NaN if none); the count is the most windows any
+        cell has a row in — as ``avg(share)``, ``count(*)`` grouped by (target, source) would give.
+        """
+        cube = self._cube("pairwise", universe)
+        span = cube.span(window.start, window.end)
+        present = cube.present[span]
+        values = cube.values[span]
+        count = int(present.sum(axis=0).max()) if present.shape[0] else 0
+        known = present & ~np.isnan(values)
+        k = known.sum(axis=0)
+        total = np.where(known, values, 0.0).sum(axis=0)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            mean = np.where(k > 0, total / np.maximum(k, 1), np.nan)
+        return mean, count
 
     def directional_at(self, universe: Universe, end: dt.date) -> dict[str, tuple[float, float, float]]:
-        rows = self._select_window(
-            "directional", ["series", "to_others", "from_others", "net"],
-            DateWindow(universe.name, end, end), order_by=(),
-        )
-        return {s: (float(t), float(f), float(n)) for s, t, f, n in rows}
+        rows = self._rows_of("directional", universe.name).between(end, end)
+        return {s: (float(t), float(f), float(n)) for _, s, t, f, n in rows}
 
     def granger_at(self, universe: Universe, end: dt.date) -> np.ndarray:
         """(n, n) p-values [caused, causing] at one window end (diagonal NaN)."""
-        rows = self._select_window(
-            "granger", ["caused", "causing", "p_value"], DateWindow(universe.name, end, end),
-            order_by=(),
-        )
-        return self._square(universe, rows)
+        return self._at("granger", universe, end)
 
     def granger_share(
         self, window: DateWindow, universe: Universe, level: float
     ) -> tuple[np.ndarray, int]:
-        """(n, n) share of windows [caused, causing] with p < `level`, and the number of windows."""
-        rows = self._select_window(
-            "granger",
-            ["caused", "causing", "avg(CASE WHEN p_value < ? THEN 1.0 ELSE 0.0 END)", "count(*)"],
-            window, select_params=[float(level)], group_by=("caused", "causing"), order_by=(),
-        )
-        count = max((int(r[3]) for r in rows), default=0)
-        return self._square(universe, [r[:3] for r in rows]), count
+        """(n, n) share of windows [caused, causing] with p < `level`, and the number of windows.
+
+        A NULL p-value counts as not significant (as ``CASE WHEN p_value < level`` would).
+        """
+        cube = self._cube("granger", universe)
+        span = cube.span(window.start, window.end)
+        present = cube.present[span]
+        with np.errstate(invalid="ignore"):
+            significant = present & (cube.values[span] < float(level))
+        k = present.sum(axis=0)
+        count = int(k.max()) if present.shape[0] else 0
+        with np.errstate(invalid="ignore", divide="ignore"):
+            share = np.where(k > 0, significant.sum(axis=0) / np.maximum(k, 1), np.nan)
+        return share, count
 
     def fit(self, universe: Universe, end: dt.date) -> Fit:
         """The stored VAR of the window ending at `end`."""
         n = len(universe.series)
-        rows = self.reader.rows(
-            "SELECT p.lags, p.coefs, p.intercept, p.sigma_u, f.window_start "
-            "FROM window_params p JOIN window_fits f USING (universe, window_end) "
-            "WHERE p.universe = ? AND p.window_end = ?",
-            [universe.name, end],
-        )
-        if not rows:
+        block = self._block("window_params", universe.name, end)
+        row = None if block is None else block.rows.get(end)
+        if row is None:
             msg = f"no stored model for {universe.name!r} at window end {end}"
             raise WindowError(msg)
-        lags, coefs, intercept, sigma_u, start = rows[0]
+        lags, coefs, intercept, sigma_u = row
+        fits = self._rows_of("window_fits", universe.name)
+        start = fits.rows[bisect.bisect_left(fits.ends, end)][1]
         lags = int(lags)
         return Fit(
             universe=universe.name,
@@ -571,14 +766,11 @@ class Snapshot:
     ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None, float | None] | None:
         """Stored responses (H+1, n, n) [h, response, shock] with lower/upper bands, or None."""
         n = len(universe.series)
-        rows = self.reader.rows(
-            "SELECT horizon, response, lower, upper, coverage FROM responses "
-            "WHERE universe = ? AND window_end = ? AND identification = ?",
-            [universe.name, end, identification],
-        )
-        if not rows:
+        block = self._block("responses", universe.name, end, identification)
+        row = None if block is None else block.rows.get(end)
+        if row is None:
             return None
-        horizon, response, lower, upper, coverage = rows[0]
+        horizon, response, lower, upper, coverage = row
         shape = (int(horizon) + 1, n, n)
         return (
             _array(response, shape),  # type: ignore[return-value]
@@ -590,14 +782,11 @@ class Snapshot:
     def decomposition(self, universe: Universe, end: dt.date, method: str) -> np.ndarray | None:
         """Stored decomposition (H, n, n) [step, variable, shock], or None."""
         n = len(universe.series)
-        rows = self.reader.rows(
-            "SELECT horizon, share FROM decompositions "
-            "WHERE universe = ? AND window_end = ? AND method = ?",
-            [universe.name, end, method],
-        )
-        if not rows:
+        block = self._block("decompositions", universe.name, end, method)
+        row = None if block is None else block.rows.get(end)
+        if row is None:
             return None
-        horizon, share = rows[0]
+        horizon, share = row
         return _array(share, (int(horizon), n, n))
 
     def prepared(self, universe: Universe, start: dt.date, end: dt.date) -> np.ndarray:

@@ -65,14 +65,18 @@ def colour(i: int) -> str:
 
 def _list(values: Any) -> list[Any]:
     """JSON-ready list: NaN/inf become None (a gap), numpy scalars become floats."""
-    out = []
-    for v in np.asarray(values, dtype=float).ravel().tolist():
-        out.append(v if math.isfinite(v) else None)
+    arr = np.asarray(values, dtype=float).ravel()
+    out = arr.tolist()
+    if not np.isfinite(arr).all():  # the common all-finite case needs no loop
+        out = [v if math.isfinite(v) else None for v in out]
     return out
 
 
 def _matrix(z: np.ndarray) -> list[list[Any]]:
-    return [_list(row) for row in np.asarray(z, dtype=float)]
+    arr = np.asarray(z, dtype=float)
+    if np.isfinite(arr).all():
+        return arr.tolist()  # type: ignore[no-any-return]
+    return [_list(row) for row in arr]
 
 
 def _dates(values: Sequence[Any]) -> list[str]:

@@ -61,6 +61,21 @@ def _note(note_id: str) -> html.P:
     return html.P(id=note_id, className="note")
 
 
+def as_json(value: Any) -> Any:
+    """Components as the plain JSON Dash sends for them (``{"type", "namespace", "props"}``).
+
+    A callback returning only plain values is serialised by orjson in one pass; one component
+    object anywhere in a response makes plotly's encoder walk the whole response in Python first.
+    """
+    if hasattr(value, "to_plotly_json"):
+        return as_json(value.to_plotly_json())
+    if isinstance(value, dict):
+        return {k: as_json(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [as_json(v) for v in value]
+    return value
+
+
 def skipped_table(rows: Sequence[tuple[str, str]]) -> html.Div:
     """Skipped windows and why, as a small table (at most 50 rows shown)."""
     if not rows:
