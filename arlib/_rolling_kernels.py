@@ -66,25 +66,29 @@ def packed_products(z: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
     return out
 
 
-def _lower_from_packed(
-    out: np.ndarray, a: np.ndarray, ia: np.ndarray | slice, b: np.ndarray | None,
-    ib: np.ndarray | slice,
-) -> None:  # fmt: skip
-    """out[:, r, :r+1] = a[ia, row r] (+ b[ib, row r]) for every row r of the packed triangles."""
-    m = out.shape[-1]
-    off = 0
-    for r in range(m):
-        sl = slice(off, off + r + 1)
-        if b is None:
-            out[:, r, : r + 1] = a[ia, sl]
-        else:
-            np.add(a[ia, sl], b[ib, sl], out=out[:, r, : r + 1])
-        off += r + 1
+def outer_products(z: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
+    """(R, m, m) outer products z_t z_t' (each entry one rounded product)."""
+    return np.einsum("ti,tj->tij", z, z, out=out)
 
 
-def anchored_window_sums(z: np.ndarray, first: np.ndarray, cut: int, length: int) -> np.ndarray:
+def accumulate_rows(x: np.ndarray, reverse: bool = False) -> None:
+    """In place, x[i] ← x[i−1] + x[i] (x[i] ← x[i+1] + x[i] with `reverse`) along axis 0: a
+    running sum in a fixed order, one contiguous row at a time (numpy's cumsum along a long
+    leading axis walks memory column by column and is about twice as slow)."""
+    R = x.shape[0]
+    if reverse:
+        for i in range(R - 2, -1, -1):
+            np.add(x[i + 1], x[i], out=x[i])
+    else:
+        for i in range(1, R):
+            np.add(x[i - 1], x[i], out=x[i])
+
+
+def anchored_window_sums(
+    z: np.ndarray, first: np.ndarray, cut: int, length: int, out: np.ndarray | None = None
+) -> np.ndarray:
     """Σ_{t=a}^{a+L−1} z_t z_t' for each a in `first` (increasing row indices of z, all with
-    cut − L <= a < cut), as lower triangles (W, m, m) with the upper part zero.
+    cut − L <= a < cut): (W, m, m), both triangles filled; written into `out` if given.
 
     Every window of length L starting in rows cut − L .. cut − 1 contains row cut − 1, and its
     sum is split there: the suffix Σ_{t=a}^{cut−1}, accumulated from row cut − 1 backwards, plus
@@ -98,24 +102,25 @@ def anchored_window_sums(z: np.ndarray, first: np.ndarray, cut: int, length: int
     m = z.shape[1]
     lo = int(first[0])
     hi = int(first[-1]) + length
-    suf = packed_products(z[lo:cut])
-    back = suf[::-1]
-    np.cumsum(back, axis=0, out=back)  # suf[i] = Σ_{t=lo+i}^{cut−1}, accumulated from cut−1 down
-    pre = packed_products(z[cut:hi]) if hi > cut else np.zeros((0, m * (m + 1) // 2))
-    np.cumsum(pre, axis=0, out=pre)  # pre[j] = Σ_{t=cut}^{cut+j}
+    G = np.empty((W, m, m)) if out is None else out
     ia = first - lo
     ib = first + length - 1 - cut  # −1 only for a = cut − L (the window ends at row cut − 1)
-    G = np.zeros((W, m, m))
-    s = 0
-    if ib[0] < 0:
-        _lower_from_packed(G[:1], suf, ia[:1], None, ia[:1])
-        s = 1
-    if s < W:
-        if int(ia[-1] - ia[s]) == W - 1 - s:  # consecutive starts: slices, no gathers
-            i0, j0 = int(ia[s]), int(ib[s])
-            _lower_from_packed(G[s:], suf, slice(i0, i0 + W - s), pre, slice(j0, j0 + W - s))
+    steady = int(ia[-1]) == W - 1  # consecutive starts (step 1)
+    # suffix sums Σ_{t=lo+i}^{cut−1}, in G itself when every position is a window's start
+    S = G if steady and lo + W == cut else np.empty((cut - lo, m, m))
+    outer_products(z[lo:cut], out=S)
+    accumulate_rows(S, reverse=True)
+    if S is not G:
+        G[:] = S[:W] if steady else S[ia]
+    if hi > cut:
+        P = outer_products(z[cut:hi])
+        accumulate_rows(P)  # prefix sums Σ_{t=cut}^{cut+j}
+        s = 1 if ib[0] < 0 else 0
+        if steady:
+            j0 = int(ib[s])
+            G[s:] += P[j0 : j0 + W - s]
         else:
-            _lower_from_packed(G[s:], suf, ia[s:], pre, ib[s:])
+            G[s:] += P[ib[s:]]
     return G
 
 
@@ -270,15 +275,8 @@ def solve_grams(G: np.ndarray, k: int, m: int, centred: int) -> dict[str, np.nda
 
 
 def _sum_squares(x: np.ndarray, axis: int | tuple[int, ...]) -> np.ndarray:
-    """Σ x² over `axis`, added in index order one slice at a time: the same additions whatever
-    the batch size (a reduction's internal blocking could otherwise depend on the array shape)."""
-    axes = (axis,) if isinstance(axis, int) else axis
-    moved = np.moveaxis(x, axes, tuple(range(x.ndim - len(axes), x.ndim)))
-    flat = moved.reshape(*moved.shape[: x.ndim - len(axes)], -1)
-    out = np.zeros(flat.shape[:-1])
-    for i in range(flat.shape[-1]):
-        out += flat[..., i] * flat[..., i]
-    return out
+    """Σ x² over `axis` (one multiply and one reduction pass)."""
+    return np.add.reduce(x * x, axis=axis)
 
 
 def nested_sse(L_y: np.ndarray, L22: np.ndarray, k_of: list[int]) -> list[np.ndarray]:
