@@ -102,6 +102,8 @@ WORK_COND_LIMIT = 1e7
 SSE_COND_LIMIT = 1e10
 #: Working-memory budget per chunk of windows (bytes); bounds peak memory beyond the outputs.
 CHUNK_BYTES = 64 * 2**20
+#: Budget (bytes) for the cross-product sums of one unit of windows summed together.
+GRAM_BYTES = 64 * 2**20
 
 
 # ---------------------------------------------------------------------------------------------
@@ -650,9 +652,11 @@ def _design(
     return z
 
 
-def _group_chunks(group: np.ndarray, size: int) -> list[np.ndarray]:
-    """Consecutive positions cut into chunks of at most `size`, whole runs of one group together
-    where they fit (a group's rows are then multiplied out once)."""
+def _group_chunks(group: np.ndarray, size: int, cap: int) -> list[np.ndarray]:
+    """Consecutive positions cut into units of whole runs of one group (a group's rows are
+    multiplied out once), as many runs per unit as fit in `size` windows (at least one); a run
+    longer than `cap` windows is cut into pieces of at most `cap` (bounding the memory of its
+    sums at the cost of summing some of its rows twice)."""
     W = group.shape[0]
     edges = np.flatnonzero(np.diff(group)) + 1
     out: list[np.ndarray] = []
@@ -661,9 +665,10 @@ def _group_chunks(group: np.ndarray, size: int) -> list[np.ndarray]:
         if t - lo > size and s > lo:
             out.append(np.arange(lo, s))
             lo = int(s)
-        while t - lo > size:
-            out.append(np.arange(lo, lo + size))
-            lo += size
+        if t - lo > cap:
+            pieces = -(-(t - lo) // cap)
+            out.extend(np.array_split(np.arange(lo, t), pieces))
+            lo = int(t)
     if lo < W:
         out.append(np.arange(lo, W))
     return out
@@ -729,7 +734,8 @@ def _gram_chunks(
                 tau0[s:t] = cut - 1.0
         return G, _Frames(mu, tau0, np.full(pos.size, tau_s))
 
-    for pos in _group_chunks(group, size):
+    cap = max(size, GRAM_BYTES // (8 * m * m))
+    for pos in _group_chunks(group, size, cap):
         yield pos, partial(make, pos)
 
 
@@ -790,7 +796,10 @@ def _fit_group(
     size = _chunk_size(n, p, d, out.H, extra)
 
     def job(pos: np.ndarray, G: np.ndarray, frames: _Frames) -> None:
-        _fit_chunk(data, usable, p, trend, frames, idx[pos], G, out, timer)
+        for s in range(0, pos.size, size):  # memory-bounded sub-chunks of one unit of sums
+            part = slice(s, s + size)
+            _fit_chunk(data, usable, p, trend, frames.take(part), idx[pos[part]], G[part], out,
+                       timer)  # fmt: skip
 
     chunks = _gram_chunks(data, usable, p, trend, first, ends, win, expanding, size, timer)
     _run_chunks(chunks, job, workers)
@@ -1105,7 +1114,11 @@ def _select_orders(
     orders = np.zeros(ends.shape[0], dtype=np.int64)
     size = _chunk_size(n, P, d, 1, 0)
 
-    def job(chunk: np.ndarray, G: np.ndarray, frames: _Frames) -> None:
+    def job(pos: np.ndarray, G: np.ndarray, frames: _Frames) -> None:
+        for s in range(0, pos.size, size):  # memory-bounded sub-chunks of one unit of sums
+            select(pos[s : s + size], G[s : s + size])
+
+    def select(chunk: np.ndarray, G: np.ndarray) -> None:
         sol = K.solve_grams(G, Kp, Kp + n, int("const" in terms))
         L = sol["L"]
         T_eff = nobs[chunk].astype(np.float64)

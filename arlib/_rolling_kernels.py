@@ -317,7 +317,7 @@ def spectral_radius_batch(
     n: int,
     p: int,
     *,
-    squarings: int = 10,
+    squarings: int = 12,
     max_dim: int | None = None,
     rank_tol: float = 1e-12,
     resid_tol: float = 1e-12,

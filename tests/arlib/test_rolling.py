@@ -511,6 +511,9 @@ def test_every_number_is_independent_of_how_windows_are_grouped(
     monkeypatch.setattr(arlib._rolling, "CHUNK_BYTES", 1)  # chunks of 16 windows
     small = arlib.rolling_var(y, 100, lags, 6, **kw)
     assert_identical(small, full, "chunks of 16 windows")
+    monkeypatch.setattr(arlib._rolling, "GRAM_BYTES", 1)  # sums of a block cut into pieces
+    pieces = arlib.rolling_var(y, 100, lags, 6, **kw)
+    assert_identical(pieces, full, "sums in pieces of 16 windows")
     threads = arlib.rolling_var(y, 100, lags, 6, workers=3, **kw)  # chunks on 3 threads
     assert_identical(threads, full, "workers=3")
 
