@@ -531,13 +531,15 @@ def granger_f(
 
         F_ij = b_ij' V_j^{-1} b_ij / (p σ_ii).
 
-    `inv` is L^{-1} (W, k, k); V_j is formed from its columns for series j's lags and factored
-    by a batched Cholesky over the p×p blocks (p is small).
+    `inv` is L^{-1} (W, k, k); the lag block of (X'X)^{-1} is formed from its lag columns by one
+    product per window, V_j picked from it, and factored by a batched Cholesky over the p×p
+    blocks (p is small).
     """
-    W, k, _ = inv.shape
-    cols = inv[:, :, d:].reshape(W, k, p, n)  # cols[w, r, l, j] = L^{-1}[r, d + l·n + j]
-    cols = np.ascontiguousarray(cols.transpose(0, 3, 2, 1))  # (W, n_j, p, k)
-    V = cols @ np.swapaxes(cols, -1, -2)  # (W, n_j, p, p)
+    W = inv.shape[0]
+    lag = inv[:, :, d:]  # (W, k, n·p); column l·n + j is lag l+1 of series j
+    M = np.swapaxes(lag, 1, 2) @ lag  # lag block of (X'X)^{-1} = L^{-T} L^{-1}
+    # V[w, j, l, l'] = M[w, l·n + j, l'·n + j]
+    V = np.diagonal(M.reshape(W, p, n, p, n), axis1=2, axis2=4).transpose(0, 3, 1, 2)
     b = coef_t[:, :, d:].reshape(W, n, p, n)  # b[w, i, l, j]
     b = np.moveaxis(b, -1, 2)  # (W, n_i, n_j, p)
     if p == 1:
