@@ -436,12 +436,15 @@ def spectral_radius_batch(
             pick = np.arange(val.shape[0])
             theta[sel] = val[pick, top]
             vec[sel, :dd] = vecs[pick, :, top]
-    # residual of the Ritz pair: C Q s − θ Q s
-    r = np.einsum("wnd,wd->wn", CQ, vec) - theta[:, None] * np.einsum("wnd,wd->wn", Q, vec)
-    resid = np.sqrt(np.einsum("wn,wn->w", r.real, r.real) + np.einsum("wn,wn->w", r.imag, r.imag))
-    snorm = np.sqrt(
-        np.einsum("wd,wd->w", vec.real, vec.real) + np.einsum("wd,wd->w", vec.imag, vec.imag)
-    )
+    # residual of the Ritz pair: C Q s − θ Q s, in real arithmetic (s = a + ib, θ = t + iu):
+    # re = CQ a − t Q a + u Q b, im = CQ b − t Q b − u Q a
+    ab = np.stack([vec.real, vec.imag], axis=-1)  # (W, dm, 2)
+    cq, q = CQ @ ab, Q @ ab  # (W, N, 2)
+    t, u = theta.real[:, None], theta.imag[:, None]
+    re = cq[..., 0] - t * q[..., 0] + u * q[..., 1]
+    im = cq[..., 1] - t * q[..., 1] - u * q[..., 0]
+    resid = np.sqrt((re * re).sum(axis=-1) + (im * im).sum(axis=-1))
+    snorm = np.sqrt((ab * ab).sum(axis=(1, 2)))
     with np.errstate(invalid="ignore"):
         good &= resid <= resid_tol * cnorm * snorm
     out = np.empty(W)
