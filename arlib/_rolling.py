@@ -55,8 +55,9 @@ Cost
 ----
 Per window: O(m²) for its cross-products plus a fixed amount of batched small-matrix
 arithmetic; no per-window linear algebra is driven from Python except for the rare windows
-refitted directly. With `after=` or `ends=` only the requested windows and
-the rows they span are touched (expanding windows: the running sums from row 0 are O(T·m²)).
+refitted directly. With `after=` or `ends=` only the requested windows and the rows of their
+anchor blocks are touched (at most about two windows' worth of rows per block; expanding
+windows: the running sums from row 0 are O(T·m²)). `workers=` spreads chunks over threads.
 
 References
 ----------
@@ -351,10 +352,11 @@ def rolling_var(
     decomposition : None | "generalized" | "cholesky" — store decompositions (W, H, n, n).
     portmanteau_lags : h > p to store the adjusted portmanteau p-value per window.
     names : n series names (default y0, y1, ...).
-    workers : threads that process chunks of windows side by side (default 1). numpy and LAPACK
-        release the interpreter lock in their loops, so 2 threads on 2 free cores take roughly
-        0.6–0.7 of the single-thread time; the numbers are identical for any value. Keep BLAS
-        itself single-threaded (e.g. OPENBLAS_NUM_THREADS=1) when using more than one.
+    workers : threads that process chunks of windows side by side (default 1). numpy, BLAS and
+        LAPACK release the interpreter lock in their loops, so threads gain when cores are free
+        (the Python-level bookkeeping between calls still runs one thread at a time); every
+        number is identical for any value. Keep BLAS itself single-threaded
+        (e.g. OPENBLAS_NUM_THREADS=1) when using more than one.
 
     Returns
     -------

@@ -423,6 +423,21 @@ def test_spectral_radius_kernel_matches_lapack() -> None:
     acat = np.concatenate(list(np.moveaxis(batches[3][0], 1, 0)), axis=-1)
     _, certified = K.spectral_radius_batch(acat, 12, 2)
     assert certified.mean() > 0.9
+    # a matrix's radius and its certification (so whether LAPACK is used) do not depend on the
+    # other matrices of the batch: the whole batch, one at a time, and odd sub-batches agree bit
+    # for bit, the hard spectra (which fall back to LAPACK) included
+    hard5 = np.zeros((4, 1, 5, 5))  # the hard spectra with a fifth, small root: N > 4
+    hard5[:, :, :4, :4] = hard
+    hard5[:, :, 4, 4] = 0.05
+    mixed = np.concatenate([np.stack([random_var(5, 1, rng)[0] for _ in range(9)]), hard5])
+    acat = np.concatenate(list(np.moveaxis(mixed, 1, 0)), axis=-1)
+    assert 0 < K.spectral_radius_batch(acat, 5, 1)[1].sum() < len(acat)  # both paths taken
+    for A, n, p in [*batches[:3], (mixed, 5, 1)]:
+        acat = np.concatenate(list(np.moveaxis(A, 1, 0)), axis=-1)
+        rho, cert = K.spectral_radius_batch(acat, n, p)
+        for sl in [slice(w, w + 1) for w in range(len(acat))] + [slice(3, 10), slice(0, 5)]:
+            r_sub, c_sub = K.spectral_radius_batch(acat[sl], n, p)
+            assert np.array_equal(r_sub, rho[sl]) and np.array_equal(c_sub, cert[sl])
 
 
 @pytest.mark.parametrize("df1", [1, 2, 3, 4, 6])
@@ -443,12 +458,13 @@ def test_f_survival_matches_scipy(df1: int) -> None:
 def awkward_data() -> np.ndarray:
     """(760, 4) invented data with every hard case in one sample: series 1 sits at a level of 50
     (centring matters), series 3 nearly copies series 0 over rows 250..379 (condition numbers
-    from ordinary through far above the refit limit), series 2 is exactly twice series 1 over rows
-    560..699 (collinear windows, skipped) and row 450 is missing (windows with fewer rows)."""
+    from ordinary through far above the refit limit: about 30 windows refitted directly), series
+    2 is exactly twice series 1 over rows 560..699 (collinear windows, skipped with fit_var's
+    reason) and row 450 is missing (windows with fewer rows)."""
     y = simulate(4, 2, 760, seed=77)
     rng = np.random.default_rng(78)
     y[:, 1] += 50.0
-    y[250:380, 3] = y[250:380, 0] + 1e-6 * rng.standard_normal(130)
+    y[250:380, 3] = y[250:380, 0] + 1e-5 * rng.standard_normal(130)
     y[560:700, 2] = 2.0 * y[560:700, 1]
     y[450, 0] = np.nan
     return y
@@ -494,7 +510,7 @@ def test_every_number_is_independent_of_how_windows_are_grouped(
     assert full.ok.sum() > 400
     if case not in ("expanding", "lag selection"):
         assert (~full.ok).any()
-        assert np.nanmax(full.condition_number) > arlib._rolling.FAST_COND_LIMIT
+        assert (full.condition_number > arlib._rolling.FAST_COND_LIMIT).sum() >= 20  # refits
     if case in ("c, every output", "ct"):
         assert np.nanmin(full.condition_number) < 1e3
     idx = np.flatnonzero(full.ends > 517)
