@@ -1,7 +1,8 @@
 """Load on the served dashboard: concurrent clients posting real callback requests over loopback.
 
-The dashboard runs as ``shockflow dashboard`` does (``dashboard.serve``: werkzeug, a thread per
-request) in its own process, on 127.0.0.1 and a free port, over a serving snapshot. N client
+The dashboard runs as ``shockflow dashboard`` does (``dashboard.serve``: gunicorn with W worker
+processes, default that of `DashboardSettings`, 2) in its own process group, on 127.0.0.1 and a
+free port, over a serving snapshot. N client
 threads in this process (default 20) each post to ``/_dash-update-component`` back to back, with
 no pause, for D seconds (default 30) — bounded in time and in count (``--max-requests``). Each
 request is a real callback payload: the callback list comes from the server's own
@@ -12,10 +13,13 @@ The on-demand bootstrap band (a deliberate "compute now" action) is left out.
 
 Reported: requests served, throughput, latency p50/p95/p99/max (ms, request sent → whole body
 read) overall and per view, and errors (transport errors, HTTP status other than 200/204, or a
-view that failed: "could not be computed" in the body). Goal: zero errors and p95 < 300 ms.
+view that failed: "could not be computed" in the body); the CPU seconds the server's processes
+and this client process used, and the machine's load average before and after (the clients share
+the machine with the server, and whatever else runs on it). Goal: zero errors and p95 < 300 ms.
 
     python -m bench load                       # via the bench registry (demo snapshot)
     python -m bench.load_dashboard [--snapshot FILE | --config FILE] [--clients 20] [--seconds 30]
+                                   [--workers W]
 
 Default snapshot: the demo's (``shockflow demo --no-serve`` writes demo_output/). Loopback only:
 the server binds 127.0.0.1 and the clients connect there.
@@ -28,6 +32,7 @@ import itertools
 import json
 import os
 import random
+import signal
 import statistics
 import subprocess
 import sys
@@ -52,11 +57,11 @@ __all__ = ["LoadResult", "case", "main", "run"]
 SERVER = """
 import logging, sys
 from dashboard import DashboardSettings, serve
-logging.getLogger("werkzeug").setLevel(logging.ERROR)
 logging.getLogger("dashboard").setLevel(logging.ERROR)
-def ready(server):
-    print(server.server_port, flush=True)
-serve(DashboardSettings(snapshot=sys.argv[1], host="127.0.0.1", port=0), ready=ready)
+def ready(running):
+    print(running.server_port, flush=True)
+workers = int(sys.argv[2]) if len(sys.argv) > 2 else None
+serve(DashboardSettings(snapshot=sys.argv[1], host="127.0.0.1", port=0), workers=workers, ready=ready)
 """
 
 
@@ -161,14 +166,17 @@ def build_requests(
 class Server:
     """`dashboard.serve` in a child process on 127.0.0.1:<free port>; stopped on exit."""
 
-    def __init__(self, snapshot: Path) -> None:
+    def __init__(self, snapshot: Path, workers: int | None = None) -> None:
         env = {
             **os.environ,
             "PYTHONPATH": str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", ""),
         }
+        args = [sys.executable, "-c", SERVER, str(snapshot)]
+        if workers is not None:
+            args.append(str(workers))
         self.proc = subprocess.Popen(
-            [sys.executable, "-c", SERVER, str(snapshot)],
-            stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True, env=env, cwd=ROOT,
+            args, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True, env=env, cwd=ROOT,
+            start_new_session=True,
         )  # fmt: skip
         assert self.proc.stdout is not None
         line = self.proc.stdout.readline().strip()
@@ -183,20 +191,35 @@ class Server:
             return json.loads(r.read())
 
     def cpu_seconds(self) -> float | None:
-        """User + system CPU seconds of the server process so far (Linux /proc; None elsewhere)."""
-        try:
-            fields = Path(f"/proc/{self.proc.pid}/stat").read_text().rsplit(")", 1)[1].split()
-            return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
-        except (OSError, ValueError, IndexError):
-            return None
+        """User + system CPU seconds so far of the server and its worker processes (Linux /proc;
+        None elsewhere). Workers are the processes whose parent is the server."""
+        total = 0
+        found = False
+        for stat in Path("/proc").glob("[0-9]*/stat"):
+            try:
+                fields = stat.read_text().rsplit(")", 1)[1].split()
+            except (OSError, IndexError):
+                continue  # a process that ended meanwhile
+            try:
+                pid, ppid = int(stat.parent.name), int(fields[1])
+                if self.proc.pid in (pid, ppid):
+                    total += int(fields[11]) + int(fields[12])
+                    found = True
+            except (ValueError, IndexError):
+                continue
+        return total / os.sysconf("SC_CLK_TCK") if found else None
 
     def stop(self) -> None:
+        """SIGTERM: the server stops its workers and exits; if it hangs, its process group is killed."""
         if self.proc.poll() is None:
             self.proc.terminate()
             try:
-                self.proc.wait(10)
+                self.proc.wait(20)
             except subprocess.TimeoutExpired:
-                self.proc.kill()
+                try:
+                    os.killpg(self.proc.pid, signal.SIGKILL)  # the server's own session
+                except ProcessLookupError:
+                    pass
                 self.proc.wait(10)
 
     def __enter__(self) -> Server:
@@ -216,7 +239,11 @@ class LoadResult:
     clients: int
     seconds: float
     think: float = 0.0
+    workers: int | None = None
     server_cpu_s: float | None = None
+    client_cpu_s: float | None = None
+    load_before: tuple[float, float, float] | None = None
+    load_after: tuple[float, float, float] | None = None
     latencies_ms: list[float] = field(default_factory=list)
     by_view: dict[str, list[float]] = field(default_factory=dict)
     errors: list[str] = field(default_factory=list)
@@ -308,6 +335,13 @@ def drive(
     return result
 
 
+def _loadavg() -> tuple[float, float, float] | None:
+    try:
+        return os.getloadavg()
+    except OSError:
+        return None
+
+
 def run(
     snapshot: Path,
     *,
@@ -315,22 +349,30 @@ def run(
     seconds: float = 30.0,
     max_requests: int = 100_000,
     paces: tuple[float, ...] = (0.0,),
+    workers: int | None = None,
 ) -> tuple[LoadResult, list[LoadResult]]:
-    """Serve `snapshot`; one client visits every request once (cold: the server's first answer for
-    each view and window, own-cycle fits included), then for each pace in `paces` (think seconds,
-    0 = back to back) `clients` clients load it. Returns (cold pass, [load per pace])."""
+    """Serve `snapshot` with `workers` processes (None: the settings' default); one client visits
+    every request once (cold: each worker's first answers, own-cycle fits included), then for each
+    pace in `paces` (think seconds, 0 = back to back) `clients` clients load it. Returns (cold
+    pass, [load per pace])."""
     if not Path(snapshot).is_file():
         msg = (
             f"no serving snapshot at {snapshot}; build the demo first: `shockflow demo --no-serve`"
         )
         raise SystemExit(msg)
-    with Server(Path(snapshot)) as server:
+    if workers is None:
+        from dashboard.settings import DEFAULT_WORKERS
+
+        workers = DEFAULT_WORKERS
+    with Server(Path(snapshot), workers) as server:
         dependencies = server.get_json("_dash-dependencies")
         requests = build_requests(Path(snapshot), dependencies)
         cold = drive(server.base, requests, clients=1, seconds=3600.0, max_requests=len(requests))
         loads = []
         for think in paces:
             cpu0 = server.cpu_seconds()
+            mine0 = time.process_time()
+            load0 = _loadavg()
             result = drive(
                 server.base,
                 requests,
@@ -342,19 +384,35 @@ def run(
             cpu1 = server.cpu_seconds()
             if cpu0 is not None and cpu1 is not None:
                 result.server_cpu_s = cpu1 - cpu0
+            result.client_cpu_s = time.process_time() - mine0
+            result.workers, result.load_before, result.load_after = workers, load0, _loadavg()
             loads.append(result)
         return cold, loads
 
 
 def report(result: LoadResult) -> str:
     pace = f"pausing {result.think:g} s (±50%) between requests" if result.think else "back to back"
+    served = max(result.served, 1)
     lines = [
-        f"{result.clients} clients, {pace}, {result.seconds:.1f} s on {HOST}: {result.served} requests "
-        f"served ({result.served / max(result.seconds, 1e-9):.1f}/s), {len(result.errors)} errors"
+        f"{result.clients} clients, {pace}, {result.seconds:.1f} s on {HOST}, {result.workers} "
+        f"server worker process(es): {result.served} requests served "
+        f"({result.served / max(result.seconds, 1e-9):.1f}/s), {len(result.errors)} errors",
+        "CPU: "
         + (
-            f"; server CPU {result.server_cpu_s:.1f} s ({1000 * result.server_cpu_s / max(result.served, 1):.0f} ms per request)"
+            f"server {result.server_cpu_s:.1f} s ({1000 * result.server_cpu_s / served:.1f} ms per request)"
             if result.server_cpu_s is not None
+            else "server unknown"
+        )
+        + (
+            f", clients {result.client_cpu_s:.1f} s ({1000 * result.client_cpu_s / served:.1f} ms per request)"
+            if result.client_cpu_s is not None
             else ""
+        )
+        + f"; {os.cpu_count()} cores, load average "
+        + (
+            f"{result.load_before[0]:.2f} before, {result.load_after[0]:.2f} after (1 min)"
+            if result.load_before and result.load_after
+            else "unknown"
         ),
         f"latency ms: p50 {result.quantile(0.5):.0f}, p95 {result.quantile(0.95):.0f}, "
         f"p99 {result.quantile(0.99):.0f}, max {max(result.latencies_ms, default=float('nan')):.0f}"
@@ -377,6 +435,9 @@ def main(argv: list[str] | None = None) -> int:
         "--config", type=Path, help="pipeline config; its [warehouse] snapshot is served"
     )
     parser.add_argument("--clients", type=int, default=20)
+    parser.add_argument(
+        "--workers", type=int, default=None, help="server worker processes (default: as serve)"
+    )
     parser.add_argument("--seconds", type=float, default=30.0)
     parser.add_argument("--max-requests", type=int, default=100_000)
     parser.add_argument(
@@ -386,6 +447,8 @@ def main(argv: list[str] | None = None) -> int:
     args = parser.parse_args(argv)
     if not 1 <= args.clients <= 200 or not 0 < args.seconds <= 600:
         parser.error("use 1..200 clients for at most 600 s")
+    if args.workers is not None and not 1 <= args.workers <= 16:
+        parser.error("use 1..16 worker processes")
     if args.snapshot:
         snapshot = args.snapshot
     elif args.config:
@@ -401,6 +464,7 @@ def main(argv: list[str] | None = None) -> int:
         seconds=args.seconds,
         max_requests=args.max_requests,
         paces=paces,
+        workers=args.workers,
     )
     print(f"dashboard under load — {snapshot}")
     print(

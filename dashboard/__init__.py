@@ -1,8 +1,9 @@
 """dashboard: a read-only Dash app over the serving snapshot.
 
-``create_app(settings_or_config)`` builds the app; ``serve(config_or_settings, host=, port=)``
-builds and serves it (loopback unless credentials protect it). Importing this package is cheap:
-Dash, Plotly and DuckDB load only when an app is created.
+``create_app(settings_or_config)`` builds the app; ``serve(config_or_settings, host=, port=,
+workers=)`` builds it and serves it with several worker processes (gunicorn; loopback unless
+credentials protect it). Importing this package is cheap: Dash, Plotly, DuckDB and gunicorn load
+only when an app is created or served.
 """
 
 from __future__ import annotations

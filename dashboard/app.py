@@ -3,15 +3,24 @@
 from __future__ import annotations
 
 import logging
+import os
+import signal
+import socket
 import sys
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
 from . import auth
-from ._errors import InsecureBindError
+from ._errors import DashboardError, InsecureBindError
 from .settings import DashboardSettings
 
-__all__ = ["check_bind", "create_app", "serve"]
+__all__ = ["Running", "check_bind", "create_app", "serve"]
+
+#: Seconds a worker may spend on one request before it is replaced (on-demand bootstrap bands of a
+#: large universe are the slowest answers).
+WORKER_TIMEOUT = 300
+WORKER_THREADS = 4
 
 log = logging.getLogger(__name__)
 ASSETS = Path(__file__).with_name("assets")
@@ -90,40 +99,137 @@ def check_bind(settings: DashboardSettings) -> None:
     raise InsecureBindError(msg)
 
 
+class Running:
+    """What `serve` hands its `ready` callback: where it listens, and a way to stop it.
+
+    ``server_address`` is (host, port) as bound; ``server_port`` the port (the real one when 0 was
+    asked for); ``shutdown()`` stops the workers and returns `serve` (callable from any thread).
+    """
+
+    def __init__(self, address: tuple[str, int], workers: int) -> None:
+        self.server_address = address
+        self.server_port = address[1]
+        self.workers = workers
+        self._pid = os.getpid()
+
+    def shutdown(self) -> None:
+        os.kill(self._pid, signal.SIGTERM)
+
+
+def _bind_text(host: str, port: int) -> str:
+    host = host.strip().strip("[]")
+    return f"[{host}]:{port}" if ":" in host else f"{host}:{port}"
+
+
+def _check_port(host: str, port: int) -> None:
+    """Fail with one line, before any process starts, if `host`:`port` cannot be listened on."""
+    name = host.strip().strip("[]")
+    try:
+        infos = socket.getaddrinfo(name, port, type=socket.SOCK_STREAM, flags=socket.AI_PASSIVE)
+    except socket.gaierror as exc:
+        msg = f"cannot listen on {host!r}: {exc.strerror}; give an address of this machine (e.g. 127.0.0.1)"
+        raise DashboardError(msg) from None
+    family, kind, proto, _, address = infos[0]
+    probe = socket.socket(family, kind, proto)
+    try:
+        probe.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
+        probe.bind(address)
+    except OSError as exc:
+        msg = (
+            f"cannot listen on {_bind_text(host, port)}: {exc.strerror}; stop whatever uses it or "
+            "pick another port (--port)"
+        )
+        raise DashboardError(msg) from None
+    finally:
+        probe.close()
+
+
 def serve(
     config_or_settings: Any,
     host: str | None = None,
     port: int | None = None,
     *,
-    ready: Any = None,
+    workers: int | None = None,
+    ready: Callable[[Running], None] | None = None,
 ) -> None:
     """Serve the dashboard until interrupted (the CLI's ``shockflow dashboard`` and ``demo``).
 
-    `host`/`port` override the config. Non-loopback addresses need credentials; otherwise
-    `InsecureBindError` (one line, naming the fix) is raised before anything listens. `ready`, if
-    given, is called with the bound server (tests use it to learn the port and shut it down).
-    """
-    from werkzeug.serving import make_server
+    `host`/`port`/`workers` override the settings. Non-loopback addresses need credentials;
+    otherwise `InsecureBindError` (one line, naming the fix) is raised before anything listens.
 
-    settings = _settings(config_or_settings).with_address(host, port)
+    Requests are answered by `workers` processes (gunicorn's pre-fork server, sync workers: each
+    process answers one request at a time, and Python's one-thread-at-a-time lock no longer caps
+    the whole server at one core). The app is built once, before the fork, with nothing open:
+    each worker opens the snapshot on its first request, pins every request to one snapshot file
+    and reopens the file when the pipeline replaces it, on its own. Ctrl+C (or SIGTERM) stops
+    the workers and returns. `ready`, if given, is called in this process with a `Running` once
+    the address is bound (tests and benchmarks learn the port from it and may stop the server).
+    Must run in the main thread (signals); tests that serve inside a thread use werkzeug's
+    ``make_server(host, 0, create_app(...).server, threaded=True)`` instead.
+    """
+    settings = _settings(config_or_settings).with_address(host, port, workers=workers)
     check_bind(settings)
-    app = create_app(settings)
-    # one line per request on stderr drowns the start-up message; keep warnings and errors only
-    logging.getLogger("werkzeug").setLevel(logging.WARNING)
-    server = make_server(settings.host, settings.port, app.server, threaded=True)
-    shown = f"[{settings.host}]" if ":" in settings.host else settings.host
-    print(
-        f"shockflow dashboard: http://{shown}:{server.server_port}/  (reading {settings.snapshot}; "
-        "Ctrl+C stops it)\nCaution: a research tool, not financial advice. Estimated relations "
-        "between markets change over time.",
-        file=sys.stderr,
-        flush=True,
-    )
-    if ready is not None:
-        ready(server)
     try:
-        server.serve_forever()
-    except KeyboardInterrupt:
-        pass
-    finally:
-        server.server_close()
+        from gunicorn.app.base import BaseApplication
+    except ImportError as exc:  # gunicorn is a dependency, but needs a Unix-like system (fcntl)
+        msg = f"serving the dashboard needs gunicorn on a Unix-like system ({exc}); reinstall shockflow"
+        raise DashboardError(msg) from None
+    _check_port(settings.host, settings.port)
+    app = create_app(settings)
+
+    def when_ready(arbiter: Any) -> None:
+        bound = arbiter.LISTENERS[0].sock.getsockname()
+        shown = f"[{settings.host}]" if ":" in settings.host else settings.host
+        print(
+            f"shockflow dashboard: http://{shown}:{bound[1]}/  ({settings.workers} worker "
+            f"process{'es' if settings.workers != 1 else ''}; reading {settings.snapshot}; Ctrl+C "
+            "stops it)\nCaution: a research tool, not financial advice. Estimated relations "
+            "between markets change over time.",
+            file=sys.stderr,
+            flush=True,
+        )
+        if ready is not None:
+            ready(Running((settings.host, int(bound[1])), settings.workers))
+
+    options = {
+        "bind": [_bind_text(settings.host, settings.port)],
+        "workers": settings.workers,
+        "worker_class": "gthread" if WORKER_THREADS > 1 else "sync",
+        "threads": WORKER_THREADS,
+        "preload_app": True,  # imports once; no snapshot is open before the fork (opened lazily)
+        "timeout": WORKER_TIMEOUT,
+        "graceful_timeout": 10,
+        "keepalive": 2,
+        "loglevel": "warning",  # one line per request would drown the start-up message
+        "accesslog": None,
+        "errorlog": "-",
+        "control_socket_disable": True,  # no control socket file in the user's home
+        "proc_name": "shockflow-dashboard",
+        "when_ready": when_ready,
+    }
+
+    class _Server(BaseApplication):  # type: ignore[misc]
+        def load_config(self) -> None:
+            for key, value in options.items():
+                if key in self.cfg.settings:  # older gunicorn releases lack some (control socket)
+                    self.cfg.set(key, value)
+
+        def load(self) -> Any:
+            return app.server
+
+    master = os.getpid()
+    try:
+        _Server().run()
+    except SystemExit as exc:  # the arbiter ends with sys.exit: 0 after Ctrl+C/SIGTERM
+        if os.getpid() != master:
+            # a forked worker ending: leave now, without unwinding the caller's stack or running
+            # exit handlers inherited from it (e.g. after `shockflow demo`'s Prefect run)
+            sys.stdout.flush()
+            sys.stderr.flush()
+            os._exit(exc.code if isinstance(exc.code, int) else 1)
+        if exc.code not in (0, None):
+            msg = (
+                f"the dashboard server stopped with status {exc.code} (a worker could not start; "
+                "the lines above say why)"
+            )
+            raise DashboardError(msg) from None

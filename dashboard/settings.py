@@ -2,25 +2,32 @@
 
 `DashboardSettings` is a frozen value object. `DashboardSettings.from_config` reads the pipeline's
 `Config` (``config.warehouse.snapshot``, ``config.export.directory``, ``config.dashboard.*``)
-defensively, so a config without a ``[dashboard]`` table still gives loopback-only defaults.
+defensively, so a config without a ``[dashboard]`` table (or without a key, such as ``workers``)
+still gives loopback-only defaults.
 
 Credentials may come from the config itself or from environment variables; the config may name the
 variables (``token_env``, ``username_env``, ``password_env``), otherwise these defaults are read:
 
 ``SHOCKFLOW_DASHBOARD_TOKEN``, ``SHOCKFLOW_DASHBOARD_USERNAME``, ``SHOCKFLOW_DASHBOARD_PASSWORD``.
+
+Only the entry point reads the environment: the CLI passes ``environ=os.environ``; nothing in this
+package looks at ``os.environ`` by itself.
 """
 
 from __future__ import annotations
 
 import dataclasses
-import os
 from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
 
 from ._errors import DashboardError
 
-__all__ = ["DEFAULT_ENV", "DashboardSettings"]
+__all__ = ["DEFAULT_ENV", "DEFAULT_WORKERS", "MAX_WORKERS", "DashboardSettings"]
+
+#: Worker processes `serve` starts unless told otherwise (each answers one request at a time).
+DEFAULT_WORKERS = 2
+MAX_WORKERS = 64
 
 #: Environment variables read for credentials when the config names none.
 DEFAULT_ENV = {
@@ -61,6 +68,8 @@ class DashboardSettings:
     host, port : where `serve` listens (loopback by default).
     token : access token (``Authorization: Bearer``, or ``?token=`` once, which sets a cookie).
     username, password : HTTP basic-auth credentials (both or neither).
+    workers : processes `serve` answers requests with (Python runs one thread at a time per
+        process, so one process per core lets every core work).
     """
 
     snapshot: Path
@@ -70,6 +79,7 @@ class DashboardSettings:
     token: str | None = dataclasses.field(default=None, repr=False)
     username: str | None = None
     password: str | None = dataclasses.field(default=None, repr=False)
+    workers: int = DEFAULT_WORKERS
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "snapshot", Path(self.snapshot).expanduser().resolve())
@@ -77,6 +87,16 @@ class DashboardSettings:
             object.__setattr__(self, "export_dir", Path(self.export_dir).expanduser().resolve())
         if isinstance(self.port, bool) or not isinstance(self.port, int) or not 0 <= self.port <= 65535:
             msg = f"`port` must be an integer in 0..65535, got {self.port!r}; set [dashboard] port"
+            raise DashboardError(msg)
+        if (
+            isinstance(self.workers, bool)
+            or not isinstance(self.workers, int)
+            or not 1 <= self.workers <= MAX_WORKERS
+        ):
+            msg = (
+                f"`workers` must be a whole number from 1 to {MAX_WORKERS}, got {self.workers!r}; "
+                "set [dashboard] workers or --workers (one per core is a good start)"
+            )
             raise DashboardError(msg)
         if not isinstance(self.host, str) or not self.host.strip():
             msg = f"`host` must be a host name or address, got {self.host!r}; e.g. host = \"127.0.0.1\""
@@ -102,13 +122,14 @@ class DashboardSettings:
         """Settings from the pipeline's `Config` (or anything shaped like it).
 
         Reads ``config.warehouse.snapshot``, ``config.export.directory`` and the optional
-        ``config.dashboard`` section (host, port, token, username, password, and ``*_env`` names of
-        environment variables holding the secrets). Values set in the config win over the
-        environment.
+        ``config.dashboard`` section (host, port, workers, token, username, password, and ``*_env``
+        names of environment variables holding the secrets). Secrets named by variable are looked
+        up in `environ` — the entry point passes ``os.environ``; None means no environment. Values
+        set in the config win over the environment.
         """
         if isinstance(config, DashboardSettings):
             return config
-        env = os.environ if environ is None else environ
+        env: Mapping[str, str] = {} if environ is None else environ
         warehouse = _attr(config, "warehouse")
         snapshot = _attr(warehouse, "snapshot")
         if snapshot is None:
@@ -129,19 +150,25 @@ class DashboardSettings:
             values[name] = value
         host = _attr(dash_cfg, "host") or "127.0.0.1"
         port = _attr(dash_cfg, "port")
+        workers = _attr(dash_cfg, "workers")
         return cls(
             snapshot=Path(snapshot),
             export_dir=None if export_dir is None else Path(export_dir),
             host=str(host),
             port=8050 if port is None else port,
+            workers=DEFAULT_WORKERS if workers is None else workers,
             **values,
         )
 
-    def with_address(self, host: str | None = None, port: int | None = None) -> DashboardSettings:
-        """A copy listening elsewhere (the CLI's --host/--port win over the config)."""
+    def with_address(
+        self, host: str | None = None, port: int | None = None, *, workers: int | None = None
+    ) -> DashboardSettings:
+        """A copy listening elsewhere or with other workers (the CLI's options win over the config)."""
         changes: dict[str, Any] = {}
         if host is not None:
             changes["host"] = host
         if port is not None:
             changes["port"] = port
+        if workers is not None:
+            changes["workers"] = workers
         return dataclasses.replace(self, **changes) if changes else self
