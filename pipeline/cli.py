@@ -22,6 +22,7 @@ from rich.console import Console
 from rich.markup import escape
 from rich.table import Table
 
+from dashboard import DashboardError  # the package import is light (no Dash, DuckDB)
 from pipeline.errors import ShockflowError
 
 if TYPE_CHECKING:
@@ -70,7 +71,7 @@ DebugOpt = Annotated[bool, typer.Option("--debug", help="Show full tracebacks on
 def _fail(exc: BaseException, debug: bool) -> typer.Exit:
     if debug:
         console.print_exception()
-    text = str(exc) if isinstance(exc, ShockflowError) else f"{type(exc).__name__}: {exc}"
+    text = str(exc) if isinstance(exc, (ShockflowError, DashboardError)) else f"{type(exc).__name__}: {exc}"
     console.print(f"[bold red]error:[/] {escape(text)}", soft_wrap=True)
     return typer.Exit(1)
 
@@ -341,6 +342,7 @@ def dashboard(
     config: ConfigOpt,
     host: Annotated[str | None, typer.Option("--host", help="Address to bind (default 127.0.0.1).")] = None,
     port: Annotated[int | None, typer.Option("--port", help="Port (default 8050).")] = None,
+    workers: Annotated[int | None, typer.Option("--workers", help="Worker processes (default 2).")] = None,
     debug: DebugOpt = False,
 ) -> None:
     """Serve the dashboard over the serving snapshot (read-only)."""
@@ -349,7 +351,8 @@ def dashboard(
         import dashboard as dash_pkg
 
         cfg = _load(config)
-        dash_pkg.serve(cfg, host, port)
+        settings = dash_pkg.DashboardSettings.from_config(cfg, environ=os.environ)
+        dash_pkg.serve(settings, host, port, workers=workers)
         return 0
 
     _guard(debug, body)
@@ -377,7 +380,7 @@ def demo(
             return summary.exit_code
         import dashboard as dash_pkg
 
-        dash_pkg.serve(cfg, host, port)
+        dash_pkg.serve(dash_pkg.DashboardSettings.from_config(cfg, environ=os.environ), host, port)
         return summary.exit_code
 
     _guard(debug, body)
