@@ -20,6 +20,7 @@ __all__ = ["Running", "check_bind", "create_app", "serve"]
 #: Seconds a worker may spend on one request before it is replaced (on-demand bootstrap bands of a
 #: large universe are the slowest answers).
 WORKER_TIMEOUT = 300
+#: Threads per worker process (requests one process answers at once; they share its Python lock).
 WORKER_THREADS = 4
 
 log = logging.getLogger(__name__)
@@ -157,11 +158,15 @@ def serve(
     `host`/`port`/`workers` override the settings. Non-loopback addresses need credentials;
     otherwise `InsecureBindError` (one line, naming the fix) is raised before anything listens.
 
-    Requests are answered by `workers` processes (gunicorn's pre-fork server, sync workers: each
-    process answers one request at a time, and Python's one-thread-at-a-time lock no longer caps
-    the whole server at one core). The app is built once, before the fork, with nothing open:
-    each worker opens the snapshot on its first request, pins every request to one snapshot file
-    and reopens the file when the pipeline replaces it, on its own. Ctrl+C (or SIGTERM) stops
+    Requests are answered by `workers` processes (gunicorn's pre-fork server), so Python's
+    one-thread-at-a-time lock no longer caps the whole server at one core. Each process runs
+    `WORKER_THREADS` threads (gunicorn's gthread workers): a slow client or a long on-demand
+    computation holds one thread, not the process, and browsers keep their connections alive.
+    (Sync workers gave a slightly tighter p95 on the loopback load benchmark, but block a whole
+    process while a remote client downloads an answer.) The app is built once, before the fork,
+    with nothing open: each worker opens the snapshot on its first request, pins every request to
+    one snapshot file and reopens the file when the pipeline replaces it, on its own. Ctrl+C (or
+    SIGTERM) stops
     the workers and returns. `ready`, if given, is called in this process with a `Running` once
     the address is bound (tests and benchmarks learn the port from it and may stop the server).
     Must run in the main thread (signals); tests that serve inside a thread use werkzeug's

@@ -25,7 +25,7 @@ from ._errors import DashboardError
 
 __all__ = ["DEFAULT_ENV", "DEFAULT_WORKERS", "MAX_WORKERS", "DashboardSettings"]
 
-#: Worker processes `serve` starts unless told otherwise (each answers one request at a time).
+#: Worker processes `serve` starts unless told otherwise (one per core of a small machine).
 DEFAULT_WORKERS = 2
 MAX_WORKERS = 64
 
