@@ -121,6 +121,20 @@ def _num(x: Any) -> float | None:
     return x if math.isfinite(x) else None
 
 
+def _nums(values: Any) -> list[float | None]:
+    """`_num` of every element of an array, in C order (one `tolist`, a loop only over gaps)."""
+    arr = np.asarray(values, dtype=np.float64).ravel()
+    out: list[float | None] = arr.tolist()
+    if not np.isfinite(arr).all():
+        out = [v if math.isfinite(v) else None for v in arr.tolist()]
+    return out
+
+
+def _grid_index(H1: int, n: int) -> list[tuple[int, int, int]]:
+    """(h, i, j) in the C order of an (H1, n, n) array."""
+    return [(h, i, j) for h in range(H1) for i in range(n) for j in range(n)]
+
+
 def _guard(
     view: Callable[..., ViewResult], *, height: int = 320
 ) -> Callable[..., ViewResult]:
@@ -382,12 +396,14 @@ def paths_view(
         else "change of the responding series (as prepared) per one-s.d. shock"
     )
     fig = figures.responses_figure(resp, u.series, lower=lower, upper=upper, title=title, yunit=unit)
+    end_text, names = _iso(end), u.series
+    values = _nums(resp)
+    lows = [None] * len(values) if lower is None else _nums(lower)
+    highs = [None] * len(values) if upper is None else _nums(upper)
     rows = [
-        {"window_end": _iso(end), "identification": ident, "cumulative": cum, "horizon": h,
-         "response": u.series[i], "shock": u.series[j], "value": _num(resp[h, i, j]),
-         "lower": None if lower is None else _num(lower[h, i, j]),
-         "upper": None if upper is None else _num(upper[h, i, j])}
-        for h in range(H + 1) for i in range(len(u.series)) for j in range(len(u.series))
+        {"window_end": end_text, "identification": ident, "cumulative": cum, "horizon": h,
+         "response": names[i], "shock": names[j], "value": v, "lower": lo, "upper": hi}
+        for (h, i, j), v, lo, hi in zip(_grid_index(H + 1, len(names)), values, lows, highs, strict=True)
     ]  # fmt: skip
     note = f"Window ending {end}; responses {source}; {band_note}."
     return fig, rows, note
@@ -581,12 +597,14 @@ def compare_paths_view(
         title=f"Shock paths, {ident}: A (solid) against B (dashed)",
     )  # fmt: skip
     n = len(u.series)
+    names, a_end, b_end = u.series, _iso(ends[0]), _iso(ends[1])
     rows = [
-        {"identification": ident, "horizon": h, "response": u.series[i], "shock": u.series[j],
-         "a_window_end": _iso(ends[0]), "a_value": _num(paths[0][h, i, j]),
-         "b_window_end": _iso(ends[1]), "b_value": _num(paths[1][h, i, j]),
-         "change": _num(paths[1][h, i, j] - paths[0][h, i, j])}
-        for h in range(H + 1) for i in range(n) for j in range(n)
+        {"identification": ident, "horizon": h, "response": names[i], "shock": names[j],
+         "a_window_end": a_end, "a_value": a, "b_window_end": b_end, "b_value": b, "change": d}
+        for (h, i, j), a, b, d in zip(
+            _grid_index(H + 1, n), _nums(paths[0]), _nums(paths[1]), _nums(paths[1] - paths[0]),
+            strict=True,
+        )
     ]  # fmt: skip
     note = f"A: window ending {ends[0]}; B: window ending {ends[1]}; {ident} shocks."
     return fig, rows, note

@@ -72,6 +72,15 @@ def _list(values: Any) -> list[Any]:
     return out
 
 
+def _panels(values: np.ndarray) -> list[list[list[Any]]]:
+    """(H1, n, n) [h, i, j] → nested lists [i][j] over h, NaN/inf as None (one conversion, not n²)."""
+    arr = np.asarray(values, dtype=float)
+    out: list[list[list[Any]]] = np.moveaxis(arr, 0, -1).tolist()
+    if not np.isfinite(arr).all():
+        out = [[[v if math.isfinite(v) else None for v in cell] for cell in row] for row in out]
+    return out
+
+
 def _matrix(z: np.ndarray) -> list[list[Any]]:
     arr = np.asarray(z, dtype=float)
     if np.isfinite(arr).all():
@@ -298,20 +307,22 @@ def responses_figure(
     h = list(range(H1))
     axes, refs = _grid(n, n, hgap=0.035 if n < 6 else 0.025, vgap=0.04, share_x=True)
     data: list[dict[str, Any]] = []
+    paths = _panels(response)
+    bands = None if lower is None or upper is None else (_panels(lower), _panels(upper))
     for i in range(n):
         for j in range(n):
             xr, yr = refs[i][j]
             first = i == 0 and j == 0
-            if lower is not None and upper is not None:
+            if bands is not None:
                 data.append({
                     "type": "scatter", "x": h + h[::-1],
-                    "y": _list(upper[:, i, j]) + _list(lower[::-1, i, j]),
+                    "y": bands[1][i][j] + bands[0][i][j][::-1],
                     "fill": "toself", "fillcolor": "rgba(86,180,233,0.30)", "line": {"width": 0},
                     "name": "band", "legendgroup": "band", "showlegend": first, "hoverinfo": "skip",
                     "xaxis": xr, "yaxis": yr,
                 })  # fmt: skip
             data.append({
-                "type": "scatter", "mode": "lines", "x": h, "y": _list(response[:, i, j]),
+                "type": "scatter", "mode": "lines", "x": h, "y": paths[i][j],
                 "line": {"color": BLUE, "width": 1.6}, "name": "response",
                 "legendgroup": "response", "showlegend": first, "meta": [names[i], names[j]],
                 "hovertemplate": f"{names[i]} after a shock to {names[j]}<br>h=%{{x}}: %{{y:.4g}}<extra></extra>",
@@ -345,12 +356,13 @@ def responses_compare_figure(
     axes, refs = _grid(n, n, hgap=0.035 if n < 6 else 0.025, vgap=0.04, share_x=True)
     data: list[dict[str, Any]] = []
     styles = ({"color": BLUE, "width": 1.6}, {"color": ORANGE, "width": 1.6, "dash": "dash"})
+    grids = (_panels(first), _panels(second))
     for i in range(n):
         for j in range(n):
             xr, yr = refs[i][j]
-            for k, (arr, label) in enumerate(((first, labels[0]), (second, labels[1]))):
+            for k, (arr, label) in enumerate(((grids[0], labels[0]), (grids[1], labels[1]))):
                 data.append({
-                    "type": "scatter", "mode": "lines", "x": h, "y": _list(arr[:, i, j]),
+                    "type": "scatter", "mode": "lines", "x": h, "y": arr[i][j],
                     "line": styles[k], "name": label, "legendgroup": str(k),
                     "showlegend": i == 0 and j == 0, "meta": [names[i], names[j]],
                     "hovertemplate": f"{label}<br>{names[i]} ← {names[j]}, h=%{{x}}: %{{y:.4g}}<extra></extra>",
