@@ -16,7 +16,7 @@ Sections (every key is documented in the README):
   [universes.bands], granger_level, portmanteau_lags, arrays_every
 - ``[schedule]`` cron, timezone
 - ``[export]`` directory, formats
-- ``[dashboard]`` host, port, token | username + password, or the *_env names of variables holding them
+- ``[dashboard]`` host, port, workers, token | username + password, or the *_env names of variables holding them
 - ``[execution]`` runner, address, block_windows
 """
 
@@ -240,6 +240,7 @@ class DashboardConfig:
 
     host: str = "127.0.0.1"
     port: int = 8050
+    workers: int = 2  # processes answering requests (dashboard.serve)
     token: str | None = field(default=None, repr=False)
     username: str | None = None
     password: str | None = field(default=None, repr=False)
@@ -735,6 +736,7 @@ def _load_dashboard(t: _Table) -> DashboardConfig:
     d = DashboardConfig(
         host=t.get("host", str, "127.0.0.1"),
         port=t.integer("port", 8050, minimum=0),
+        workers=t.integer("workers", 2, minimum=1),
         token=t.get("token", str, None),
         username=t.get("username", str, None),
         password=t.get("password", str, None),
