@@ -82,6 +82,7 @@ directory = "out"
 [dashboard]
 host = "0.0.0.0"
 port = 8123
+workers = 3
 token_env = "MY_TOKEN"
 [[sources]]
 name = "prices"
@@ -101,7 +102,7 @@ lags = 1
     s = DashboardSettings.from_config(config, environ={"MY_TOKEN": "s3cret"})
     assert s.snapshot == (tmp_path / "serve.duckdb").resolve()
     assert s.export_dir == (tmp_path / "out").resolve()
-    assert (s.host, s.port, s.token) == ("0.0.0.0", 8123, "s3cret")
+    assert (s.host, s.port, s.token, s.workers) == ("0.0.0.0", 8123, "s3cret", 3)
     assert "s3cret" not in repr(s)
     check_bind(s)  # a token: allowed on all interfaces
     with pytest.raises(InsecureBindError):
