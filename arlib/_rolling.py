@@ -102,7 +102,7 @@ WORK_COND_LIMIT = 1e7
 #: below 1e-12) exceeds 1e12 here, so it is refitted and refused as `fit_var` refuses it.
 SSE_COND_LIMIT = 1e10
 #: Working-memory budget per chunk of windows (bytes); bounds peak memory beyond the outputs.
-CHUNK_BYTES = 64 * 2**20
+CHUNK_BYTES = 32 * 2**20
 #: Budget (bytes) for the cross-product sums of one unit of windows summed together.
 GRAM_BYTES = 64 * 2**20
 
