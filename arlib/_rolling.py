@@ -988,7 +988,13 @@ def _deterministic(
     if not terms:
         return
     mu = frames.mu
-    c = mu + coef_t[:, :, 0] - (coefs.sum(axis=1) @ mu[:, :, None])[:, :, 0]
+    lags = coefs.shape[1]
+    # (Σ_l A_l) μ = [A_1 ... A_p] [μ; ...; μ], one product per window
+    c = (
+        mu
+        + coef_t[:, :, 0]
+        - (coef_t[:, :, len(terms) :] @ np.tile(mu, (1, lags))[:, :, None])[:, :, 0]
+    )
     if "trend" in terms and out.trend_coef is not None:
         delta = coef_t[:, :, 1] / frames.tau_scale[:, None]
         start = out.starts[widx].astype(np.float64)

@@ -275,8 +275,10 @@ def solve_grams(G: np.ndarray, k: int, m: int, centred: int) -> dict[str, np.nda
 
 
 def _sum_squares(x: np.ndarray, axis: int | tuple[int, ...]) -> np.ndarray:
-    """Σ x² over `axis` (one multiply and one reduction pass)."""
-    return np.add.reduce(x * x, axis=axis)
+    """Σ x² over `axis` of a (W, a, b) array, in one pass (einsum, no squared temporary)."""
+    axes = {axis} if isinstance(axis, int) else set(axis)
+    keep = "w" + "".join(c for i, c in ((1, "a"), (2, "b")) if i not in axes)
+    return np.einsum(f"wab,wab->{keep}", x, x)
 
 
 def nested_sse(L_y: np.ndarray, L22: np.ndarray, k_of: list[int]) -> list[np.ndarray]:
