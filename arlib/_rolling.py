@@ -276,10 +276,12 @@ class RollingVAR:
 
 
 class StageTimer:
-    """Accumulates wall time per named stage: ``with timer("gram"): ...``."""
+    """Accumulates wall time per named stage: ``with timer("gram"): ...`` (with workers > 1,
+    the sum over threads)."""
 
     def __init__(self) -> None:
         self.seconds: dict[str, float] = {}
+        self._lock = threading.Lock()
 
     @contextmanager
     def __call__(self, name: str) -> Iterator[None]:
@@ -287,7 +289,9 @@ class StageTimer:
         try:
             yield
         finally:
-            self.seconds[name] = self.seconds.get(name, 0.0) + time.perf_counter() - t0
+            elapsed = time.perf_counter() - t0
+            with self._lock:
+                self.seconds[name] = self.seconds.get(name, 0.0) + elapsed
 
 
 class _NoTimer:

@@ -364,6 +364,8 @@ def test_bad_input_is_refused_with_the_fix() -> None:
         arlib.rolling_var(y, 50, 2, 5, portmanteau_lags=2)
     with pytest.raises(arlib.InvalidInputError, match="longer than the 200 rows"):
         arlib.rolling_var(y, 201, 1, 5)
+    with pytest.raises(arlib.InvalidInputError, match="workers"):
+        arlib.rolling_var(y, 50, 1, 5, workers=0)
 
 
 # ---------------------------------------------------------------------------------------------
