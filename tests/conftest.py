@@ -50,6 +50,9 @@ PREFECT_TEST_ENV = {
 def prefect_api() -> Iterator[str]:
     """Prefect's test harness (a temporary server and database), started once per session.
 
+    The session's ONLY harness: every Prefect test requests this fixture (or its alias
+    `prefect_harness` in tests/pipeline/conftest.py); do not start another one.
+
     Yields the server's API URL: subprocesses given ``PREFECT_API_URL`` = this URL use the same
     server instead of each starting a temporary one (which takes 5–60 s on a busy machine).
     """

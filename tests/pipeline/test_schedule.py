@@ -111,7 +111,7 @@ def test_serve_refuses_a_bad_schedule_before_starting_anything(config_file: Path
     assert not server_home(config).exists()  # no Prefect server was started
 
 
-# -- with Prefect (the session's one harness: tests/pipeline/conftest.py) ------------------------
+# -- with Prefect (the session's one harness: `prefect_api` in tests/conftest.py) ---------------
 
 @pytest.mark.prefect
 def test_served_deployment_has_the_cron_and_a_triggered_run_completes(
