@@ -4,7 +4,8 @@ nightly flow = mark interrupted runs → ingest (one read task per source, in pa
 pool of the flow process; each store runs in the flow process, one writer) → every universe: start
 + plan (in process), then all fit blocks of all universes submitted at once (threads locally, Dask
 workers with ``[execution] runner = "dask"``, see pipeline.execution) → per universe, store (in
-process, one transaction) → publish (atomic snapshot swap) → export.
+process, one transaction) → publish (atomic snapshot swap) → export (changed universes, and any
+whose report for the latest window date is missing from the export directory).
 
 A failing source or universe is recorded (ingest_batches / runs) and the others continue. Nothing
 here reads the environment: the CLI sets Prefect's settings before importing this module.
@@ -120,6 +121,11 @@ def store_universe_task(warehouse_path: Path, job: Any, blocks: list[Any], secon
 @task(name="publish", **_TASK_OPTIONS)
 def publish_task(config: Config) -> Any:
     return jobs.publish_step(config)
+
+
+@task(name="missing-exports", **_TASK_OPTIONS)
+def missing_exports_task(config: Config, universes: list[str]) -> list[str]:
+    return jobs.missing_exports_step(config, universes)
 
 
 @task(name="export", **_TASK_OPTIONS)
@@ -244,9 +250,18 @@ def _nightly_steps(
         summary.publish_message = "no universe succeeded; the served snapshot is unchanged"
     summary.seconds["publish"] = time.perf_counter() - t0
 
-    # export the universes whose results changed (`shockflow export` re-exports on demand)
+    # export the universes whose results changed, plus any whose report for its latest window date
+    # is missing (an earlier run was killed between publishing and exporting); not after a failed
+    # publish, as the snapshot then lags the warehouse (`shockflow export` re-exports on demand)
     t0 = time.perf_counter()
     to_export = changed if summary.published else []
+    if export and config.export.formats and not summary.publish_failed:
+        try:
+            missing = missing_exports_task(config, [u.name for u in selected])
+        except Exception as exc:  # e.g. a universe name unusable as a folder: export reports it too
+            log.warning("could not check which exports are missing: %s", exc)
+            missing = []
+        to_export = to_export + [u for u in missing if u not in to_export]
     if export and to_export and config.export.formats:
         try:
             written = export_task(config, to_export)

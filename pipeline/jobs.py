@@ -4,7 +4,7 @@ call them directly.
 
 Steps: ``read_source_step`` (no I/O on the warehouse: safe on any worker) → ``store_ingest`` (one
 writer) → ``start_universe`` → ``plan_universe`` → ``fit_block_step`` (pure compute: any worker) →
-``store_universe`` | ``fail_universe`` → ``publish_step`` → ``export_step``.
+``store_universe`` | ``fail_universe`` → ``publish_step`` → ``missing_exports_step`` → ``export_step``.
 ``run_universe`` chains the universe steps sequentially for one universe.
 """
 
@@ -49,6 +49,7 @@ __all__ = [
     "fail_universe",
     "fit_block_step",
     "ingest_source",
+    "missing_exports_step",
     "plan_universe",
     "publish_step",
     "read_source_step",
@@ -341,6 +342,61 @@ def stale_step(config: Config) -> list[str] | None:
         return stale_universes(con, config.warehouse.snapshot)
     finally:
         con.close()
+
+
+def missing_exports_step(config: Config, universes: list[str]) -> list[str]:
+    """Universes (of `universes`) whose export for their latest window date is missing or partial.
+
+    The latest window date is read from the serving snapshot (what `export_step` exports); the
+    report is present when ``<export dir>/<date>/<universe>/`` (pipeline.export's naming) holds
+    every file `[export] formats` asks for: ``<universe>-<date>.html``, ``<table>.csv`` /
+    ``<table>.parquet`` per extract table, and ``<universe>-<date>.pdf`` when a headless Chromium
+    is installed. A run killed after publishing but before (or while) exporting leaves exactly this
+    gap; the next run fills it. Universes with no results in the snapshot (or no snapshot) are not
+    missing anything.
+    """
+    import duckdb
+
+    from pipeline.export import EXTRACT_TABLES, find_chromium, safe_dir_name
+
+    snapshot = config.warehouse.snapshot
+    formats = {str(f).lower() for f in config.export.formats}
+    if not universes or not formats or not Path(snapshot).is_file():
+        return []
+    try:
+        con = duckdb.connect(str(snapshot), read_only=True)
+    except duckdb.Error as exc:  # unreadable snapshot: the export step itself reports it
+        log.warning("cannot read serving snapshot %s to check exports: %s", snapshot, exc)
+        return []
+    try:
+        rows = con.execute(
+            "SELECT universe, max(window_end) FROM window_fits WHERE universe IN "
+            "(SELECT unnest(CAST(? AS VARCHAR[]))) GROUP BY universe",
+            [list(universes)],
+        ).fetchall()
+    except duckdb.Error as exc:
+        log.warning("cannot read serving snapshot %s to check exports: %s", snapshot, exc)
+        return []
+    finally:
+        con.close()
+    latest: dict[str, date] = {u: d for u, d in rows if d is not None}
+    with_pdf = "pdf" in formats and find_chromium() is not None
+    missing = []
+    for name in universes:
+        day = latest.get(name)
+        if day is None:
+            continue
+        safe = safe_dir_name(name)
+        folder = Path(config.export.directory) / day.isoformat() / safe
+        stem = f"{safe}-{day.isoformat()}"
+        expected = [f"{stem}.html"] if "html" in formats else []
+        expected += [f"{t}.{ext}" for ext in ("csv", "parquet") if ext in formats for t in EXTRACT_TABLES]
+        expected += [f"{stem}.pdf"] if with_pdf else []
+        absent = [f for f in expected if not (folder / f).is_file()]
+        if absent:
+            log.info("export of %s for %s is missing %s: exporting it again", name, day, ", ".join(absent))
+            missing.append(name)
+    return missing
 
 
 def export_step(config: Config, universes: list[str], *, out_dir: str | Path | None = None) -> dict[str, Any]:

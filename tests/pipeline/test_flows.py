@@ -91,3 +91,74 @@ def test_nothing_runs_gives_exit_code_1(prefect_harness: None, tmp_path: Path) -
     assert all(r.status == "failed" for r in summary.ingest + summary.universes)  # type: ignore[operator]
     assert not summary.published and summary.exit_code == 1
     assert not cfg.warehouse.snapshot.exists()
+
+
+CATCH_UP = """
+[warehouse]
+path = "out/wh.duckdb"
+snapshot = "out/serving.duckdb"
+
+[[sources]]
+name = "prices"
+kind = "csv"
+path = "prices.csv"
+
+[[universes]]
+name = "trio"
+series = ["S0", "S1", "S2"]
+window = 60
+step = 20
+lags = 1
+horizon = 5
+
+[export]
+directory = "out/exports"
+formats = ["html", "csv"]
+"""
+
+
+def _files(folder: Path) -> dict[str, int]:
+    """Every file under `folder` (relative path → modification time in ns)."""
+    return {str(p.relative_to(folder)): p.stat().st_mtime_ns for p in sorted(folder.rglob("*")) if p.is_file()}
+
+
+def test_a_missing_report_is_exported_again_and_a_present_one_is_left_alone(prefect_harness: None, tmp_path: Path) -> None:
+    """A run killed after publishing but before exporting leaves the night's report unwritten; the
+    next run has no new results, yet writes the report for the universe's latest window date."""
+    import shutil
+
+    from pipeline.flows import nightly
+
+    simulate_prices(120).write_csv(tmp_path / "prices.csv")
+    cfg = load_config(write_config(tmp_path, CATCH_UP))
+    first = nightly(cfg)
+    assert first.published and first.exit_code == 0
+    (folder,) = {Path(p).parent for p in first.exported["trio"]}
+    # the folder is named by the universe's latest window end in the snapshot (pipeline.export)
+    snap = duckdb.connect(str(cfg.warehouse.snapshot), read_only=True)
+    try:
+        ((day,),) = snap.execute("SELECT max(window_end) FROM window_fits WHERE universe = 'trio'").fetchall()
+    finally:
+        snap.close()
+    assert folder == cfg.export.directory / day.isoformat() / "trio"
+    assert (folder / f"trio-{day.isoformat()}.html").is_file() and (folder / "pairwise.csv").is_file()
+    exported = _files(cfg.export.directory)
+
+    # the folder is gone (as after a kill between publish and export): the next run writes it again
+    shutil.rmtree(folder)
+    again = nightly(cfg)
+    assert [(r.universe, r.fitted, r.changed) for r in again.universes] == [("trio", 0, False)]
+    assert not again.published and again.exit_code == 0
+    assert sorted(again.exported) == ["trio"]
+    assert set(_files(cfg.export.directory)) == set(exported)
+
+    # a partial folder (one extract lost) counts as missing too
+    (folder / "pairwise.csv").unlink()
+    assert sorted(nightly(cfg).exported) == ["trio"]
+    assert (folder / "pairwise.csv").is_file()
+
+    # every report present: a rerun writes nothing
+    before = _files(cfg.export.directory)
+    last = nightly(cfg)
+    assert last.exported == {} and last.export_message is None
+    assert _files(cfg.export.directory) == before
