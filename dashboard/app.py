@@ -145,6 +145,35 @@ def _check_port(host: str, port: int) -> None:
         probe.close()
 
 
+def _ignore_interrupt(worker: Any) -> None:
+    """Workers leave Ctrl+C to the master, which stops them with one SIGQUIT each (a terminal
+    sends SIGINT to the whole group; a worker acting on it too would get two quit signals)."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
+def _worker_class() -> Any:
+    """gunicorn's gthread worker, made safe against a second quit signal inside the first.
+
+    Ctrl+C in a terminal sends SIGINT to every process of the group, and the master then sends its
+    workers SIGQUIT: when the second arrives while the first handler is shutting the worker's
+    thread pool down, the nested handler waits for the pool's lock the outer one holds, and the
+    worker hangs until the master kills it (seen after a Prefect run in the same process). The
+    first handler alone finishes the job, so a nested call returns at once.
+    """
+    from gunicorn.workers.gthread import ThreadWorker
+
+    class QuitOnceWorker(ThreadWorker):  # type: ignore[misc]
+        _quitting = False
+
+        def handle_quit(self, sig: Any, frame: Any) -> None:
+            if self._quitting:
+                return
+            self._quitting = True
+            super().handle_quit(sig, frame)
+
+    return QuitOnceWorker
+
+
 def serve(
     config_or_settings: Any,
     host: str | None = None,
@@ -199,7 +228,7 @@ def serve(
     options = {
         "bind": [_bind_text(settings.host, settings.port)],
         "workers": settings.workers,
-        "worker_class": "gthread" if WORKER_THREADS > 1 else "sync",
+        "worker_class": _worker_class() if WORKER_THREADS > 1 else "sync",
         "threads": WORKER_THREADS,
         "preload_app": True,  # imports once; no snapshot is open before the fork (opened lazily)
         "timeout": WORKER_TIMEOUT,
@@ -211,6 +240,7 @@ def serve(
         "control_socket_disable": True,  # no control socket file in the user's home
         "proc_name": "shockflow-dashboard",
         "when_ready": when_ready,
+        "post_worker_init": _ignore_interrupt,
     }
 
     class _Server(BaseApplication):  # type: ignore[misc]

@@ -194,6 +194,26 @@ def test_ctrl_c_stops_the_server_and_every_worker_cleanly(small_snapshot: Path) 
     assert served.stdout.count("serve returned") == 1, served.stdout
 
 
+@needs_proc
+def test_workers_leave_ctrl_c_to_the_server_process(small_snapshot: Path) -> None:
+    """A worker ignores SIGINT (the master stops it with one SIGQUIT): a Ctrl+C reaching a worker
+    alone neither ends it nor stops it answering."""
+    served = Served(small_snapshot, workers=2)
+    try:
+        get(served.base)
+        workers = served.wait_workers(2)
+        assert len(workers) == 2
+        os.kill(workers[0], signal.SIGINT)
+        time.sleep(1.0)
+        assert served.workers() == workers  # none ended (the master would have replaced it)
+        for _ in range(6):
+            assert get(served.base)[0] == 200
+    finally:
+        os.killpg(served.proc.pid, signal.SIGINT)
+        code = served.stop(timeout=30)
+    assert code == 0 and "Traceback" not in served.stderr, served.stderr
+
+
 # -- per-worker pinning and reopening --------------------------------------------------------------
 
 
