@@ -52,6 +52,23 @@ print("serve returned", flush=True)
 """
 
 
+_STARTED: list[Served] = []
+
+
+@pytest.fixture(autouse=True)
+def _no_server_left() -> Any:
+    """Whatever a test asserts, the servers it started end with it (their own process groups)."""
+    yield
+    while _STARTED:
+        served = _STARTED.pop()
+        if served.proc.poll() is None:
+            try:
+                os.killpg(served.proc.pid, signal.SIGKILL)
+            except ProcessLookupError:
+                pass
+            served.proc.wait(10)
+
+
 class Served:
     """`serve` in a child process group; `base` is its URL."""
 
@@ -64,6 +81,7 @@ class Served:
             stdout=subprocess.PIPE, stderr=self._err, text=True, env=env, cwd=ROOT,
             start_new_session=True,
         )  # fmt: skip
+        _STARTED.append(self)
         assert self.proc.stdout is not None
         line = self.proc.stdout.readline().strip()
         if not line.isdigit():
