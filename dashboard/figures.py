@@ -277,13 +277,19 @@ def index_figure(
 # ---------------------------------------------------------------------------------------------
 
 
+def _shock_titles(names: Sequence[str]) -> list[str]:
+    """Column titles of a response grid; wide grids keep just the name so titles never overlap."""
+    return [f"shock to {s}" if len(names) <= 5 else s for s in names]
+
+
 def _grid_titles(refs: list[list[tuple[str, str]]], layout: dict[str, Any],
                  cols: Sequence[str], rows: Sequence[str]) -> list[dict[str, Any]]:
     """Column titles above the top row; row names as the y-axis titles of the first column."""
     anns = []
     for c, label in enumerate(cols):
         dom = layout[_axis_key(refs[0][c][0])]["domain"]
-        anns.append(_text(label, (dom[0] + dom[1]) / 2, 1.0, yanchor="bottom", font={"size": 12}))
+        size = 12 if len(cols) <= 5 else 10
+        anns.append(_text(label, (dom[0] + dom[1]) / 2, 1.0, yanchor="bottom", font={"size": size}))
     for r, label in enumerate(rows):
         layout[_axis_key(refs[r][0][1])]["title"] = {"text": label, "font": {"size": 11}, "standoff": 4}
     return anns
@@ -333,7 +339,7 @@ def responses_figure(
             axes[_axis_key(xr)].update(tickfont={"size": 10})
     for j in range(n):
         axes[_axis_key(refs[n - 1][j][0])]["title"] = {"text": "horizon", "font": {"size": 11}}
-    anns = _grid_titles(refs, axes, [f"shock to {s}" for s in names], list(names))
+    anns = _grid_titles(refs, axes, _shock_titles(names), list(names))
     layout = _layout(
         height=max(380, 70 + 112 * n),
         title=f"{title}<br><span style='font-size:11px;color:#444'>rows: responding series; "
@@ -372,7 +378,7 @@ def responses_compare_figure(
             axes[_axis_key(xr)].update(tickfont={"size": 10})
     for j in range(n):
         axes[_axis_key(refs[n - 1][j][0])]["title"] = {"text": "horizon", "font": {"size": 11}}
-    anns = _grid_titles(refs, axes, [f"shock to {s}" for s in names], list(names))
+    anns = _grid_titles(refs, axes, _shock_titles(names), list(names))
     layout = _layout(
         height=max(380, 60 + 108 * n), title=title,
         margin={"l": 70, "r": 20, "t": 90, "b": 50},

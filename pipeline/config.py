@@ -55,7 +55,7 @@ __all__ = [
 
 #: Bumped whenever the fit stage computes or stores results differently, so that every universe's
 #: config hash changes and the next run refits everything.
-FIT_FORMAT_VERSION = 1
+FIT_FORMAT_VERSION = 2
 
 SOURCE_KINDS = ("csv", "parquet", "http_csv", "duckdb_sql", "demo")
 LAYOUTS = ("wide", "long")
