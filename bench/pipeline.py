@@ -139,6 +139,8 @@ def run(series: int = 200, days: int = 6000, keep: Path | None = None) -> dict[s
         for k, v in work.items():
             out[f"nightly_{k}_s"] = v
         out["nightly_fitted"] = sum(r.fitted for r in summary.universes)
+        # prepare + fit + store inside the fit stage, summed over universes (they run side by side)
+        out["nightly_steps_in_fit"] = sum(sum(r.seconds.values()) for r in summary.universes)
         out["nightly_exit_code"] = summary.exit_code
     finally:
         if keep is None:
@@ -151,7 +153,7 @@ def _print(out: dict[str, float], series: int, days: int) -> None:
     print(
         f"pipeline case: {series} series × {days} days (wide CSV), 3 universes × 12 series, window 250, step 1"
     )
-    print(f"{'stage':44s} {'value':>12s}  target")
+    print(f"{'stage':54s} {'value':>12s}  target")
     ok = out["ingest_rows_per_s"] >= TARGET_INGEST_ROWS_PER_S
     rows = [
         ("ingest rows", f"{out['rows']:,.0f}", ""),
@@ -185,26 +187,26 @@ def _print(out: dict[str, float], series: int, days: int) -> None:
         if (
             k.startswith("nightly_")
             and k.endswith("_s")
-            and k not in ("nightly_work_s", "nightly_wall_s")
+            and k not in ("nightly_work_s", "nightly_wall_s", "nightly_steps_in_fit")
         ):
             rows.append((f"nightly {k[8:-2]} (s)", f"{v:.2f}", ""))
     ok = out["nightly_work_s"] <= TARGET_NIGHTLY_WORK_S
     rows += [
         ("nightly windows fitted", f"{out['nightly_fitted']:.0f}", ""),
         (
-            "  of the fit stage: prepare+fit+store steps (s)",
+            "  in the fit stage: prepare+fit+store, summed (s)",
             f"{out['nightly_steps_in_fit']:.2f}",
             "rest: Prefect tasks",
         ),
         (
-            "nightly work (ingest + fit + publish, s)",
+            "nightly work (every stage, Prefect start-up apart, s)",
             f"{out['nightly_work_s']:.2f}",
             f"<= 3 {'ok' if ok else 'MISSED'}",
         ),
         ("nightly wall incl. Prefect orchestration (s)", f"{out['nightly_wall_s']:.2f}", ""),
     ]
     for name, value, target in rows:
-        print(f"{name:44s} {value:>12s}  {target}")
+        print(f"{name:54s} {value:>12s}  {target}")
 
 
 def main() -> None:
