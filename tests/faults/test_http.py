@@ -12,10 +12,8 @@ included) is checked for tracebacks.
 from __future__ import annotations
 
 import itertools
-import threading
 import time
 from collections.abc import Iterator
-from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
 from pathlib import Path
 from typing import ClassVar
 
@@ -35,6 +33,7 @@ from tests.bad_inputs.night import (
     run_subprocess,
     start_night_two,
 )
+from tests.pipeline.helpers import CsvHandler, serve_locally
 
 RETRIES = 2
 BACKOFF = 0.2
@@ -43,18 +42,8 @@ HANG = 3.0
 GOOD = csv_text(rates(NIGHT1_ROWS + 1)).encode()
 
 
-class _Handler(BaseHTTPRequestHandler):
+class _Handler(CsvHandler):
     arrivals: ClassVar[dict[str, list[float]]] = {}
-
-    def log_message(self, format: str, *args: object) -> None:  # quiet
-        pass
-
-    def _send(self, status: int, body: bytes, *, length: int | None = None) -> None:
-        self.send_response(status)
-        self.send_header("Content-Type", "text/csv")
-        self.send_header("Content-Length", str(length if length is not None else len(body)))
-        self.end_headers()
-        self.wfile.write(body)
 
     def do_GET(self) -> None:
         times = self.arrivals.setdefault(self.path, [])
@@ -78,13 +67,8 @@ class _Handler(BaseHTTPRequestHandler):
 
 @pytest.fixture(scope="module")
 def server() -> Iterator[str]:
-    httpd = ThreadingHTTPServer(("127.0.0.1", 0), _Handler)
-    httpd.daemon_threads = True
-    thread = threading.Thread(target=httpd.serve_forever, daemon=True)
-    thread.start()
-    yield f"http://127.0.0.1:{httpd.server_address[1]}"
-    httpd.shutdown()
-    httpd.server_close()
+    with serve_locally(_Handler) as url:
+        yield url
 
 
 def _http_night(night: Night, url: str) -> None:

@@ -2,7 +2,11 @@
 
 from __future__ import annotations
 
+import contextlib
 import textwrap
+import threading
+from collections.abc import Iterator
+from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
 from pathlib import Path
 
 import polars as pl
@@ -87,3 +91,31 @@ def assert_frames_close(a: pl.DataFrame, b: pl.DataFrame, *, rtol: float = 1e-9,
                 np.testing.assert_allclose(u, v, rtol=rtol, atol=atol, err_msg=f"{what}.{name}")
         else:
             assert x.equals(y), (what, name)
+
+
+class CsvHandler(BaseHTTPRequestHandler):
+    """Base of the test HTTP servers: quiet, and `_send` answers with a CSV body."""
+
+    def log_message(self, format: str, *args: object) -> None:  # quiet
+        pass
+
+    def _send(self, status: int, body: bytes, *, length: int | None = None) -> None:
+        """Answer `status` with `body`; `length` may promise more bytes than sent (truncation)."""
+        self.send_response(status)
+        self.send_header("Content-Type", "text/csv")
+        self.send_header("Content-Length", str(length if length is not None else len(body)))
+        self.end_headers()
+        self.wfile.write(body)
+
+
+@contextlib.contextmanager
+def serve_locally(handler: type[BaseHTTPRequestHandler]) -> Iterator[str]:
+    """Serve `handler` on 127.0.0.1 (a free port) in a daemon thread; yields the base URL."""
+    httpd = ThreadingHTTPServer(("127.0.0.1", 0), handler)
+    httpd.daemon_threads = True
+    threading.Thread(target=httpd.serve_forever, daemon=True).start()
+    try:
+        yield f"http://127.0.0.1:{httpd.server_address[1]}"
+    finally:
+        httpd.shutdown()
+        httpd.server_close()

@@ -3,11 +3,9 @@
 from __future__ import annotations
 
 import dataclasses
-import threading
 import time
 from collections.abc import Iterator
 from datetime import date
-from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
 from pathlib import Path
 from typing import ClassVar
 
@@ -18,6 +16,7 @@ import pytest
 from pipeline.config import SourceConfig
 from pipeline.errors import DataError, SourceError
 from pipeline.sources import fetch_with_retries, read_source
+from tests.pipeline.helpers import CsvHandler, serve_locally
 
 TODAY = date(2024, 6, 28)
 
@@ -173,18 +172,8 @@ def test_demo_source_reads_shipped_files() -> None:
 # ---------------------------------------------------------------------------------------------
 
 
-class _Handler(BaseHTTPRequestHandler):
+class _Handler(CsvHandler):
     hits: ClassVar[dict[str, int]] = {}
-
-    def log_message(self, format: str, *args: object) -> None:  # quiet
-        pass
-
-    def _send(self, status: int, body: bytes, *, length: int | None = None) -> None:
-        self.send_response(status)
-        self.send_header("Content-Type", "text/csv")
-        self.send_header("Content-Length", str(length if length is not None else len(body)))
-        self.end_headers()
-        self.wfile.write(body)
 
     def do_GET(self) -> None:
         try:
@@ -213,13 +202,8 @@ class _Handler(BaseHTTPRequestHandler):
 
 @pytest.fixture(scope="module")
 def server() -> Iterator[str]:
-    httpd = ThreadingHTTPServer(("127.0.0.1", 0), _Handler)
-    httpd.daemon_threads = True
-    thread = threading.Thread(target=httpd.serve_forever, daemon=True)
-    thread.start()
-    yield f"http://127.0.0.1:{httpd.server_address[1]}"
-    httpd.shutdown()
-    httpd.server_close()
+    with serve_locally(_Handler) as url:
+        yield url
 
 
 def http_source(url: str, **kw: object) -> SourceConfig:
