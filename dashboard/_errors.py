@@ -1,21 +1,20 @@
-"""The dashboard's exceptions: one root, each subclass for one kind of trouble."""
+"""The dashboard's exceptions: one root, each subclass for one kind of trouble.
+
+The snapshot errors are the read side's own (`serving`), raised by the reader the dashboard uses;
+so that one ``except DashboardError`` still catches every error the dashboard shows, its root is the
+serving layer's root.
+"""
 
 from __future__ import annotations
 
+from serving import ServingError, SnapshotMissingError, WindowError
+
 __all__ = ["DashboardError", "InsecureBindError", "SnapshotMissingError", "WindowError"]
 
-
-class DashboardError(Exception):
-    """Root of every error the dashboard raises on purpose; the message is one readable line."""
+#: Root of every error the dashboard raises on purpose (the read side's errors included); the
+#: message is one readable line.
+DashboardError = ServingError
 
 
 class InsecureBindError(DashboardError):
     """Asked to listen on a non-loopback address with no access token or basic-auth credentials."""
-
-
-class SnapshotMissingError(DashboardError):
-    """The serving snapshot file does not exist (yet) or is not a DuckDB database."""
-
-
-class WindowError(DashboardError, ValueError):
-    """A universe, date or option coming from the browser is not one the snapshot knows."""

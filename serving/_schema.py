@@ -1,0 +1,282 @@
+"""The warehouse and snapshot schema, declared once as data.
+
+Every table is a `Table` of `Column`s: SQL type, NOT NULL, the arlib shape of an array column and a
+one-line note. From these declarations come
+
+- the warehouse DDL (`ddl`, used by pipeline/warehouse.py's ``CREATE TABLE IF NOT EXISTS``),
+- which tables the serving snapshot copies and in which order (`SNAPSHOT_TABLES`, `order_by`),
+- the schema table of docs/warehouse.md (`schema_markdown`; tests/serving checks the doc agrees),
+- the columns the snapshot reader selects and the shapes it restores arrays to.
+
+Adding a result table or column is a change here (and in the code that writes it); the DDL, the
+snapshot copy and the documentation follow.
+
+Shapes name their axes with the symbols n (series), p (the window's lag order, column `lags`),
+H (the row's `horizon`) and H+1; arrays are stored flattened in C order (docs/warehouse.md).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+__all__ = [
+    "RESULT_TABLES",
+    "SCHEMA",
+    "SCHEMA_VERSION",
+    "SNAPSHOT_TABLES",
+    "UNIVERSE_TABLES",
+    "Column",
+    "Table",
+    "columns",
+    "ddl",
+    "order_by",
+    "schema_markdown",
+    "shape_of",
+    "table",
+]
+
+SCHEMA_VERSION = 1
+
+#: Kinds of table: how rows are replaced (see pipeline/warehouse.py).
+KINDS = {
+    "meta": "bookkeeping of the file itself",
+    "ingest": "written by ingest; observations are never deleted",
+    "run": "one row per run, updated as it finishes",
+    "universe": "replaced whole by each run that changes the universe",
+    "window": "one row set per (universe, window_end), replaced when that window is refitted",
+}
+
+
+@dataclass(frozen=True)
+class Column:
+    """One column: name, SQL type, NOT NULL, the arlib shape of an array (axis symbols) and a note."""
+
+    name: str
+    type: str
+    not_null: bool = False
+    shape: tuple[str, ...] = ()
+    axes: tuple[str, ...] = ()
+    note: str = ""
+
+    def sql(self) -> str:
+        return f"{self.name} {self.type}" + (" NOT NULL" if self.not_null else "")
+
+    def doc(self) -> str:
+        """How the column reads in the documentation's table."""
+        text = self.name
+        if self.shape:
+            text += f" `{self.type}` ({', '.join(self.shape)})"
+            if self.axes:
+                text += f" [{', '.join(self.axes)}]"
+        if self.note:
+            text += f" {self.note}"
+        return text
+
+
+@dataclass(frozen=True)
+class Table:
+    """One table: its grain ("one row per"), kind, whether the snapshot serves it, and columns."""
+
+    name: str
+    grain: str
+    kind: str
+    columns: tuple[Column, ...]
+    served: bool = True
+    note: str = ""
+    column_names: tuple[str, ...] = field(init=False)
+
+    def __post_init__(self) -> None:
+        if self.kind not in KINDS:
+            msg = f"table {self.name!r}: kind {self.kind!r} is none of {sorted(KINDS)}"
+            raise ValueError(msg)
+        object.__setattr__(self, "column_names", tuple(c.name for c in self.columns))
+
+    def column(self, name: str) -> Column:
+        for c in self.columns:
+            if c.name == name:
+                return c
+        msg = f"table {self.name!r} has no column {name!r}; it has {list(self.column_names)}"
+        raise KeyError(msg)
+
+
+def _c(name: str, type_: str, *, nn: bool = False, note: str = "") -> Column:
+    return Column(name, type_, nn, note=note)
+
+
+def _arr(name: str, shape: tuple[str, ...], *, nn: bool = False, axes: tuple[str, ...] = (), note: str = "") -> Column:
+    return Column(name, "DOUBLE[]", nn, shape, axes, note)
+
+
+def _window_key() -> tuple[Column, ...]:
+    return (
+        _c("run_id", "VARCHAR", nn=True),
+        _c("universe", "VARCHAR", nn=True),
+        _c("window_end", "DATE", nn=True),
+    )
+
+
+SCHEMA: tuple[Table, ...] = (
+    Table("schema_version", "schema version applied", "meta", (
+        _c("version", "INTEGER", nn=True), _c("applied", "TIMESTAMP", nn=True),
+    )),
+    Table("observations", "series × date", "ingest", (
+        _c("series", "VARCHAR", nn=True), _c("date", "DATE", nn=True), _c("value", "DOUBLE", nn=True),
+        _c("source", "VARCHAR", nn=True),
+        _c("batch_id", "VARCHAR", nn=True, note="(the batch that last wrote the value)"),
+    ), served=False),
+    Table("ingest_batches", "ingest of one source", "ingest", (
+        _c("batch_id", "VARCHAR", nn=True), _c("source", "VARCHAR", nn=True),
+        _c("started", "TIMESTAMP", nn=True), _c("finished", "TIMESTAMP"),
+        _c("status", "VARCHAR", nn=True, note="(`running`/`succeeded`/`failed`)"),
+        _c("rows_read", "BIGINT"), _c("rows_new", "BIGINT"), _c("rows_revised", "BIGINT"),
+        _c("message", "VARCHAR"),
+    )),
+    Table("revisions", "changed historical value", "ingest", (
+        _c("batch_id", "VARCHAR", nn=True), _c("series", "VARCHAR", nn=True), _c("date", "DATE", nn=True),
+        _c("old_value", "DOUBLE", nn=True), _c("new_value", "DOUBLE", nn=True),
+    ), served=False),
+    Table("runs", "universe × run", "run", (
+        _c("run_id", "VARCHAR", nn=True), _c("universe", "VARCHAR", nn=True),
+        _c("status", "VARCHAR", nn=True, note="(`running`/`succeeded`/`failed`)"),
+        _c("started", "TIMESTAMP", nn=True), _c("finished", "TIMESTAMP"),
+        _c("config_hash", "VARCHAR", nn=True), _c("data_fingerprint", "VARCHAR"),
+        _c("code_version", "VARCHAR"), _c("windows_fitted", "INTEGER"), _c("windows_skipped", "INTEGER"),
+        _c("windows_failed", "INTEGER"),
+        _c("message", "VARCHAR", note="(what the run did, e.g. `3 new window(s)`, `nothing changed`, or the error)"),
+    )),
+    Table("universes", "universe", "universe", (
+        _c("universe", "VARCHAR", nn=True), _c("config_hash", "VARCHAR", nn=True),
+        _c("config_json", "VARCHAR", nn=True, note="(every fitting setting)"),
+        _c("horizon", "INTEGER", nn=True), _c("granger_level", "DOUBLE", nn=True),
+        _c("identification", "VARCHAR", nn=True),
+        _c("run_id", "VARCHAR", nn=True, note="(the run that last wrote the universe)"),
+    )),
+    Table("universe_series", "universe × series", "universe", (
+        _c("universe", "VARCHAR", nn=True),
+        _c("position", "INTEGER", nn=True, note="(0-based column order)"),
+        _c("series", "VARCHAR", nn=True), _c("transform", "VARCHAR", nn=True),
+    )),
+    Table("prepared", "universe × date × series", "universe", (
+        _c("universe", "VARCHAR", nn=True), _c("date", "DATE", nn=True), _c("series", "VARCHAR", nn=True),
+        _c("value", "DOUBLE", note="(NULL on a gap row)"),
+    ), note="the transformed, aligned data the fits used"),
+    Table("dropped_dates", "universe × date", "universe", (
+        _c("universe", "VARCHAR", nn=True), _c("date", "DATE", nn=True),
+        _c("reason", "VARCHAR", nn=True, note=(
+            "(removed dates and gap rows, e.g. `no series observed (holiday …)`, "
+            "`removed: X: before its first observation`, "
+            "`gap row, kept as NaN: X: missing longer than max_fill_gap=3`)")),
+    )),
+    Table("window_fits", "universe × window_end", "window", (
+        *_window_key(), _c("window_start", "DATE", nn=True), _c("nobs", "INTEGER"), _c("lags", "INTEGER"),
+        _c("spectral_radius", "DOUBLE"), _c("stable", "BOOLEAN"), _c("aic", "DOUBLE"), _c("bic", "DOUBLE"),
+        _c("hq", "DOUBLE"), _c("fpe", "DOUBLE"), _c("condition_number", "DOUBLE"),
+        _c("portmanteau_p", "DOUBLE"), _c("skip_reason", "VARCHAR", note="(NULL when fitted)"),
+    )),
+    Table("connectedness", "universe × window_end", "window", (
+        *_window_key(), _c("total", "DOUBLE", nn=True, note="(percent)"),
+    )),
+    Table("directional", "universe × window_end × series", "window", (
+        *_window_key(), _c("series", "VARCHAR", nn=True), _c("to_others", "DOUBLE", nn=True),
+        _c("from_others", "DOUBLE", nn=True), _c("net", "DOUBLE", nn=True, note="(percent)"),
+    )),
+    Table("pairwise", "universe × window_end × source × target", "window", (
+        *_window_key(), _c("source", "VARCHAR", nn=True), _c("target", "VARCHAR", nn=True),
+        _c("share", "DOUBLE", nn=True, note=(
+            "— percent of `target`'s H-step forecast-error variance due to shocks in `source` "
+            "(arlib table[target, source]); the diagonal (own share) included")),
+    )),
+    Table("granger", "universe × window_end × caused × causing", "window", (
+        *_window_key(), _c("caused", "VARCHAR", nn=True), _c("causing", "VARCHAR", nn=True),
+        _c("f_stat", "DOUBLE"),
+        _c("p_value", "DOUBLE", note=(
+            "(H0: `causing` does not Granger-cause `caused`; F form, Lütkepohl 2005 Sec. 3.6.1); "
+            "caused ≠ causing")),
+    )),
+    Table("window_params", "universe × window_end", "window", (
+        *_window_key(), _c("lags", "INTEGER", nn=True),
+        _arr("coefs", ("p", "n", "n"), nn=True, axes=("lag", "equation", "regressor"),
+             note="with p = this window's `lags`"),
+        _arr("intercept", ("n",), note="or NULL (trend `n`)"),
+        _arr("trend_coef", ("n",), note="or NULL (only trend `ct`)"),
+        _arr("sigma_u", ("n", "n"), nn=True, note="(divided by T_eff − k)"),
+    )),
+    Table("responses", "universe × window_end × identification", "window", (
+        *_window_key(), _c("identification", "VARCHAR", nn=True), _c("horizon", "INTEGER", nn=True),
+        _arr("response", ("H+1", "n", "n"), nn=True, axes=("h", "response", "shock")),
+        _arr("lower", ("H+1", "n", "n"), note="or NULL"),
+        _arr("upper", ("H+1", "n", "n"), note="or NULL"),
+        _c("coverage", "DOUBLE", note="or NULL"),
+    )),
+    Table("decompositions", "universe × window_end × method", "window", (
+        *_window_key(), _c("method", "VARCHAR", nn=True), _c("horizon", "INTEGER", nn=True),
+        _arr("share", ("H", "n", "n"), nn=True, axes=("step", "variable", "shock")),
+    )),
+)
+
+_BY_NAME = {t.name: t for t in SCHEMA}
+
+#: Per-window result tables: one row set per (universe, window_end), replaced on refit.
+RESULT_TABLES: tuple[str, ...] = tuple(t.name for t in SCHEMA if t.kind == "window")
+#: Per-universe tables replaced whole by each successful run that changes anything.
+UNIVERSE_TABLES: tuple[str, ...] = tuple(t.name for t in SCHEMA if t.kind == "universe")
+#: What the serving snapshot holds (observations and revisions stay in the working warehouse).
+SNAPSHOT_TABLES: tuple[str, ...] = tuple(t.name for t in SCHEMA if t.served)
+
+
+def table(name: str) -> Table:
+    """The declaration of table `name` (KeyError naming the known tables otherwise)."""
+    try:
+        return _BY_NAME[name]
+    except KeyError:
+        msg = f"no table {name!r} in the schema; tables: {sorted(_BY_NAME)}"
+        raise KeyError(msg) from None
+
+
+def columns(name: str) -> tuple[str, ...]:
+    """Column names of table `name`, in stored order."""
+    return table(name).column_names
+
+
+def ddl(name: str) -> str:
+    """The column definitions of table `name` for ``CREATE TABLE name (…)``."""
+    return ", ".join(c.sql() for c in table(name).columns)
+
+
+def order_by(name: str) -> tuple[str, ...]:
+    """The columns a copy of `name` is sorted by (universe, window_end, date, started as present)."""
+    cols = set(columns(name))
+    return tuple(c for c in ("universe", "window_end", "date", "started") if c in cols)
+
+
+def shape_of(table_name: str, column: str, *, n: int, p: int | None = None, h: int | None = None) -> tuple[int, ...]:
+    """The numeric shape of an array column, given n, and p (window lags) or H (row horizon)."""
+    sizes = {"n": n, "p": p, "H": h, "H+1": None if h is None else h + 1}
+    out = []
+    for sym in table(table_name).column(column).shape:
+        size = sizes[sym]
+        if size is None:
+            msg = f"{table_name}.{column}: shape symbol {sym!r} needs its value"
+            raise ValueError(msg)
+        out.append(int(size))
+    return tuple(out)
+
+
+def flat_size(shape: tuple[int, ...]) -> int:
+    return math.prod(shape)
+
+
+def schema_markdown() -> str:
+    """The documentation's table of tables, generated from `SCHEMA` (see docs/warehouse.md)."""
+    lines = [
+        "| table | one row per | served | columns |",
+        "|---|---|---|---|",
+    ]
+    for t in SCHEMA:
+        cols = ", ".join(c.doc() for c in t.columns)
+        if t.note:
+            cols += f" — {t.note}"
+        served = "yes" if t.served else "no (warehouse only)"
+        lines.append(f"| `{t.name}` | {t.grain} | {served} | {cols} |")
+    return "\n".join(lines) + "\n"
