@@ -2,7 +2,8 @@
 
 The dashboard opens only the serving snapshot, read-only. DuckDB lets no other process open a file
 that one process holds read-write, so readers never touch the working warehouse: after a run the
-pipeline writes every table of ``SNAPSHOT_TABLES`` into ``.<snapshot>.<id>.tmp`` in the same folder
+pipeline writes every table the schema declares served (``SNAPSHOT_TABLES``, from
+`serving._schema`) and the long views (`serving._views`) into ``.<snapshot>.<id>.tmp`` in the same folder
 (ATTACH, CREATE TABLE … AS SELECT, DETACH — DETACH checkpoints, so the file is complete and has no
 WAL), fsyncs it, and ``os.replace``s it over the served file. A nightly publish starts the new file
 from a byte copy of the served one and rewrites only the windows that changed (see
@@ -29,7 +30,8 @@ from pathlib import Path
 import duckdb
 
 from pipeline.errors import PublishError
-from pipeline.warehouse import RESULT_TABLES, SCHEMA_VERSION, SNAPSHOT_TABLES, TABLES
+from serving._schema import RESULT_TABLES, SCHEMA_VERSION, SNAPSHOT_TABLES, order_by
+from serving._views import create_views
 
 __all__ = ["PublishResult", "open_snapshot", "publish_snapshot", "stale_universes"]
 
@@ -48,8 +50,7 @@ class PublishResult:
 
 
 def _order_by(table: str) -> str:
-    cols = TABLES[table]
-    keys = [c for c in ("universe", "window_end", "date", "started") if f"{c} " in cols]
+    keys = order_by(table)  # from the schema declarations (serving._schema)
     return f" ORDER BY {', '.join(keys)}" if keys else ""
 
 
@@ -94,6 +95,7 @@ def publish_snapshot(con: duckdb.DuckDBPyConnection, snapshot: str | Path, *, in
             else:
                 for table in SNAPSHOT_TABLES:
                     con.execute(f"CREATE TABLE {alias}.{table} AS SELECT * FROM main.{table}{_order_by(table)}")
+            create_views(con, catalog=alias)  # the long views (serving._views), bound inside the file
             for table in SNAPSHOT_TABLES:
                 rows += con.execute(f"SELECT count(*) FROM {alias}.{table}").fetchall()[0][0]
         finally:

@@ -1,6 +1,7 @@
 """The DuckDB warehouse: schema, connections, observation upserts and one-transaction result writes.
 
-The schema contract is docs/warehouse.md; the DDL below is its single definition. Tables carry no
+The schema is declared once, as data, in `serving._schema` (docs/warehouse.md's table is generated
+from the same declarations); the DDL here is generated from it. Tables carry no
 primary-key index (bulk inserts stay fast); uniqueness is kept by construction:
 
 - observations: :func:`upsert_observations` updates changed values in place (logging each change
@@ -29,6 +30,9 @@ import polars as pl
 import pyarrow as pa
 
 from pipeline.errors import WarehouseError, from_duckdb
+from serving import _schema as schema
+from serving._schema import RESULT_TABLES, SCHEMA_VERSION, SNAPSHOT_TABLES, UNIVERSE_TABLES
+from serving._views import create_views
 
 if TYPE_CHECKING:
     from pipeline.config import UniverseConfig
@@ -55,68 +59,8 @@ __all__ = [
     "upsert_observations",
 ]
 
-SCHEMA_VERSION = 1
-
-#: table → column definitions. Order of columns is the order of inserts.
-TABLES: dict[str, str] = {
-    "schema_version": "version INTEGER NOT NULL, applied TIMESTAMP NOT NULL",
-    "observations": "series VARCHAR NOT NULL, date DATE NOT NULL, value DOUBLE NOT NULL, "
-    "source VARCHAR NOT NULL, batch_id VARCHAR NOT NULL",
-    "ingest_batches": "batch_id VARCHAR NOT NULL, source VARCHAR NOT NULL, started TIMESTAMP NOT NULL, "
-    "finished TIMESTAMP, status VARCHAR NOT NULL, rows_read BIGINT, rows_new BIGINT, "
-    "rows_revised BIGINT, message VARCHAR",
-    "revisions": "batch_id VARCHAR NOT NULL, series VARCHAR NOT NULL, date DATE NOT NULL, "
-    "old_value DOUBLE NOT NULL, new_value DOUBLE NOT NULL",
-    "runs": "run_id VARCHAR NOT NULL, universe VARCHAR NOT NULL, status VARCHAR NOT NULL, "
-    "started TIMESTAMP NOT NULL, finished TIMESTAMP, config_hash VARCHAR NOT NULL, "
-    "data_fingerprint VARCHAR, code_version VARCHAR, windows_fitted INTEGER, windows_skipped INTEGER, "
-    "windows_failed INTEGER, message VARCHAR",
-    "universes": "universe VARCHAR NOT NULL, config_hash VARCHAR NOT NULL, config_json VARCHAR NOT NULL, "
-    "horizon INTEGER NOT NULL, granger_level DOUBLE NOT NULL, identification VARCHAR NOT NULL, "
-    "run_id VARCHAR NOT NULL",
-    "universe_series": "universe VARCHAR NOT NULL, position INTEGER NOT NULL, series VARCHAR NOT NULL, "
-    "transform VARCHAR NOT NULL",
-    "prepared": "universe VARCHAR NOT NULL, date DATE NOT NULL, series VARCHAR NOT NULL, value DOUBLE",
-    "dropped_dates": "universe VARCHAR NOT NULL, date DATE NOT NULL, reason VARCHAR NOT NULL",
-    "window_fits": "run_id VARCHAR NOT NULL, universe VARCHAR NOT NULL, window_end DATE NOT NULL, "
-    "window_start DATE NOT NULL, nobs INTEGER, lags INTEGER, spectral_radius DOUBLE, stable BOOLEAN, "
-    "aic DOUBLE, bic DOUBLE, hq DOUBLE, fpe DOUBLE, condition_number DOUBLE, portmanteau_p DOUBLE, "
-    "skip_reason VARCHAR",
-    "connectedness": "run_id VARCHAR NOT NULL, universe VARCHAR NOT NULL, window_end DATE NOT NULL, "
-    "total DOUBLE NOT NULL",
-    "directional": "run_id VARCHAR NOT NULL, universe VARCHAR NOT NULL, window_end DATE NOT NULL, "
-    "series VARCHAR NOT NULL, to_others DOUBLE NOT NULL, from_others DOUBLE NOT NULL, net DOUBLE NOT NULL",
-    "pairwise": "run_id VARCHAR NOT NULL, universe VARCHAR NOT NULL, window_end DATE NOT NULL, "
-    "source VARCHAR NOT NULL, target VARCHAR NOT NULL, share DOUBLE NOT NULL",
-    "granger": "run_id VARCHAR NOT NULL, universe VARCHAR NOT NULL, window_end DATE NOT NULL, "
-    "caused VARCHAR NOT NULL, causing VARCHAR NOT NULL, f_stat DOUBLE, p_value DOUBLE",
-    "window_params": "run_id VARCHAR NOT NULL, universe VARCHAR NOT NULL, window_end DATE NOT NULL, "
-    "lags INTEGER NOT NULL, coefs DOUBLE[] NOT NULL, intercept DOUBLE[], trend_coef DOUBLE[], "
-    "sigma_u DOUBLE[] NOT NULL",
-    "responses": "run_id VARCHAR NOT NULL, universe VARCHAR NOT NULL, window_end DATE NOT NULL, "
-    "identification VARCHAR NOT NULL, horizon INTEGER NOT NULL, response DOUBLE[] NOT NULL, "
-    "lower DOUBLE[], upper DOUBLE[], coverage DOUBLE",
-    "decompositions": "run_id VARCHAR NOT NULL, universe VARCHAR NOT NULL, window_end DATE NOT NULL, "
-    "method VARCHAR NOT NULL, horizon INTEGER NOT NULL, share DOUBLE[] NOT NULL",
-}
-
-#: Per-window result tables: one row set per (universe, window_end), replaced on refit.
-RESULT_TABLES = (
-    "window_fits",
-    "connectedness",
-    "directional",
-    "pairwise",
-    "granger",
-    "window_params",
-    "responses",
-    "decompositions",
-)
-
-#: Per-universe tables replaced whole by each successful run that changes anything.
-UNIVERSE_TABLES = ("universes", "universe_series", "prepared", "dropped_dates")
-
-#: What the serving snapshot holds (observations and revisions stay in the working warehouse).
-SNAPSHOT_TABLES = ("schema_version", "ingest_batches", "runs", *UNIVERSE_TABLES, *RESULT_TABLES)
+#: table → column definitions, generated from the declarations. Order of columns is the order of inserts.
+TABLES: dict[str, str] = {t.name: schema.ddl(t.name) for t in schema.SCHEMA}
 
 
 def now() -> datetime:
@@ -150,11 +94,12 @@ def connect(path: str | Path, *, read_only: bool = False) -> duckdb.DuckDBPyConn
 
 
 def ensure_schema(con: duckdb.DuckDBPyConnection, *, path: str | Path = "?") -> None:
-    """Create every table if missing (idempotent) and record the schema version once."""
+    """Create every table if missing (idempotent), (re)create the long views, record the version once."""
     try:
         con.execute("BEGIN TRANSACTION")
         for name, columns in TABLES.items():
             con.execute(f"CREATE TABLE IF NOT EXISTS {name} ({columns})")
+        create_views(con)
         row = con.execute("SELECT max(version) FROM schema_version").fetchone()
         found = row[0] if row else None
         if found is None:

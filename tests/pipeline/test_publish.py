@@ -12,6 +12,7 @@ import pytest
 from pipeline import warehouse as wh
 from pipeline.errors import PublishError
 from pipeline.publish import open_snapshot, publish_snapshot
+from serving import VIEWS
 from tests.pipeline.helpers import minimal_config
 
 
@@ -39,8 +40,10 @@ def test_publish_swaps_atomically_and_readers_see_new_data(tmp_path: Path) -> No
 
     old_reader = duckdb.connect(str(cfg.warehouse.snapshot), read_only=True)
     assert old_reader.execute("SELECT total FROM connectedness").fetchall() == [(10.0,)]
-    tables = {r[0] for r in old_reader.execute("SELECT table_name FROM information_schema.tables").fetchall()}
+    tables = {r[0] for r in old_reader.execute("SELECT table_name FROM information_schema.tables WHERE table_type = 'BASE TABLE'").fetchall()}
     assert tables == set(wh.SNAPSHOT_TABLES)  # observations and revisions stay in the warehouse
+    views = {r[0] for r in old_reader.execute("SELECT table_name FROM information_schema.tables WHERE table_type = 'VIEW'").fetchall()}
+    assert views == set(VIEWS)  # the long views travel with the snapshot, bound inside the file
 
     _write_total(con, u, 20.0)
     second = publish_snapshot(con, cfg.warehouse.snapshot)
