@@ -20,32 +20,16 @@ import polars as pl
 
 from pipeline.errors import ExportError
 from pipeline.export._derive import derive_decompositions, derive_responses
-from pipeline.export._snapshot import Snapshot, UniverseInfo
+from pipeline.export._snapshot import Snapshot, UniverseInfo, frame
+from serving import (
+    DecompositionSet,
+    ResponseSet,
+    ServingError,
+    stored_decompositions,
+    stored_responses,
+)
 
 __all__ = ["DecompositionSet", "ReportData", "ResponseSet", "gather"]
-
-
-@dataclass(frozen=True)
-class ResponseSet:
-    """Impulse responses of one window under one identification, with optional bands."""
-
-    identification: str
-    horizon: int
-    response: np.ndarray  # (H+1, n, n) [h, response, shock]
-    lower: np.ndarray | None  # same shape, or None when no bands
-    upper: np.ndarray | None
-    coverage: float | None
-    origin: str  # where the numbers came from, said in the report
-
-
-@dataclass(frozen=True)
-class DecompositionSet:
-    """A forecast-error variance decomposition of one window under one method."""
-
-    method: str
-    horizon: int
-    share: np.ndarray  # (H, n, n) [step, variable, shock], rows sum to one
-    origin: str
 
 
 @dataclass(frozen=True)
@@ -91,21 +75,27 @@ def _square(df: pl.DataFrame, row: str, col: str, value: str, names: tuple[str, 
     return out
 
 
-def _as_array(values: list[float] | None, shape: tuple[int, ...], what: str) -> np.ndarray | None:
-    if values is None:
-        return None
-    arr = np.asarray(values, dtype=np.float64)
-    if arr.size != int(np.prod(shape)):
-        msg = (f"{what} holds {arr.size} numbers but shape {shape} needs {int(np.prod(shape))}; "
-               "the snapshot does not follow docs/warehouse.md")
-        raise ExportError(msg)
-    return arr.reshape(shape)  # C order, as stored
-
-
 def gather(snap: Snapshot, universe: str, as_of: dt.date | None = None) -> ReportData:
-    """Read everything the report of `universe` shows, as of `as_of` (latest when None)."""
-    info = snap.universe(universe)
-    n = info.n
+    """Read everything the report of `universe` shows, as of `as_of` (latest when None).
+
+    The read side's errors (a malformed stored array, …) become `ExportError`, naming the file.
+    """
+    try:
+        return _gather(snap, universe, as_of)
+    except ServingError as exc:
+        msg = f"serving snapshot {snap.path}: {exc}"
+        raise ExportError(msg) from None
+
+
+def _gather(snap: Snapshot, universe: str, as_of: dt.date | None) -> ReportData:
+    known = snap.universes()
+    if universe not in known:
+        msg = (
+            f"universe {universe!r} is not in serving snapshot {snap.path}; "
+            f"known universes: {', '.join(map(repr, sorted(known))) or 'none'}"
+        )
+        raise ExportError(msg)
+    info: UniverseInfo = known[universe]
     latest = snap.latest_window(universe, as_of)
     if latest is None:
         when = f" on or before {as_of}" if as_of else ""
@@ -121,11 +111,11 @@ def gather(snap: Snapshot, universe: str, as_of: dt.date | None = None) -> Repor
         notes.append(f"The latest window ({latest}) was not fitted; tables show the latest "
                      f"fitted window, {fitted}.")
 
-    conn = snap.connectedness(universe, report_date)
-    direc = snap.directional(universe, report_date)
-    pair = snap.pairwise(universe, report_date)
-    gr = snap.granger(universe, report_date)
-    fits = snap.window_fits(universe, report_date)
+    conn = frame(snap.history("connectedness", universe, report_date))
+    direc = frame(snap.history("directional", universe, report_date))
+    pair = frame(snap.history("pairwise", universe, report_date))
+    gr = frame(snap.history("granger", universe, report_date))
+    fits = frame(snap.history("window_fits", universe, report_date))
 
     table = to_o = from_o = net = gf = gp = None
     total = None
@@ -136,55 +126,29 @@ def gather(snap: Snapshot, universe: str, as_of: dt.date | None = None) -> Repor
         c_row = conn.filter(pl.col("window_end") == fitted)
         total = float(c_row["total"][0])
         run_id = c_row["run_id"][0]
-        table = _square(pair.filter(pl.col("window_end") == fitted), "target", "source", "share",
-                        info.series)
-        d = direc.filter(pl.col("window_end") == fitted)
-        pos = {s: i for i, s in enumerate(info.series)}
-        to_o, from_o, net = (np.full(n, np.nan) for _ in range(3))
-        for s, t, f, nt in d.select("series", "to_others", "from_others", "net").iter_rows():
-            if s in pos:
-                to_o[pos[s]], from_o[pos[s]], net[pos[s]] = t, f, nt
-        g = gr.filter(pl.col("window_end") == fitted)
-        gf = _square(g, "caused", "causing", "f_stat", info.series)
-        gp = _square(g, "caused", "causing", "p_value", info.series)
-
-        for r in snap.responses(universe, fitted).iter_rows(named=True):
-            h = int(r["horizon"])
-            shape = (h + 1, n, n)
-            responses.append(ResponseSet(
-                identification=str(r["identification"]), horizon=h,
-                response=_as_array(r["response"], shape, "responses.response"),
-                lower=_as_array(r["lower"], shape, "responses.lower"),
-                upper=_as_array(r["upper"], shape, "responses.upper"),
-                coverage=None if r["coverage"] is None else float(r["coverage"]),
-                origin="stored by the run",
-            ))
-        for r in snap.decompositions(universe, fitted).iter_rows(named=True):
-            h = int(r["horizon"])
-            decomps.append(DecompositionSet(
-                method=str(r["method"]), horizon=h,
-                share=_as_array(r["share"], (h, n, n), "decompositions.share"),
-                origin="stored by the run",
-            ))
+        # the same reader calls the dashboard makes: the same numbers on screen and in the report
+        table = snap.pairwise_at(info, fitted)
+        to_o, from_o, net = snap.spillover_sums(info, fitted)
+        gp = snap.granger_at(info, fitted)
+        gf = _square(gr.filter(pl.col("window_end") == fitted), "caused", "causing", "f_stat",
+                     info.series)
+        responses = stored_responses(snap, info, fitted)
+        decomps = stored_decompositions(snap, info, fitted)
         if not responses or not decomps:
-            params = snap.window_params(universe, fitted)
-            fit_row = fits.filter(pl.col("window_end") == fitted)
-            if params.height == 0:
+            try:
+                snap.fit(info, fitted)
+            except ServingError:
                 notes.append("Impulse responses and decompositions were not stored for this "
                              "window and its parameters are not in the snapshot.")
             else:
-                p = params.row(0, named=True)
-                start = fit_row["window_start"][0] if fit_row.height else None
-                rows = (snap.prepared_matrix(universe, info, start, fitted)
-                        if start is not None else None)
                 if not responses:
-                    responses.append(derive_responses(info, p, rows, notes))
+                    responses = derive_responses(snap, info, fitted, notes)
                 if not decomps:
-                    decomps.extend(derive_decompositions(info, p, notes))
+                    decomps = derive_decompositions(snap, info, fitted, notes)
 
     if run_id is None:  # nothing fitted: the universe's last run still explains why
         run_id = info.run_id
-    runs = snap.runs(universe)
+    runs = frame(snap.runs(universe))
     run_rows = runs.filter(pl.col("run_id") == run_id) if run_id is not None else runs.head(0)
     before = None
     if run_rows.height:
@@ -194,5 +158,5 @@ def gather(snap: Snapshot, universe: str, as_of: dt.date | None = None) -> Repor
         directional=direc, pairwise=pair, granger=gr, fits=fits, table=table, to_others=to_o,
         from_others=from_o, net=net, total=total, granger_f=gf, granger_p=gp,
         responses=responses, decompositions=decomps, runs=runs,
-        batches=snap.source_batches(universe, report_date, before), run_id=run_id, notes=notes,
+        batches=frame(snap.source_batches(universe, report_date, before)), run_id=run_id, notes=notes,
     )
