@@ -18,37 +18,13 @@ import duckdb
 import numpy as np
 
 import arlib
+from serving import SNAPSHOT_TABLES, ddl
 
-# Schema as docs/warehouse.md states it (the result tables the serving snapshot carries).
-DDL = """
-CREATE TABLE ingest_batches (batch_id VARCHAR, source VARCHAR, started TIMESTAMP, finished TIMESTAMP,
-    status VARCHAR, rows_read BIGINT, rows_new BIGINT, rows_revised BIGINT, message VARCHAR);
-CREATE TABLE observations (series VARCHAR, date DATE, value DOUBLE, source VARCHAR, batch_id VARCHAR);
-CREATE TABLE runs (run_id VARCHAR, universe VARCHAR, status VARCHAR, started TIMESTAMP,
-    finished TIMESTAMP, config_hash VARCHAR, data_fingerprint VARCHAR, code_version VARCHAR,
-    windows_fitted INTEGER, windows_skipped INTEGER, windows_failed INTEGER, message VARCHAR);
-CREATE TABLE universes (universe VARCHAR, config_hash VARCHAR, config_json VARCHAR, horizon INTEGER,
-    granger_level DOUBLE, identification VARCHAR, run_id VARCHAR);
-CREATE TABLE universe_series (universe VARCHAR, position INTEGER, series VARCHAR, transform VARCHAR);
-CREATE TABLE prepared (universe VARCHAR, date DATE, series VARCHAR, value DOUBLE);
-CREATE TABLE dropped_dates (universe VARCHAR, date DATE, reason VARCHAR);
-CREATE TABLE window_fits (run_id VARCHAR, universe VARCHAR, window_end DATE, window_start DATE,
-    nobs INTEGER, lags INTEGER, spectral_radius DOUBLE, stable BOOLEAN, aic DOUBLE, bic DOUBLE,
-    hq DOUBLE, fpe DOUBLE, condition_number DOUBLE, portmanteau_p DOUBLE, skip_reason VARCHAR);
-CREATE TABLE connectedness (run_id VARCHAR, universe VARCHAR, window_end DATE, total DOUBLE);
-CREATE TABLE directional (run_id VARCHAR, universe VARCHAR, window_end DATE, series VARCHAR,
-    to_others DOUBLE, from_others DOUBLE, net DOUBLE);
-CREATE TABLE pairwise (run_id VARCHAR, universe VARCHAR, window_end DATE, source VARCHAR,
-    target VARCHAR, share DOUBLE);
-CREATE TABLE granger (run_id VARCHAR, universe VARCHAR, window_end DATE, caused VARCHAR,
-    causing VARCHAR, f_stat DOUBLE, p_value DOUBLE);
-CREATE TABLE window_params (run_id VARCHAR, universe VARCHAR, window_end DATE, lags INTEGER,
-    coefs DOUBLE[], intercept DOUBLE[], sigma_u DOUBLE[]);
-CREATE TABLE responses (run_id VARCHAR, universe VARCHAR, window_end DATE, identification VARCHAR,
-    horizon INTEGER, response DOUBLE[], lower DOUBLE[], upper DOUBLE[], coverage DOUBLE);
-CREATE TABLE decompositions (run_id VARCHAR, universe VARCHAR, window_end DATE, method VARCHAR,
-    horizon INTEGER, share DOUBLE[]);
-"""
+# The served tables as the schema declares them (serving._schema, the one declaration), plus
+# `observations`, which a hand-built snapshot may carry (the export then names the exact batches).
+DDL = "\n".join(
+    f"CREATE TABLE {t} ({ddl(t)});" for t in (*SNAPSHOT_TABLES, "observations")
+)
 
 # An invented VAR(1) for three invented series (not market data).
 A = np.array([[0.45, 0.20, 0.00], [0.10, 0.30, 0.15], [0.00, 0.25, 0.40]])
@@ -124,7 +100,8 @@ def add_universe(con: duckdb.DuckDBPyConnection, name: str, *, n: int = 3, T: in
                     g = arlib.granger_test(fit, i, j)
                     con.execute("INSERT INTO granger VALUES (?, ?, ?, ?, ?, ?, ?)",
                                 [run_id, name, we, s, src, float(g.f_stat), float(g.p_value)])
-        con.execute("INSERT INTO window_params VALUES (?, ?, ?, ?, ?, ?, ?)",
+        con.execute("INSERT INTO window_params (run_id, universe, window_end, lags, coefs, intercept, "
+                    "sigma_u) VALUES (?, ?, ?, ?, ?, ?, ?)",
                     [run_id, name, we, 1, fit.coefs.ravel().tolist(), fit.intercept.tolist(),
                      fit.sigma_u.ravel().tolist()])
         if store_arrays:
