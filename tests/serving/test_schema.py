@@ -111,7 +111,7 @@ def test_public_surface_is_pinned() -> None:
         "SCHEMA_VERSION", "SNAPSHOT_TABLES", "STORED", "ServingError", "Snapshot",
         "SnapshotMissingError", "SnapshotReader", "StoredArrayError", "Table", "UNIVERSE_TABLES",
         "UnknownIdentificationError", "Universe", "VIEWS", "WindowError", "band_settings", "bands",
-        "create_views", "ddl", "decomposition", "identification_of", "normalize_identification",
+        "columns", "create_views", "ddl", "decomposition", "identification_of", "normalize_identification",
         "order_by", "parse_date", "process", "refit", "responses", "schema_markdown",
         "stored_decompositions", "stored_responses", "table", "update_doc", "write_doc",
     }
