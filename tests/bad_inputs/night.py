@@ -139,7 +139,8 @@ def read_tables(path: Path, tables: Iterable[str] | None = None) -> dict[str, pl
     try:
         con.execute(f"ATTACH '{str(path).replace(chr(39), chr(39) * 2)}' AS w (READ_ONLY)")
         names = [r[0] for r in con.execute(
-            "SELECT table_name FROM information_schema.tables WHERE table_catalog = 'w' ORDER BY 1"
+            "SELECT table_name FROM information_schema.tables WHERE table_catalog = 'w' "
+            "AND table_type = 'BASE TABLE' ORDER BY 1"
         ).fetchall()]  # fmt: skip
         wanted = names if tables is None else [t for t in tables if t in names]
         out = {}

@@ -216,3 +216,29 @@ def test_queries_keep_answering_while_snapshots_are_published(tmp_path: Path) ->
     snap.reader.close()
     leftovers = [p for p in os.listdir(tmp_path) if p.endswith(".writing")]
     assert not leftovers
+
+
+def test_view_helpers_delegate_to_the_one_adapter(snap: Snapshot, universe_name: str, bounds: tuple[dt.date, dt.date]) -> None:
+    """`response_paths` / `shares_at` / `response_band` are serving's adapter: arlib on the stored
+    model, bands with the universe's configured draws (not a fixed 199) after the refit check."""
+    import arlib
+    from dashboard import data
+
+    u = snap.universe(universe_name)
+    end = snap.fitted_end(DateWindow(universe_name, *bounds))
+    f = snap.fit(u, end)
+    proc = arlib.var_process(f.coefs, f.sigma_u, f.intercept, names=list(u.series))
+    order = list(reversed(u.series))
+    resp, lower, upper, source = data.response_paths(
+        snap, u, end, identification="cholesky", order=order, horizon=u.horizon + 3, cumulative=False
+    )
+    np.testing.assert_allclose(resp, arlib.impulse_responses(proc, u.horizon + 3, shocks="cholesky", order=order), rtol=1e-12)
+    assert lower is None and upper is None and source == data.DERIVED
+    share, source = data.shares_at(snap, u, end, "generalized", u.series, 3)
+    np.testing.assert_allclose(share, 100 * arlib.variance_decomposition(proc, 3, method="generalized")[2], rtol=1e-10)
+    settings = data.band_settings(u)
+    low, high, note = data.response_band(
+        snap, u, end, identification="generalized", order=u.series, horizon=2, cumulative=False
+    )
+    assert f"{settings.draws} draws" in note and low.shape == high.shape == (3, u.n, u.n)
+    assert np.all(low <= high)
