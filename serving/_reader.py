@@ -40,7 +40,7 @@ from typing import Any
 import numpy as np
 
 from ._errors import SnapshotMissingError, StoredArrayError, WindowError
-from ._schema import SCHEMA, columns, order_by
+from ._schema import SCHEMA, columns, order_by, shape_of
 
 __all__ = [
     "DateWindow",
@@ -202,6 +202,15 @@ def _array(values: Sequence[float] | None, shape: tuple[int, ...], what: str = "
         raise StoredArrayError(msg)
     arr = arr.reshape(shape)
     arr.flags.writeable = False
+    return arr
+
+
+def _need(values: Sequence[float] | None, shape: tuple[int, ...], what: str) -> np.ndarray:
+    """`_array` for a NOT NULL column: a NULL is a malformed snapshot."""
+    arr = _array(values, shape, what)
+    if arr is None:
+        msg = f"{what} is NULL, which docs/warehouse.md does not allow; publish the snapshot again with `shockflow run`"
+        raise StoredArrayError(msg)
     return arr
 
 
@@ -560,7 +569,7 @@ class Snapshot:
     # -- universes ----------------------------------------------------------------------------
     def universes(self) -> dict[str, Universe]:
         """Every universe in the snapshot, with its series in stored column order."""
-        return self._cached("universes", self._universes)  # type: ignore[no-any-return]
+        return self._cached("universes", self._universes)
 
     def _universes(self) -> dict[str, Universe]:
         rows = self.reader.rows(
@@ -605,7 +614,7 @@ class Snapshot:
             )
             return _Rows([r[0] for r in rows], rows)
 
-        return self._cached(("rows", table, universe), load)  # type: ignore[no-any-return]
+        return self._cached(("rows", table, universe), load)
 
     def _cube(self, table: str, universe: Universe) -> _Cube:
         """`universe`'s pairwise or Granger table for every window, as (W, n, n) arrays."""
@@ -635,7 +644,7 @@ class Snapshot:
             present.flags.writeable = False
             return _Cube(ends.astype("datetime64[D]").tolist(), values, present)
 
-        return self._cached(("cube", table, universe.name), load)  # type: ignore[no-any-return]
+        return self._cached(("cube", table, universe.name), load)
 
     def _block(self, table: str, universe: str, end: dt.date, variant: str | None = None) -> _Block | None:
         """The block of `table`'s array rows holding window `end` (None: `end` is no stored window).
@@ -671,7 +680,7 @@ class Snapshot:
             rows = {r[0]: r[1:] for r in zip(*decoded, strict=True)}
             return _Block(rows, int(table_.nbytes) + 256 * len(rows))
 
-        return self._cached(("block", table, universe, variant, b), load)  # type: ignore[no-any-return]
+        return self._cached(("block", table, universe, variant, b), load)
 
     def date_bounds(self, universe: str) -> tuple[dt.date, dt.date]:
         """First and last window end stored for `universe`."""
@@ -712,7 +721,7 @@ class Snapshot:
         rows = self._rows_of("window_fits", window.universe).between(window.start, window.end)
         for row in reversed(rows):
             if row[_SKIP_REASON] is None:
-                return row[0]  # type: ignore[no-any-return]
+                return row[0]
         msg = f"no fitted window of {window.universe!r} ends between {window.label}; widen the range"
         raise WindowError(msg)
 
@@ -843,9 +852,13 @@ class Snapshot:
             window_end=end,
             window_start=start,
             lags=lags,
-            coefs=_array(coefs, (lags, n, n)),  # type: ignore[arg-type]
-            intercept=_array(intercept, (n,)) if intercept is not None else np.zeros(n),  # type: ignore[arg-type]
-            sigma_u=_array(sigma_u, (n, n)),  # type: ignore[arg-type]
+            coefs=_need(coefs, shape_of("window_params", "coefs", n=n, p=lags), "window_params.coefs"),
+            intercept=(
+                _need(intercept, shape_of("window_params", "intercept", n=n), "window_params.intercept")
+                if intercept is not None
+                else np.zeros(n)
+            ),
+            sigma_u=_need(sigma_u, shape_of("window_params", "sigma_u", n=n), "window_params.sigma_u"),
         )
 
     def responses(
@@ -858,9 +871,9 @@ class Snapshot:
         if row is None:
             return None
         horizon, response, lower, upper, coverage = row
-        shape = (int(horizon) + 1, n, n)
+        shape = shape_of("responses", "response", n=n, h=int(horizon))
         return (
-            _array(response, shape),  # type: ignore[return-value]
+            _need(response, shape, "responses.response"),
             _array(lower, shape),
             _array(upper, shape),
             None if coverage is None else float(coverage),
@@ -874,7 +887,7 @@ class Snapshot:
         if row is None:
             return None
         horizon, share = row
-        return _array(share, (int(horizon), n, n))
+        return _need(share, shape_of("decompositions", "share", n=n, h=int(horizon)), "decompositions.share")
 
     def prepared(self, universe: Universe, start: dt.date, end: dt.date) -> np.ndarray:
         """The transformed data (T, n) the window's fit used, oldest row first, series in order."""

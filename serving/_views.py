@@ -14,6 +14,11 @@ snapshot); they hold no data, only the query, so they cost nothing to keep.
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    import duckdb
+
 __all__ = ["VIEWS", "create_views"]
 
 _SIZES = "SELECT universe, count(*) AS n FROM universe_series GROUP BY universe"
@@ -93,7 +98,7 @@ WHERE a.source <> a.target
 }
 
 
-def create_views(con: object, *, catalog: str | None = None) -> None:
+def create_views(con: duckdb.DuckDBPyConnection, *, catalog: str | None = None) -> None:
     """``CREATE OR REPLACE`` every view on `con` (a DuckDB connection), in `catalog` if given.
 
     A view created in an attached file binds its table names inside that file, so the same text
@@ -101,4 +106,4 @@ def create_views(con: object, *, catalog: str | None = None) -> None:
     """
     prefix = f"{catalog}." if catalog else ""
     for name, (_, select) in VIEWS.items():
-        con.execute(f"CREATE OR REPLACE VIEW {prefix}{name} AS {select}")  # type: ignore[attr-defined]
+        con.execute(f"CREATE OR REPLACE VIEW {prefix}{name} AS {select}")
