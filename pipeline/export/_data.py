@@ -132,10 +132,13 @@ def _gather(snap: Snapshot, universe: str, as_of: dt.date | None) -> ReportData:
         gp = snap.granger_at(info, fitted)
         gf = _square(gr.filter(pl.col("window_end") == fitted), "caused", "causing", "f_stat",
                      info.series)
-        responses = stored_responses(snap, info, fitted)
-        decomps = stored_decompositions(snap, info, fitted)
+        present = snap.tables()  # the array tables are optional in hand-made snapshots
+        responses = stored_responses(snap, info, fitted) if "responses" in present else []
+        decomps = stored_decompositions(snap, info, fitted) if "decompositions" in present else []
         if not responses or not decomps:
             try:
+                if "window_params" not in present:
+                    raise ServingError("no window_params")
                 snap.fit(info, fitted)
             except ServingError:
                 notes.append("Impulse responses and decompositions were not stored for this "

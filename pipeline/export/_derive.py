@@ -45,6 +45,8 @@ def derive_responses(snap: Snapshot, info: Universe, end: dt.date, notes: list[s
     if settings.method in ("bootstrap", "asymptotic"):
         why = ""
         try:
+            if "prepared" not in snap.tables():
+                raise ServingError("the window's prepared rows are not in the snapshot")
             b = bands(snap, info, end, identification=ident, kind=settings.method)
         except ServingError as exc:
             why = str(exc)

@@ -159,3 +159,19 @@ def test_screen_and_report_show_the_same_numbers(snapshot_path: Path, universe: 
     off = np.where(np.eye(len(report["to"]), dtype=bool), 0.0, report["table"])
     np.testing.assert_allclose(report["to"], off.sum(axis=0), rtol=1e-10)
     np.testing.assert_allclose(report["from"], off.sum(axis=1), rtol=1e-10)
+
+
+def test_report_without_array_tables_says_so(snapshot_path: Path, tmp_path: Path) -> None:
+    """A hand-made snapshot without window_params/responses/decompositions still gives a report."""
+    path = tmp_path / "thin.duckdb"
+    shutil.copyfile(snapshot_path, path)
+    con = duckdb.connect(str(path))
+    for view in ("response_long", "decomposition_long", "coef_long"):
+        con.execute(f"DROP VIEW {view}")
+    for table in ("responses", "decompositions", "window_params"):
+        con.execute(f"DROP TABLE {table}")
+    con.close()
+    with open_snapshot(path) as snap:
+        d = gather(snap, "stored")
+    assert d.responses == [] and d.decompositions == [] and d.total is not None
+    assert any("its parameters are not in the snapshot" in n for n in d.notes)
