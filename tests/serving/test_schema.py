@@ -125,3 +125,13 @@ def test_serving_imports_no_orchestration_or_ui() -> None:
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True, cwd=ROOT)
     assert out.stdout.strip() == "[]"
+
+
+def test_python_m_serving_rewrites_a_stale_doc(tmp_path: Path) -> None:
+    text = (ROOT / "docs" / "warehouse.md").read_text(encoding="utf-8")
+    doc = tmp_path / "warehouse.md"
+    doc.write_text(text.replace("| `runs` |", "| `old_runs` |"), encoding="utf-8")
+    out = subprocess.run([sys.executable, "-m", "serving", str(doc)], capture_output=True, text=True, check=True, cwd=ROOT)
+    assert "rewritten" in out.stdout and doc.read_text(encoding="utf-8") == text
+    out = subprocess.run([sys.executable, "-m", "serving", str(doc)], capture_output=True, text=True, check=True, cwd=ROOT)
+    assert "already up to date" in out.stdout
