@@ -157,3 +157,58 @@ def test_cholesky_order_sets_the_column_order(tmp_path: Path) -> None:
     text = MINIMAL.replace("lags = 1", 'lags = 1\nidentification = "cholesky"\ncholesky_order = ["B", "A"]')
     u = load_config_text(text, tmp_path / "c.toml").universes[0]
     assert u.names == ("B", "A") and u.cholesky_order == ("B", "A")
+
+
+# Fit hashes of unchanged configs: a changed hash makes every warehouse refit every window. The
+# literal values were computed by the code at commit fab1d34 (the config module before settings were
+# declared once) on these very texts; a refactor of the loader must reproduce them exactly.
+_DEMO = Path(__file__).resolve().parents[2] / "data_samples" / "demo.toml"
+_PINNED_EXTRA = """
+[[universes]]
+name = "chol"
+series = ["A", {name = "B", transform = "diff"}, "C"]
+transform = "pct_change"
+frequency = "monthly"
+max_fill_gap = 0
+window = 60
+step = 3
+lags = 2
+trend = "ct"
+horizon = 12
+identification = "cholesky"
+cholesky_order = ["C", "A", "B"]
+granger_level = 0.1
+portmanteau_lags = 7
+arrays_every = 5
+[universes.bands]
+method = "asymptotic"
+coverage = 0.95
+
+[[universes]]
+name = "sel"
+series = ["A", "B"]
+window = 80
+expanding = true
+trend = "n"
+[universes.lag_selection]
+criterion = "aic"
+max_lags = 6
+[universes.bands]
+"""
+
+
+def test_fit_hash_of_existing_configs_is_unchanged(tmp_path: Path) -> None:
+    demo = {u.name: u.config_hash for u in load_config(_DEMO).universes}
+    assert demo == {"all_markets": "2724928f8ce9058f", "rates_fx": "641ce7f2e387a726", "equities_weekly": "942c05c6b427c4f9"}
+    other = {u.name: u.config_hash for u in load_config_text(MINIMAL + _PINNED_EXTRA, tmp_path / "c.toml").universes}
+    assert other == {"pair": "648e2940618b97be", "chol": "2e44e2d08d7be155", "sel": "2b37c38e3c458c29"}
+    # the stored `config_json` (warehouse table `universes`) is the same document as before
+    sel = load_config_text(MINIMAL + _PINNED_EXTRA, tmp_path / "c.toml").universe("sel").fit_settings()
+    assert sel == {
+        "arrays_every": 1, "bands": {"coverage": 0.9, "draws": 200, "method": "bootstrap", "seed": 0},
+        "cholesky_order": None, "expanding": True, "format": 2, "frequency": "business_day",
+        "granger_level": 0.05, "horizon": 10, "identification": "generalized",
+        "lag_selection": {"criterion": "aic", "max_lags": 6}, "lags": None, "max_fill_gap": 3,
+        "portmanteau_lags": 11, "series": [["A", "log_return"], ["B", "log_return"]], "step": 1,
+        "trend": "n", "window": 80,
+    }  # fmt: skip
