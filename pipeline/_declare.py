@@ -69,6 +69,7 @@ class Setting:
     check: Check | None = None
     default_doc: str | None = None
     fit_value: Callable[[Any], Any] | None = None
+    fit_via: str | None = None
 
 
 def setting(
@@ -82,6 +83,7 @@ def setting(
     check: Check | None = None,
     default_doc: str | None = None,
     fit_value: Callable[[Any], Any] | None = None,
+    fit_via: str | None = None,
     secret: bool = False,
 ) -> Any:
     """Declare one config key as a dataclass field.
@@ -96,12 +98,14 @@ def setting(
     check : ``value -> None | (problem, fix)`` for anything else about this one value.
     default_doc : the README's default cell when the default is computed (e.g. "max(10, p + 5)").
     fit_value : ``owner -> JSON value`` when the key enters the fit hash in another form.
+    fit_via : the key through which this one's effect enters the fit hash already (it then
+        does not enter by itself; the README still says that changing it refits).
     secret : kept out of the repr.
     """
     meta = {
         "setting": Setting(
             doc=doc, fit=fit, choices=choices, minimum=minimum, maximum=maximum, check=check,
-            default_doc=default_doc, fit_value=fit_value,
+            default_doc=default_doc, fit_value=fit_value, fit_via=fit_via,
         )
     }  # fmt: skip
     if default is REQUIRED:
@@ -321,7 +325,7 @@ def fit_document(obj: Any) -> dict[str, Any]:
     out: dict[str, Any] = {}
     for f in dataclasses.fields(obj):
         s = f.metadata.get("setting")
-        if s is None or not s.fit:
+        if s is None or not s.fit or s.fit_via is not None:
             continue
         value = s.fit_value(obj) if s.fit_value is not None else getattr(obj, f.name)
         out[f.name] = _json(value)

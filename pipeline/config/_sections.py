@@ -164,9 +164,8 @@ class UniverseConfig:
         doc="rows per window (rolling), or rows of the first window (expanding); must leave at least "
         "k + n observations (k coefficients per equation) — the error suggests a window",
     )
-    # enters the fit hash through `series`, where each series carries its resolved transform
     transform: str = setting(
-        "log_return", fit=False, choices=tuple(TRANSFORMS),
+        "log_return", fit_via="series", choices=tuple(TRANSFORMS),  # each series carries its own
         doc="default transform: `log_return` (ln x_t − ln x_{t−1}, needs x > 0), `pct_change` "
         "(x_t/x_{t−1} − 1), `diff` (x_t − x_{t−1}), `level`",
     )  # fmt: skip
@@ -180,8 +179,8 @@ class UniverseConfig:
     )
     step: int = setting(1, minimum=1, doc="rows between window ends")
     expanding: bool = setting(False, doc="windows grow from the first row instead of rolling")
-    lags: int | None = setting(None, minimum=1, doc="the VAR order p; or instead `lag_selection`:")
-    lag_selection: LagSelection | None = setting(None, doc="a table: p chosen per window")
+    lags: int | None = setting(None, minimum=1, doc="the VAR order p (or, instead, a `lag_selection` table)")
+    lag_selection: LagSelection | None = setting(None, doc="a table choosing p per window, instead of `lags`")
     trend: str = setting("c", choices=TRENDS, doc="`n` none, `c` intercept, `ct` intercept and linear trend")
     horizon: int = setting(10, minimum=1, doc="H: responses 0..H, H-step decompositions and connectedness")
     identification: str = setting(
@@ -266,7 +265,7 @@ class DashboardConfig:
     host: str = setting("127.0.0.1", doc="where the dashboard listens; a non-loopback host requires credentials")
     port: int = setting(8050, check=_port, doc="the port it listens on")
     workers: int = setting(
-        2, minimum=1, maximum=MAX_WORKERS, doc="processes answering dashboard requests (about one per core)"
+        2, minimum=1, maximum=MAX_WORKERS, doc="processes answering dashboard requests (about one per core; at most 64)"
     )
     token: str | None = setting(None, secret=True, doc="an access token")
     username: str | None = setting(None, doc="basic-auth user name (with `password`)")
