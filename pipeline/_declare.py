@@ -12,7 +12,7 @@ From these declarations alone come
   `maximum` and `check`; unknown keys get a did-you-mean; every problem is collected, none stops
   the reading (:class:`Problems`);
 - the fit hash (:func:`fit_document`): every field enters it unless declared ``fit=False``;
-- the README's configuration tables (:func:`table_rows`, rendered by ``pipeline.config.readme``).
+- the README's configuration tables (:func:`iter_rows`, rendered by ``pipeline.config.readme``).
 
 Why dataclasses and not pydantic (installed with Prefect): the messages must name the file and
 the key, show the value, suggest the fix and a did-you-mean, and cross-key rules (the window
