@@ -28,6 +28,8 @@ from __future__ import annotations
 
 import dataclasses
 import difflib
+import functools
+import re
 import types
 import typing
 from collections.abc import Callable, Iterator, Mapping
@@ -129,7 +131,8 @@ class Declared:
         return self.default is REQUIRED
 
 
-def declared(cls: type) -> list[Declared]:
+@functools.cache
+def declared(cls: type) -> tuple[Declared, ...]:
     """The declared fields of section class `cls`, in declaration order."""
     hints = typing.get_type_hints(cls)
     out = []
@@ -143,7 +146,7 @@ def declared(cls: type) -> list[Declared]:
             element = typing.get_args(base)[0]
             base = tuple
         out.append(Declared(f.name, s, f.default, base, element, optional))
-    return out
+    return tuple(out)
 
 
 def _strip_none(tp: Any) -> tuple[Any, bool]:
@@ -220,7 +223,8 @@ def read_table(
     choices = choices or {}
     parsers = parsers or {}
     if not isinstance(raw, dict):
-        problems.add(where, f"must be a table, got {type(raw).__name__}", f"write it as [{where}]")
+        header = re.sub(r"\[[^\]]*\]", "", where)  # universes['x'].bands -> universes.bands
+        problems.add(where, f"must be a table, got {raw!r}", f"write it as a [{header}] table")
         return {}, set()
     data = dict(raw)
     decl = declared(cls)

@@ -162,7 +162,7 @@ def _where(raw: Any, section: str, i: int) -> str:
     return f"{section}[{i}]"
 
 
-def _bad(given: set[str], values: dict[str, Any], *keys: str) -> bool:
+def _bad(values: dict[str, Any], *keys: str) -> bool:
     """True when any of `keys` was set in the file but had a problem (or a required one is absent)."""
     return any(k not in values for k in keys)
 
@@ -254,15 +254,15 @@ def _load_universe(raw: Any, i: int, problems: Problems, base: Path) -> Universe
         return f"{where}.{name}"
 
     lags, sel = v.get("lags"), v.get("lag_selection")
-    lags_ok = not _bad(given, v, "lags", "lag_selection")
+    lags_ok = not _bad(v, "lags", "lag_selection")
     if lags_ok and (lags is None) == (sel is None):
         problem = "and `lag_selection` are both set" if lags is not None else "is missing"
         problems.add(key("lags"), problem, "set either `lags = 2` or a [universes.lag_selection] table, not both")
         lags_ok = False
     order = v.get("cholesky_order")
-    if order is not None and not _bad(given, v, "identification") and v["identification"] != "cholesky":
+    if order is not None and not _bad(v, "identification") and v["identification"] != "cholesky":
         problems.add(key("cholesky_order"), "is set but identification is not 'cholesky'", "remove it or set identification = 'cholesky'")
-    if order is not None and not _bad(given, v, "series"):
+    if order is not None and not _bad(v, "series"):
         names = [s.name for s in v["series"]]
         if sorted(order) != sorted(names):
             problems.add(
@@ -275,9 +275,9 @@ def _load_universe(raw: Any, i: int, problems: Problems, base: Path) -> Universe
             by_name = {s.name: s for s in v["series"]}
             v["series"] = tuple(by_name[name] for name in order)
     bands = v.get("bands", NO_BANDS)
-    if bands.method == "asymptotic" and not _bad(given, v, "identification") and v["identification"] != "cholesky":
+    if bands.method == "asymptotic" and not _bad(v, "identification") and v["identification"] != "cholesky":
         problems.add(f"{where}.bands.method", "is 'asymptotic', defined for Cholesky responses only", "use 'bootstrap' or identification = 'cholesky'")
-    if lags_ok and not _bad(given, v, "series", "window", "trend"):
+    if lags_ok and not _bad(v, "series", "window", "trend"):
         _window_rules(v, where, problems)
     if len(problems) > before:
         return None
