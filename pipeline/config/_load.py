@@ -246,7 +246,7 @@ def _load_universe(raw: Any, i: int, problems: Problems, base: Path) -> Universe
             return BAD
         return tuple(series)
 
-    v, given = read_table(UniverseConfig, raw, where, problems, base=base, parsers={"series": parse_series})
+    v, _ = read_table(UniverseConfig, raw, where, problems, base=base, parsers={"series": parse_series})
     if not isinstance(raw, dict):
         return None
 
