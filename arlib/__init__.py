@@ -31,6 +31,7 @@ from ._moments import (
 )
 from ._responses import impulse_responses, ma_coefficients
 from ._rolling import RollingVAR, rolling_var
+from ._sizes import minimum_window
 from ._validate import ArlibError, InvalidInputError, UnstableProcessWarning, VARLike
 
 __all__ = [
@@ -61,6 +62,7 @@ __all__ = [
     "impulse_responses",
     "irf_bands",
     "ma_coefficients",
+    "minimum_window",
     "normality_test",
     "portmanteau_test",
     "rolling_var",

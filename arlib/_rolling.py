@@ -84,6 +84,7 @@ from scipy import linalg, stats
 
 from . import _rolling_kernels as K
 from ._estimate import TREND_TERMS, _check_sigma, _least_squares, _regressor_names, select_lags
+from ._sizes import minimum_window
 from ._validate import InvalidInputError, as_names, check_int, check_option, readonly
 
 #: Response identifications that can be stored per window (names as in `impulse_responses`).
@@ -397,8 +398,8 @@ def rolling_var(
             raise InvalidInputError(msg)
         what = "lags"
     k_max = d + n * P
-    if win - P - k_max < n:
-        need = P + k_max + n
+    need = minimum_window(n, P, trend)
+    if win < need:
         msg = (
             f"`window`={win} leaves {win - P} observations for {k_max} coefficients per equation "
             f"({n} series × {what}={P} + {d} deterministic), fewer than the {k_max + n} needed "

@@ -28,7 +28,15 @@ class ShockflowError(Exception):
 
 
 class ConfigError(ShockflowError):
-    """The TOML configuration is malformed, incomplete or inconsistent."""
+    """The TOML configuration is malformed, incomplete or inconsistent.
+
+    `problems` holds every problem found, each a one-line message naming the file, the key and the
+    fix (the loader reports all of a file's problems at once; the message lists them one a line).
+    """
+
+    def __init__(self, message: str, *, problems: tuple[str, ...] = ()) -> None:
+        super().__init__(message)
+        self.problems: tuple[str, ...] = problems or (message,)
 
 
 class SourceError(ShockflowError):

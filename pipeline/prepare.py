@@ -28,20 +28,43 @@ Every removed date and every gap row is listed in ``Prepared.dropped`` with its 
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from datetime import date
-from typing import TYPE_CHECKING
+from typing import Protocol
 
 import numpy as np
 import polars as pl
 
 from pipeline.errors import DataError
 
-if TYPE_CHECKING:
-    from pipeline.config import UniverseConfig
+__all__ = ["CALENDARS", "TRANSFORMS", "Prepared", "Transform", "UniverseLike", "prepare_universe"]
 
-__all__ = ["CALENDARS", "TRANSFORMS", "Prepared", "Transform", "prepare_universe"]
+
+class _SeriesLike(Protocol):
+    @property
+    def name(self) -> str: ...
+    @property
+    def transform(self) -> str: ...
+
+
+class UniverseLike(Protocol):
+    """What preparing reads of a universe; `pipeline.config.UniverseConfig` is one.
+
+    (A protocol, not an import of the config: the config takes its transform and calendar names
+    from this module, so this module does not import the config.)
+    """
+
+    @property
+    def name(self) -> str: ...
+    @property
+    def names(self) -> tuple[str, ...]: ...
+    @property
+    def series(self) -> Sequence[_SeriesLike]: ...
+    @property
+    def frequency(self) -> str: ...
+    @property
+    def max_fill_gap(self) -> int: ...
 
 
 @dataclass(frozen=True)
@@ -96,7 +119,8 @@ def _monthly_range(first: date, last: date) -> pl.Series:
     return pl.date_range(first, last, "1mo", eager=True).dt.month_end()
 
 
-#: frequency → (label each observation date with its calendar row or null, all rows first..last)
+#: frequency → (label each observation date with its calendar row or null, all rows first..last).
+#: The one place to add a frequency; the config's `frequency` choices are these names.
 CALENDARS: dict[str, tuple[Callable[[pl.Expr], pl.Expr], Callable[[date, date], pl.Series]]] = {
     "business_day": (_label_business_day, _business_days),
     "weekly": (_label_weekly, _weekly_range),
@@ -129,7 +153,7 @@ class Prepared:
         )
 
 
-def prepare_universe(observations: pl.DataFrame, universe: UniverseConfig) -> Prepared:
+def prepare_universe(observations: pl.DataFrame, universe: UniverseLike) -> Prepared:
     """Align, fill, transform and trim `observations` (series, date, value) for `universe`."""
     names = list(universe.names)
     obs = observations.filter(pl.col("series").is_in(names))

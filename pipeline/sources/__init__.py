@@ -1,16 +1,19 @@
 """Source adapters: each kind reads its rows and returns validated long rows (series, date, value).
 
-``READERS`` maps a source kind to its reader — the one place to add a kind. Every reader has the
-signature ``reader(source, *, today) -> SourceFrame`` and ends in the shared row checks of
-:mod:`pipeline.sources._rows`, so all kinds obey the same cleaning rules and errors.
+``KINDS`` maps a source kind to its reader and the key that says where its rows are — the one
+place to add a kind (``READERS`` and the config's list of kinds are derived from it). Every reader
+has the signature ``reader(source, *, today) -> SourceFrame`` and ends in the shared row checks of
+:mod:`pipeline.sources._rows`, so all kinds obey the same cleaning rules and errors. The keys of a
+``[[sources]]`` table are declared in :mod:`pipeline.sources._config` (``SourceConfig``).
 """
 
 from __future__ import annotations
 
 from collections.abc import Callable
+from dataclasses import dataclass
 from datetime import date
-from typing import TYPE_CHECKING
 
+from pipeline.sources._config import SourceConfig
 from pipeline.sources._csv import read_csv
 from pipeline.sources._demo import DEMO_FILES, read_demo
 from pipeline.sources._duckdb_sql import read_duckdb_sql
@@ -19,16 +22,16 @@ from pipeline.sources._http import fetch_with_retries, read_http_csv
 from pipeline.sources._parquet import read_parquet
 from pipeline.sources._rows import LONG_SCHEMA, MAX_ABS_VALUE, MISSING_MARKERS
 
-if TYPE_CHECKING:
-    from pipeline.config import SourceConfig
-
 __all__ = [
     "DEMO_FILES",
+    "KINDS",
     "LONG_SCHEMA",
     "MAX_ABS_VALUE",
     "MISSING_MARKERS",
     "READERS",
+    "SourceConfig",
     "SourceFrame",
+    "SourceKind",
     "fetch_with_retries",
     "read_csv",
     "read_demo",
@@ -38,13 +41,25 @@ __all__ = [
     "read_source",
 ]
 
-READERS: dict[str, Callable[..., SourceFrame]] = {
-    "csv": read_csv,
-    "parquet": read_parquet,
-    "http_csv": read_http_csv,
-    "duckdb_sql": read_duckdb_sql,
-    "demo": read_demo,
+
+@dataclass(frozen=True)
+class SourceKind:
+    """A source kind: its reader, and the `[[sources]]` key naming where its rows are."""
+
+    reader: Callable[..., SourceFrame]
+    reads: str
+
+
+#: kind → reader and location key. The one place a kind is added.
+KINDS: dict[str, SourceKind] = {
+    "csv": SourceKind(read_csv, "path"),
+    "parquet": SourceKind(read_parquet, "path"),
+    "http_csv": SourceKind(read_http_csv, "url"),
+    "duckdb_sql": SourceKind(read_duckdb_sql, "query"),
+    "demo": SourceKind(read_demo, "dataset"),
 }
+#: kind → reader (derived from `KINDS`).
+READERS: dict[str, Callable[..., SourceFrame]] = {kind: k.reader for kind, k in KINDS.items()}
 
 
 def read_source(source: SourceConfig, *, today: date | None = None) -> SourceFrame:

@@ -14,7 +14,7 @@ from pipeline.sources._frame import SourceFrame
 from pipeline.sources._rows import MISSING_MARKERS, from_table
 
 if TYPE_CHECKING:
-    from pipeline.config import SourceConfig
+    from pipeline.sources._config import SourceConfig
 
 __all__ = ["parse_csv_bytes", "read_csv", "resolve_glob"]
 

@@ -12,7 +12,7 @@ from pipeline.sources._csv import parse_csv_bytes
 from pipeline.sources._frame import SourceFrame
 
 if TYPE_CHECKING:
-    from pipeline.config import SourceConfig
+    from pipeline.sources._config import SourceConfig
 
 __all__ = ["DEMO_DIR", "DEMO_FILES", "read_demo"]
 

@@ -15,7 +15,7 @@ from pipeline.sources._csv import parse_csv_bytes
 from pipeline.sources._frame import SourceFrame
 
 if TYPE_CHECKING:
-    from pipeline.config import SourceConfig
+    from pipeline.sources._config import SourceConfig
 
 __all__ = ["fetch_with_retries", "read_http_csv"]
 

@@ -13,7 +13,7 @@ from pipeline.sources._frame import SourceFrame
 from pipeline.sources._rows import from_table
 
 if TYPE_CHECKING:
-    from pipeline.config import SourceConfig
+    from pipeline.sources._config import SourceConfig
 
 __all__ = ["read_parquet"]
 

@@ -28,7 +28,7 @@ import polars as pl
 from pipeline.errors import DataError, SourceError
 
 if TYPE_CHECKING:
-    from pipeline.config import SourceConfig
+    from pipeline.sources._config import SourceConfig
 
 __all__ = ["LONG_SCHEMA", "MAX_ABS_VALUE", "MISSING_MARKERS", "from_long", "from_table", "from_wide"]
 

@@ -32,6 +32,7 @@ PINNED = [
     "impulse_responses",
     "irf_bands",
     "ma_coefficients",
+    "minimum_window",
     "normality_test",
     "portmanteau_test",
     "rolling_var",

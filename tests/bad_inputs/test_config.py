@@ -103,6 +103,22 @@ def test_config_error_stops_before_anything_is_written(night: Night, case: Confi
         assert snap_after[name].equals(frame), name
 
 
+def test_every_config_problem_is_printed_at_once(night: Night) -> None:
+    text = night.config_text().replace("window = 40", "windw = 40", 1) + '\n[schedule]\ncron = "0 25 * * 1-5"\n'
+    night.write_config(text)
+    before = night.tables()
+    for result in (night.run("--no-export"), night.check()):
+        assert result.exit_code == 1, result.stderr
+        assert not TRACEBACK.search(result.stderr), result.stderr
+        lines = result.stderr.splitlines()
+        start = lines.index(f"error: {night.config}: 2 problems, each to fix:")
+        assert re.fullmatch(r"  - `universes\['stocks'\]\.windw` is not a known key \(did you mean 'window'\?\); rename it to `window`", lines[start + 1])
+        assert re.fullmatch(r"  - `schedule\.cron` is '0 25 \* \* 1-5': .*; fix the field, .*", lines[start + 2])
+    after = night.tables()
+    for name, frame in before.items():
+        assert after[name].equals(frame), name
+
+
 def test_debug_shows_the_traceback(night: Night) -> None:
     night.write_config(night.config_text().replace("window = 40", "windw = 40", 1))
     plain = night.run("--no-export")

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import dataclasses
+import re
 from pathlib import Path
 
 import pytest
@@ -157,3 +158,202 @@ def test_cholesky_order_sets_the_column_order(tmp_path: Path) -> None:
     text = MINIMAL.replace("lags = 1", 'lags = 1\nidentification = "cholesky"\ncholesky_order = ["B", "A"]')
     u = load_config_text(text, tmp_path / "c.toml").universes[0]
     assert u.names == ("B", "A") and u.cholesky_order == ("B", "A")
+
+
+# Fit hashes of unchanged configs: a changed hash makes every warehouse refit every window. The
+# literal values were computed by the code at commit fab1d34 (the config module before settings were
+# declared once) on these very texts; a refactor of the loader must reproduce them exactly.
+_DEMO = Path(__file__).resolve().parents[2] / "data_samples" / "demo.toml"
+_PINNED_EXTRA = """
+[[universes]]
+name = "chol"
+series = ["A", {name = "B", transform = "diff"}, "C"]
+transform = "pct_change"
+frequency = "monthly"
+max_fill_gap = 0
+window = 60
+step = 3
+lags = 2
+trend = "ct"
+horizon = 12
+identification = "cholesky"
+cholesky_order = ["C", "A", "B"]
+granger_level = 0.1
+portmanteau_lags = 7
+arrays_every = 5
+[universes.bands]
+method = "asymptotic"
+coverage = 0.95
+
+[[universes]]
+name = "sel"
+series = ["A", "B"]
+window = 80
+expanding = true
+trend = "n"
+[universes.lag_selection]
+criterion = "aic"
+max_lags = 6
+[universes.bands]
+"""
+
+
+def test_fit_hash_of_existing_configs_is_unchanged(tmp_path: Path) -> None:
+    demo = {u.name: u.config_hash for u in load_config(_DEMO).universes}
+    assert demo == {"all_markets": "2724928f8ce9058f", "rates_fx": "641ce7f2e387a726", "equities_weekly": "942c05c6b427c4f9"}
+    other = {u.name: u.config_hash for u in load_config_text(MINIMAL + _PINNED_EXTRA, tmp_path / "c.toml").universes}
+    assert other == {"pair": "648e2940618b97be", "chol": "2e44e2d08d7be155", "sel": "2b37c38e3c458c29"}
+    # the stored `config_json` (warehouse table `universes`) is the same document as before
+    sel = load_config_text(MINIMAL + _PINNED_EXTRA, tmp_path / "c.toml").universe("sel").fit_settings()
+    assert sel == {
+        "arrays_every": 1, "bands": {"coverage": 0.9, "draws": 200, "method": "bootstrap", "seed": 0},
+        "cholesky_order": None, "expanding": True, "format": 2, "frequency": "business_day",
+        "granger_level": 0.05, "horizon": 10, "identification": "generalized",
+        "lag_selection": {"criterion": "aic", "max_lags": 6}, "lags": None, "max_fill_gap": 3,
+        "portmanteau_lags": 11, "series": [["A", "log_return"], ["B", "log_return"]], "step": 1,
+        "trend": "n", "window": 80,
+    }  # fmt: skip
+
+
+# --------------------------------------------------------------------------------------------
+# settings declared once
+# --------------------------------------------------------------------------------------------
+
+_README = Path(__file__).resolve().parents[2] / "README.md"
+
+
+def test_readme_configuration_tables_match_the_declarations() -> None:
+    from pipeline.config.readme import render, update
+
+    text = _README.read_text(encoding="utf-8")
+    assert update(text) == text, "README's configuration tables are stale: run `python -m pipeline.config.readme`"
+    # every declared key has its row, and a README that lost or changed a row is caught
+    block = render()
+    for row in ("| `window` | required | yes |", "| `transform` | `log_return` | yes (via `series`) |",
+                "| `name` | required | no |", "| `kind` | required | `csv`, `parquet`, `http_csv`, `duckdb_sql`, `demo` |",
+                "| `workers` | 2 |", "| `bands.draws` | 200 | yes |"):  # fmt: skip
+        assert row in block, row
+    stale = text.replace("| `step` | 1 | yes | rows between window ends |\n", "")
+    assert stale != text and update(stale) != stale
+
+
+def test_every_problem_of_a_file_is_reported_at_once(tmp_path: Path) -> None:
+    text = (
+        MINIMAL.replace('kind = "csv"', 'kind = "cvs"')
+        .replace("window = 40", "windw = 40")
+        .replace("lags = 1", 'lags = 1\ntrend = "linear"')
+        + '\n[[universes]]\nname = "short"\nseries = ["A", "B", "C"]\nwindow = 6\nlags = 1\n'
+        + '\n[schedule]\ncron = "0 25 * * *"\n[dashboard]\nport = 70000\nworkrs = 2\n[exprt]\n'
+    )
+    path = write_config(tmp_path, text)
+    with pytest.raises(ConfigError) as info:
+        load_config(path)
+    expected = [
+        r"`exprt` is not a known section \(did you mean 'export'\?\); known sections: .*",
+        r"`sources\['prices'\]\.kind` is 'cvs' \(did you mean 'csv'\?\); use one of: csv, parquet, http_csv, duckdb_sql, demo",
+        r"`universes\['pair'\]\.windw` is not a known key \(did you mean 'window'\?\); rename it to `window`",
+        r"`universes\['pair'\]\.trend` is 'linear'; use one of: n, c, ct",
+        r"`universes\['short'\]\.window` = 6 leaves 5 observations for 4 coefficients per equation .*use window >= 8 .*",
+        r"`schedule\.cron` is '0 25 \* \* \*': .*; fix the field, .*",
+        r"`dashboard\.port` is 70000; use a port in 0\.\.65535",
+        r"`dashboard\.workrs` is not a known key \(did you mean 'workers'\?\); known keys here: .*",
+    ]
+    problems = info.value.problems
+    assert len(problems) == len(expected), problems
+    for line, pattern in zip(problems, expected, strict=True):
+        assert re.fullmatch(re.escape(f"{path}: ") + pattern, line), line
+    # the message lists them one a line under one heading naming the file
+    message = str(info.value).splitlines()
+    assert message[0] == f"{path}: {len(expected)} problems, each to fix:"
+    assert [m.removeprefix("  - ") for m in message[1:]] == [p.removeprefix(f"{path}: ") for p in problems]
+
+
+def test_a_rule_between_keys_is_skipped_when_its_keys_are_wrong(tmp_path: Path) -> None:
+    # `window` is not a number: one problem, not a second one from the window-vs-lags rule
+    with pytest.raises(ConfigError) as info:
+        load_config_text(MINIMAL.replace("window = 40", 'window = "40"'), tmp_path / "c.toml")
+    assert len(info.value.problems) == 1 and "\n" not in str(info.value)
+
+
+def test_a_new_declared_key_enters_the_fit_hash_unless_marked(tmp_path: Path) -> None:
+    from dataclasses import dataclass
+
+    from pipeline._declare import Problems, read_table, setting
+    from pipeline.config import UniverseConfig
+
+    @dataclass(frozen=True)
+    class Extended(UniverseConfig):  # a synthetic declaration, as a contributor would add one
+        shrinkage: float = setting(0.0, doc="synthetic: changes the estimates")
+        caption: str = setting("", doc="synthetic: display only", fit=False)
+
+    base = minimal_config(tmp_path).universes[0]
+    fields = {f.name: getattr(base, f.name) for f in dataclasses.fields(base)}
+    ext = Extended(**fields)
+    assert ext.fit_settings() == {**base.fit_settings(), "shrinkage": 0.0}
+    assert dataclasses.replace(ext, shrinkage=0.5).config_hash != ext.config_hash
+    assert dataclasses.replace(ext, caption="for the board").config_hash == ext.config_hash
+    # the loader reads the new key by its declaration, with its type check
+    problems = Problems(tmp_path / "c.toml")
+    values, given = read_table(Extended, {"shrinkage": 1, "caption": 3}, "universes['u']", problems, base=tmp_path)
+    assert values["shrinkage"] == 1.0 and given == {"shrinkage", "caption"}
+    assert [p for p in problems.items if "required but missing" not in p] == [
+        f"{tmp_path / 'c.toml'}: `universes['u'].caption` must be str, got 3; set `caption` to a str"
+    ]
+    # ... and the README table gets its row, saying whether a change refits
+    from pipeline.config import Section
+    from pipeline.config.readme import _table
+
+    rows = _table(Section("universes", Extended, many=True))
+    assert "| `shrinkage` | 0.0 | yes | synthetic: changes the estimates |" in rows
+    assert "| `caption` | `` | no | synthetic: display only |" in rows
+
+
+@pytest.mark.parametrize(("n", "lags", "trend"), [(2, 1, "c"), (3, 4, "ct"), (5, 2, "n")])
+def test_minimum_window_is_the_rolling_engines_rule(tmp_path: Path, n: int, lags: int, trend: str) -> None:
+    import numpy as np
+
+    from arlib import InvalidInputError, minimum_window, rolling_var
+
+    need = minimum_window(n, lags, trend)
+    assert need == lags + (len(trend.replace("n", "")) + n * lags) + n  # p + k + n, k = d + n·p
+    names = [f"S{i}" for i in range(n)]
+    text = MINIMAL.replace('series = ["A", "B"]', f"series = {names!r}\ntrend = {trend!r}").replace("lags = 1", f"lags = {lags}\nportmanteau_lags = {lags + 1}")
+    assert load_config_text(text.replace("window = 40", f"window = {need}"), tmp_path / "c.toml").universes[0].window == need
+    with pytest.raises(ConfigError, match=rf"use window >= {need} "):
+        load_config_text(text.replace("window = 40", f"window = {need - 1}"), tmp_path / "c.toml")
+    y = np.random.default_rng(0).standard_normal((need + 3, n))
+    assert len(rolling_var(y, need, lags, horizon=2, trend=trend, step=1)) == 4
+    with pytest.raises(InvalidInputError, match=rf"use window >= {need} "):
+        rolling_var(y, need - 1, lags, horizon=2, trend=trend)
+
+
+def test_config_names_come_from_the_registries(tmp_path: Path) -> None:
+    from pipeline.config import FREQUENCIES
+    from pipeline.prepare import CALENDARS
+    from pipeline.sources import KINDS, READERS
+
+    assert FREQUENCIES == tuple(CALENDARS) and tuple(READERS) == tuple(KINDS)
+    # each kind's location key comes from the registry: a demo source names a dataset, not a path
+    text = MINIMAL.replace('kind = "csv"\npath = "prices.csv"', 'kind = "demo"\npath = "prices.csv"')
+    with pytest.raises(ConfigError) as info:
+        load_config_text(text, tmp_path / "c.toml")
+    assert [p.split(": ", 1)[1] for p in info.value.problems] == [
+        "`sources['prices'].dataset` is required for kind = 'demo'; add `dataset = ...` to this source",
+        "`sources['prices'].path` is not used by kind = 'demo'; remove it (this kind reads `dataset`)",
+    ]
+
+
+def test_prepare_and_the_sources_do_not_import_the_config() -> None:
+    # config imports them (for transform, calendar and kind names); the reverse would be a cycle,
+    # even as a typing-only or in-function import
+    import ast
+
+    root = Path(__file__).resolve().parents[2] / "pipeline"
+    files = [root / "prepare.py", *sorted((root / "sources").glob("*.py"))]
+    for file in files:
+        for node in ast.walk(ast.parse(file.read_text(encoding="utf-8"))):
+            names = (
+                [node.module or ""] if isinstance(node, ast.ImportFrom)
+                else [a.name for a in node.names] if isinstance(node, ast.Import) else []
+            )  # fmt: skip
+            assert not any(n == "pipeline.config" or n.startswith("pipeline.config.") for n in names), file

@@ -1,0 +1,343 @@
+"""Every key of the config file, declared once (the ``[[sources]]`` keys: pipeline.sources._config).
+
+Each field is a :func:`pipeline._declare.setting`: default, check, one line of documentation and
+whether it changes fitted results. Rules between keys (the window against the lags, the Cholesky
+order against the series, credentials on a non-loopback host) are in ``_load.py``.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import ipaddress
+import json
+from collections.abc import Mapping
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from pipeline._declare import fit_document, setting, suggest
+from pipeline.errors import ConfigError
+from pipeline.prepare import CALENDARS, TRANSFORMS
+from pipeline.sources import SourceConfig
+from pipeline.sources._config import check_name
+
+__all__ = [
+    "FIT_FORMAT_VERSION",
+    "FREQUENCIES",
+    "Bands",
+    "Config",
+    "DashboardConfig",
+    "ExecutionConfig",
+    "ExportConfig",
+    "LagSelection",
+    "ScheduleConfig",
+    "SeriesSpec",
+    "UniverseConfig",
+    "WarehouseConfig",
+    "is_loopback",
+]
+
+#: Bumped whenever the fit stage computes or stores results differently, so that every universe's
+#: config hash changes and the next run refits everything.
+FIT_FORMAT_VERSION = 2
+
+#: the calendars `pipeline.prepare` implements (the one place to add one)
+FREQUENCIES = tuple(CALENDARS)
+TRENDS = ("n", "c", "ct")
+IDENTIFICATIONS = ("generalized", "cholesky")
+CRITERIA = ("aic", "bic", "hq", "fpe")
+BAND_METHODS = ("none", "bootstrap", "asymptotic")
+EXPORT_FORMATS = ("html", "csv", "parquet", "pdf")
+RUNNERS = ("local", "dask")
+#: the most worker processes the dashboard starts (dashboard.settings.MAX_WORKERS)
+MAX_WORKERS = 64
+
+
+def is_loopback(host: str) -> bool:
+    """True when `host` only listens on this machine ('localhost' or a loopback address)."""
+    if host == "localhost":
+        return True
+    try:
+        return ipaddress.ip_address(host).is_loopback
+    except ValueError:
+        return False
+
+
+def _level(value: float) -> tuple[str, str] | None:
+    return None if 0 < value < 1 else (f"is {value}", "use a level in (0, 1), e.g. 0.05")
+
+
+def _coverage(value: float) -> tuple[str, str] | None:
+    return None if 0.5 <= value < 1 else (f"is {value}", "use a level in [0.5, 1), e.g. 0.9")
+
+
+def _cron(cron: str) -> tuple[str, str] | None:
+    fields = cron.split()
+    if len(fields) != 5:
+        return (
+            f"is {cron!r} with {len(fields)} fields",
+            "use 5 fields: minute hour day-of-month month day-of-week, e.g. '0 22 * * 1-5'",
+        )
+    try:
+        from cronsim import CronSim, CronSimError
+    except ImportError:  # pragma: no cover - cronsim ships with prefect
+        return None
+    from datetime import datetime
+
+    try:
+        CronSim(cron, datetime(2000, 1, 1))
+    except CronSimError as exc:
+        return f"is {cron!r}: {exc}", "fix the field, e.g. '0 22 * * 1-5' for 22:00 on weekdays"
+    return None
+
+
+def _timezone(name: str) -> tuple[str, str] | None:
+    from zoneinfo import ZoneInfo
+
+    try:
+        ZoneInfo(name)
+    except Exception:
+        return f"is {name!r}, not a known IANA time zone", "use a name such as 'UTC' or 'Europe/London'"
+    return None
+
+
+def _port(port: int) -> tuple[str, str] | None:
+    return None if 0 <= port <= 65535 else (f"is {port}", "use a port in 0..65535")
+
+
+# --------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class WarehouseConfig:
+    """Where the working warehouse and the served snapshot live (absolute paths)."""
+
+    path: Path = setting(Path("./shockflow.duckdb"), doc="the working warehouse (DuckDB file, created if missing)")
+    snapshot: Path = setting(
+        Path("./shockflow-serving.duckdb"), doc="the serving snapshot the dashboard and exports read"
+    )
+
+
+@dataclass(frozen=True)
+class SeriesSpec:
+    """One series of a universe with its resolved transform."""
+
+    name: str = setting(doc="the series name")
+    transform: str = setting(choices=tuple(TRANSFORMS), doc="its transform")
+
+
+@dataclass(frozen=True)
+class LagSelection:
+    """Choose the lag order per window by `criterion` among 1..max_lags."""
+
+    criterion: str = setting(choices=CRITERIA, doc="information criterion: {choices}")
+    max_lags: int = setting(minimum=1, doc="the largest p tried")
+
+
+@dataclass(frozen=True)
+class Bands:
+    """Impulse-response bands for the latest window of each run (defaults: inside the table)."""
+
+    method: str = setting(
+        "bootstrap", choices=BAND_METHODS, doc="`bootstrap`, `asymptotic` (Cholesky only) or `none`"
+    )
+    draws: int = setting(200, minimum=10, doc="bootstrap draws")
+    seed: int = setting(0, minimum=0, doc="random seed of the draws")
+    coverage: float = setting(0.9, check=_coverage, doc="band coverage, in [0.5, 1)")
+
+
+#: a universe without a `[universes.bands]` table
+NO_BANDS = Bands(method="none")
+
+
+@dataclass(frozen=True)
+class UniverseConfig:
+    """One `[[universes]]` entry: a named set of series and how to fit them."""
+
+    name: str = setting(doc="unique name", fit=False, check=check_name)
+    series: tuple[SeriesSpec, ...] = setting(
+        doc='list of series names, each either `"NAME"` or `{ name = "NAME", transform = "diff" }`',
+        fit_value=lambda u: [[s.name, s.transform] for s in u.series],
+    )
+    window: int = setting(
+        minimum=3,
+        doc="rows per window (rolling), or rows of the first window (expanding); must leave at least "
+        "k + n observations (k coefficients per equation) — the error suggests a window",
+    )
+    transform: str = setting(
+        "log_return", fit_via="series", choices=tuple(TRANSFORMS),  # each series carries its own
+        doc="default transform: `log_return` (ln x_t − ln x_{t−1}, needs x > 0), `pct_change` "
+        "(x_t/x_{t−1} − 1), `diff` (x_t − x_{t−1}), `level`",
+    )  # fmt: skip
+    frequency: str = setting(
+        "business_day", choices=FREQUENCIES,
+        doc="calendar: `business_day` (Mon–Fri), `weekly` (labelled by Friday, last observation of "
+        "the week), `monthly` (labelled by the month's last day, last observation of the month)",
+    )  # fmt: skip
+    max_fill_gap: int = setting(
+        3, minimum=0, doc="longest run of missing rows forward-filled per series; longer gaps stay missing"
+    )
+    step: int = setting(1, minimum=1, doc="rows between window ends")
+    expanding: bool = setting(False, doc="windows grow from the first row instead of rolling")
+    lags: int | None = setting(None, minimum=1, doc="the VAR order p (or, instead, a `lag_selection` table)")
+    lag_selection: LagSelection | None = setting(None, doc="a table choosing p per window, instead of `lags`")
+    trend: str = setting("c", choices=TRENDS, doc="`n` none, `c` intercept, `ct` intercept and linear trend")
+    horizon: int = setting(10, minimum=1, doc="H: responses 0..H, H-step decompositions and connectedness")
+    identification: str = setting(
+        "generalized", choices=IDENTIFICATIONS,
+        doc="`generalized` (Pesaran–Shin) or `cholesky` for the stored responses and decompositions "
+        "(connectedness always uses the generalized decomposition, Diebold–Yilmaz 2012)",
+    )  # fmt: skip
+    cholesky_order: tuple[str, ...] | None = setting(
+        None, default_doc="series order",
+        doc="with `cholesky`: the ordering; the universe's columns are stored in this order",
+    )  # fmt: skip
+    bands: Bands = setting(NO_BANDS, default_doc="none", doc="a table: response bands for the newest window of each run")
+    granger_level: float = setting(0.05, check=_level, doc="significance level shown for Granger tests")
+    portmanteau_lags: int | None = setting(
+        None, minimum=1, default_doc="max(10, p + 5)", fit_value=lambda u: u.residual_test_lags,
+        doc="h of the residual portmanteau test per window (h > p)",
+    )  # fmt: skip
+    #: store responses and decompositions for every `arrays_every`-th window of the grid (and for
+    #: the newest window of each run); 1 = every window. Other windows' arrays are derived on demand.
+    arrays_every: int = setting(
+        1, minimum=1, doc="store responses/decompositions for every N-th window (and the newest); see docs/warehouse.md"
+    )
+
+    @property
+    def names(self) -> tuple[str, ...]:
+        """Series names in column order."""
+        return tuple(s.name for s in self.series)
+
+    @property
+    def max_lag(self) -> int:
+        """The largest lag order any window may use."""
+        if self.lag_selection is not None:
+            return self.lag_selection.max_lags
+        assert self.lags is not None
+        return self.lags
+
+    @property
+    def residual_test_lags(self) -> int:
+        """Lags h of the portmanteau test (must exceed the lag order: df = n²(h − p))."""
+        if self.portmanteau_lags is not None:
+            return self.portmanteau_lags
+        return max(10, self.max_lag + 5)
+
+    def fit_settings(self) -> dict[str, Any]:
+        """Every setting that changes the fitted numbers, as plain JSON-able values.
+
+        Every declared field enters unless declared ``fit=False`` (the name; the default transform,
+        which `series` carries resolved), plus the fit format version.
+        """
+        return {"format": FIT_FORMAT_VERSION, **fit_document(self)}
+
+    @property
+    def config_hash(self) -> str:
+        """sha256 of the stable JSON of :meth:`fit_settings` (name excluded): 16 hex digits."""
+        text = json.dumps(self.fit_settings(), sort_keys=True, separators=(",", ":"))
+        return hashlib.sha256(text.encode()).hexdigest()[:16]
+
+
+@dataclass(frozen=True)
+class ScheduleConfig:
+    """When the nightly flow runs."""
+
+    cron: str = setting("0 22 * * 1-5", check=_cron, doc="five-field cron of the nightly run")
+    timezone: str = setting("UTC", check=_timezone, doc="IANA time zone of the cron")
+
+
+@dataclass(frozen=True)
+class ExportConfig:
+    """Where reports go and in which formats."""
+
+    directory: Path = setting(Path("./exports"), doc="reports go to `<directory>/<date>/<universe>/`")
+    formats: tuple[str, ...] = setting(
+        ("html", "csv", "parquet"), choices=EXPORT_FORMATS,
+        doc="any of {choices} (PDF needs Debian's `chromium`)",
+    )  # fmt: skip
+
+
+@dataclass(frozen=True)
+class DashboardConfig:
+    """How the dashboard is served. Secrets may be named by environment variable instead."""
+
+    host: str = setting("127.0.0.1", doc="where the dashboard listens; a non-loopback host requires credentials")
+    port: int = setting(8050, check=_port, doc="the port it listens on")
+    workers: int = setting(
+        2, minimum=1, maximum=MAX_WORKERS, doc="processes answering dashboard requests (about one per core; at most 64)"
+    )
+    token: str | None = setting(None, secret=True, doc="an access token")
+    username: str | None = setting(None, doc="basic-auth user name (with `password`)")
+    password: str | None = setting(None, secret=True, doc="basic-auth password (with `username`)")
+    token_env: str | None = setting(None, doc="the environment variable holding the token")
+    username_env: str | None = setting(None, doc="the environment variable holding the user name")
+    password_env: str | None = setting(None, doc="the environment variable holding the password")
+
+    @property
+    def is_loopback(self) -> bool:
+        """True when `host` only listens on this machine."""
+        return is_loopback(self.host)
+
+    def credentials(self, environ: Mapping[str, str]) -> dict[str, str | None]:
+        """Token / username / password, from the config or from the named variables in `environ`.
+
+        Called at the entry point (the CLI) with ``os.environ``; nothing below it reads the
+        environment.
+        """
+
+        def pick(value: str | None, env: str | None) -> str | None:
+            if value:
+                return value
+            if env:
+                return environ.get(env) or None
+            return None
+
+        return {
+            "token": pick(self.token, self.token_env),
+            "username": pick(self.username, self.username_env),
+            "password": pick(self.password, self.password_env),
+        }
+
+
+@dataclass(frozen=True)
+class ExecutionConfig:
+    """Where fits run: in this process, or on a dask.distributed cluster."""
+
+    runner: str = setting("local", choices=RUNNERS, doc="`local` (threads in this process) or `dask`")
+    address: str | None = setting(
+        None, doc="with `dask`: `local` (an in-process LocalCluster on 127.0.0.1) or `tcp://host:8786`"
+    )
+    block_windows: int = setting(1000, minimum=1, doc="windows per fit task (a large universe is split into blocks)")
+
+
+@dataclass(frozen=True)
+class Config:
+    """The whole validated configuration. `path` is the file it came from (absolute)."""
+
+    path: Path
+    warehouse: WarehouseConfig
+    sources: tuple[SourceConfig, ...]
+    universes: tuple[UniverseConfig, ...]
+    schedule: ScheduleConfig
+    export: ExportConfig
+    dashboard: DashboardConfig
+    execution: ExecutionConfig
+
+    def universe(self, name: str) -> UniverseConfig:
+        """The universe called `name`; ConfigError with did-you-mean otherwise."""
+        for u in self.universes:
+            if u.name == name:
+                return u
+        names = [u.name for u in self.universes]
+        msg = f"{self.path}: no universe named {name!r}{suggest(name, names)}; defined: {', '.join(names)}"
+        raise ConfigError(msg)
+
+    def source(self, name: str) -> SourceConfig:
+        """The source called `name`."""
+        for s in self.sources:
+            if s.name == name:
+                return s
+        names = [s.name for s in self.sources]
+        msg = f"{self.path}: no source named {name!r}{suggest(name, names)}; defined: {', '.join(names)}"
+        raise ConfigError(msg)

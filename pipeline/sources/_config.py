@@ -1,0 +1,75 @@
+"""The keys of one ``[[sources]]`` table, declared once (see :mod:`pipeline._declare`).
+
+The declaration lives beside the readers that use it, below the config loader: the loader takes
+the list of kinds from the reader registry (``pipeline.sources.KINDS``), so the readers must not
+import the loader. `kind` and `dataset` are checked against that registry when the file is read.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+from pipeline._declare import setting
+
+__all__ = ["SourceConfig", "check_name"]
+
+
+def check_name(name: str) -> tuple[str, str] | None:
+    """A source or universe name: non-empty, no slashes, tabs, newlines or surrounding spaces."""
+    if not name.strip() or name != name.strip() or any(c in name for c in "/\\\n\t"):
+        return f"is {name!r}", "use a non-empty name without slashes or surrounding spaces"
+    return None
+
+
+def _one_char(value: str) -> tuple[str, str] | None:
+    return None if len(value) == 1 else (f"is {value!r}", "use a single character such as ',' or ';'")
+
+
+def _strftime(value: str) -> tuple[str, str] | None:
+    return None if "%" in value else (f"is {value!r}", "use strftime codes, e.g. '%Y-%m-%d'")
+
+
+def _positive_seconds(value: float) -> tuple[str, str] | None:
+    return None if value > 0 else (f"is {value}", "use a positive number of seconds")
+
+
+def _seconds(value: float) -> tuple[str, str] | None:
+    return None if value >= 0 else (f"is {value}", "use a non-negative number of seconds")
+
+
+@dataclass(frozen=True)
+class SourceConfig:
+    """One `[[sources]]` entry. `path` is an absolute glob pattern (csv, parquet) or DuckDB file."""
+
+    name: str = setting(doc="unique name, recorded with every observation", check=check_name)
+    kind: str = setting(doc="{choices}")
+    path: str | None = setting(
+        None, doc="`csv`/`parquet`: a file or glob (`data/*.csv`, `**` allowed); all matching files are combined"
+    )
+    url: str | None = setting(None, doc="`http_csv`: an `http://` or `https://` address")
+    query: str | None = setting(None, doc="`duckdb_sql`: a SQL query run read-only against the DuckDB file `database`")
+    database: Path | None = setting(None, doc="`duckdb_sql`: the DuckDB file the query reads")
+    dataset: str | None = setting(None, doc="`demo`: {choices} (the files in `data_samples/`)")
+    layout: str = setting(
+        "wide", choices=("wide", "long"), default_doc="`wide` (`long` for `duckdb_sql`)",
+        doc="`wide`: a date column and one column per series; `long`: date, series, value columns",
+    )  # fmt: skip
+    date_column: str = setting("date", doc="the date column")
+    date_format: str = setting("%Y-%m-%d", doc="strftime format of text dates", check=_strftime)
+    series_column: str = setting("series", doc="the long layout's series column")
+    value_column: str = setting("value", doc="the long layout's value column")
+    delimiter: str = setting(",", doc="CSV delimiter (one character)", check=_one_char)
+    timeout: float = setting(30.0, doc="`http_csv`: seconds allowed for connecting and for each read", check=_positive_seconds)
+    retries: int = setting(
+        3, minimum=0,
+        doc="`http_csv`: extra attempts after a timeout, a dropped or truncated body, or HTTP 408/425/429/5xx",
+    )  # fmt: skip
+    backoff: float = setting(1.0, doc="`http_csv`: attempt k (0-based) that fails waits `backoff · 2^k` seconds", check=_seconds)
+
+    @property
+    def where(self) -> str:
+        """Human description of where the rows come from, for messages."""
+        return self.path or self.url or (str(self.database) if self.database else "") or (
+            f"demo dataset {self.dataset!r}"
+        )
