@@ -21,6 +21,8 @@ from ._estimate import (
     var_process,
 )
 from ._forecast import Forecast, forecast
+from ._frequency import FrequencyConnectedness, frequency_connectedness
+from ._joint import JointConnectedness, joint_connectedness
 from ._moments import (
     SpectralPeak,
     autocovariance,
@@ -40,8 +42,10 @@ __all__ = [
     "Connectedness",
     "ConnectednessBands",
     "Forecast",
+    "FrequencyConnectedness",
     "GrangerResult",
     "InvalidInputError",
+    "JointConnectedness",
     "LagSelection",
     "NormalityResult",
     "PortmanteauResult",
@@ -58,9 +62,11 @@ __all__ = [
     "fevd_bands",
     "fit_var",
     "forecast",
+    "frequency_connectedness",
     "granger_test",
     "impulse_responses",
     "irf_bands",
+    "joint_connectedness",
     "ma_coefficients",
     "minimum_window",
     "normality_test",
