@@ -107,12 +107,12 @@ class BandSettings:
 
     @classmethod
     def from_config(cls, config: dict[str, Any]) -> BandSettings:
-        raw = config.get("bands") or {}
+        raw = config.get("bands")
         if not isinstance(raw, dict):
-            return cls()
+            return cls()  # no [universes.bands] table: no bands
         d = cls()
         return cls(
-            method=str(raw.get("method", d.method)),
+            method=str(raw.get("method", "bootstrap")),  # a table without `method`: bootstrap
             draws=int(raw.get("draws", d.draws)),
             seed=int(raw.get("seed", d.seed)),
             coverage=float(raw.get("coverage", d.coverage)),

@@ -112,12 +112,14 @@ def test_a_refit_that_does_not_reproduce_the_fit_gives_no_band(snapshot_path: Pa
 
 
 def test_band_settings_defaults_are_the_configs() -> None:
-    """With no stored `bands`, the adapter uses pipeline/config.py's defaults (one setting)."""
+    """The adapter's defaults are pipeline/config's: no `bands` table means NO_BANDS, a table
+    without keys the declared defaults."""
     from pipeline.config import Bands
+    from pipeline.config._sections import NO_BANDS
 
-    d = band_settings(screen.Universe("u", ("a",), 5, 0.05, "cholesky", config=json.loads("{}")))
-    b = Bands()
-    assert (d.method, d.draws, d.seed, d.coverage) == (b.method, b.draws, b.seed, b.coverage)
+    for raw, b in (("{}", NO_BANDS), ('{"bands": {}}', Bands())):
+        d = band_settings(screen.Universe("u", ("a",), 5, 0.05, "cholesky", config=json.loads(raw)))
+        assert (d.method, d.draws, d.seed, d.coverage) == (b.method, b.draws, b.seed, b.coverage)
 
 
 def screen_numbers(snapshot_path: Path, universe: str, end) -> dict[str, np.ndarray]:
