@@ -25,7 +25,8 @@ from typing import Any
 
 import numpy as np
 
-from . import figures
+import charts
+
 from ._errors import DashboardError, WindowError
 from .data import DateWindow, Snapshot, Universe, parse_date
 
@@ -54,7 +55,7 @@ MAX_HORIZON = 60
 BOOTSTRAP_DRAWS = 199
 BOOTSTRAP_COVERAGE = 0.90
 Rows = list[dict[str, Any]]
-ViewResult = tuple[figures.Figure, Rows, str]
+ViewResult = tuple[charts.Figure, Rows, str]
 
 
 # ---------------------------------------------------------------------------------------------
@@ -64,11 +65,12 @@ ViewResult = tuple[figures.Figure, Rows, str]
 
 def parse_horizon(value: Any) -> int:
     try:
-        h = int(value)
+        h = int(value.strip()) if isinstance(value, str) else int(value)
     except (TypeError, ValueError, OverflowError):
         h = -1
     if isinstance(value, bool) or not 1 <= h <= MAX_HORIZON or (isinstance(value, float) and h != value):
-        msg = f"`horizon` must be a whole number from 1 to {MAX_HORIZON}, got {str(value)[:20]!r}"
+        typed = "nothing" if value in (None, "") else repr(str(value).strip()[:20])
+        msg = f"Horizon must be a whole number of steps from 1 to {MAX_HORIZON}; you typed {typed}."
         raise WindowError(msg)
     return h
 
@@ -146,17 +148,23 @@ def _guard(
         try:
             return view(*args, **kwargs)
         except (DashboardError, arlib.ArlibError) as exc:
-            text = str(exc)
-            return figures.message_figure(_wrap(text), height=height), [], text
+            text = page_text(str(exc))
+            return charts.message_figure(_wrap(text), height=height), [], text
         except Exception:
             log.exception("view %s failed", view.__name__)
             text = "This view could not be computed; the server log has the details."
-            return figures.message_figure(text, height=height), [], text
+            return charts.message_figure(text, height=height), [], text
 
     wrapper.__name__ = view.__name__
     wrapper.__doc__ = view.__doc__
     wrapper.__wrapped__ = view  # type: ignore[attr-defined]
     return wrapper
+
+
+def page_text(text: str) -> str:
+    """An error message as the page shows it: names in backticks become plain words (the page is
+    not Markdown, so the backticks would show literally)."""
+    return re.sub(r"`([^`]*)`", r"\1", text)
 
 
 def _wrap(text: str, width: int = 90) -> str:
@@ -183,6 +191,38 @@ def _model(fit: Any, universe: Universe) -> Any:
 # ---------------------------------------------------------------------------------------------
 # the date window
 # ---------------------------------------------------------------------------------------------
+
+
+def empty_note(universe: str) -> str:
+    """What every view says for a universe without fitted windows."""
+    return (
+        f"Universe {universe!r} has no fitted windows in the serving snapshot yet, so there is "
+        "nothing to show for it. Run the pipeline for it (shockflow run), or pick another universe."
+    )
+
+
+def _has_fitted(snap: Snapshot, universe: str) -> bool:
+    """True when `universe` has at least one fitted (not skipped) window stored."""
+    try:
+        lo, hi = snap.date_bounds(universe)
+        snap.fitted_end(DateWindow(universe, lo, hi))
+    except WindowError:
+        return False
+    return True
+
+
+def _window(snap: Snapshot, state: Any, *, fitted: bool = True) -> DateWindow:
+    """`snap.window(state)`; a universe with no windows (or, with `fitted`, no fitted window)
+    raises the one empty-universe message instead."""
+    if isinstance(state, dict) and isinstance(state.get("universe"), str):
+        u = snap.universe(state["universe"])
+        try:
+            snap.date_bounds(u.name)
+        except WindowError:
+            raise WindowError(empty_note(u.name)) from None
+        if fitted and not _has_fitted(snap, u.name):
+            raise WindowError(empty_note(u.name))
+    return snap.window(state)
 
 
 def _relayout_range(relayout: Any) -> tuple[Any, Any] | str | None:
@@ -214,7 +254,14 @@ def sync_window(
     clamped to the stored history.
     """
     u = snap.universe(universe)
-    lo, hi = snap.date_bounds(u.name)
+    try:
+        lo, hi = snap.date_bounds(u.name)
+    except WindowError:
+        # a universe with no stored windows: its own (empty) state, so no view keeps showing the
+        # universe picked before; every view then says this universe has nothing yet
+        if trigger == "relayout":
+            raise
+        return "", "", {"universe": u.name, "start": "", "end": ""}, empty_note(u.name)
     if trigger == "relayout":
         rng = _relayout_range(relayout)
         if rng == "auto":
@@ -226,12 +273,14 @@ def sync_window(
     elif trigger in (None, "universe"):
         start, end = lo, hi
     window = snap.window({"universe": u.name, "start": start, "end": end})
-    used = snap.fitted_end(window)
+    if not _has_fitted(snap, u.name):
+        return window.start.isoformat(), window.end.isoformat(), window.as_store(), empty_note(u.name)
     count = len(snap.index_in(window))
-    note = (
-        f"Date window {window.label} ({count} windows). Views at one window use the window ending "
-        f"{used.isoformat()}."
-    )
+    try:
+        used = f"Views at one window use the window ending {snap.fitted_end(window).isoformat()}."
+    except WindowError as exc:  # fitted windows exist, just not in this range
+        used = page_text(str(exc)) + "."
+    note = f"Date window {window.label} ({count} windows). {used}"
     return window.start.isoformat(), window.end.isoformat(), window.as_store(), note
 
 
@@ -243,9 +292,12 @@ def sync_window(
 @_guard
 def index_view(snap: Snapshot, state: Any, quantile: Any = 0.9) -> ViewResult:
     """The connectedness index over the whole history, x-range on the chosen window, stress shaded."""
-    window = snap.window(state)
+    window = _window(snap, state)
     q = parse_fraction(quantile, "stress quantile", 0.5, 0.999)
     history = snap.index_history(window.universe)
+    if not history:
+        raise WindowError(empty_note(window.universe))
+    u = snap.universe(window.universe)
     dates = [d for d, _ in history]
     totals = [float(v) for _, v in history]
     threshold = float(np.quantile(totals, q)) if totals else None
@@ -253,9 +305,9 @@ def index_view(snap: Snapshot, state: Any, quantile: Any = 0.9) -> ViewResult:
         used = snap.fitted_end(window)
     except WindowError:
         used = None
-    fig = figures.index_figure(
+    fig = charts.index_figure(
         dates, totals, start=window.start, end=window.end, reference_end=used,
-        threshold=threshold, universe=window.universe,
+        threshold=threshold, universe=window.universe, horizon=u.horizon,
     )  # fmt: skip
     rows = [
         {"window_end": _iso(d), "total_percent": _num(v),
@@ -360,7 +412,7 @@ def paths_view(
     bands: Any,
 ) -> ViewResult:
     """Impulse-response grid (responses × shocks) at the reference window end."""
-    window = snap.window(state)
+    window = _window(snap, state)
     u = snap.universe(window.universe)
     ident = parse_choice(identification, IDENTIFICATIONS, "identification")
     band = parse_choice(bands or "none", BAND_CHOICES, "bands")
@@ -387,15 +439,21 @@ def paths_view(
         )
     if band == "none":
         lower = upper = None
-    label = "generalized" if ident == "generalized" else "Cholesky, order " + " → ".join(order)
+    label = "generalized" if ident == "generalized" else "Cholesky"
     kind = "cumulative response" if cum else "response"
     title = f"Shock paths at the window ending {end} — {label}, {kind}, horizons 0–{H}"
+    order_text = (
+        "Cholesky order (first = most exogenous): " + " → ".join(order)
+        if ident == "cholesky" else None
+    )  # fmt: skip
     unit = (
         "cumulated change of the responding series per one-s.d. shock"
         if cum
         else "change of the responding series (as prepared) per one-s.d. shock"
     )
-    fig = figures.responses_figure(resp, u.series, lower=lower, upper=upper, title=title, yunit=unit)
+    fig = charts.responses_figure(
+        resp, u.series, lower=lower, upper=upper, title=title, subtitle=order_text, yunit=unit
+    )
     end_text, names = _iso(end), u.series
     values = _nums(resp)
     lows = [None] * len(values) if lower is None else _nums(lower)
@@ -431,21 +489,19 @@ def _shares(
 @_guard
 def shares_view(snap: Snapshot, state: Any, ordering: Any, horizon: Any) -> ViewResult:
     """Generalized and Cholesky variance shares per series at the chosen horizon."""
-    window = snap.window(state)
+    window = _window(snap, state)
     u = snap.universe(window.universe)
     H = parse_horizon(horizon)
     order = parse_order(ordering, u)
     end = snap.fitted_end(window)
     gen, gsrc = _shares(snap, u, end, "generalized", order, H)
     chol, csrc = _shares(snap, u, end, "cholesky", order, H)
-    fig = figures.shares_figure(
+    fig = charts.shares_figure(
         [("generalized<br>(rows normalised to 100%)", gen),
          ("Cholesky<br>(recursive order in the title)", chol)],
         u.series,
-        title=(
-            f"Variance shares at {H} steps ahead, window ending {end}<br><span style='font-size:11px;"
-            f"color:#444'>Cholesky order (first = most exogenous): {' → '.join(order)}</span>"
-        ),
+        title=f"Variance shares at {H} steps ahead, window ending {end}",
+        subtitle=f"Cholesky order (first = most exogenous): {' → '.join(order)}",
     )  # fmt: skip
     rows = [
         {"window_end": _iso(end), "steps": H, "method": m, "series": u.series[i],
@@ -460,13 +516,13 @@ def shares_view(snap: Snapshot, state: Any, ordering: Any, horizon: Any) -> View
 @_guard
 def leadlag_view(snap: Snapshot, state: Any, level: Any) -> ViewResult:
     """Granger p-values at the window end, and the share of windows significant in the date window."""
-    window = snap.window(state)
+    window = _window(snap, state)
     u = snap.universe(window.universe)
     alpha = parse_fraction(level, "significance level", 0.0, 0.5)
     end = snap.fitted_end(window)
     pvals = snap.granger_at(u, end)
     share, count = snap.granger_share(window, u, alpha)
-    fig = figures.granger_figure(
+    fig = charts.granger_figure(
         pvals, share, u.series, level=alpha, window_end=end, n_windows=count, date_label=window.label
     )
     n = len(u.series)
@@ -489,7 +545,7 @@ def _directional_from(table: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 @_guard
 def network_view(snap: Snapshot, state: Any, mode: Any, size_by: Any) -> ViewResult:
     """Directed graph of net pairwise spillovers, at the window end or averaged over the window."""
-    window = snap.window(state)
+    window = _window(snap, state)
     u = snap.universe(window.universe)
     how = parse_choice(mode, ("end", "mean"), "network mode")
     size = parse_choice(size_by, ("to", "from"), "node size")
@@ -505,9 +561,11 @@ def network_view(snap: Snapshot, state: Any, mode: Any, size_by: Any) -> ViewRes
         what = f"averaged over {count} windows, {window.label}"
         span = {"date_window": window.label, "windows": count}
     to_others, from_others = _directional_from(table)
-    fig = figures.network_figure(
+    fig = charts.network_figure(
         table, u.series, to_others=to_others, from_others=from_others, size_by=size,
-        title=f"Net pairwise spillovers {what}",
+        title=f"Net pairwise spillovers {what}, {u.horizon}-step horizon",
+        subtitle=(f"stored at the universe's {u.horizon}-step horizon (the horizon control does not "
+                  "change it)"),
     )  # fmt: skip
     n = len(u.series)
     rows = [
@@ -540,7 +598,7 @@ def compare_pairs_view(
     snap: Snapshot, state: Any, a_start: Any, a_end: Any, b_start: Any, b_end: Any
 ) -> ViewResult:
     """Pairwise spillovers averaged over date window A and B, and their change B − A."""
-    window = snap.window(state)
+    window = _window(snap, state)
     u = snap.universe(window.universe)
     first, second = _compare_windows(snap, window, (a_start, a_end), (b_start, b_end))
     ta, ca = snap.pairwise_mean(first, u)
@@ -550,7 +608,7 @@ def compare_pairs_view(
             f"window {'A' if ca == 0 else 'B'} ({(first if ca == 0 else second).label}) holds no "
             "fitted windows; widen it"
         )
-    fig = figures.pairwise_compare_figure(ta, tb, u.series, labels=(first.label, second.label))
+    fig = charts.pairwise_compare_figure(ta, tb, u.series, labels=(first.label, second.label))
     n = len(u.series)
     rows = [
         {"target": u.series[i], "source": u.series[j], "a_window": first.label, "a_windows": ca,
@@ -580,7 +638,7 @@ def compare_paths_view(
     horizon: Any,
 ) -> ViewResult:
     """Impulse responses at the last fitted window of A and of B, overlaid."""
-    window = snap.window(state)
+    window = _window(snap, state)
     u = snap.universe(window.universe)
     first, second = _compare_windows(snap, window, (a_start, a_end), (b_start, b_end))
     ident = parse_choice(identification, IDENTIFICATIONS, "identification")
@@ -592,7 +650,7 @@ def compare_paths_view(
         for e in ends
     ]
     labels = (f"A: window ending {ends[0]}", f"B: window ending {ends[1]}")
-    fig = figures.responses_compare_figure(
+    fig = charts.responses_compare_figure(
         paths[0], paths[1], u.series, labels=labels,
         title=f"Shock paths, {ident}: A (solid) against B (dashed)",
     )  # fmt: skip
@@ -624,7 +682,7 @@ def compare_view(
 @_guard
 def health_view(snap: Snapshot, state: Any, near_one: Any = 0.98) -> ViewResult:
     """Lag order, spectral radius, residual test and observations over the date window."""
-    window = snap.window(state)
+    window = _window(snap, state, fitted=False)
     near = parse_fraction(near_one, "near-one threshold", 0.0, 1.0)
     rows_db = snap.health(window)
     if not rows_db:
@@ -634,7 +692,7 @@ def health_view(snap: Snapshot, state: Any, near_one: Any = 0.98) -> ViewResult:
     records = [dict(zip(cols, r, strict=True)) for r in rows_db]
     fitted = [r for r in records if r["skip_reason"] is None]
     skipped = [(r["window_end"], str(r["skip_reason"])) for r in records if r["skip_reason"] is not None]
-    fig = figures.health_figure(
+    fig = charts.health_figure(
         [r["window_end"] for r in fitted], [r["lags"] for r in fitted],
         [r["spectral_radius"] for r in fitted], [r["portmanteau_p"] for r in fitted],
         [r["nobs"] for r in fitted], skipped=skipped, near_one=near,
@@ -718,20 +776,20 @@ def cycles_view(snap: Snapshot, state: Any) -> ViewResult:
     density integrates to it over [−π, π]), so series in different units share an axis on which
     white noise is flat at 1/(2π).
     """
-    window = snap.window(state)
+    window = _window(snap, state)
     u = snap.universe(window.universe)
     end = snap.fitted_end(window)
     freqs = CYCLE_FREQUENCIES
-    spectra: list[tuple[str, np.ndarray, float | None]] = []
+    spectra: list[tuple[int, str, np.ndarray, float | None]] = []
     rows: Rows = []
     notes: list[str] = []
     end_text = end.isoformat()
     freq_list = freqs.tolist()
-    for c in _own_cycles(snap, u, end):
+    for k, c in enumerate(_own_cycles(snap, u, end)):
         if c.density is None:
             notes.append(f"{c.name}: own AR({c.lags}) not stationary (radius {c.radius:.3f}), no spectrum")
             continue
-        spectra.append((c.name, c.density / c.variance, c.period))
+        spectra.append((k, c.name, c.density / c.variance, c.period))
         notes.append(f"{c.name} AR({c.lags}): " + (f"{c.period:.1f} obs" if c.period is not None else "no cycle"))
         scaled = (c.density / c.variance).tolist()
         rows.extend(
@@ -742,7 +800,7 @@ def cycles_view(snap: Snapshot, state: Any) -> ViewResult:
         )  # fmt: skip
     if not spectra:
         raise WindowError(f"no series has a stationary own AR in the window ending {end}")
-    fig = figures.cycles_figure(
+    fig = charts.cycles_figure(
         freqs, spectra,
         title=f"Own-dynamics spectrum per series (univariate AR, order by AIC; window ending {end})",
     )  # fmt: skip
@@ -851,7 +909,7 @@ def register(app: Any, snap: Snapshot, settings: Any = None) -> None:
         except DashboardError:
             raise PreventUpdate from None
         ident = u.identification if u.identification in IDENTIFICATIONS else "generalized"
-        return list(u.series), list(u.series), u.horizon, u.granger_level, ident
+        return list(u.series), list(u.series), str(u.horizon), u.granger_level, ident
 
     @app.callback(
         Output(ids.INDEX_GRAPH, "figure"), Output(ids.chart_data("index"), "data"),

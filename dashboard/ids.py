@@ -23,6 +23,8 @@ STATUS = "snapshot-status"
 # -- shared model controls -----------------------------------------------------------------------
 HORIZON = "horizon"
 ORDERING = "cholesky-ordering"
+MODEL_BAR = "model-bar"
+MODEL_BAR_TITLE = "model-bar-title"
 
 TABS = "views"
 TAB_PATHS = "paths"

@@ -8,6 +8,7 @@ queries more than the universe list and the report folder.
 from __future__ import annotations
 
 import datetime as dt
+import re
 import urllib.parse
 from collections.abc import Sequence
 from typing import Any
@@ -93,11 +94,33 @@ def skipped_table(rows: Sequence[tuple[str, str]]) -> html.Div:
     )
 
 
+_HASHED = r"(-[0-9a-f]{6,16})?"
+
+
+def _of_universe(rel: str, universe: str) -> bool:
+    """True when the exported file `rel` belongs to `universe`: a folder named after it (as given,
+    or as the export makes it safe for a folder name, optionally with a short hash suffix), or a
+    file name starting with that name and a dash."""
+    names = {universe, re.sub(r"_{2,}", "_", re.sub(r"[^A-Za-z0-9._-]+", "_", universe)).strip("._-")}
+    parts = rel.split("/")
+    for name in filter(None, names):
+        pattern = re.escape(name) + _HASHED
+        if any(re.fullmatch(pattern, p) for p in parts[:-1]):
+            return True
+        if re.match(pattern + r"-\d{4}-\d{2}-\d{2}", parts[-1]):
+            return True
+    return False
+
+
 def report_links(export_dir: Any, universe: str | None) -> list[Any]:
-    """Links to the newest exported reports, the chosen universe's first (served by /reports/)."""
-    files = latest_reports(export_dir, prefer=universe)
+    """Links to the chosen universe's newest exported reports (served by /reports/); never another
+    universe's."""
+    files = latest_reports(export_dir, prefer=universe, limit=64)
+    if universe is not None:
+        files = [f for f in files if _of_universe(f[0], universe)]
     if not files:
-        return [html.Span("No exported report yet.", className="note")]
+        who = f" for {universe}" if universe else ""
+        return [html.Span(f"No exported report{who} yet.", className="note")]
     links: list[Any] = [html.Span("Exported reports: ", className="ctl-label")]
     for k, (rel, mtime) in enumerate(files[:4]):
         stamp = dt.datetime.fromtimestamp(mtime).strftime("%Y-%m-%d %H:%M")
@@ -209,6 +232,28 @@ def _tabs(series: Sequence[str], level: float, identification: str) -> dcc.Tabs:
     )  # fmt: skip
 
 
+def _model_bar(first: Any) -> html.Div:
+    """Horizon and Cholesky ordering, above the tabs they drive (never the stored index above)."""
+    return html.Div(
+        [
+            html.Span(
+                "Settings for Shock paths, Variance shares and Compare windows (the connectedness "
+                "index and the network use the universe's stored horizon):",
+                className="ctl-label model-bar-title", id=ids.MODEL_BAR_TITLE,
+            ),
+            _label("Horizon (steps, 1–60)", dcc.Input(
+                id=ids.HORIZON, type="text", inputMode="numeric",
+                value=str(first.horizon) if first else "10", debounce=True, className="num-input",
+            )),
+            _label("Cholesky ordering (first = most exogenous)", dcc.Dropdown(
+                id=ids.ORDERING, multi=True, value=list(first.series) if first else [],
+                options=list(first.series) if first else [], placeholder="stored order",
+            ), width="330px"),
+        ],
+        className="controls model-bar", id=ids.MODEL_BAR,
+    )  # fmt: skip
+
+
 def build(snap: Snapshot, settings: DashboardSettings) -> html.Div:
     """The whole page for one visitor (evaluated per page load)."""
     try:
@@ -240,14 +285,6 @@ def build(snap: Snapshot, settings: DashboardSettings) -> html.Div:
                         id=ids.STRESS_QUANTILE, clearable=False, value=0.9,
                         options=[{"label": f"{int(q * 100)}th pct", "value": q} for q in (0.75, 0.9, 0.95)],
                     ), width="140px"),
-                    _label("Horizon (steps)", dcc.Input(
-                        id=ids.HORIZON, type="number", min=1, max=60, step=1,
-                        value=first.horizon if first else 10, debounce=True, className="num-input",
-                    )),
-                    _label("Cholesky ordering (first = most exogenous)", dcc.Dropdown(
-                        id=ids.ORDERING, multi=True, value=list(first.series) if first else [],
-                        options=list(first.series) if first else [], placeholder="stored order",
-                    ), width="330px"),
                 ],
                 className="controls window-bar",
             ),
@@ -265,6 +302,7 @@ def build(snap: Snapshot, settings: DashboardSettings) -> html.Div:
         html.Div([html.P(id=ids.STATUS, className="note"), _csv("index"),
                   _reports(settings, names[0] if names else None)],
                  className="under-index"),
+        _model_bar(first),
         _tabs(
             first.series if first else (), first.granger_level if first else 0.05,
             first.identification if first and first.identification in IDENTIFICATIONS else "generalized",

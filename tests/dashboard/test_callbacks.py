@@ -347,3 +347,166 @@ def test_views_over_a_narrow_window_use_that_window(snap: Snapshot, universe_nam
         _, rows, note = view()
         assert rows and rows[0]["window_end"] == end.isoformat()
         assert end.isoformat() in note
+
+
+# -- empty universes, the horizon control, figure layout (issue 10, items 2–4) --------------------
+
+
+def add_universe(source: Path, target: Path, name: str, series: tuple[str, ...], *, skipped: bool) -> Path:
+    """A copy of the snapshot `source` with one more universe `name` that has no fitted window:
+    none at all, or (with `skipped`) only skipped ones."""
+    import shutil
+
+    import duckdb
+
+    shutil.copy(source, target)
+    con = duckdb.connect(str(target))
+    try:
+        con.execute(
+            "INSERT INTO universes (universe, config_hash, config_json, horizon, granger_level, identification, run_id) "
+            "VALUES (?, 'h', '{}', 7, 0.05, 'generalized', 'r-empty')", [name])
+        for i, s in enumerate(series):
+            con.execute("INSERT INTO universe_series (universe, position, series, transform) VALUES (?, ?, ?, 'none')", [name, i, s])
+        if skipped:
+            con.execute(
+                "INSERT INTO window_fits (run_id, universe, window_end, window_start, nobs, lags, skip_reason) "
+                "VALUES ('r-empty', ?, DATE '2021-01-29', DATE '2020-01-01', 40, 1, 'too few rows (test)')", [name])
+    finally:
+        con.close()
+    return target
+
+
+ALL_VIEWS = (
+    lambda snap, st: cb.index_view(snap, st, 0.9),
+    lambda snap, st: cb.paths_view(snap, st, "generalized", None, [], 10, "stored"),
+    lambda snap, st: cb.shares_view(snap, st, None, 10),
+    lambda snap, st: cb.leadlag_view(snap, st, 0.05),
+    lambda snap, st: cb.network_view(snap, st, "end", "to"),
+    lambda snap, st: cb.compare_pairs_view(snap, st, None, None, None, None),
+    lambda snap, st: cb.compare_paths_view(snap, st, None, None, None, None, "generalized", None, 5),
+    lambda snap, st: cb.cycles_view(snap, st),
+)
+
+
+@pytest.mark.parametrize("skipped", [False, True], ids=["no-windows", "only-skipped"])
+def test_empty_universe_gets_its_own_empty_state(snapshot_path: Path, universe_name: str, state: dict[str, str], tmp_path: Path, skipped: bool) -> None:
+    """Picking a universe without fitted windows gives a new window state for it (not the previous
+    universe's), and every view says that universe has nothing yet — nothing from another."""
+    path = add_universe(snapshot_path, tmp_path / "s.duckdb", "zz_empty", ("E_ONE", "E_TWO"), skipped=skipped)
+    snap = Snapshot(path)
+    try:
+        start, end, new_state, note = cb.sync_window(snap, "zz_empty", state["start"], state["end"], None, "universe")
+        assert new_state["universe"] == "zz_empty"
+        assert "zz_empty" in note and "no fitted windows" in note
+        for view in ALL_VIEWS:
+            fig, rows, text = view(snap, new_state)
+            assert rows == [] and fig["data"] == []
+            assert "zz_empty" in text and "no fitted windows" in text, text
+            assert universe_name not in str(fig)
+        fig, rows, text = cb.health_view(snap, new_state, 0.98)
+        if skipped:  # the skipped windows and their reasons are the useful empty state
+            assert [r["skip_reason"] for r in rows] == ["too few rows (test)"]
+        else:
+            assert "zz_empty" in text and rows == []
+    finally:
+        snap.reader.close()
+
+
+def test_report_links_only_name_the_chosen_universe(export_dir: Path) -> None:
+    from dashboard.layout import report_links
+
+    def hrefs(universe: str | None) -> list[str]:
+        return [c.href for c in report_links(export_dir, universe) if getattr(c, "href", None)]
+
+    assert hrefs("demo_four") and all("demo_four" in h for h in hrefs("demo_four"))
+    assert hrefs("zz_empty") == []
+    assert "No exported report for zz_empty yet." in str(report_links(export_dir, "zz_empty"))
+
+
+@pytest.mark.parametrize("typed", ["500", "0", "2.5", "ten", ""])
+def test_horizon_message_quotes_what_was_typed(snap: Snapshot, state: dict[str, str], typed: str) -> None:
+    for view in (
+        lambda: cb.paths_view(snap, state, "generalized", None, [], typed, "none"),
+        lambda: cb.shares_view(snap, state, None, typed),
+    ):
+        fig, rows, note = view()
+        assert rows == []
+        assert "`" not in note and "None" not in note, note
+        assert (repr(typed) if typed else "nothing") in note, note
+        assert "1 to 60" in note
+
+
+def test_index_and_network_titles_name_the_stored_horizon(snap: Snapshot, state: dict[str, str], universe_name: str) -> None:
+    h = snap.universe(universe_name).horizon
+    for fig in (cb.index_view(snap, state, 0.9)[0], cb.network_view(snap, state, "end", "to")[0]):
+        title = fig["layout"]["title"]["text"]
+        assert f"{h}-step horizon" in title, title
+        assert "does not change it" in title, title
+
+
+def _legend_above_figure(layout: dict[str, Any]) -> bool:
+    """True when a legend is anchored at or above the top edge of the figure (over the page's
+    controls): container coordinates near 1 growing upwards."""
+    legend = layout.get("legend", {})
+    return legend.get("yref") == "container" and legend.get("yanchor") == "bottom" and legend.get("y", 0) > 0.5
+
+
+def _title_lines(layout: dict[str, Any]) -> list[str]:
+    import re
+
+    text = layout.get("title", {}).get("text", "")
+    return [re.sub(r"<[^>]+>", "", line) for line in text.split("<br>")]
+
+
+def _y_gaps(layout: dict[str, Any]) -> list[float]:
+    """Gaps (paper fraction) between horizontally adjacent panels of a grid."""
+    domains = sorted({tuple(v["domain"]) for k, v in layout.items() if k.startswith("xaxis") and "domain" in v})
+    return [b[0] - a[1] for a, b in zip(domains, domains[1:]) if b[0] > a[0]]
+
+
+def test_response_grids_keep_legend_title_and_ticks_inside(snap: Snapshot, state: dict[str, str], universe_name: str) -> None:
+    """Layout of the shock-path and compare grids: the legend never above the figure, title lines
+    short enough to fit, and room between panels for a panel's y-tick labels."""
+    u = snap.universe(universe_name)
+    order = list(reversed(u.series))
+    figs = [
+        cb.paths_view(snap, state, "cholesky", order, [], 10, "stored")[0],
+        cb.compare_paths_view(snap, state, None, None, None, None, "cholesky", order, 5)[0],
+        cb.health_view(snap, state, 0.98)[0],
+    ]
+    for fig in figs:
+        layout = fig["layout"]
+        assert not _legend_above_figure(layout), layout.get("legend")
+        assert max(len(line) for line in _title_lines(layout)) <= 120, _title_lines(layout)
+    for fig in figs[:2]:
+        gaps = _y_gaps(fig["layout"])
+        assert gaps and min(gaps) >= 0.05, gaps
+    # the whole Cholesky order is still said, on its own line
+    assert " → ".join(order) in fig["layout"]["title"]["text"] or " → ".join(order) in figs[0]["layout"]["title"]["text"]
+
+
+def test_column_headers_are_the_same_words_in_every_universe(snap: Snapshot, state: dict[str, str], universe_name: str) -> None:
+    """Headers of the shock-path grid are the shocked series' names, whatever the universe's size."""
+    for name in snap.universes():
+        u = snap.universe(name)
+        st = {"universe": name, "start": None, "end": None}
+        fig = cb.paths_view(snap, st, "generalized", None, [], 5, "none")[0]
+        top = max(a["y"] for a in fig["layout"]["annotations"])
+        headers = [a["text"] for a in fig["layout"]["annotations"] if a["y"] == top]
+        assert headers == list(u.series), (name, headers)
+
+
+def test_network_nodes_fill_the_plot_and_labels_point_outwards(snap: Snapshot, state: dict[str, str]) -> None:
+    fig = cb.network_view(snap, state, "end", "to")[0]
+    nodes = next(t for t in fig["data"] if t["name"] == "series")
+    xs, ys = np.array(nodes["x"]), np.array(nodes["y"])
+    xr, yr = fig["layout"]["xaxis"]["range"], fig["layout"]["yaxis"]["range"]
+    # the nodes span most of the plot both ways, no square-locked small circle in the middle
+    assert (xs.max() - xs.min()) / (xr[1] - xr[0]) >= 0.6
+    assert (ys.max() - ys.min()) / (yr[1] - yr[0]) >= 0.6
+    assert "scaleanchor" not in fig["layout"]["yaxis"]
+    # each label sits on the outer side of its node
+    for x, y, where in zip(xs, ys, nodes["textposition"], strict=True):
+        vertical, horizontal = where.split()
+        out = {"top": 1, "bottom": -1, "middle": 0}[vertical] * y + {"left": -1, "right": 1, "center": 0}[horizontal] * x
+        assert out > 0, (x, y, where)
