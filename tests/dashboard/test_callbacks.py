@@ -5,6 +5,7 @@ from __future__ import annotations
 import csv
 import datetime as dt
 import io
+import itertools
 from pathlib import Path
 from typing import Any
 
@@ -395,7 +396,7 @@ def test_empty_universe_gets_its_own_empty_state(snapshot_path: Path, universe_n
     path = add_universe(snapshot_path, tmp_path / "s.duckdb", "zz_empty", ("E_ONE", "E_TWO"), skipped=skipped)
     snap = Snapshot(path)
     try:
-        start, end, new_state, note = cb.sync_window(snap, "zz_empty", state["start"], state["end"], None, "universe")
+        _, _, new_state, note = cb.sync_window(snap, "zz_empty", state["start"], state["end"], None, "universe")
         assert new_state["universe"] == "zz_empty"
         assert "zz_empty" in note and "no fitted windows" in note
         for view in ALL_VIEWS:
@@ -429,7 +430,7 @@ def test_horizon_message_quotes_what_was_typed(snap: Snapshot, state: dict[str, 
         lambda: cb.paths_view(snap, state, "generalized", None, [], typed, "none"),
         lambda: cb.shares_view(snap, state, None, typed),
     ):
-        fig, rows, note = view()
+        _, rows, note = view()
         assert rows == []
         assert "`" not in note and "None" not in note, note
         assert (repr(typed) if typed else "nothing") in note, note
@@ -461,7 +462,7 @@ def _title_lines(layout: dict[str, Any]) -> list[str]:
 def _y_gaps(layout: dict[str, Any]) -> list[float]:
     """Gaps (paper fraction) between horizontally adjacent panels of a grid."""
     domains = sorted({tuple(v["domain"]) for k, v in layout.items() if k.startswith("xaxis") and "domain" in v})
-    return [b[0] - a[1] for a, b in zip(domains, domains[1:]) if b[0] > a[0]]
+    return [b[0] - a[1] for a, b in itertools.pairwise(domains) if b[0] > a[0]]
 
 
 def test_response_grids_keep_legend_title_and_ticks_inside(snap: Snapshot, state: dict[str, str], universe_name: str) -> None:
