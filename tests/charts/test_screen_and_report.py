@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 
 import charts
-from dashboard import callbacks as cb
+from dashboard import views as cb
 from dashboard.data import Snapshot
 from tests.dashboard import _pipeline
 from tests.pipeline.test_export import plotly_traces, response_panels, trace_array
