@@ -159,6 +159,11 @@ def layout(
         out["title"] = {"text": text, "x": 0.0, "xanchor": "left", "xref": "paper",
                         "font": {"size": 14 if medium == "screen" else 15}}  # fmt: skip
     out.update(extra)
+    if title:
+        # margins assume a title of at most two lines; each further line gets room of its own
+        more = out["title"]["text"].count("<br>") - 1
+        if more > 0:
+            out["margin"] = {**out["margin"], "t": out["margin"].get("t", 60) + 16 * more}
     return out
 
 
