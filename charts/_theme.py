@@ -103,7 +103,8 @@ def panels(values: np.ndarray) -> list[list[list[Any]]]:
 def matrix(z: np.ndarray) -> list[list[Any]]:
     arr = np.asarray(z, dtype=float)
     if np.isfinite(arr).all():
-        return arr.tolist()  # type: ignore[no-any-return]  # numpy's tolist is typed Any
+        out: list[list[Any]] = arr.tolist()
+        return out
     return [as_list(row) for row in arr]
 
 

@@ -157,11 +157,12 @@ def _view_callback(snap: Snapshot, view: View) -> Callable[..., list[Any]]:
     from dash.exceptions import PreventUpdate
 
     def run(state: Any, *values: Any) -> list[Any]:
+        given = list(values)
         if view.tab is not None:
-            *values, active = values
+            active = given.pop()
             if active != view.name:  # only the visible tab computes
                 raise PreventUpdate
-        triples = view.results(snap, state, *values)
+        triples = view.results(snap, state, *given)
         out: list[Any] = []
         for fig, rows, _ in triples:
             out += [fig, rows]

@@ -52,9 +52,9 @@ def _tab(view: View, first: Universe | None) -> dcc.Tab:
 
 
 def _tabs(first: Universe | None) -> dcc.Tabs:
-    tabs = [_tab(v, first) for v in views.VIEWS if v.tab]
+    shown = [v for v in views.VIEWS if v.tab]
     return dcc.Tabs(
-        id=ids.TABS, value=tabs[0].value, children=tabs, className="view-tabs",
+        id=ids.TABS, value=shown[0].name, children=[_tab(v, first) for v in shown], className="view-tabs",
         parent_className="view-tabs-parent",
     )  # fmt: skip
 
