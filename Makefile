@@ -36,7 +36,7 @@ bench: $(STAMP)
 	$(PY) -m bench
 
 lint: $(STAMP)
-	$(VENV)/bin/ruff check arlib pipeline dashboard tests bench
+	$(VENV)/bin/ruff check arlib pipeline dashboard charts tests bench
 	$(VENV)/bin/mypy
 
 clean:

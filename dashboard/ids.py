@@ -1,12 +1,26 @@
-"""Component ids, in one place so layout, callbacks and browser tests agree.
+"""Component ids shared by the page, the callbacks and the browser tests.
 
-Chart-data stores, CSV buttons and downloads use pattern-matching ids ``{"type": ..., "chart": name}``
-with `CHARTS` naming every chart.
+The ids of each view (its graphs, note and tab) are generated from `dashboard.views.VIEWS` with
+`graph_id` and `note_id`; a view's own controls declare their ids beside it in that table. Here
+are only the ids every view shares: the universe and date window, the shared model settings, the
+tabs, the report links and the caution. Chart-data stores, CSV buttons and downloads use
+pattern-matching ids ``{"type": ..., "chart": name}``.
 """
 
 from __future__ import annotations
 
-__all__ = ["CHARTS", "TABS", "chart_data", "csv_button", "csv_download"]
+__all__ = ["chart_data", "csv_button", "csv_download", "graph_id", "note_id"]
+
+
+def graph_id(chart: str) -> str:
+    """The dcc.Graph of chart `chart` (a chart name of `views.VIEWS`)."""
+    return f"{chart}-graph"
+
+
+def note_id(view: str) -> str:
+    """The line of text under view `view`."""
+    return f"{view}-note"
+
 
 # -- the date window (drives every view) ---------------------------------------------------------
 UNIVERSE = "universe"
@@ -14,80 +28,19 @@ START = "window-start"
 END = "window-end"
 WINDOW = "window-state"  # dcc.Store {"universe", "start", "end"}
 WINDOW_NOTE = "window-note"
-INDEX_GRAPH = "index-graph"
+INDEX_GRAPH = graph_id("index")  # its range slider also sets the date window
 STRESS_QUANTILE = "stress-quantile"
 REPORTS = "reports"
 CAUTION = "caution"
-STATUS = "snapshot-status"
+STATUS = "snapshot-status"  # the note under the index
 
-# -- shared model controls -----------------------------------------------------------------------
+# -- shared model settings (the views using them are named above them on the page) ---------------
 HORIZON = "horizon"
 ORDERING = "cholesky-ordering"
+MODEL_BAR = "model-bar"
+MODEL_BAR_TITLE = "model-bar-title"
 
 TABS = "views"
-TAB_PATHS = "paths"
-TAB_SHARES = "shares"
-TAB_LEADLAG = "leadlag"
-TAB_NETWORK = "network"
-TAB_COMPARE = "compare"
-TAB_HEALTH = "health"
-TAB_CYCLES = "cycles"
-
-# -- shock paths ---------------------------------------------------------------------------------
-IDENTIFICATION = "identification"
-CUMULATIVE = "cumulative"
-BANDS = "bands"
-PATHS_GRAPH = "paths-graph"
-PATHS_NOTE = "paths-note"
-
-# -- variance shares -----------------------------------------------------------------------------
-SHARES_GRAPH = "shares-graph"
-SHARES_NOTE = "shares-note"
-
-# -- lead–lag ------------------------------------------------------------------------------------
-LEVEL = "granger-level"
-LEADLAG_GRAPH = "leadlag-graph"
-LEADLAG_NOTE = "leadlag-note"
-
-# -- network -------------------------------------------------------------------------------------
-NETWORK_MODE = "network-mode"
-NETWORK_SIZE = "network-size"
-NETWORK_GRAPH = "network-graph"
-NETWORK_NOTE = "network-note"
-
-# -- window comparison ---------------------------------------------------------------------------
-A_START = "compare-a-start"
-A_END = "compare-a-end"
-B_START = "compare-b-start"
-B_END = "compare-b-end"
-COMPARE_PAIRS_GRAPH = "compare-pairs-graph"
-COMPARE_PATHS_GRAPH = "compare-paths-graph"
-COMPARE_NOTE = "compare-note"
-
-# -- model health --------------------------------------------------------------------------------
-NEAR_ONE = "near-one"
-HEALTH_GRAPH = "health-graph"
-HEALTH_NOTE = "health-note"
-SKIPPED_TABLE = "skipped-table"
-
-# -- own cycles ----------------------------------------------------------------------------------
-CYCLES_GRAPH = "cycles-graph"
-CYCLES_NOTE = "cycles-note"
-
-TABS_ORDER = (TAB_PATHS, TAB_SHARES, TAB_LEADLAG, TAB_NETWORK, TAB_COMPARE, TAB_HEALTH, TAB_CYCLES)
-
-#: Every chart whose data can be downloaded as CSV, by name.
-CHARTS = (
-    "index",
-    "paths",
-    "shares",
-    "leadlag",
-    "network",
-    "compare-pairs",
-    "compare-paths",
-    "health",
-    "cycles",
-)
 
 
 def chart_data(chart: str) -> dict[str, str]:

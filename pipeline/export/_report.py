@@ -22,10 +22,10 @@ import numpy as np
 import plotly.io as pio
 import polars as pl
 
-from pipeline.export import _figures as figs
+import charts
 
 if TYPE_CHECKING:
-    from pipeline.export._data import ReportData
+    from pipeline.export._data import ReportData, ResponseSet
 
 __all__ = ["CAUTION", "render_report"]
 
@@ -53,7 +53,9 @@ def _pval(p: float, f: float, level: float) -> str:
     if p is None or math.isnan(p):
         return '<td class="na">–</td>'
     flag = ' class="flag"' if p < level else ""
-    shown = "<0.001" if p < 0.001 else f"{p:.3f}"
+    shown = "&lt;0.001" if p < 0.001 else f"{p:.3f}"
+    if p < level:
+        shown += f" {charts.SIGNIFICANCE_MARK}"
     return (f'<td{flag} data-value="{float(p)!r}" data-f="{float(f)!r}" '
             f'title="F = {f:.3f}">{shown}</td>')
 
@@ -125,6 +127,15 @@ def _glance(d: ReportData) -> str:
     return f'<section id="glance"><h2>At a glance</h2><dl class="facts">{dl}</dl>{notes}</section>'
 
 
+def _net_history(d: ReportData) -> tuple[list[dt.date], np.ndarray]:
+    """Window ends and the (W, n) [window, series] net directional history, series in order."""
+    wide = (d.directional.pivot(on="series", index="window_end", values="net")
+            .sort("window_end"))
+    cols = [wide[s].to_numpy().astype(float) if s in wide.columns
+            else np.full(wide.height, np.nan) for s in d.info.series]
+    return wide["window_end"].to_list(), np.column_stack(cols)
+
+
 def _connectedness(d: ReportData, chart: _Charts) -> str:
     out = ['<section id="connectedness" class="major"><h2>Connectedness over time</h2>',
            '<p class="note">Share of all series\' forecast-error variance that comes from shocks to '
@@ -133,10 +144,13 @@ def _connectedness(d: ReportData, chart: _Charts) -> str:
     if d.connectedness.height == 0:
         out.append('<p class="note">No fitted windows yet.</p></section>')
         return "".join(out)
-    out.append(chart(figs.connectedness_figure(d.connectedness, universe=d.info.name),
-                     div_id="fig-connectedness"))
+    out.append(chart(charts.index_figure(
+        d.connectedness["window_end"].to_list(), d.connectedness["total"].to_numpy(),
+        universe=d.info.name, horizon=d.info.horizon, medium="print"), div_id="fig-connectedness"))
     if d.directional.height:
-        out.append(chart(figs.net_figure(d.directional, d.info.series), div_id="fig-net"))
+        ends, net = _net_history(d)
+        out.append(chart(charts.net_figure(ends, net, d.info.series, medium="print"),
+                         div_id="fig-net"))
     out.append("</section>")
     return "".join(out)
 
@@ -181,6 +195,24 @@ def _spillovers(d: ReportData) -> str:
     return "".join(head) + table + "</div></section>"
 
 
+#: Largest n drawn as one n × n grid of responses; above it, one figure (a column) per shock.
+GRID_MAX = 6
+
+
+def _response_figures(rs: ResponseSet, names: tuple[str, ...], end: Any) -> list[dict[str, Any]]:
+    """The dashboard's response grid, in print: one n × n grid, or one column per shock."""
+    n = len(names)
+    band = f"{rs.coverage:.0%} band" if rs.coverage else "band"
+    title = f"{rs.identification.capitalize()} shocks, window ending {end}"
+    common = {"lower": rs.lower, "upper": rs.upper, "yunit": "change of the responding series "
+              "(as prepared) per one-s.d. shock", "band_label": band, "medium": "print"}
+    if n <= GRID_MAX:
+        return [charts.responses_figure(rs.response, names, title=title, **common)]
+    return [charts.responses_figure(rs.response, names, shocks=[j],
+                                    title=f"{title}: shock to {names[j]}", **common)
+            for j in range(n)]
+
+
 def _responses(d: ReportData, chart: _Charts) -> str:
     out = ['<section id="responses" class="major"><h2>Impulse responses</h2>']
     if not d.responses:
@@ -193,7 +225,7 @@ def _responses(d: ReportData, chart: _Charts) -> str:
                    f'<p class="note">Window ending {_esc(d.fitted_date)}; horizons 0–{rs.horizon} '
                    f"(0 is impact); one-standard-deviation shocks; {band}; "
                    f"{_esc(rs.origin)}.</p>")
-        for m, fig in enumerate(figs.response_figures(rs, d.info.series)):
+        for m, fig in enumerate(_response_figures(rs, d.info.series, d.fitted_date)):
             out.append(chart(fig, div_id=f"fig-irf-{k}-{m}"))
             if m == 0:
                 out.append("</div>")  # heading kept with the first chart
@@ -213,7 +245,10 @@ def _decompositions(d: ReportData, chart: _Charts) -> str:
                    f'<p class="note">Percent of each row series\' {ds.horizon}-step forecast-error '
                    f"variance due to shocks in each column series; rows sum to 100; "
                    f"{_esc(ds.origin)}.</p>")
-        out.append(chart(figs.decomposition_figure(ds, names), div_id=f"fig-fevd-{k}"))
+        out.append(chart(charts.shares_figure(
+            [(ds.method, last)], names, medium="print",
+            title=(f"{ds.method.capitalize()} decomposition at {ds.horizon} steps: percent of each "
+                   "series' forecast-error variance, by shock")), div_id=f"fig-fevd-{k}"))
         th = "".join(f'<th scope="col">{_esc(s)}</th>' for s in names)
         body = "".join(
             f'<tr><th class="rowhead" scope="row">{_esc(s)}</th>'
@@ -240,7 +275,8 @@ def _granger(d: ReportData) -> str:
     out.append(
         f'<p class="note">Window ending {_esc(d.fitted_date)}. Cell (row, column): p-value of the '
         "F test of \"the column series does not Granger-cause the row series\" (lags of the column "
-        f"series add nothing to the row's equation). Marked ● where p &lt; {level:g}: "
+        f"series add nothing to the row's equation). Marked {charts.SIGNIFICANCE_MARK} where "
+        f"p &lt; {level:g}: "
         f'<span data-value="{n_sig}">{n_sig}</span> of {n * (n - 1)} ordered pairs. Hover a cell '
         "for its F statistic.</p>")
     th = "".join(f'<th scope="col">{_esc(s)}</th>' for s in names)
@@ -276,6 +312,24 @@ def _granger(d: ReportData) -> str:
 
 
 _SKIP_LIMIT = 60
+#: Spectral radii from here up are flagged "near one" (the dashboard's default).
+_NEAR_ONE = 0.98
+
+
+def _health_figure(d: ReportData) -> dict[str, Any]:
+    """The dashboard's model-health panels over every window, in print."""
+    fits = d.fits.sort("window_end")
+    fitted = fits.filter(pl.col("skip_reason").is_null())
+    skipped = fits.filter(pl.col("skip_reason").is_not_null())
+
+    def col(name: str) -> list[Any]:
+        return fitted[name].to_list() if name in fitted.columns else [None] * fitted.height
+
+    return charts.health_figure(
+        fitted["window_end"].to_list(), col("lags"), col("spectral_radius"), col("portmanteau_p"),
+        col("nobs"), skipped=list(zip(skipped["window_end"].to_list(),
+                                      skipped["skip_reason"].to_list(), strict=True)),
+        near_one=_NEAR_ONE, title=f"Model health by window, {d.info.name}", medium="print")
 
 
 def _health(d: ReportData, chart: _Charts) -> str:
@@ -283,7 +337,7 @@ def _health(d: ReportData, chart: _Charts) -> str:
            '<p class="note">A window is stable when every eigenvalue of its companion matrix lies '
            "inside the unit circle (spectral radius below 1). Windows that could not be fitted "
            "are listed with the reason.</p>"]
-    out.append(chart(figs.health_figure(d.fits), div_id="fig-health"))
+    out.append(chart(_health_figure(d), div_id="fig-health"))
     fitted = d.fits.filter(pl.col("skip_reason").is_null())
     if d.fitted_date is not None and fitted.height:
         latest = fitted.filter(pl.col("window_end") == d.fitted_date)

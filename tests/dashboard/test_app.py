@@ -154,7 +154,7 @@ def test_serve_refuses_open_address_without_credentials(snapshot_path: Path, hos
 # -- pages and callbacks -----------------------------------------------------------------------
 
 
-def test_layout_has_every_view_and_the_caution(settings: DashboardSettings) -> None:
+def test_layout_has_every_view_and_the_caution(settings: DashboardSettings, universe_name: str) -> None:
     app = create_app(settings)
     client = app.server.test_client()
     assert client.get("/").status_code == 200
@@ -162,7 +162,9 @@ def test_layout_has_every_view_and_the_caution(settings: DashboardSettings) -> N
     for label in ("Shock paths", "Variance shares", "Lead–lag", "Spillover network", "Compare windows", "Model health", "Own cycles"):
         assert label in json.loads(json.dumps(layout)) or label.encode("unicode_escape").decode() in layout
     assert "A research tool, not financial advice. Estimated relations between markets change over time." in layout
-    assert "report-2024-01-02.html" in layout  # the latest exported report is linked
+    # the first universe's latest exported report is linked, never another universe's (the
+    # fixture's reports belong to demo_four)
+    assert ("report-2024-01-02.html" in layout) == (universe_name == "demo_four")
 
 
 def test_callback_over_http_returns_the_window(settings: DashboardSettings, universe_name: str, state: dict[str, str]) -> None:

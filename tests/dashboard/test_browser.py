@@ -25,6 +25,7 @@ from dashboard.layout import CAUTION
 from tests.conftest import CHROMIUM_ARGS
 
 from .conftest import read
+from .test_callbacks import add_universe
 
 pytestmark = pytest.mark.browser
 
@@ -42,11 +43,22 @@ def exports(pipeline_output: tuple[Path, Path | None], tmp_path_factory: pytest.
     return folder
 
 
+#: A universe the served snapshot lists but that has no windows at all (its run fitted nothing yet).
+EMPTY = "zz_no_windows"
+
+
 @pytest.fixture(scope="module")
-def served(snapshot_path: Path, exports: Path) -> Iterator[str]:
+def served_snapshot(snapshot_path: Path, tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """The session's snapshot plus the universe `EMPTY` (series listed, no windows)."""
+    target = tmp_path_factory.mktemp("served") / "serving.duckdb"
+    return add_universe(snapshot_path, target, EMPTY, ("E_ONE", "E_TWO"), skipped=False)
+
+
+@pytest.fixture(scope="module")
+def served(served_snapshot: Path, exports: Path) -> Iterator[str]:
     from werkzeug.serving import make_server
 
-    app = create_app(DashboardSettings(snapshot=snapshot_path, export_dir=exports))
+    app = create_app(DashboardSettings(snapshot=served_snapshot, export_dir=exports))
     logging.getLogger("werkzeug").setLevel(logging.ERROR)
     server = make_server("127.0.0.1", 0, app.server, threaded=True)
     thread = threading.Thread(target=server.serve_forever, daemon=True)
@@ -301,3 +313,141 @@ def test_switching_universe_resets_window_and_controls(page: Any, snapshot_path:
     page.locator("#universe").click()
     page.get_by_role("option", name=universe_name, exact=True).click()
     wait_text(page, "#window-note", f"Date window {bounds[0]} to {bounds[1]}")
+
+
+def pick_universe(page: Any, name: str) -> None:
+    page.locator("#universe").click()
+    page.get_by_role("option", name=name, exact=True).click()
+
+
+def test_empty_universe_shows_its_own_empty_state(page: Any, universe_name: str, bounds: tuple[dt.date, dt.date]) -> None:
+    """Issue 10.2: nothing of the previous universe stays on the page."""
+    page.get_by_text("Shock paths", exact=True).click()
+    pick_universe(page, EMPTY)
+    wait_text(page, "#window-note", "no fitted windows")
+    assert EMPTY in page.inner_text("#window-note")
+    page.wait_for_function(
+        "u => { const gd = document.querySelector('#index-graph .js-plotly-plot');"
+        " return gd && gd.data.length === 0 && JSON.stringify(gd.layout.annotations || []).includes(u); }",
+        arg=EMPTY,
+    )
+    page.wait_for_function(
+        "u => { const gd = document.querySelector('#paths-graph .js-plotly-plot');"
+        " return gd && gd.data.length === 0 && JSON.stringify(gd.layout.annotations || []).includes(u); }",
+        arg=EMPTY,
+    )
+    wait_text(page, "#reports", f"No exported report for {EMPTY} yet.")
+    assert page.locator("#reports a").count() == 0
+    shown = page.evaluate(
+        "() => [...document.querySelectorAll('.js-plotly-plot')].map(gd => JSON.stringify(gd.layout || {}) + JSON.stringify(gd.data || [])).join(' ')"
+    )
+    assert universe_name not in shown
+    page.screenshot(path=str(ARTIFACTS / "05-empty-universe.png"))
+    pick_universe(page, universe_name)
+    wait_text(page, "#window-note", f"Date window {bounds[0]} to {bounds[1]}")
+    page.wait_for_selector("#reports a")
+
+
+def test_horizon_control_says_what_it_drives(page: Any, universe_name: str) -> None:
+    """Issue 10.3: the control sits with the views it drives, the index says its own horizon, and
+    a bad value is quoted as typed."""
+    page.get_by_text("Shock paths", exact=True).click()
+    index_box = page.locator("#index-graph").bounding_box()
+    horizon_box = page.locator("#horizon").bounding_box()
+    assert horizon_box["y"] > index_box["y"] + index_box["height"]  # below the index, not above it
+    bar = page.inner_text("#model-bar-title")
+    for view in ("Shock paths", "Variance shares", "Compare windows"):
+        assert view in bar
+    title = layout(page, "index-graph")["title"]["text"]
+    assert "-step horizon" in title and "does not change it" in title
+    page.fill("#horizon", "500")
+    page.press("#horizon", "Enter")
+    wait_text(page, "#paths-note", "'500'")
+    note = page.inner_text("#paths-note")
+    assert "`" not in note and "None" not in note
+    page.screenshot(path=str(ARTIFACTS / "06-horizon-500.png"))
+    page.fill("#horizon", "10")
+    page.press("#horizon", "Enter")
+    wait_text(page, "#paths-note", "Window ending")
+
+
+PANELS_JS = """id => {
+  const gd = document.querySelector('#' + id + ' .js-plotly-plot');
+  const fl = gd._fullLayout;
+  const svg = gd.querySelector('.main-svg').getBoundingClientRect();
+  return Object.keys(fl._plots).map(sp => {
+    const xa = fl._plots[sp].xaxis, ya = fl._plots[sp].yaxis;
+    const labels = [...gd.querySelectorAll('.subplot.' + sp + ' .yaxislayer-above text')]
+      .map(t => t.getBoundingClientRect()).filter(r => r.width > 0);
+    return {sp, left: svg.left + xa._offset, right: svg.left + xa._offset + xa._length,
+            top: svg.top + ya._offset, bottom: svg.top + ya._offset + ya._length,
+            labelLeft: labels.length ? Math.min(...labels.map(r => r.left)) : null};
+  });
+}"""
+
+BOXES_JS = """([id, sel]) => [...document.querySelectorAll('#' + id + ' ' + sel)]
+  .map(e => e.getBoundingClientRect()).filter(r => r.width > 0)
+  .map(r => ({left: r.left, right: r.right, top: r.top, bottom: r.bottom}))"""
+
+
+def _overlap(a: dict[str, float], b: dict[str, float]) -> bool:
+    return a["left"] < b["right"] - 1 and b["left"] < a["right"] - 1 and a["top"] < b["bottom"] - 1 and b["top"] < a["bottom"] - 1
+
+
+def _ticks_clear_of_neighbours(page: Any, graph_id: str) -> None:
+    """No panel's y-tick labels reach into the plot area of the panel to its left."""
+    panels = page.evaluate(PANELS_JS, graph_id)
+    assert any(p["labelLeft"] is not None for p in panels)
+    for p in panels:
+        if p["labelLeft"] is None:
+            continue
+        for q in panels:
+            same_row = q["top"] < p["bottom"] and p["top"] < q["bottom"]
+            if q is not p and same_row and q["right"] <= p["left"]:
+                assert p["labelLeft"] >= q["right"], (p, q)
+
+
+def test_shock_path_layout_in_the_browser(page: Any, snapshot_path: Path, universe_name: str) -> None:
+    """Issue 10.4, measured on the drawn page: the legend inside its figure and clear of the
+    controls, the long Cholesky title inside the figure, y-tick labels clear of the panel to
+    their left."""
+    page.set_viewport_size({"width": 1024, "height": 800})  # a laptop-sized window
+    page.get_by_text("Shock paths", exact=True).click()
+    page.locator("#identification input[value=cholesky]").check()
+    page.locator("#bands input[value=bootstrap]").check()
+    wait_text(page, "#paths-note", "residual-bootstrap band")
+    page.wait_for_timeout(500)  # the responsive figure re-lays itself out at the new width
+    svg = page.evaluate(BOXES_JS, ["paths-graph", ".main-svg"])[0]
+    (legend,) = page.evaluate(BOXES_JS, ["paths-graph", ".legend"])
+    assert svg["top"] <= legend["top"] and legend["bottom"] <= svg["bottom"] + 1, (legend, svg)
+    controls = page.evaluate(BOXES_JS, ["views", ".controls"]) + page.evaluate(BOXES_JS, ["model-bar", "*"])
+    assert not any(_overlap(legend, c) for c in controls)
+    titles = page.evaluate(BOXES_JS, ["paths-graph", ".gtitle"])
+    assert titles and all(t["right"] <= svg["right"] + 1 for t in titles), (titles, svg)
+    _ticks_clear_of_neighbours(page, "paths-graph")
+    page.locator("#identification input[value=generalized]").check()
+    page.locator("#bands input[value=stored]").check()
+    wait_text(page, "#paths-note", "stored band")
+    page.wait_for_timeout(300)
+    _ticks_clear_of_neighbours(page, "paths-graph")
+    page.screenshot(path=str(ARTIFACTS / "07-cholesky-layout.png"), full_page=True)
+    page.set_viewport_size({"width": 1280, "height": 800})
+
+
+def test_network_spreads_nodes_and_labels(page: Any) -> None:
+    """Issue 10.4: nodes use the plot's width and height; no two node labels overlap."""
+    open_tab(page, "Spillover network", "network-graph")
+    area = page.evaluate(PANELS_JS, "network-graph")[0]
+    points = page.evaluate(BOXES_JS, ["network-graph", ".scatterlayer .trace:last-child .point"])
+    xs = [(b["left"] + b["right"]) / 2 for b in points]
+    ys = [(b["top"] + b["bottom"]) / 2 for b in points]
+    assert (max(xs) - min(xs)) >= 0.6 * (area["right"] - area["left"])
+    assert (max(ys) - min(ys)) >= 0.6 * (area["bottom"] - area["top"])
+    labels = page.evaluate(BOXES_JS, ["network-graph", ".scatterlayer .trace:last-child .textpoint text"])
+    assert len(labels) == len(points)
+    for i, a in enumerate(labels):
+        for b in labels[i + 1:]:
+            assert not _overlap(a, b), (a, b)
+        for p in points:  # a label never covers a node
+            assert not _overlap(a, p), (a, p)
+    page.screenshot(path=str(ARTIFACTS / "08-network.png"), full_page=True)

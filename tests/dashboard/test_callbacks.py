@@ -5,6 +5,7 @@ from __future__ import annotations
 import csv
 import datetime as dt
 import io
+import itertools
 from pathlib import Path
 from typing import Any
 
@@ -14,6 +15,7 @@ import pytest
 
 import arlib
 from dashboard import callbacks as cb
+from dashboard import views as vw
 from dashboard.data import DateWindow, Snapshot
 
 from .conftest import read
@@ -55,7 +57,7 @@ def test_sync_window_from_range_slider_and_typed_dates(snap: Snapshot, universe_
 
 
 def test_index_view_rows_are_the_stored_history(snap: Snapshot, snapshot_path: Path, state: dict[str, str], universe_name: str) -> None:
-    fig, rows, note = cb.index_view(snap, state, 0.9)
+    fig, rows, note = vw.index_view(snap, state, 0.9)
     _valid(fig)
     stored = read(snapshot_path, "SELECT window_end, total FROM connectedness WHERE universe = ? ORDER BY 1", [universe_name])
     assert [(r["window_end"], r["total_percent"]) for r in rows] == [(d.isoformat(), t) for d, t in stored]
@@ -70,7 +72,7 @@ def test_index_view_rows_are_the_stored_history(snap: Snapshot, snapshot_path: P
 def test_paths_view_generalized_equals_stored_and_arlib(snap: Snapshot, snapshot_path: Path, state: dict[str, str], universe_name: str) -> None:
     u = snap.universe(universe_name)
     end = _end(snap, state)
-    fig, rows, note = cb.paths_view(snap, state, "generalized", list(u.series), [], u.horizon, "stored")
+    fig, rows, note = vw.paths_view(snap, state, "generalized", list(u.series), [], u.horizon, "stored")
     _valid(fig)
     n = len(u.series)
     assert len(rows) == (u.horizon + 1) * n * n
@@ -91,7 +93,7 @@ def test_paths_view_longer_horizon_and_ordering_come_from_arlib(snap: Snapshot, 
     end = _end(snap, state)
     order = list(reversed(u.series))
     H = u.horizon + 7
-    _, rows, note = cb.paths_view(snap, state, "cholesky", order, ["cumulative"], H, "stored")
+    _, rows, note = vw.paths_view(snap, state, "cholesky", order, ["cumulative"], H, "stored")
     n = len(u.series)
     got = np.array([r["value"] for r in rows]).reshape(H + 1, n, n)
     want = np.cumsum(arlib.impulse_responses(_stored_model(snap, universe_name, end), H, shocks="cholesky", order=order), axis=0)
@@ -105,7 +107,7 @@ def test_paths_view_longer_horizon_and_ordering_come_from_arlib(snap: Snapshot, 
 
 def test_paths_view_bootstrap_band_brackets_the_response(snap: Snapshot, state: dict[str, str], universe_name: str) -> None:
     u = snap.universe(universe_name)
-    _, rows, note = cb.paths_view(snap, state, "generalized", None, [], 6, "bootstrap")
+    _, rows, note = vw.paths_view(snap, state, "generalized", None, [], 6, "bootstrap")
     assert "bootstrap" in note
     inside = [r["lower"] <= r["value"] + 1e-9 and r["value"] <= r["upper"] + 1e-9 for r in rows]
     assert np.mean(inside) > 0.9
@@ -116,7 +118,7 @@ def test_shares_view_rows_sum_to_100_and_match_arlib(snap: Snapshot, state: dict
     u = snap.universe(universe_name)
     end = _end(snap, state)
     order = [u.series[-1]]  # the rest follow in stored order
-    fig, rows, _ = cb.shares_view(snap, state, order, 4)
+    fig, rows, _ = vw.shares_view(snap, state, order, 4)
     _valid(fig)
     n = len(u.series)
     for method in ("generalized", "cholesky"):
@@ -130,7 +132,7 @@ def test_shares_view_rows_sum_to_100_and_match_arlib(snap: Snapshot, state: dict
 
 def test_leadlag_view_matches_stored_pvalues(snap: Snapshot, snapshot_path: Path, state: dict[str, str], universe_name: str) -> None:
     end = _end(snap, state)
-    fig, rows, _ = cb.leadlag_view(snap, state, 0.1)
+    fig, rows, _ = vw.leadlag_view(snap, state, 0.1)
     _valid(fig)
     stored = dict(((c, s), p) for c, s, p in read(snapshot_path, "SELECT caused, causing, p_value FROM granger WHERE universe = ? AND window_end = ?", [universe_name, end]))
     assert {(r["caused"], r["causing"]): r["p_value"] for r in rows} == stored
@@ -141,13 +143,13 @@ def test_leadlag_view_matches_stored_pvalues(snap: Snapshot, snapshot_path: Path
 
 
 def test_network_view_net_direction_and_average(snap: Snapshot, snapshot_path: Path, state: dict[str, str], universe_name: str) -> None:
-    _, rows, _ = cb.network_view(snap, state, "end", "to")
+    _, rows, _ = vw.network_view(snap, state, "end", "to")
     end = _end(snap, state)
     stored = {(s, t): v for s, t, v in read(snapshot_path, "SELECT source, target, share FROM pairwise WHERE universe = ? AND window_end = ?", [universe_name, end])}
     for r in rows:
         assert r["share_percent"] == pytest.approx(stored[(r["source"], r["target"])])
         assert r["net_source_to_target_pp"] == pytest.approx(stored[(r["source"], r["target"])] - stored[(r["target"], r["source"])])
-    fig, rows, _ = cb.network_view(snap, state, "mean", "from")
+    fig, rows, _ = vw.network_view(snap, state, "mean", "from")
     _valid(fig)
     r = rows[0]
     mean = read(snapshot_path, "SELECT avg(share) FROM pairwise WHERE universe = ? AND source = ? AND target = ?", [universe_name, r["source"], r["target"]])[0][0]
@@ -160,7 +162,7 @@ def test_directional_from_table_matches_stored_directional(snap: Snapshot, state
     """to/from computed from a pairwise table equal the stored directional rows (Diebold–Yilmaz 2012)."""
     u = snap.universe(universe_name)
     end = _end(snap, state)
-    to_others, from_others = cb._directional_from(snap.pairwise_at(u, end))
+    to_others, from_others = vw._directional_from(snap.pairwise_at(u, end))
     stored = snap.directional_at(u, end)
     np.testing.assert_allclose(to_others, [stored[s][0] for s in u.series], rtol=1e-9)
     np.testing.assert_allclose(from_others, [stored[s][1] for s in u.series], rtol=1e-9)
@@ -169,7 +171,7 @@ def test_directional_from_table_matches_stored_directional(snap: Snapshot, state
 def test_compare_view_change_is_b_minus_a(snap: Snapshot, snapshot_path: Path, state: dict[str, str], universe_name: str, bounds: tuple[dt.date, dt.date]) -> None:
     lo, hi = bounds
     mid = lo + (hi - lo) / 2
-    (f1, r1, n1), (f2, r2, n2) = cb.compare_view(
+    (f1, r1, n1), (f2, r2, n2) = vw.compare_view(
         snap, state, lo.isoformat(), mid.isoformat(), (mid + dt.timedelta(days=1)).isoformat(), hi.isoformat(),
         "generalized", None, 5,
     )
@@ -182,18 +184,18 @@ def test_compare_view_change_is_b_minus_a(snap: Snapshot, snapshot_path: Path, s
     assert r["change_pp"] == pytest.approx(r["b_share_percent"] - r["a_share_percent"])
     assert r2[0]["a_window_end"] <= mid.isoformat() < r2[0]["b_window_end"]
     # blank inputs: the halves of the window
-    (_, r1b, _), _ = cb.compare_view(snap, state, "", None, None, "", "generalized", None, 5)
+    (_, r1b, _), _ = vw.compare_view(snap, state, "", None, None, "", "generalized", None, 5)
     assert r1b[0]["a_window"].startswith(lo.isoformat())
 
 
 def test_health_view_flags_and_skips(built_snapshot_path: Path) -> None:
     snap, snapshot_path, universe_name = Snapshot(built_snapshot_path), built_snapshot_path, "demo_four"
     state = {"universe": universe_name, "start": None, "end": None}
-    fig, rows, note = cb.health_view(snap, state, 0.2)
+    fig, rows, note = vw.health_view(snap, state, 0.2)
     _valid(fig)
     stored = read(snapshot_path, "SELECT count(*), count(skip_reason) FROM window_fits WHERE universe = ?", [universe_name])[0]
     assert len(rows) == stored[0]
-    skipped = cb.skipped_rows(rows)
+    skipped = vw.skipped_rows(rows)
     assert len(skipped) == stored[1] >= 1
     assert "skipped" in note
     radii = [r for (r,) in read(snapshot_path, "SELECT spectral_radius FROM window_fits WHERE universe = ? AND skip_reason IS NULL", [universe_name])]
@@ -207,7 +209,7 @@ def test_health_view_flags_and_skips(built_snapshot_path: Path) -> None:
 def test_cycles_view_matches_arlib_on_prepared_data(snap: Snapshot, state: dict[str, str], universe_name: str) -> None:
     u = snap.universe(universe_name)
     end = _end(snap, state)
-    fig, rows, note = cb.cycles_view(snap, state)
+    fig, rows, note = vw.cycles_view(snap, state)
     _valid(fig)
     fit = snap.fit(u, end)
     y = snap.prepared(u, fit.window_start, fit.window_end)
@@ -251,7 +253,7 @@ def test_cycles_view_finds_a_known_cycle(tmp_path: Path) -> None:
     _insert(con, "connectedness", [{**key, "window_end": days[-1], "total": 1.0}])
     con.close()
     snap = Snapshot(path)
-    _, rows, note = cb.cycles_view(snap, {"universe": "u", "start": None, "end": None})
+    _, rows, note = vw.cycles_view(snap, {"universe": "u", "start": None, "end": None})
     period = next(r["dominant_period_obs"] for r in rows if r["series"] == "CYC")
     true_period = 2 * np.pi / np.arccos(-phi1 * (1 - phi2) / (4 * phi2))
     # estimated AR on 3000 rows: the peak period is within 10% of the true one
@@ -276,17 +278,17 @@ HOSTILE = [
 def test_hostile_inputs_give_a_message_not_an_error(snap: Snapshot, snapshot_path: Path, state: dict[str, str], bad: Any) -> None:
     before = read(snapshot_path, "SELECT count(*) FROM runs")
     views = [
-        lambda: cb.index_view(snap, {**state, "universe": bad}, 0.9),
-        lambda: cb.index_view(snap, {**state, "start": bad}, bad),
-        lambda: cb.paths_view(snap, state, bad, bad, bad, bad, bad),
-        lambda: cb.paths_view(snap, {**state, "end": bad}, "generalized", None, [], 10, "none"),
-        lambda: cb.shares_view(snap, state, bad, bad),
-        lambda: cb.leadlag_view(snap, state, bad),
-        lambda: cb.network_view(snap, state, bad, bad),
-        lambda: cb.compare_pairs_view(snap, state, bad, bad, bad, bad),
-        lambda: cb.compare_paths_view(snap, state, None, None, None, None, bad, bad, bad),
-        lambda: cb.health_view(snap, state, bad),
-        lambda: cb.cycles_view(snap, bad),
+        lambda: vw.index_view(snap, {**state, "universe": bad}, 0.9),
+        lambda: vw.index_view(snap, {**state, "start": bad}, bad),
+        lambda: vw.paths_view(snap, state, bad, bad, bad, bad, bad),
+        lambda: vw.paths_view(snap, {**state, "end": bad}, "generalized", None, [], 10, "none"),
+        lambda: vw.shares_view(snap, state, bad, bad),
+        lambda: vw.leadlag_view(snap, state, bad),
+        lambda: vw.network_view(snap, state, bad, bad),
+        lambda: vw.compare_pairs_view(snap, state, bad, bad, bad, bad),
+        lambda: vw.compare_paths_view(snap, state, None, None, None, None, bad, bad, bad),
+        lambda: vw.health_view(snap, state, bad),
+        lambda: vw.cycles_view(snap, bad),
     ]
     for view in views:
         fig, rows, note = view()
@@ -338,12 +340,257 @@ def test_views_over_a_narrow_window_use_that_window(snap: Snapshot, universe_nam
     end = snap.fitted_end(snap.window(state))
     assert end <= early
     for view in (
-        lambda: cb.paths_view(snap, state, "generalized", None, [], 5, "none"),
-        lambda: cb.shares_view(snap, state, None, 5),
-        lambda: cb.leadlag_view(snap, state, 0.05),
-        lambda: cb.network_view(snap, state, "end", "to"),
-        lambda: cb.cycles_view(snap, state),
+        lambda: vw.paths_view(snap, state, "generalized", None, [], 5, "none"),
+        lambda: vw.shares_view(snap, state, None, 5),
+        lambda: vw.leadlag_view(snap, state, 0.05),
+        lambda: vw.network_view(snap, state, "end", "to"),
+        lambda: vw.cycles_view(snap, state),
     ):
         _, rows, note = view()
         assert rows and rows[0]["window_end"] == end.isoformat()
         assert end.isoformat() in note
+
+
+# -- empty universes, the horizon control, figure layout (issue 10, items 2–4) --------------------
+
+
+def add_universe(source: Path, target: Path, name: str, series: tuple[str, ...], *, skipped: bool) -> Path:
+    """A copy of the snapshot `source` with one more universe `name` that has no fitted window:
+    none at all, or (with `skipped`) only skipped ones."""
+    import shutil
+
+    import duckdb
+
+    shutil.copy(source, target)
+    con = duckdb.connect(str(target))
+    try:
+        con.execute(
+            "INSERT INTO universes (universe, config_hash, config_json, horizon, granger_level, identification, run_id) "
+            "VALUES (?, 'h', '{}', 7, 0.05, 'generalized', 'r-empty')", [name])
+        for i, s in enumerate(series):
+            con.execute("INSERT INTO universe_series (universe, position, series, transform) VALUES (?, ?, ?, 'none')", [name, i, s])
+        if skipped:
+            con.execute(
+                "INSERT INTO window_fits (run_id, universe, window_end, window_start, nobs, lags, skip_reason) "
+                "VALUES ('r-empty', ?, DATE '2021-01-29', DATE '2020-01-01', 40, 1, 'too few rows (test)')", [name])
+    finally:
+        con.close()
+    return target
+
+
+ALL_VIEWS = (
+    lambda snap, st: vw.index_view(snap, st, 0.9),
+    lambda snap, st: vw.paths_view(snap, st, "generalized", None, [], 10, "stored"),
+    lambda snap, st: vw.shares_view(snap, st, None, 10),
+    lambda snap, st: vw.leadlag_view(snap, st, 0.05),
+    lambda snap, st: vw.network_view(snap, st, "end", "to"),
+    lambda snap, st: vw.compare_pairs_view(snap, st, None, None, None, None),
+    lambda snap, st: vw.compare_paths_view(snap, st, None, None, None, None, "generalized", None, 5),
+    lambda snap, st: vw.cycles_view(snap, st),
+)
+
+
+@pytest.mark.parametrize("skipped", [False, True], ids=["no-windows", "only-skipped"])
+def test_empty_universe_gets_its_own_empty_state(snapshot_path: Path, universe_name: str, state: dict[str, str], tmp_path: Path, skipped: bool) -> None:
+    """Picking a universe without fitted windows gives a new window state for it (not the previous
+    universe's), and every view says that universe has nothing yet — nothing from another."""
+    path = add_universe(snapshot_path, tmp_path / "s.duckdb", "zz_empty", ("E_ONE", "E_TWO"), skipped=skipped)
+    snap = Snapshot(path)
+    try:
+        _, _, new_state, note = cb.sync_window(snap, "zz_empty", state["start"], state["end"], None, "universe")
+        assert new_state["universe"] == "zz_empty"
+        assert "zz_empty" in note and "no fitted windows" in note
+        for view in ALL_VIEWS:
+            fig, rows, text = view(snap, new_state)
+            assert rows == [] and fig["data"] == []
+            assert "zz_empty" in text and "no fitted windows" in text, text
+            assert universe_name not in str(fig)
+        fig, rows, text = vw.health_view(snap, new_state, 0.98)
+        if skipped:  # the skipped windows and their reasons are the useful empty state
+            assert [r["skip_reason"] for r in rows] == ["too few rows (test)"]
+        else:
+            assert "zz_empty" in text and rows == []
+    finally:
+        snap.reader.close()
+
+
+def test_report_links_only_name_the_chosen_universe(export_dir: Path) -> None:
+    from dashboard.layout import report_links
+
+    def hrefs(universe: str | None) -> list[str]:
+        return [c.href for c in report_links(export_dir, universe) if getattr(c, "href", None)]
+
+    assert hrefs("demo_four") and all("demo_four" in h for h in hrefs("demo_four"))
+    assert hrefs("zz_empty") == []
+    assert "No exported report for zz_empty yet." in str(report_links(export_dir, "zz_empty"))
+
+
+@pytest.mark.parametrize("typed", ["500", "0", "2.5", "ten", ""])
+def test_horizon_message_quotes_what_was_typed(snap: Snapshot, state: dict[str, str], typed: str) -> None:
+    for view in (
+        lambda: vw.paths_view(snap, state, "generalized", None, [], typed, "none"),
+        lambda: vw.shares_view(snap, state, None, typed),
+    ):
+        _, rows, note = view()
+        assert rows == []
+        assert "`" not in note and "None" not in note, note
+        assert (repr(typed) if typed else "nothing") in note, note
+        assert "1 to 60" in note
+
+
+def test_index_and_network_titles_name_the_stored_horizon(snap: Snapshot, state: dict[str, str], universe_name: str) -> None:
+    h = snap.universe(universe_name).horizon
+    for fig in (vw.index_view(snap, state, 0.9)[0], vw.network_view(snap, state, "end", "to")[0]):
+        title = fig["layout"]["title"]["text"]
+        assert f"{h}-step horizon" in title, title
+        assert "does not change it" in title, title
+
+
+def _legend_above_figure(layout: dict[str, Any]) -> bool:
+    """True when a legend is anchored at or above the top edge of the figure (over the page's
+    controls): container coordinates near 1 growing upwards."""
+    legend = layout.get("legend", {})
+    return legend.get("yref") == "container" and legend.get("yanchor") == "bottom" and legend.get("y", 0) > 0.5
+
+
+def _title_lines(layout: dict[str, Any]) -> list[str]:
+    import re
+
+    text = layout.get("title", {}).get("text", "")
+    return [re.sub(r"<[^>]+>", "", line) for line in text.split("<br>")]
+
+
+def _y_gaps(layout: dict[str, Any]) -> list[float]:
+    """Gaps (paper fraction) between horizontally adjacent panels of a grid."""
+    domains = sorted({tuple(v["domain"]) for k, v in layout.items() if k.startswith("xaxis") and "domain" in v})
+    return [b[0] - a[1] for a, b in itertools.pairwise(domains) if b[0] > a[0]]
+
+
+def test_response_grids_keep_legend_title_and_ticks_inside(snap: Snapshot, state: dict[str, str], universe_name: str) -> None:
+    """Layout of the shock-path and compare grids: the legend never above the figure, title lines
+    short enough to fit, and room between panels for a panel's y-tick labels."""
+    u = snap.universe(universe_name)
+    order = list(reversed(u.series))
+    figs = [
+        vw.paths_view(snap, state, "cholesky", order, [], 10, "stored")[0],
+        vw.compare_paths_view(snap, state, None, None, None, None, "cholesky", order, 5)[0],
+        vw.health_view(snap, state, 0.98)[0],
+    ]
+    for fig in figs:
+        layout = fig["layout"]
+        assert not _legend_above_figure(layout), layout.get("legend")
+        assert max(len(line) for line in _title_lines(layout)) <= 120, _title_lines(layout)
+    for fig in figs[:2]:
+        gaps = _y_gaps(fig["layout"])
+        assert gaps and min(gaps) >= 0.05, gaps
+    # the whole Cholesky order is still said, on its own line
+    assert " → ".join(order) in fig["layout"]["title"]["text"] or " → ".join(order) in figs[0]["layout"]["title"]["text"]
+
+
+def test_column_headers_are_the_same_words_in_every_universe(snap: Snapshot, state: dict[str, str], universe_name: str) -> None:
+    """Headers of the shock-path grid are the shocked series' names, whatever the universe's size."""
+    for name in snap.universes():
+        u = snap.universe(name)
+        st = {"universe": name, "start": None, "end": None}
+        fig = vw.paths_view(snap, st, "generalized", None, [], 5, "none")[0]
+        top = max(a["y"] for a in fig["layout"]["annotations"])
+        headers = [a["text"] for a in fig["layout"]["annotations"] if a["y"] == top]
+        assert headers == list(u.series), (name, headers)
+
+
+def test_network_nodes_fill_the_plot_and_labels_point_outwards(snap: Snapshot, state: dict[str, str]) -> None:
+    fig = vw.network_view(snap, state, "end", "to")[0]
+    nodes = next(t for t in fig["data"] if t["name"] == "series")
+    xs, ys = np.array(nodes["x"]), np.array(nodes["y"])
+    xr, yr = fig["layout"]["xaxis"]["range"], fig["layout"]["yaxis"]["range"]
+    # the nodes span most of the plot both ways, no square-locked small circle in the middle
+    assert (xs.max() - xs.min()) / (xr[1] - xr[0]) >= 0.6
+    assert (ys.max() - ys.min()) / (yr[1] - yr[0]) >= 0.6
+    assert "scaleanchor" not in fig["layout"]["yaxis"]
+    # each label sits on the outer side of its node
+    for x, y, where in zip(xs, ys, nodes["textposition"], strict=True):
+        vertical, horizontal = where.split()
+        out = {"top": 1, "bottom": -1, "middle": 0}[vertical] * y + {"left": -1, "right": 1, "center": 0}[horizontal] * x
+        assert out > 0, (x, y, where)
+
+
+# -- the views table (issue 11, item 4) -------------------------------------------------------------
+
+
+def _imports(module_path: Path, package: str) -> set[str]:
+    """Modules of `package` that `module_path` imports anywhere (top level or inside functions)."""
+    import ast
+
+    tree = ast.parse(module_path.read_text(encoding="utf-8"))
+    found: set[str] = set()
+    for node in ast.walk(tree):
+        if isinstance(node, ast.ImportFrom):
+            if node.level == 1:
+                base = f"{package}.{node.module}" if node.module else package
+                names = [base] if node.module else [f"{package}.{a.name}" for a in node.names]
+                found.update(names)
+            elif node.module and node.module.startswith(package + "."):
+                found.add(node.module)
+        elif isinstance(node, ast.Import):
+            found.update(a.name for a in node.names if a.name.startswith(package + "."))
+    return found
+
+
+def test_dashboard_modules_import_no_cycle() -> None:
+    """No import cycle among the dashboard's modules, counting imports inside functions (the
+    callbacks ↔ layout cycle was hidden in `register`)."""
+    import graphlib
+
+    root = Path(__file__).resolve().parents[2]
+    graph = {
+        f"dashboard.{p.stem}": _imports(p, "dashboard") - {"dashboard"}
+        for p in (root / "dashboard").glob("*.py") if p.stem != "__init__"
+    }
+    graphlib.TopologicalSorter(graph).prepare()  # raises CycleError on any cycle
+    assert "dashboard.layout" not in graph["dashboard.callbacks"]
+    assert "charts" not in {m.split(".")[0] for m in _imports(root / "charts" / "_figures.py", "dashboard")}
+
+
+def echo_view(snap: Snapshot, state: Any, horizon: Any) -> Any:
+    """A minimal view for the table test: the horizon it was given, as one bar."""
+    import charts
+
+    h = int(horizon)
+    fig = charts.message_figure(f"echo {h}")
+    return fig, [{"horizon": h}], f"echo of horizon {h}"
+
+
+def test_a_new_view_is_one_row_of_the_table(monkeypatch: pytest.MonkeyPatch, snapshot_path: Path, state: dict[str, str]) -> None:
+    """Adding a row to `views.VIEWS` (and nothing else) gives the view its tab, ids, controls in
+    the shared-horizon label and its callback."""
+    import json
+
+    from dash import Dash
+
+    from dashboard import DashboardSettings, create_app, ids, views
+    from dashboard.layout import horizon_views
+
+    row = views.View("echo", echo_view, tab="Echo", inputs=(ids.HORIZON,))
+    monkeypatch.setattr(views, "VIEWS", (*views.VIEWS, row))
+    app: Dash = create_app(DashboardSettings(snapshot=snapshot_path))
+    client = app.server.test_client()
+    page = client.get("/_dash-layout").get_data(as_text=True)
+    for text in ('"Echo"', '"echo-graph"', '"echo-note"', '"value": "echo"'.replace(" ", "")):
+        assert text in page.replace(" ", ""), text
+    assert "Echo" in horizon_views()
+    (key,) = [k for k in app.callback_map if k.startswith("..echo-graph.figure")]
+    spec = app.callback_map[key]
+    body = {
+        "output": key,
+        "outputs": [{"id": o.split(".")[0], "property": o.split(".")[1]} for o in key.strip(".").split("...")],
+        "inputs": [{"id": i["id"], "property": i["property"], "value": v}
+                   for i, v in zip(spec["inputs"], [state, "7", "echo"], strict=True)],
+        "changedPropIds": ["horizon.value"], "state": [],
+    }  # fmt: skip
+    outputs = body["outputs"]
+    assert [o["id"] for o in outputs] == ["echo-graph", '{"chart":"echo","type":"chart-data"}', "echo-note"]
+    body["outputs"][1] = {"id": {"chart": "echo", "type": "chart-data"}, "property": "data"}
+    answer = client.post("/_dash-update-component", json=body)
+    assert answer.status_code == 200, answer.get_data(as_text=True)
+    response = json.loads(answer.get_data(as_text=True))["response"]
+    assert response["echo-note"]["children"] == "echo of horizon 7"

@@ -89,6 +89,21 @@ def trace_array(value: object) -> np.ndarray:
     return np.asarray(value, dtype=float)
 
 
+def response_panels(traces: list[dict], names: list[str]) -> dict[tuple[int, int], dict[str, np.ndarray]]:
+    """Per panel (response i, shock j) of a response grid: "response", and "lower"/"upper" when
+    a band is drawn (one filled trace: upper over the horizons, then lower in reverse)."""
+    out: dict[tuple[int, int], dict[str, np.ndarray]] = {}
+    for t in traces:
+        i, j = names.index(t["meta"][0]), names.index(t["meta"][1])
+        y = trace_array(t["y"])
+        if t.get("fill") == "toself":
+            h1 = len(y) // 2
+            out.setdefault((i, j), {}).update(upper=y[:h1], lower=y[h1:][::-1])
+        else:
+            out.setdefault((i, j), {})["response"] = y
+    return out
+
+
 def snapshot_frame(path: Path, sql: str, params: list) -> pl.DataFrame:
     con = duckdb.connect(str(path), read_only=True)
     try:
@@ -209,13 +224,13 @@ def test_stored_responses_and_bands_are_drawn(snap: Path, exported: dict[str, li
     H = r["horizon"][0]
     resp, lo, hi = (np.asarray(r[c][0]).reshape(H + 1, 3, 3) for c in ("response", "lower", "upper"))
     traces = plotly_traces(html, "fig-irf-0-0")
-    assert len(traces) == 9 * 3  # upper, lower, response per panel of the 3 × 3 grid
-    for k in range(9):
-        i, j = divmod(k, 3)
-        up, low, mid = traces[3 * k: 3 * k + 3]
-        np.testing.assert_array_equal(trace_array(mid["y"]), resp[:, i, j])
-        np.testing.assert_array_equal(trace_array(low["y"]), lo[:, i, j])
-        np.testing.assert_array_equal(trace_array(up["y"]), hi[:, i, j])
+    assert len(traces) == 9 * 2  # band, response per panel of the 3 × 3 grid
+    panels = response_panels(traces, ["alpha", "beta", "gamma"])
+    for (i, j), p in panels.items():
+        np.testing.assert_array_equal(p["response"], resp[:, i, j])
+        np.testing.assert_array_equal(p["lower"], lo[:, i, j])
+        np.testing.assert_array_equal(p["upper"], hi[:, i, j])
+    assert len(panels) == 9
     assert "90% band" in html
 
 
@@ -259,13 +274,13 @@ def test_unstored_responses_are_derived_with_arlib(snap: Path,
     bands = arlib.irf_bands(arlib.fit_var(rows, 1), 8, shocks="cholesky", draws=30, rng=3,
                             coverage=0.9)
     traces = plotly_traces(html, "fig-irf-0-0")
-    assert len(traces) == 27
-    for k in range(9):
-        i, j = divmod(k, 3)
-        up, low, mid = traces[3 * k: 3 * k + 3]
-        np.testing.assert_allclose(trace_array(mid["y"]), resp[:, i, j], rtol=0, atol=1e-14)
-        np.testing.assert_allclose(trace_array(low["y"]), bands.lower[:, i, j], rtol=0, atol=1e-12)
-        np.testing.assert_allclose(trace_array(up["y"]), bands.upper[:, i, j], rtol=0, atol=1e-12)
+    assert len(traces) == 18
+    panels = response_panels(traces, ["alpha", "beta", "gamma"])
+    assert len(panels) == 9
+    for (i, j), p in panels.items():
+        np.testing.assert_allclose(p["response"], resp[:, i, j], rtol=0, atol=1e-14)
+        np.testing.assert_allclose(p["lower"], bands.lower[:, i, j], rtol=0, atol=1e-12)
+        np.testing.assert_allclose(p["upper"], bands.upper[:, i, j], rtol=0, atol=1e-12)
     rows_shown = table_values(html, "decomposition")
     chol = 100.0 * arlib.variance_decomposition(proc, 8, method="cholesky")[-1]
     gen = 100.0 * arlib.variance_decomposition(proc, 8, method="generalized")[-1]

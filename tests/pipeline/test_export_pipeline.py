@@ -22,6 +22,7 @@ from pipeline.config import Config, load_config
 from pipeline.export import CAUTION, export_universe, pdf_page_count
 from tests.pipeline.test_export import (
     plotly_traces,
+    response_panels,
     snapshot_frame,
     table_values,
     trace_array,
@@ -140,19 +141,16 @@ def test_report_draws_the_runs_responses_and_bands(published: Path,
         shape = (H + 1, n, n)
         resp = np.reshape(row["response"], shape)
         has_bands = row["lower"] is not None
-        per_panel = 3 if has_bands else 1
-        assert len(traces) == n * n * per_panel
-        for k in range(n * n):
-            i, j = divmod(k, n)
-            panel = traces[per_panel * k: per_panel * (k + 1)]
-            np.testing.assert_array_equal(trace_array(panel[-1]["y"]), resp[:, i, j])
+        assert len(traces) == n * n * (2 if has_bands else 1)  # (band,) response per panel
+        panels = response_panels(traces, list(SERIES))
+        assert len(panels) == n * n
+        for (i, j), p in panels.items():
+            np.testing.assert_array_equal(p["response"], resp[:, i, j])
             if has_bands:
-                np.testing.assert_array_equal(trace_array(panel[0]["y"]),
-                                              np.reshape(row["upper"], shape)[:, i, j])
-                np.testing.assert_array_equal(trace_array(panel[1]["y"]),
-                                              np.reshape(row["lower"], shape)[:, i, j])
+                np.testing.assert_array_equal(p["upper"], np.reshape(row["upper"], shape)[:, i, j])
+                np.testing.assert_array_equal(p["lower"], np.reshape(row["lower"], shape)[:, i, j])
     else:  # derived from the stored parameters: the report says so
-        assert len(traces) in (n * n, 3 * n * n)
+        assert len(traces) in (n * n, 2 * n * n)
         assert "derived with arlib" in html
 
 

@@ -1,0 +1,802 @@
+"""The dashboard's views, and the table that declares them.
+
+A view is a plain function ``view(snap, state, *inputs) -> (figure, rows, note)`` (or a tuple of
+those, one per chart): it parses its inputs (`dashboard._inputs`), reads the snapshot through
+`dashboard.data`, derives with arlib what the snapshot does not store (responses at another
+horizon or ordering, cumulative paths, bootstrap bands, own-AR spectra), builds its figure with
+`charts` and returns the rows behind it (the CSV download) and one line of text.
+
+`VIEWS` is the table: view → tab, inputs (component ids), figure builder (the view function),
+CSV builder, its own controls and the defaults a new universe brings. Component ids, the tabs of
+the page (`dashboard.layout`) and the callbacks (`dashboard.callbacks.register`) are generated from
+it, so adding a view is a function and a row here plus its figure builder in `charts`.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import math
+import warnings
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+import charts
+
+from . import ids
+from ._components import as_json, label, skipped_table
+from ._errors import WindowError
+from ._inputs import (
+    BAND_CHOICES,
+    IDENTIFICATIONS,
+    Rows,
+    ViewResult,
+    flag,
+    grid_index,
+    guard,
+    iso,
+    num,
+    nums,
+    parse_choice,
+    parse_fraction,
+    parse_horizon,
+    parse_order,
+)
+from .data import DateWindow, Snapshot, Universe, parse_date
+
+__all__ = [
+    "VIEWS",
+    "View",
+    "compare_pairs_view",
+    "compare_paths_view",
+    "compare_view",
+    "cycles_view",
+    "empty_note",
+    "health_view",
+    "index_view",
+    "leadlag_view",
+    "network_view",
+    "paths_view",
+    "shares_view",
+    "skipped_rows",
+]
+
+BOOTSTRAP_DRAWS = 199
+BOOTSTRAP_COVERAGE = 0.90
+
+
+def _model(fit: Any, universe: Universe) -> Any:
+    """The stored window's VAR as an arlib process (an unstable window still gives its responses)."""
+    import arlib
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", arlib.UnstableProcessWarning)
+        return arlib.var_process(fit.coefs, fit.sigma_u, fit.intercept, names=universe.series)
+
+
+
+def empty_note(universe: str) -> str:
+    """What every view says for a universe without fitted windows."""
+    return (
+        f"Universe {universe!r} has no fitted windows in the serving snapshot yet, so there is "
+        "nothing to show for it. Run the pipeline for it (shockflow run), or pick another universe."
+    )
+
+
+def has_fitted(snap: Snapshot, universe: str) -> bool:
+    """True when `universe` has at least one fitted (not skipped) window stored."""
+    try:
+        lo, hi = snap.date_bounds(universe)
+        snap.fitted_end(DateWindow(universe, lo, hi))
+    except WindowError:
+        return False
+    return True
+
+
+def _window(snap: Snapshot, state: Any, *, fitted: bool = True) -> DateWindow:
+    """`snap.window(state)`; a universe with no windows (or, with `fitted`, no fitted window)
+    raises the one empty-universe message instead."""
+    if isinstance(state, dict) and isinstance(state.get("universe"), str):
+        u = snap.universe(state["universe"])
+        try:
+            snap.date_bounds(u.name)
+        except WindowError:
+            raise WindowError(empty_note(u.name)) from None
+        if fitted and not has_fitted(snap, u.name):
+            raise WindowError(empty_note(u.name))
+    return snap.window(state)
+
+
+
+# ---------------------------------------------------------------------------------------------
+# views
+# ---------------------------------------------------------------------------------------------
+
+
+@guard
+def index_view(snap: Snapshot, state: Any, quantile: Any = 0.9) -> ViewResult:
+    """The connectedness index over the whole history, x-range on the chosen window, stress shaded."""
+    window = _window(snap, state)
+    q = parse_fraction(quantile, "stress quantile", 0.5, 0.999)
+    history = snap.index_history(window.universe)
+    if not history:
+        raise WindowError(empty_note(window.universe))
+    u = snap.universe(window.universe)
+    dates = [d for d, _ in history]
+    totals = [float(v) for _, v in history]
+    threshold = float(np.quantile(totals, q)) if totals else None
+    try:
+        used = snap.fitted_end(window)
+    except WindowError:
+        used = None
+    fig = charts.index_figure(
+        dates, totals, start=window.start, end=window.end, reference_end=used,
+        threshold=threshold, universe=window.universe, horizon=u.horizon,
+    )  # fmt: skip
+    rows = [
+        {"window_end": iso(d), "total_percent": num(v),
+         "stress": bool(threshold is not None and v >= threshold),
+         "in_date_window": window.start <= d <= window.end}
+        for d, v in history
+    ]  # fmt: skip
+    inside = [v for d, v in history if window.start <= d <= window.end]
+    note = (
+        f"Stress: index at or above its {100 * q:g}th percentile ({threshold:.1f}%) over the whole "
+        f"history. Inside the window: mean {np.mean(inside):.1f}%, max {np.max(inside):.1f}%."
+        if inside and threshold is not None
+        else "No index values in this window."
+    )
+    return fig, rows, note
+
+
+def _responses(
+    snap: Snapshot,
+    u: Universe,
+    end: dt.date,
+    *,
+    identification: str,
+    order: tuple[str, ...],
+    horizon: int,
+    cumulative: bool,
+) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None, str]:
+    """Responses (H+1, n, n) at window `end`: stored when they fit the request, else from arlib.
+
+    Returns (response, stored lower, stored upper, where from). Stored bands are only offered for
+    the stored identification and ordering, non-cumulative, up to the stored horizon.
+    """
+    import arlib
+
+    default_order = order == u.series
+    stored = snap.responses(u, end, identification)
+    if stored is not None and stored[0].shape[0] - 1 >= horizon and (
+        identification == "generalized" or default_order
+    ):
+        resp, lower, upper, _ = stored
+        resp = resp[: horizon + 1]
+        lower = None if lower is None else lower[: horizon + 1]
+        upper = None if upper is None else upper[: horizon + 1]
+        source = "stored"
+    else:
+        proc = _model(snap.fit(u, end), u)
+        resp = arlib.impulse_responses(
+            proc, horizon, shocks=identification,
+            order=list(order) if identification == "cholesky" and not default_order else None,
+        )  # fmt: skip
+        lower = upper = None
+        source = "derived by arlib from the stored coefficients"
+    if cumulative:
+        resp = np.cumsum(resp, axis=0)
+        lower = upper = None
+    return resp, lower, upper, source
+
+
+def _bootstrap_band(
+    snap: Snapshot,
+    u: Universe,
+    end: dt.date,
+    *,
+    identification: str,
+    order: tuple[str, ...],
+    horizon: int,
+    cumulative: bool,
+) -> tuple[np.ndarray, np.ndarray, str]:
+    """A residual-bootstrap band from arlib, refitting the window's own prepared rows.
+
+    Percentile intervals of `BOOTSTRAP_DRAWS` replications (arlib.irf_bands); the seed is fixed so
+    the same request always draws the same band.
+    """
+    import arlib
+
+    fit = snap.fit(u, end)
+    y = snap.prepared(u, fit.window_start, fit.window_end)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", arlib.UnstableProcessWarning)
+        model = arlib.fit_var(y, fit.lags, trend=u.trend, names=u.series)
+        bands = arlib.irf_bands(
+            model, horizon, shocks=identification, cumulative=cumulative,
+            order=list(order) if identification == "cholesky" else None,
+            coverage=BOOTSTRAP_COVERAGE, draws=BOOTSTRAP_DRAWS, rng=0,
+        )  # fmt: skip
+    return (
+        np.asarray(bands.lower),
+        np.asarray(bands.upper),
+        f"{100 * BOOTSTRAP_COVERAGE:.0f}% residual-bootstrap band ({BOOTSTRAP_DRAWS} draws, "
+        f"refitted on the window's {y.shape[0]} prepared rows)",
+    )
+
+
+@guard
+def paths_view(
+    snap: Snapshot,
+    state: Any,
+    identification: Any,
+    ordering: Any,
+    cumulative: Any,
+    horizon: Any,
+    bands: Any,
+) -> ViewResult:
+    """Impulse-response grid (responses × shocks) at the reference window end."""
+    window = _window(snap, state)
+    u = snap.universe(window.universe)
+    ident = parse_choice(identification, IDENTIFICATIONS, "identification")
+    band = parse_choice(bands or "none", BAND_CHOICES, "bands")
+    H = parse_horizon(horizon)
+    cum = flag(cumulative, "cumulative")
+    order = parse_order(ordering, u)
+    end = snap.fitted_end(window)
+    resp, lower, upper, source = _responses(
+        snap, u, end, identification=ident, order=order, horizon=H, cumulative=cum
+    )
+    band_note = "no band"
+    if band == "stored":
+        if lower is None or upper is None:
+            band_note = (
+                "no stored band for this window and choice (the pipeline stores bands for its own "
+                "identification, non-cumulative, usually at the latest window); pick 'compute a "
+                "bootstrap band now'"
+            )
+        else:
+            band_note = "stored band"
+    elif band == "bootstrap":
+        lower, upper, band_note = _bootstrap_band(
+            snap, u, end, identification=ident, order=order, horizon=H, cumulative=cum
+        )
+    if band == "none":
+        lower = upper = None
+    label = "generalized" if ident == "generalized" else "Cholesky"
+    kind = "cumulative response" if cum else "response"
+    title = f"Shock paths at the window ending {end} — {label}, {kind}, horizons 0–{H}"
+    order_text = (
+        "Cholesky order (first = most exogenous): " + " → ".join(order)
+        if ident == "cholesky" else None
+    )  # fmt: skip
+    unit = (
+        "cumulated change of the responding series per one-s.d. shock"
+        if cum
+        else "change of the responding series (as prepared) per one-s.d. shock"
+    )
+    fig = charts.responses_figure(
+        resp, u.series, lower=lower, upper=upper, title=title, subtitle=order_text, yunit=unit
+    )
+    end_text, names = iso(end), u.series
+    values = nums(resp)
+    lows = [None] * len(values) if lower is None else nums(lower)
+    highs = [None] * len(values) if upper is None else nums(upper)
+    rows = [
+        {"window_end": end_text, "identification": ident, "cumulative": cum, "horizon": h,
+         "response": names[i], "shock": names[j], "value": v, "lower": lo, "upper": hi}
+        for (h, i, j), v, lo, hi in zip(grid_index(H + 1, len(names)), values, lows, highs, strict=True)
+    ]  # fmt: skip
+    note = f"Window ending {end}; responses {source}; {band_note}."
+    return fig, rows, note
+
+
+def _shares(
+    snap: Snapshot, u: Universe, end: dt.date, method: str, order: tuple[str, ...], horizon: int
+) -> tuple[np.ndarray, str]:
+    """(n, n) shares [variable, shock] in percent at `horizon` steps: stored, or from arlib."""
+    import arlib
+
+    stored = snap.decomposition(u, end, method)
+    if stored is not None and stored.shape[0] >= horizon and (
+        method == "generalized" or order == u.series
+    ):
+        return 100.0 * stored[horizon - 1], "stored"
+    proc = _model(snap.fit(u, end), u)
+    dec = arlib.variance_decomposition(
+        proc, horizon, method=method,
+        order=list(order) if method == "cholesky" and order != u.series else None,
+    )  # fmt: skip
+    return 100.0 * dec[-1], "derived by arlib"
+
+
+@guard
+def shares_view(snap: Snapshot, state: Any, ordering: Any, horizon: Any) -> ViewResult:
+    """Generalized and Cholesky variance shares per series at the chosen horizon."""
+    window = _window(snap, state)
+    u = snap.universe(window.universe)
+    H = parse_horizon(horizon)
+    order = parse_order(ordering, u)
+    end = snap.fitted_end(window)
+    gen, gsrc = _shares(snap, u, end, "generalized", order, H)
+    chol, csrc = _shares(snap, u, end, "cholesky", order, H)
+    fig = charts.shares_figure(
+        [("generalized<br>(rows normalised to 100%)", gen),
+         ("Cholesky<br>(recursive order in the title)", chol)],
+        u.series,
+        title=f"Variance shares at {H} steps ahead, window ending {end}",
+        subtitle=f"Cholesky order (first = most exogenous): {' → '.join(order)}",
+    )  # fmt: skip
+    rows = [
+        {"window_end": iso(end), "steps": H, "method": m, "series": u.series[i],
+         "shock": u.series[j], "share_percent": num(t[i, j])}
+        for m, t in (("generalized", gen), ("cholesky", chol))
+        for i in range(len(u.series)) for j in range(len(u.series))
+    ]  # fmt: skip
+    note = f"Window ending {end}; generalized {gsrc}, Cholesky {csrc}. Each bar sums to 100%."
+    return fig, rows, note
+
+
+@guard
+def leadlag_view(snap: Snapshot, state: Any, level: Any) -> ViewResult:
+    """Granger p-values at the window end, and the share of windows significant in the date window."""
+    window = _window(snap, state)
+    u = snap.universe(window.universe)
+    alpha = parse_fraction(level, "significance level", 0.0, 0.5)
+    end = snap.fitted_end(window)
+    pvals = snap.granger_at(u, end)
+    share, count = snap.granger_share(window, u, alpha)
+    fig = charts.granger_figure(
+        pvals, share, u.series, level=alpha, window_end=end, n_windows=count, date_label=window.label
+    )
+    n = len(u.series)
+    rows = [
+        {"window_end": iso(end), "caused": u.series[i], "causing": u.series[j],
+         "p_value": num(pvals[i, j]), "level": alpha, "date_window": window.label,
+         "windows": count, "share_significant": num(share[i, j])}
+        for i in range(n) for j in range(n) if i != j
+    ]  # fmt: skip
+    note = f"Window ending {end}; {count} windows from {window.label}; level {alpha:g}."
+    return fig, rows, note
+
+
+def _directional_from(table: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """to_others[j] = Σ_{i≠j} table[i, j], from_others[i] = Σ_{j≠i} table[i, j] (Diebold–Yilmaz 2012)."""
+    off = np.where(np.eye(table.shape[0], dtype=bool), 0.0, np.nan_to_num(table))
+    return off.sum(axis=0), off.sum(axis=1)
+
+
+@guard
+def network_view(snap: Snapshot, state: Any, mode: Any, size_by: Any) -> ViewResult:
+    """Directed graph of net pairwise spillovers, at the window end or averaged over the window."""
+    window = _window(snap, state)
+    u = snap.universe(window.universe)
+    how = parse_choice(mode, ("end", "mean"), "network mode")
+    size = parse_choice(size_by, ("to", "from"), "node size")
+    if how == "end":
+        end = snap.fitted_end(window)
+        table = snap.pairwise_at(u, end)
+        what = f"at the window ending {end}"
+        span = {"window_end": iso(end)}
+    else:
+        table, count = snap.pairwise_mean(window, u)
+        if count == 0:
+            raise WindowError(f"no spillover tables between {window.label}")
+        what = f"averaged over {count} windows, {window.label}"
+        span = {"date_window": window.label, "windows": count}
+    to_others, from_others = _directional_from(table)
+    fig = charts.network_figure(
+        table, u.series, to_others=to_others, from_others=from_others, size_by=size,
+        title=f"Net pairwise spillovers {what}, {u.horizon}-step horizon",
+        subtitle=(f"stored at the universe's {u.horizon}-step horizon (the horizon control does not "
+                  "change it)"),
+    )  # fmt: skip
+    n = len(u.series)
+    rows = [
+        {**span, "source": u.series[j], "target": u.series[i], "share_percent": num(table[i, j]),
+         "net_source_to_target_pp": num(table[i, j] - table[j, i])}
+        for i in range(n) for j in range(n) if i != j
+    ]  # fmt: skip
+    note = f"Spillovers {what}. Node colour: net (to − from) in percentage points."
+    return fig, rows, note
+
+
+def _compare_windows(
+    snap: Snapshot, window: DateWindow, a: Sequence[Any], b: Sequence[Any]
+) -> tuple[DateWindow, DateWindow]:
+    """The two date windows to compare; blank inputs default to the halves of the chosen window."""
+    mid = window.start + (window.end - window.start) / 2
+    defaults = (window.start, mid, mid + dt.timedelta(days=1), window.end)
+    values = []
+    for raw, default, name in zip(
+        (*a, *b), defaults, ("A start", "A end", "B start", "B end"), strict=True
+    ):
+        values.append(default if raw in (None, "") else parse_date(raw, name=name))
+    first = snap.window({"universe": window.universe, "start": values[0], "end": values[1]})
+    second = snap.window({"universe": window.universe, "start": values[2], "end": values[3]})
+    return first, second
+
+
+@guard
+def compare_pairs_view(
+    snap: Snapshot, state: Any, a_start: Any, a_end: Any, b_start: Any, b_end: Any
+) -> ViewResult:
+    """Pairwise spillovers averaged over date window A and B, and their change B − A."""
+    window = _window(snap, state)
+    u = snap.universe(window.universe)
+    first, second = _compare_windows(snap, window, (a_start, a_end), (b_start, b_end))
+    ta, ca = snap.pairwise_mean(first, u)
+    tb, cb = snap.pairwise_mean(second, u)
+    if ca == 0 or cb == 0:
+        raise WindowError(
+            f"window {'A' if ca == 0 else 'B'} ({(first if ca == 0 else second).label}) holds no "
+            "fitted windows; widen it"
+        )
+    fig = charts.pairwise_compare_figure(ta, tb, u.series, labels=(first.label, second.label))
+    n = len(u.series)
+    rows = [
+        {"target": u.series[i], "source": u.series[j], "a_window": first.label, "a_windows": ca,
+         "a_share_percent": num(ta[i, j]), "b_window": second.label, "b_windows": cb,
+         "b_share_percent": num(tb[i, j]), "change_pp": num(tb[i, j] - ta[i, j])}
+        for i in range(n) for j in range(n)
+    ]  # fmt: skip
+    total_a = float(np.nansum(ta) - np.nansum(np.diag(ta))) / n
+    total_b = float(np.nansum(tb) - np.nansum(np.diag(tb))) / n
+    note = (
+        f"A: {first.label} ({ca} windows), B: {second.label} ({cb} windows); "
+        f"total connectedness of the averaged tables {total_a:.1f}% → {total_b:.1f}%."
+    )
+    return fig, rows, note
+
+
+@guard
+def compare_paths_view(
+    snap: Snapshot,
+    state: Any,
+    a_start: Any,
+    a_end: Any,
+    b_start: Any,
+    b_end: Any,
+    identification: Any,
+    ordering: Any,
+    horizon: Any,
+) -> ViewResult:
+    """Impulse responses at the last fitted window of A and of B, overlaid."""
+    window = _window(snap, state)
+    u = snap.universe(window.universe)
+    first, second = _compare_windows(snap, window, (a_start, a_end), (b_start, b_end))
+    ident = parse_choice(identification, IDENTIFICATIONS, "identification")
+    H = parse_horizon(horizon)
+    order = parse_order(ordering, u)
+    ends = (snap.fitted_end(first), snap.fitted_end(second))
+    paths = [
+        _responses(snap, u, e, identification=ident, order=order, horizon=H, cumulative=False)[0]
+        for e in ends
+    ]
+    labels = (f"A: window ending {ends[0]}", f"B: window ending {ends[1]}")
+    fig = charts.responses_compare_figure(
+        paths[0], paths[1], u.series, labels=labels,
+        title=f"Shock paths, {ident}: A (solid) against B (dashed)",
+    )  # fmt: skip
+    n = len(u.series)
+    names, a_end, b_end = u.series, iso(ends[0]), iso(ends[1])
+    rows = [
+        {"identification": ident, "horizon": h, "response": names[i], "shock": names[j],
+         "a_window_end": a_end, "a_value": a, "b_window_end": b_end, "b_value": b, "change": d}
+        for (h, i, j), a, b, d in zip(
+            grid_index(H + 1, n), nums(paths[0]), nums(paths[1]), nums(paths[1] - paths[0]),
+            strict=True,
+        )
+    ]  # fmt: skip
+    note = f"A: window ending {ends[0]}; B: window ending {ends[1]}; {ident} shocks."
+    return fig, rows, note
+
+
+def compare_view(
+    snap: Snapshot, state: Any, a_start: Any, a_end: Any, b_start: Any, b_end: Any,
+    identification: Any, ordering: Any, horizon: Any,
+) -> tuple[ViewResult, ViewResult]:
+    """Both comparison charts (spillover tables and shock paths)."""
+    return (
+        compare_pairs_view(snap, state, a_start, a_end, b_start, b_end),
+        compare_paths_view(snap, state, a_start, a_end, b_start, b_end, identification, ordering, horizon),
+    )
+
+
+@guard
+def health_view(snap: Snapshot, state: Any, near_one: Any = 0.98) -> ViewResult:
+    """Lag order, spectral radius, residual test and observations over the date window."""
+    window = _window(snap, state, fitted=False)
+    near = parse_fraction(near_one, "near-one threshold", 0.0, 1.0)
+    rows_db = snap.health(window)
+    if not rows_db:
+        raise WindowError(f"no windows between {window.label}")
+    cols = ["window_end", "window_start", "nobs", "lags", "spectral_radius", "stable",
+            "portmanteau_p", "aic", "condition_number", "skip_reason"]  # fmt: skip
+    records = [dict(zip(cols, r, strict=True)) for r in rows_db]
+    fitted = [r for r in records if r["skip_reason"] is None]
+    skipped = [(r["window_end"], str(r["skip_reason"])) for r in records if r["skip_reason"] is not None]
+    fig = charts.health_figure(
+        [r["window_end"] for r in fitted], [r["lags"] for r in fitted],
+        [r["spectral_radius"] for r in fitted], [r["portmanteau_p"] for r in fitted],
+        [r["nobs"] for r in fitted], skipped=skipped, near_one=near,
+        title=f"Model health, {window.universe}, windows ending {window.label}",
+    )  # fmt: skip
+    flagged = sum(1 for r in fitted if r["spectral_radius"] is not None and r["spectral_radius"] >= near)
+    rows = [
+        {**{k: (iso(v) if isinstance(v, dt.date) else v) for k, v in r.items()},
+         "radius_flag": (
+             "" if r["spectral_radius"] is None
+             else "at or above one" if r["spectral_radius"] >= 1
+             else "near one" if r["spectral_radius"] >= near else "")}
+        for r in records
+    ]  # fmt: skip
+    note = (
+        f"{len(fitted)} fitted windows, {len(skipped)} skipped, {flagged} with spectral radius ≥ "
+        f"{near:g}."
+    )
+    return fig, rows, note
+
+
+def skipped_rows(rows: Rows) -> list[tuple[str, str]]:
+    """(window end, reason) of the skipped windows among the health rows."""
+    return [(str(r["window_end"]), str(r["skip_reason"])) for r in rows if r.get("skip_reason")]
+
+
+#: Frequencies of the own-cycle spectra, cycles per observation (ω = 2π f radians).
+CYCLE_FREQUENCIES = np.linspace(0.0, 0.5, 161)
+#: Largest own-AR order tried (AIC picks among 1..max(this, the window's VAR lag order)).
+OWN_MAX_LAGS = 6
+
+
+@dataclass(frozen=True)
+class _OwnCycle:
+    """One series' own-AR spectrum: AR order, density (F,), variance, dominant period or None."""
+
+    name: str
+    lags: int
+    density: np.ndarray | None
+    variance: float
+    period: float | None
+    radius: float
+
+
+def _own_cycles(snap: Snapshot, u: Universe, end: dt.date) -> list[_OwnCycle]:
+    """Fit each series' own AR on the window's prepared rows (cached per snapshot file and window)."""
+    import arlib
+
+    def compute() -> list[_OwnCycle]:
+        fit = snap.fit(u, end)
+        y = snap.prepared(u, fit.window_start, fit.window_end)
+        out = []
+        for i, name in enumerate(u.series):
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", arlib.UnstableProcessWarning)
+                choice = arlib.select_lags(y[:, i], max(OWN_MAX_LAGS, fit.lags), names=[name])
+                p = max(1, int(choice.best["aic"]))
+                own = arlib.fit_var(y[:, i], p, names=[name])
+            if not own.is_stable:
+                out.append(_OwnCycle(name, p, None, math.nan, None, float(own.spectral_radius)))
+                continue
+            density = np.asarray(arlib.spectral_density(own, 2 * np.pi * CYCLE_FREQUENCIES))[:, 0, 0].real
+            variance = float(np.asarray(arlib.stationary_covariance(own))[0, 0])
+            peak = arlib.spectral_peak(own, grid=1024)
+            period = float(peak.period) if peak.has_cycle else None
+            out.append(_OwnCycle(name, p, density, variance, period, float(own.spectral_radius)))
+        return out
+
+    return snap.cached(("own-cycles", u.name, end), compute)  # type: ignore[no-any-return]
+
+
+@guard
+def cycles_view(snap: Snapshot, state: Any) -> ViewResult:
+    """Per series: the spectral density implied by its own AR, fitted on the reference window.
+
+    Each series gets a univariate AR fitted on the window's prepared rows, its order chosen by AIC
+    among 1..max(`OWN_MAX_LAGS`, the VAR's lag order); arlib gives its spectral density f(ω)
+    (Hamilton 1994, eq. 10.4.43 with n = 1) and the frequency where it peaks. A peak strictly
+    between 0 and π is a dominant cycle of period 2π/ω* observations; a peak at 0 means
+    persistence without a cycle. The chart divides each density by the series' variance γ(0) (the
+    density integrates to it over [−π, π]), so series in different units share an axis on which
+    white noise is flat at 1/(2π).
+    """
+    window = _window(snap, state)
+    u = snap.universe(window.universe)
+    end = snap.fitted_end(window)
+    freqs = CYCLE_FREQUENCIES
+    spectra: list[tuple[int, str, np.ndarray, float | None]] = []
+    rows: Rows = []
+    notes: list[str] = []
+    end_text = end.isoformat()
+    freq_list = freqs.tolist()
+    for k, c in enumerate(_own_cycles(snap, u, end)):
+        if c.density is None:
+            notes.append(f"{c.name}: own AR({c.lags}) not stationary (radius {c.radius:.3f}), no spectrum")
+            continue
+        spectra.append((k, c.name, c.density / c.variance, c.period))
+        notes.append(f"{c.name} AR({c.lags}): " + (f"{c.period:.1f} obs" if c.period is not None else "no cycle"))
+        scaled = (c.density / c.variance).tolist()
+        rows.extend(
+            {"window_end": end_text, "series": c.name, "ar_lags": c.lags,
+             "frequency_cycles_per_obs": f, "density": d, "density_over_variance": r,
+             "dominant_period_obs": c.period}
+            for f, d, r in zip(freq_list, c.density.tolist(), scaled, strict=True)
+        )  # fmt: skip
+    if not spectra:
+        raise WindowError(f"no series has a stationary own AR in the window ending {end}")
+    fig = charts.cycles_figure(
+        freqs, spectra,
+        title=f"Own-dynamics spectrum per series (univariate AR, order by AIC; window ending {end})",
+    )  # fmt: skip
+    note = f"Window ending {end}. Dominant cycle (period in observations): " + "; ".join(notes) + "."
+    return fig, rows, note
+
+
+
+# ---------------------------------------------------------------------------------------------
+# the table of views
+# ---------------------------------------------------------------------------------------------
+
+# component ids of the views' own controls (shared ones live in `dashboard.ids`)
+IDENTIFICATION = "identification"
+CUMULATIVE = "cumulative"
+BANDS = "bands"
+LEVEL = "granger-level"
+NETWORK_MODE = "network-mode"
+NETWORK_SIZE = "network-size"
+A_START = "compare-a-start"
+A_END = "compare-a-end"
+B_START = "compare-b-start"
+B_END = "compare-b-end"
+NEAR_ONE = "near-one"
+SKIPPED_TABLE = "skipped-table"
+
+Defaults = dict[tuple[str, str], Any]
+
+
+@dataclass(frozen=True)
+class View:
+    """One row of the table: a view and everything the page needs to show it.
+
+    name : tab value, and the prefix of its ids (``{chart}-graph``, ``{name}-note``).
+    build : the figure builder, ``build(snap, state, *input values)`` → ``(figure, rows, note)``,
+        or one such triple per chart when `charts` names several.
+    inputs : component ids whose ``value`` goes to `build` after the window state, in order.
+    tab : the tab's label; None for a view shown above the tabs (the connectedness index).
+    charts : (chart name, height in px) per chart; the chart name keys its CSV download.
+    csv : the CSV builder: rows of the view → rows of its CSV file (default: the rows as they are).
+    controls : the tab's own controls, given the first universe (or None) at page build.
+    defaults : (component id, property) → value a newly picked universe brings to the controls.
+    extra : (component id, rows → children) for one more output, e.g. the skipped-window table.
+    intro : a line of text at the top of the tab.
+    note : the id of the line of text under the view (default ``{name}-note``).
+    """
+
+    name: str
+    build: Callable[..., Any]
+    inputs: tuple[str, ...] = ()
+    tab: str | None = None
+    charts: tuple[tuple[str, int], ...] = ()
+    csv: Callable[[Rows], Rows] | None = None
+    controls: Callable[[Universe | None], list[Any]] | None = None
+    defaults: Callable[[Universe], Defaults] | None = None
+    extra: tuple[str, Callable[[Rows], Any]] | None = None
+    intro: str | None = None
+    note: str | None = None
+    chart_list: tuple[tuple[str, int], ...] = field(init=False)
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "chart_list", self.charts or ((self.name, 420),))
+
+    @property
+    def note_id(self) -> str:
+        return self.note or ids.note_id(self.name)
+
+    def results(self, snap: Snapshot, state: Any, *values: Any) -> list[ViewResult]:
+        """The view's (figure, CSV rows, note) per chart."""
+        out = self.build(snap, state, *values)
+        triples = list(out) if len(self.chart_list) > 1 else [out]
+        if self.csv is not None:
+            triples = [(fig, self.csv(rows), text) for fig, rows, text in triples]
+        return triples
+
+
+def _radio(cid: str, value: Any, options: dict[Any, str]) -> Any:
+    from dash import dcc
+
+    return dcc.RadioItems(id=cid, value=value, inline=True,
+                          options=[{"label": v, "value": k} for k, v in options.items()])  # fmt: skip
+
+
+def _identification(u: Universe | None) -> str:
+    return u.identification if u is not None and u.identification in IDENTIFICATIONS else "generalized"
+
+
+def _paths_controls(u: Universe | None) -> list[Any]:
+    from dash import dcc
+
+    return [
+        label("Identification", _radio(IDENTIFICATION, _identification(u), IDENTIFICATIONS)),
+        label("Paths", dcc.Checklist(
+            id=CUMULATIVE, value=[], inline=True,
+            options=[{"label": "cumulative (level response for returns)", "value": "cumulative"}],
+        )),
+        label("Band", _radio(BANDS, "stored", BAND_CHOICES)),
+    ]  # fmt: skip
+
+
+def _levels(level: float) -> list[dict[str, Any]]:
+    return [{"label": f"{x:g}", "value": x} for x in sorted({0.01, 0.05, 0.10, level})]
+
+
+def _leadlag_controls(u: Universe | None) -> list[Any]:
+    from dash import dcc
+
+    level = u.granger_level if u is not None else 0.05
+    return [label("Significance level", dcc.Dropdown(id=LEVEL, clearable=False, value=level,
+                                                     options=_levels(level)), width="180px")]  # fmt: skip
+
+
+def _network_controls(u: Universe | None) -> list[Any]:
+    return [
+        label("Spillovers", _radio(NETWORK_MODE, "end", {
+            "end": "at the window end", "mean": "averaged over the date window"})),
+        label("Node size", _radio(NETWORK_SIZE, "to", {
+            "to": "spillover to others", "from": "spillover from others"})),
+    ]  # fmt: skip
+
+
+def _compare_controls(u: Universe | None) -> list[Any]:
+    from dash import dcc, html
+
+    def date(cid: str, placeholder: str) -> Any:
+        return dcc.Input(id=cid, type="text", debounce=True, placeholder=placeholder, className="date-input")
+
+    return [
+        label("A from", date(A_START, "first half")), label("A to", date(A_END, "YYYY-MM-DD")),
+        label("B from", date(B_START, "second half")), label("B to", date(B_END, "YYYY-MM-DD")),
+        html.Span("Blank dates: the two halves of the date window.", className="note"),
+    ]  # fmt: skip
+
+
+def _health_controls(u: Universe | None) -> list[Any]:
+    from dash import dcc
+
+    return [label("Flag spectral radius from", dcc.Dropdown(
+        id=NEAR_ONE, clearable=False, value=0.98,
+        options=[{"label": f"{x:g}", "value": x} for x in (0.95, 0.98, 0.99, 0.995)],
+    ), width="220px")]  # fmt: skip
+
+
+def _skipped(rows: Rows) -> Any:
+    return as_json(skipped_table(skipped_rows(rows)))
+
+
+def _compare_build(snap: Snapshot, state: Any, *values: Any) -> tuple[ViewResult, ViewResult]:
+    return compare_view(snap, state, *values)
+
+
+#: The dashboard's views, in tab order (the index, shown above the tabs, first).
+VIEWS: tuple[View, ...] = (
+    View("index", index_view, inputs=(ids.STRESS_QUANTILE,), charts=(("index", 300),), note=ids.STATUS),
+    View("paths", paths_view, tab="Shock paths",
+         inputs=(IDENTIFICATION, ids.ORDERING, CUMULATIVE, ids.HORIZON, BANDS),
+         charts=(("paths", 520),), controls=_paths_controls,
+         defaults=lambda u: {(IDENTIFICATION, "value"): _identification(u)}),
+    View("shares", shares_view, tab="Variance shares", inputs=(ids.ORDERING, ids.HORIZON)),
+    View("leadlag", leadlag_view, tab="Lead–lag", inputs=(LEVEL,), controls=_leadlag_controls,
+         defaults=lambda u: {(LEVEL, "value"): u.granger_level, (LEVEL, "options"): _levels(u.granger_level)}),
+    View("network", network_view, tab="Spillover network", inputs=(NETWORK_MODE, NETWORK_SIZE),
+         charts=(("network", 580),), controls=_network_controls),
+    View("compare", _compare_build, tab="Compare windows",
+         inputs=(A_START, A_END, B_START, B_END, IDENTIFICATION, ids.ORDERING, ids.HORIZON),
+         charts=(("compare-pairs", 380), ("compare-paths", 520)), controls=_compare_controls),
+    View("health", health_view, tab="Model health", inputs=(NEAR_ONE,), charts=(("health", 640),),
+         controls=_health_controls, extra=(SKIPPED_TABLE, _skipped)),
+    View("cycles", cycles_view, tab="Own cycles", charts=(("cycles", 460),),
+         intro=("Each series on its own: a univariate AR (order chosen by AIC) fitted on the prepared "
+                "data of the window the views use; its implied spectral density and, where the "
+                "density peaks away from frequency zero, the dominant cycle length in observations.")),
+)  # fmt: skip
