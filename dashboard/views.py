@@ -44,7 +44,15 @@ from ._inputs import (
     parse_horizon,
     parse_order,
 )
-from .data import DateWindow, Snapshot, Universe, parse_date
+from .data import (
+    DateWindow,
+    Snapshot,
+    Universe,
+    parse_date,
+    response_band,
+    response_paths,
+    shares_at,
+)
 
 __all__ = [
     "VIEWS",
@@ -62,20 +70,6 @@ __all__ = [
     "shares_view",
     "skipped_rows",
 ]
-
-BOOTSTRAP_DRAWS = 199
-BOOTSTRAP_COVERAGE = 0.90
-
-
-def _model(fit: Any, universe: Universe) -> Any:
-    """The stored window's VAR as an arlib process (an unstable window still gives its responses)."""
-    import arlib
-
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", arlib.UnstableProcessWarning)
-        return arlib.var_process(fit.coefs, fit.sigma_u, fit.intercept, names=universe.series)
-
-
 
 def empty_note(universe: str) -> str:
     """What every view says for a universe without fitted windows."""
@@ -151,82 +145,6 @@ def index_view(snap: Snapshot, state: Any, quantile: Any = 0.9) -> ViewResult:
     return fig, rows, note
 
 
-def _responses(
-    snap: Snapshot,
-    u: Universe,
-    end: dt.date,
-    *,
-    identification: str,
-    order: tuple[str, ...],
-    horizon: int,
-    cumulative: bool,
-) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None, str]:
-    """Responses (H+1, n, n) at window `end`: stored when they fit the request, else from arlib.
-
-    Returns (response, stored lower, stored upper, where from). Stored bands are only offered for
-    the stored identification and ordering, non-cumulative, up to the stored horizon.
-    """
-    import arlib
-
-    default_order = order == u.series
-    stored = snap.responses(u, end, identification)
-    if stored is not None and stored[0].shape[0] - 1 >= horizon and (
-        identification == "generalized" or default_order
-    ):
-        resp, lower, upper, _ = stored
-        resp = resp[: horizon + 1]
-        lower = None if lower is None else lower[: horizon + 1]
-        upper = None if upper is None else upper[: horizon + 1]
-        source = "stored"
-    else:
-        proc = _model(snap.fit(u, end), u)
-        resp = arlib.impulse_responses(
-            proc, horizon, shocks=identification,
-            order=list(order) if identification == "cholesky" and not default_order else None,
-        )  # fmt: skip
-        lower = upper = None
-        source = "derived by arlib from the stored coefficients"
-    if cumulative:
-        resp = np.cumsum(resp, axis=0)
-        lower = upper = None
-    return resp, lower, upper, source
-
-
-def _bootstrap_band(
-    snap: Snapshot,
-    u: Universe,
-    end: dt.date,
-    *,
-    identification: str,
-    order: tuple[str, ...],
-    horizon: int,
-    cumulative: bool,
-) -> tuple[np.ndarray, np.ndarray, str]:
-    """A residual-bootstrap band from arlib, refitting the window's own prepared rows.
-
-    Percentile intervals of `BOOTSTRAP_DRAWS` replications (arlib.irf_bands); the seed is fixed so
-    the same request always draws the same band.
-    """
-    import arlib
-
-    fit = snap.fit(u, end)
-    y = snap.prepared(u, fit.window_start, fit.window_end)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", arlib.UnstableProcessWarning)
-        model = arlib.fit_var(y, fit.lags, trend=u.trend, names=u.series)
-        bands = arlib.irf_bands(
-            model, horizon, shocks=identification, cumulative=cumulative,
-            order=list(order) if identification == "cholesky" else None,
-            coverage=BOOTSTRAP_COVERAGE, draws=BOOTSTRAP_DRAWS, rng=0,
-        )  # fmt: skip
-    return (
-        np.asarray(bands.lower),
-        np.asarray(bands.upper),
-        f"{100 * BOOTSTRAP_COVERAGE:.0f}% residual-bootstrap band ({BOOTSTRAP_DRAWS} draws, "
-        f"refitted on the window's {y.shape[0]} prepared rows)",
-    )
-
-
 @guard
 def paths_view(
     snap: Snapshot,
@@ -246,7 +164,7 @@ def paths_view(
     cum = flag(cumulative, "cumulative")
     order = parse_order(ordering, u)
     end = snap.fitted_end(window)
-    resp, lower, upper, source = _responses(
+    resp, lower, upper, source = response_paths(
         snap, u, end, identification=ident, order=order, horizon=H, cumulative=cum
     )
     band_note = "no band"
@@ -260,7 +178,7 @@ def paths_view(
         else:
             band_note = "stored band"
     elif band == "bootstrap":
-        lower, upper, band_note = _bootstrap_band(
+        lower, upper, band_note = response_band(
             snap, u, end, identification=ident, order=order, horizon=H, cumulative=cum
         )
     if band == "none":
@@ -293,25 +211,6 @@ def paths_view(
     return fig, rows, note
 
 
-def _shares(
-    snap: Snapshot, u: Universe, end: dt.date, method: str, order: tuple[str, ...], horizon: int
-) -> tuple[np.ndarray, str]:
-    """(n, n) shares [variable, shock] in percent at `horizon` steps: stored, or from arlib."""
-    import arlib
-
-    stored = snap.decomposition(u, end, method)
-    if stored is not None and stored.shape[0] >= horizon and (
-        method == "generalized" or order == u.series
-    ):
-        return 100.0 * stored[horizon - 1], "stored"
-    proc = _model(snap.fit(u, end), u)
-    dec = arlib.variance_decomposition(
-        proc, horizon, method=method,
-        order=list(order) if method == "cholesky" and order != u.series else None,
-    )  # fmt: skip
-    return 100.0 * dec[-1], "derived by arlib"
-
-
 @guard
 def shares_view(snap: Snapshot, state: Any, ordering: Any, horizon: Any) -> ViewResult:
     """Generalized and Cholesky variance shares per series at the chosen horizon."""
@@ -320,8 +219,8 @@ def shares_view(snap: Snapshot, state: Any, ordering: Any, horizon: Any) -> View
     H = parse_horizon(horizon)
     order = parse_order(ordering, u)
     end = snap.fitted_end(window)
-    gen, gsrc = _shares(snap, u, end, "generalized", order, H)
-    chol, csrc = _shares(snap, u, end, "cholesky", order, H)
+    gen, gsrc = shares_at(snap, u, end, "generalized", order, H)
+    chol, csrc = shares_at(snap, u, end, "cholesky", order, H)
     fig = charts.shares_figure(
         [("generalized<br>(rows normalised to 100%)", gen),
          ("Cholesky<br>(recursive order in the title)", chol)],
@@ -362,12 +261,6 @@ def leadlag_view(snap: Snapshot, state: Any, level: Any) -> ViewResult:
     return fig, rows, note
 
 
-def _directional_from(table: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """to_others[j] = Σ_{i≠j} table[i, j], from_others[i] = Σ_{j≠i} table[i, j] (Diebold–Yilmaz 2012)."""
-    off = np.where(np.eye(table.shape[0], dtype=bool), 0.0, np.nan_to_num(table))
-    return off.sum(axis=0), off.sum(axis=1)
-
-
 @guard
 def network_view(snap: Snapshot, state: Any, mode: Any, size_by: Any) -> ViewResult:
     """Directed graph of net pairwise spillovers, at the window end or averaged over the window."""
@@ -378,15 +271,16 @@ def network_view(snap: Snapshot, state: Any, mode: Any, size_by: Any) -> ViewRes
     if how == "end":
         end = snap.fitted_end(window)
         table = snap.pairwise_at(u, end)
+        to_others, from_others, _ = snap.spillover_sums(u, end)  # arlib's sums, as stored
         what = f"at the window ending {end}"
         span = {"window_end": iso(end)}
     else:
         table, count = snap.pairwise_mean(window, u)
         if count == 0:
             raise WindowError(f"no spillover tables between {window.label}")
+        to_others, from_others, _, _ = snap.spillover_sums_mean(window, u)
         what = f"averaged over {count} windows, {window.label}"
         span = {"date_window": window.label, "windows": count}
-    to_others, from_others = _directional_from(table)
     fig = charts.network_figure(
         table, u.series, to_others=to_others, from_others=from_others, size_by=size,
         title=f"Net pairwise spillovers {what}, {u.horizon}-step horizon",
@@ -472,7 +366,7 @@ def compare_paths_view(
     order = parse_order(ordering, u)
     ends = (snap.fitted_end(first), snap.fitted_end(second))
     paths = [
-        _responses(snap, u, e, identification=ident, order=order, horizon=H, cumulative=False)[0]
+        response_paths(snap, u, e, identification=ident, order=order, horizon=H, cumulative=False)[0]
         for e in ends
     ]
     labels = (f"A: window ending {ends[0]}", f"B: window ending {ends[1]}")

@@ -158,11 +158,19 @@ def test_network_view_net_direction_and_average(snap: Snapshot, snapshot_path: P
     assert any(a.get("showarrow") for a in fig["layout"]["annotations"])
 
 
-def test_directional_from_table_matches_stored_directional(snap: Snapshot, state: dict[str, str], universe_name: str) -> None:
-    """to/from computed from a pairwise table equal the stored directional rows (Diebold–Yilmaz 2012)."""
+def test_network_sums_are_the_stored_directional_rows(snap: Snapshot, state: dict[str, str], universe_name: str) -> None:
+    """The network's node sizes are arlib's stored sums, and they are the off-diagonal sums of the
+    stored pairwise table (Diebold–Yilmaz 2012 directional measures)."""
     u = snap.universe(universe_name)
     end = _end(snap, state)
-    to_others, from_others = vw._directional_from(snap.pairwise_at(u, end))
+    table = snap.pairwise_at(u, end)
+    off = np.where(np.eye(len(u.series), dtype=bool), 0.0, table)
+    to_others, from_others, _ = snap.spillover_sums(u, end)
+    np.testing.assert_allclose(to_others, off.sum(axis=0), rtol=1e-9)
+    np.testing.assert_allclose(from_others, off.sum(axis=1), rtol=1e-9)
+    fig, _, _ = vw.network_view(snap, state, "end", "to")
+    sizes = [m for tr in fig["data"] for m in np.atleast_1d((tr.get("marker") or {}).get("size", []))]
+    assert sizes, "the network draws sized nodes"
     stored = snap.directional_at(u, end)
     np.testing.assert_allclose(to_others, [stored[s][0] for s in u.series], rtol=1e-9)
     np.testing.assert_allclose(from_others, [stored[s][1] for s in u.series], rtol=1e-9)
