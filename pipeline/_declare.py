@@ -72,6 +72,7 @@ class Setting:
     default_doc: str | None = None
     fit_value: Callable[[Any], Any] | None = None
     fit_via: str | None = None
+    fit_if_set: bool = False
 
 
 def setting(
@@ -86,6 +87,7 @@ def setting(
     default_doc: str | None = None,
     fit_value: Callable[[Any], Any] | None = None,
     fit_via: str | None = None,
+    fit_if_set: bool = False,
     secret: bool = False,
 ) -> Any:
     """Declare one config key as a dataclass field.
@@ -102,12 +104,14 @@ def setting(
     fit_value : ``owner -> JSON value`` when the key enters the fit hash in another form.
     fit_via : the key through which this one's effect enters the fit hash already (it then
         does not enter by itself; the README still says that changing it refits).
+    fit_if_set : enter the fit hash only when the value differs from the default — for a key
+        added after warehouses exist, so that configs without it keep their hash (no refit).
     secret : kept out of the repr.
     """
     meta = {
         "setting": Setting(
             doc=doc, fit=fit, choices=choices, minimum=minimum, maximum=maximum, check=check,
-            default_doc=default_doc, fit_value=fit_value, fit_via=fit_via,
+            default_doc=default_doc, fit_value=fit_value, fit_via=fit_via, fit_if_set=fit_if_set,
         )
     }  # fmt: skip
     if default is REQUIRED:
@@ -280,6 +284,8 @@ def _convert(d: Declared, value: Any, key: str, problems: Problems, *, base: Pat
         if not isinstance(value, list):
             problems.add(key, f"must be list, got {value!r}", f"set `{d.name}` to a list such as [\"a\", \"b\"]")
             return BAD
+        if d.element is float:  # TOML writes 5 for 5.0
+            value = [float(v) if _is(v, int) else v for v in value]
         for item in value:
             if not _is(item, d.element):
                 problems.add(key, f"contains {item!r}, not a {d.element.__name__}", f"list {d.element.__name__} values only")
@@ -287,7 +293,18 @@ def _convert(d: Declared, value: Any, key: str, problems: Problems, *, base: Pat
             if choices is not None and item not in choices:
                 problems.add(key, f"contains {item!r}{suggest(item, choices)}", f"use some of: {', '.join(choices)}")
                 return BAD
-        return tuple(dict.fromkeys(value)) if choices is not None else tuple(value)
+            if s.minimum is not None and item < s.minimum:
+                problems.add(key, f"contains {item}, below the minimum {s.minimum}", f"list values >= {s.minimum}")
+                return BAD
+            if s.maximum is not None and item > s.maximum:
+                problems.add(key, f"contains {item}, above the maximum {s.maximum}", f"list values <= {s.maximum}")
+                return BAD
+        items = tuple(dict.fromkeys(value)) if choices is not None else tuple(value)
+        wrong = s.check(items) if s.check is not None else None
+        if wrong is not None:
+            problems.add(key, *wrong)
+            return BAD
+        return items
     want = str if d.base is Path else d.base
     if want is float and _is(value, int):
         value = float(value)
@@ -330,6 +347,8 @@ def fit_document(obj: Any) -> dict[str, Any]:
     for f in dataclasses.fields(obj):
         s = f.metadata.get("setting")
         if s is None or not s.fit or s.fit_via is not None:
+            continue
+        if s.fit_if_set and getattr(obj, f.name) == f.default:
             continue
         value = s.fit_value(obj) if s.fit_value is not None else getattr(obj, f.name)
         out[f.name] = _json(value)

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import hashlib
 import ipaddress
+import itertools
 import json
 from collections.abc import Mapping
 from dataclasses import dataclass
@@ -69,6 +70,12 @@ def _level(value: float) -> tuple[str, str] | None:
 
 def _coverage(value: float) -> tuple[str, str] | None:
     return None if 0.5 <= value < 1 else (f"is {value}", "use a level in [0.5, 1), e.g. 0.9")
+
+
+def _band_edges(edges: tuple[float, ...]) -> tuple[str, str] | None:
+    if not edges or list(edges) != sorted(set(edges)) or any(e == float("inf") for e in edges):
+        return (f"is {list(edges)}", "list finite cycle lengths in rows, increasing, e.g. [5, 20]")
+    return None
 
 
 def _cron(cron: str) -> tuple[str, str] | None:
@@ -203,11 +210,33 @@ class UniverseConfig:
     arrays_every: int = setting(
         1, minimum=1, doc="store responses/decompositions for every N-th window (and the newest); see docs/warehouse.md"
     )
+    frequency_bands: tuple[float, ...] | None = setting(
+        None, minimum=2, check=_band_edges, fit_if_set=True, default_doc="none",
+        doc="connectedness by cycle length (Baruník–Křehlík 2018): the periods in rows where bands "
+        "split, e.g. `[5, 20]` for daily data (cycles up to a week, a week to a month, longer)",
+    )  # fmt: skip
+    band_truncation: int = setting(
+        100, minimum=10, fit_if_set=True,
+        doc="MA terms behind the frequency bands; the bands add up to connectedness at this horizon",
+    )  # fmt: skip
+    joint: bool = setting(
+        False, fit_if_set=True,
+        doc="also joint connectedness (Lastrapes–Wiesen 2021): each series' share due to all "
+        "other shocks together",
+    )  # fmt: skip
 
     @property
     def names(self) -> tuple[str, ...]:
         """Series names in column order."""
         return tuple(s.name for s in self.series)
+
+    @property
+    def band_periods(self) -> tuple[tuple[float, float], ...] | None:
+        """The frequency bands as (shortest, longest] cycle lengths: (1, e₁], (e₁, e₂], …, (e_k, ∞)."""
+        if self.frequency_bands is None:
+            return None
+        edges = (1.0, *(float(e) for e in self.frequency_bands), float("inf"))
+        return tuple(itertools.pairwise(edges))
 
     @property
     def max_lag(self) -> int:

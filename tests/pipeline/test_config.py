@@ -357,3 +357,23 @@ def test_prepare_and_the_sources_do_not_import_the_config() -> None:
                 else [a.name for a in node.names] if isinstance(node, ast.Import) else []
             )  # fmt: skip
             assert not any(n == "pipeline.config" or n.startswith("pipeline.config.") for n in names), file
+
+
+def test_new_connectedness_keys_refit_only_when_set(tmp_path: Path) -> None:
+    """frequency_bands / band_truncation / joint: absent keeps an existing universe's hash (no
+    refit of a warehouse made before the keys existed); set, they change it."""
+    base = minimal_config(tmp_path).universes[0]
+    assert "frequency_bands" not in base.fit_settings() and "joint" not in base.fit_settings()
+    bands = dataclasses.replace(base, frequency_bands=(5.0, 20.0))
+    assert bands.config_hash != base.config_hash
+    assert bands.band_periods == ((1.0, 5.0), (5.0, 20.0), (20.0, float("inf")))
+    assert dataclasses.replace(bands, band_truncation=200).config_hash != bands.config_hash
+    assert dataclasses.replace(base, joint=True).config_hash != base.config_hash
+    loaded = load_config(write_config(tmp_path, MINIMAL + "frequency_bands = [5, 20]\njoint = true\n"))
+    assert loaded.universes[0].band_periods == bands.band_periods and loaded.universes[0].joint
+
+
+@pytest.mark.parametrize("edges", ["[20, 5]", "[5, 5]", "[1.5, 5]", "[]", "[5, inf]"])
+def test_bad_frequency_bands_name_the_key_and_fix(tmp_path: Path, edges: str) -> None:
+    with pytest.raises(ConfigError, match=r"universes\['pair'\]\.frequency_bands.*(increasing|>= 2)"):
+        load_config(write_config(tmp_path, MINIMAL + f"frequency_bands = {edges}\n"))
