@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import errno
 import logging
 import os
 import signal
@@ -22,6 +23,18 @@ __all__ = ["Running", "check_bind", "create_app", "serve"]
 WORKER_TIMEOUT = 300
 #: Threads per worker process (requests one process answers at once; they share its Python lock).
 WORKER_THREADS = 4
+#: Seconds a client has to send a whole request (head and body) once its connection is readable;
+#: then the connection is closed (see `_worker_class`). Browsers send a request in one go.
+HEAD_TIMEOUT = 10.0
+#: Largest request head, in bytes, read before the connection is closed.
+MAX_HEAD_BYTES = 64 * 1024
+#: Largest request body, in bytes (answered 413 above it): the dashboard's callback requests
+#: are a few kilobytes.
+MAX_REQUEST_BYTES = 1024 * 1024
+#: Connections one worker holds at once (waiting, kept alive or being answered).
+WORKER_CONNECTIONS = 256
+#: Seconds one write of an answer may block on a client that does not read.
+SEND_TIMEOUT = 30.0
 
 log = logging.getLogger(__name__)
 ASSETS = Path(__file__).with_name("assets")
@@ -62,6 +75,7 @@ def create_app(settings_or_config: Any) -> Any:
         serve_locally=True,
         suppress_callback_exceptions=True,
     )
+    app.server.config["MAX_CONTENT_LENGTH"] = MAX_REQUEST_BYTES  # larger bodies: 413
     auth.install(app.server, token=settings.token, username=settings.username, password=settings.password)
 
     # one snapshot file per request: a publish mid-request never mixes two runs in one answer
@@ -83,9 +97,34 @@ def create_app(settings_or_config: Any) -> Any:
             abort(404)
         return send_file(path, as_attachment=True, download_name=path.name, max_age=0)
 
+    _register_scripts(app)
     app.server.extensions["shockflow_snapshot"] = snap
     app.server.extensions["shockflow_settings"] = settings
     return app
+
+
+def _register_scripts(app: Any) -> None:
+    """Do Dash's one-time server setup now, so every worker serves every script from its first request.
+
+    Dash learns which files it may serve under ``/_dash-component-suites/`` only while rendering
+    the index page, in a setup step it runs before the first request a process answers. That step
+    marks itself done before it has finished: another thread of the same worker asking for a
+    script meanwhile was answered 500 ("not a registered library"), and a fresh server's page
+    stuck on "Loading..." whenever the browser's script requests reached a worker that had not yet
+    rendered the page. Run here, the step happens once in the process that builds the app — before
+    gunicorn forks its workers, which inherit the registered paths. A stand-in layout is checked in
+    place of the page's own, so nothing reads the snapshot before the fork (the page's layout is
+    built per visit; tests/dashboard/test_app.py checks it).
+    """
+    from dash import html
+
+    page_layout = app.layout
+    app.layout = html.Div()
+    try:
+        with app.server.test_request_context("/"):
+            app._setup_server()  # Dash's own setup (private): registers scripts and stylesheets
+    finally:
+        app.layout = page_layout
 
 
 def check_bind(settings: DashboardSettings) -> None:
@@ -152,17 +191,34 @@ def _ignore_interrupt(worker: Any) -> None:
 
 
 def _worker_class() -> Any:
-    """gunicorn's gthread worker, made safe against a second quit signal inside the first.
+    """gunicorn's gthread worker, hardened against slow clients and a second quit signal.
 
-    Ctrl+C in a terminal sends SIGINT to every process of the group, and the master then sends its
-    workers SIGQUIT: when the second arrives while the first handler is shutting the worker's
-    thread pool down, the nested handler waits for the pool's lock the outer one holds, and the
-    worker hangs until the master kills it (seen after a Prefect run in the same process). The
-    first handler alone finishes the job, so a nested call returns at once.
+    **Slow clients.** gthread hands a connection to one of its few threads as soon as its first
+    byte arrives, and the thread then reads the rest of the request head and body with no time
+    limit: 24–50 connections trickling a header line every 2 s held every thread of every worker
+    and nobody else was answered. Here the worker's event loop (the one that accepts
+    connections) reads each request — head and, when its length is declared and within
+    `MAX_REQUEST_BYTES`, body — without blocking, and passes the connection to a thread only once
+    the request is complete. A connection that has not delivered its request within
+    `HEAD_TIMEOUT` seconds of becoming readable is closed; a head over `MAX_HEAD_BYTES` too. A
+    waiting connection costs a socket, not a thread; each worker holds at most
+    `WORKER_CONNECTIONS` at once (then it stops accepting until some close), so a flood larger
+    than that still needs a reverse proxy's connection limits in front (README). Answers are
+    written with a `SEND_TIMEOUT` per write, so a client that stops reading frees its thread.
+
+    **Quit signals.** Ctrl+C in a terminal sends SIGINT to every process of the group, and the
+    master then sends its workers SIGQUIT: when the second arrives while the first handler is
+    shutting the worker's thread pool down, the nested handler waits for the pool's lock the
+    outer one holds, and the worker hangs until the master kills it (seen after a Prefect run in
+    the same process). The first handler alone finishes the job, so a nested call returns at once.
     """
+    import selectors
+    import time
+    from functools import partial
+
     from gunicorn.workers.gthread import ThreadWorker
 
-    class QuitOnceWorker(ThreadWorker):  # type: ignore[misc]
+    class HardenedWorker(ThreadWorker):  # type: ignore[misc]
         _quitting = False
 
         def handle_quit(self, sig: Any, frame: Any) -> None:
@@ -171,7 +227,113 @@ def _worker_class() -> Any:
             self._quitting = True
             super().handle_quit(sig, frame)
 
-    return QuitOnceWorker
+        # -- reading requests in the event loop ------------------------------------------------
+
+        def init_process(self) -> None:
+            self._reading: dict[Any, tuple[float, bytearray]] = {}  # conn -> (deadline, bytes so far)
+            super().init_process()
+
+        def accept(self, listener: Any) -> None:
+            try:
+                client, address = listener.accept()
+            except OSError as exc:
+                if exc.errno not in (errno.EAGAIN, errno.ECONNABORTED, errno.EWOULDBLOCK):
+                    raise
+                return
+            from gunicorn.workers.gthread import TConn
+
+            self.nr_conns += 1
+            self._read_request(TConn(self.cfg, client, address, listener.getsockname()))
+
+        def on_client_socket_readable(self, conn: Any, client: Any) -> None:
+            self.poller.unregister(client)
+            self.keepalived_conns.remove(conn)
+            self._read_request(conn)
+
+        def _read_request(self, conn: Any) -> None:
+            if self.cfg.is_ssl:  # gunicorn terminating TLS itself: the thread reads (see README)
+                self.enqueue_req(conn)
+                return
+            conn.sock.setblocking(False)
+            self._reading[conn] = (time.monotonic() + HEAD_TIMEOUT, bytearray())
+            self.poller.register(conn.sock, selectors.EVENT_READ, partial(self._on_readable, conn))
+
+        def _drop(self, conn: Any) -> None:
+            self._reading.pop(conn, None)
+            try:
+                self.poller.unregister(conn.sock)
+            except (KeyError, ValueError, OSError):
+                pass
+            self.nr_conns -= 1
+            conn.close()
+
+        def _on_readable(self, conn: Any, client: Any) -> None:
+            data = self._reading[conn][1]
+            try:
+                chunk = conn.sock.recv(65536)
+            except (BlockingIOError, InterruptedError):
+                return
+            except OSError:
+                chunk = b""
+            if not chunk:  # the client went away
+                self._drop(conn)
+                return
+            data += chunk
+            if _request_complete(data) is None:
+                if len(data) > MAX_HEAD_BYTES:
+                    self._drop(conn)
+                return
+            self._reading.pop(conn)
+            self.poller.unregister(conn.sock)
+            conn.sock.setblocking(True)
+            conn.data_ready = True
+            conn.prefetched = bytes(data)
+            self.enqueue_req(conn)
+
+        def murder_keepalived(self, force: bool = False) -> None:
+            super().murder_keepalived(force)
+            now = time.monotonic()
+            for conn, (deadline, _) in list(self._reading.items()):
+                if force or now >= deadline:
+                    self._drop(conn)
+
+        def handle(self, conn: Any) -> Any:
+            prefetched = getattr(conn, "prefetched", None)
+            if prefetched is not None:
+                conn.prefetched = None
+                conn.sock.setblocking(True)
+                conn.init()
+                conn.parser.unreader.unread(prefetched)
+            return super().handle(conn)
+
+        def handle_request(self, req: Any, conn: Any) -> Any:
+            conn.sock.settimeout(SEND_TIMEOUT)  # the request is read; this bounds each write
+            return super().handle_request(req, conn)
+
+    return HardenedWorker
+
+
+def _request_complete(data: bytes | bytearray) -> bool | None:
+    """True when `data` holds a whole request head and the body it declares (or a body too large
+    to wait for, which the app refuses 413); None while more is needed."""
+    end = data.find(b"\r\n\r\n")
+    if end < 0:
+        return None
+    head = bytes(data[:end]).lower()
+    if b"\ntransfer-encoding:" in head:
+        # chunked: wait for the last chunk, or hand over once the limit is reached (refused 413)
+        return True if data.endswith(b"0\r\n\r\n") or len(data) > MAX_REQUEST_BYTES else None
+    length = 0
+    for line in head.split(b"\r\n")[1:]:
+        name, _, value = line.partition(b":")
+        if name.strip() == b"content-length":
+            try:
+                length = int(value.strip())
+            except ValueError:
+                return True  # malformed: gunicorn's parser answers 400
+    if length > MAX_REQUEST_BYTES:
+        return True
+    return True if len(data) - (end + 4) >= length else None
 
 
 def serve(
@@ -228,12 +390,13 @@ def serve(
     options = {
         "bind": [_bind_text(settings.host, settings.port)],
         "workers": settings.workers,
-        "worker_class": _worker_class() if WORKER_THREADS > 1 else "sync",
+        "worker_class": _worker_class(),
         "threads": WORKER_THREADS,
         "preload_app": True,  # imports once; no snapshot is open before the fork (opened lazily)
         "timeout": WORKER_TIMEOUT,
         "graceful_timeout": 10,
         "keepalive": 2,
+        "worker_connections": WORKER_CONNECTIONS,
         "loglevel": "warning",  # one line per request would drown the start-up message
         "accesslog": None,
         "errorlog": "-",
