@@ -12,6 +12,8 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
+from pipeline.config import is_loopback
+
 from . import auth
 from ._errors import DashboardError, InsecureBindError
 from .settings import DashboardSettings
@@ -128,15 +130,24 @@ def _register_scripts(app: Any) -> None:
 
 
 def check_bind(settings: DashboardSettings) -> None:
-    """Refuse a non-loopback address without an access token or basic-auth credentials."""
-    if auth.is_loopback(settings.host) or settings.has_credentials:
+    """Refuse a non-loopback address without an access token or basic-auth credentials, or with
+    a token shorter than `auth.MIN_TOKEN_LENGTH` characters (guessable)."""
+    if is_loopback(settings.host):
         return
-    msg = (
-        f"refusing to serve the dashboard on {settings.host!r} without access control: set an access "
-        "token (SHOCKFLOW_DASHBOARD_TOKEN, or [dashboard] token/token_env) or basic-auth credentials "
-        "(username + password), or listen on 127.0.0.1"
-    )
-    raise InsecureBindError(msg)
+    if not settings.has_credentials:
+        msg = (
+            f"refusing to serve the dashboard on {settings.host!r} without access control: set an "
+            "access token (SHOCKFLOW_DASHBOARD_TOKEN, or [dashboard] token/token_env) or basic-auth "
+            "credentials (username + password), or listen on 127.0.0.1"
+        )
+        raise InsecureBindError(msg)
+    if settings.token is not None and len(settings.token) < auth.MIN_TOKEN_LENGTH:
+        msg = (
+            f"refusing to serve the dashboard on {settings.host!r} with an access token of "
+            f"{len(settings.token)} characters: use at least {auth.MIN_TOKEN_LENGTH} (e.g. the output "
+            "of `python -c 'import secrets; print(secrets.token_urlsafe(24))'`), or listen on 127.0.0.1"
+        )
+        raise InsecureBindError(msg)
 
 
 class Running:
@@ -401,6 +412,12 @@ def serve(
         "accesslog": None,
         "errorlog": "-",
         "control_socket_disable": True,  # no control socket file in the user's home
+        # X-Forwarded-Proto is believed from the configured reverse proxies only (gunicorn's own
+        # default believes any loopback peer, and more headers); it sets the request's scheme,
+        # which marks the session cookie Secure (auth.py)
+        "forwarded_allow_ips": ",".join(settings.trusted_proxies),
+        "secure_scheme_headers": {"X-FORWARDED-PROTO": "https"},
+        "forwarder_headers": "",
         "proc_name": "shockflow-dashboard",
         "when_ready": when_ready,
         "post_worker_init": _ignore_interrupt,

@@ -234,6 +234,14 @@ class ExportConfig:
     formats: tuple[str, ...] = ("html", "csv", "parquet")
 
 
+#: Environment variables holding the dashboard's credentials when no ``*_env`` key names others.
+DEFAULT_CREDENTIAL_ENV = {
+    "token": "SHOCKFLOW_DASHBOARD_TOKEN",
+    "username": "SHOCKFLOW_DASHBOARD_USERNAME",
+    "password": "SHOCKFLOW_DASHBOARD_PASSWORD",
+}
+
+
 @dataclass(frozen=True)
 class DashboardConfig:
     """How the dashboard is served. Secrets may be named by environment variable instead."""
@@ -247,11 +255,13 @@ class DashboardConfig:
     token_env: str | None = None
     username_env: str | None = None
     password_env: str | None = None
+    # addresses (or networks, or "*") of reverse proxies whose X-Forwarded-Proto is believed
+    trusted_proxies: tuple[str, ...] = ()
 
     @property
     def is_loopback(self) -> bool:
         """True when `host` only listens on this machine."""
-        return _is_loopback(self.host)
+        return is_loopback(self.host)
 
     def credentials(self, environ: Mapping[str, str]) -> dict[str, str | None]:
         """Token / username / password, from the config or from the named variables in `environ`.
@@ -260,17 +270,15 @@ class DashboardConfig:
         environment.
         """
 
-        def pick(value: str | None, env: str | None) -> str | None:
+        def pick(value: str | None, env: str | None, name: str) -> str | None:
             if value:
                 return value
-            if env:
-                return environ.get(env) or None
-            return None
+            return environ.get(env or DEFAULT_CREDENTIAL_ENV[name]) or None
 
         return {
-            "token": pick(self.token, self.token_env),
-            "username": pick(self.username, self.username_env),
-            "password": pick(self.password, self.password_env),
+            "token": pick(self.token, self.token_env, "token"),
+            "username": pick(self.username, self.username_env, "username"),
+            "password": pick(self.password, self.password_env, "password"),
         }
 
 
@@ -327,11 +335,17 @@ def _suggest(word: str, choices: list[str] | tuple[str, ...]) -> str:
     return f" (did you mean {close[0]!r}?)" if close else ""
 
 
-def _is_loopback(host: str) -> bool:
-    if host == "localhost":
+def is_loopback(host: str) -> bool:
+    """True only for ``localhost`` and literal loopback addresses (127.0.0.0/8, ::1, ``[::1]``).
+
+    The one rule for "reachable from this machine only", used by the config, the dashboard and
+    the execution checks; case and surrounding spaces or brackets do not matter.
+    """
+    text = host.strip().strip("[]").strip().lower()
+    if text == "localhost":
         return True
     try:
-        return ipaddress.ip_address(host).is_loopback
+        return ipaddress.ip_address(text).is_loopback
     except ValueError:
         return False
 
@@ -743,8 +757,16 @@ def _load_dashboard(t: _Table) -> DashboardConfig:
         token_env=t.get("token_env", str, None),
         username_env=t.get("username_env", str, None),
         password_env=t.get("password_env", str, None),
+        trusted_proxies=tuple(t.get("trusted_proxies", list, [])),
     )
     t.finish()
+    for proxy in d.trusted_proxies:
+        try:
+            ok = isinstance(proxy, str) and (proxy == "*" or bool(ipaddress.ip_network(proxy, strict=False)))
+        except (TypeError, ValueError):
+            ok = False
+        if not ok:
+            t.fail("dashboard.trusted_proxies", f"contains {proxy!r}", "list IP addresses or networks of your reverse proxies (e.g. [\"127.0.0.1\"]), or \"*\"")
     if d.port > 65535:
         t.fail("dashboard.port", f"is {d.port}", "use a port in 0..65535")
     has_user = bool(d.username or d.username_env)

@@ -353,7 +353,7 @@ def test_cli_reads_the_token_from_the_environment(tmp_path: Path, small_snapshot
         port = taken.getsockname()[1]
         result = CliRunner().invoke(
             app, ["dashboard", "--config", str(config), "--host", "0.0.0.0", "--port", str(port)],
-            env={"SHOCKFLOW_TEST_DASH_TOKEN": "s3cret-token"},
+            env={"SHOCKFLOW_TEST_DASH_TOKEN": "s3cret-token-of-24-chars"},
         )  # fmt: skip
     assert result.exit_code == 1, result.output
     lines = [line for line in result.output.splitlines() if line.strip()]
