@@ -291,13 +291,22 @@ def _worker_class() -> Any:
                 return
             data += chunk
             if _request_complete(data) is None:
-                if len(data) > MAX_HEAD_BYTES:
+                end = data.find(b"\r\n\r\n")
+                if end < 0 and len(data) > MAX_HEAD_BYTES:
                     self._drop(conn)
+                elif end >= 0 and not getattr(conn, "continued", False) and _expects_continue(data[:end]):
+                    # the client waits for this before sending its body (curl does, for large ones)
+                    conn.continued = True
+                    try:
+                        conn.sock.send(b"HTTP/1.1 100 Continue\r\n\r\n")
+                    except OSError:
+                        self._drop(conn)
                 return
             self._reading.pop(conn)
             self.poller.unregister(conn.sock)
             conn.sock.setblocking(True)
             conn.data_ready = True
+            conn.continued = False
             conn.prefetched = bytes(data)
             self.enqueue_req(conn)
 
@@ -322,6 +331,14 @@ def _worker_class() -> Any:
             return super().handle_request(req, conn)
 
     return HardenedWorker
+
+
+def _expects_continue(head: bytes | bytearray) -> bool:
+    """True when a request head asks for ``100 Continue`` before its body."""
+    return any(
+        name.strip() == b"expect" and value.strip() == b"100-continue"
+        for name, _, value in (line.partition(b":") for line in bytes(head).lower().split(b"\r\n")[1:])
+    )
 
 
 def _request_complete(data: bytes | bytearray) -> bool | None:
@@ -362,11 +379,13 @@ def serve(
 
     Requests are answered by `workers` processes (gunicorn's pre-fork server), so Python's
     one-thread-at-a-time lock no longer caps the whole server at one core. Each process runs
-    `WORKER_THREADS` threads (gunicorn's gthread workers): a slow client or a long on-demand
+    `WORKER_THREADS` threads (gunicorn's gthread workers, hardened in `_worker_class`: a request
+    reaches a thread only once it has fully arrived, within `HEAD_TIMEOUT`): a long on-demand
     computation holds one thread, not the process, and browsers keep their connections alive.
     (Sync workers gave a slightly tighter p95 on the loopback load benchmark, but block a whole
     process while a remote client downloads an answer.) The app is built once, before the fork,
-    with nothing open: each worker opens the snapshot on its first request, pins every request to
+    with Dash's script registry filled (`_register_scripts`) and nothing open: each worker opens
+    the snapshot on its first request, pins every request to
     one snapshot file and reopens the file when the pipeline replaces it, on its own. Ctrl+C (or
     SIGTERM) stops
     the workers and returns. `ready`, if given, is called in this process with a `Running` once

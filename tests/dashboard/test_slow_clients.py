@@ -125,3 +125,35 @@ def test_a_request_body_over_the_limit_is_refused_413(small_snapshot: Path) -> N
         assert timed_get(served.base) < ANSWER_BOUND  # and the worker still answers
     finally:
         served.stop()
+
+
+def test_a_client_waiting_for_100_continue_gets_it_and_its_answer(small_snapshot: Path) -> None:
+    """The request is read before a thread takes it, so the 100 Continue a client may wait for
+    before sending its body comes from the reading loop (curl waits for it on large bodies)."""
+    served = Served(small_snapshot, workers=1)
+    key = '{"chart":["MATCH"],"type":"csv-download"}.data'
+    body = json.dumps({  # the CSV download callback (see test_app.py), a small valid request
+        "output": key,
+        "outputs": {"id": {"chart": "paths", "type": "csv-download"}, "property": "data"},
+        "inputs": [{"id": {"chart": "paths", "type": "csv-button"}, "property": "n_clicks", "value": 1}],
+        "state": [
+            {"id": {"chart": "paths", "type": "chart-data"}, "property": "data", "value": [{"a": 1.0}]},
+            {"id": "window-state", "property": "data", "value": {}},
+        ],
+        "changedPropIds": ['{"chart":"paths","type":"csv-button"}.n_clicks'],
+    }).encode()  # fmt: skip
+    head = (
+        f"POST /_dash-update-component HTTP/1.1\r\nHost: 127.0.0.1\r\nContent-Type: application/json\r\n"
+        f"Content-Length: {len(body)}\r\nExpect: 100-continue\r\nConnection: close\r\n\r\n"
+    ).encode()
+    try:
+        with socket.create_connection(("127.0.0.1", served.port), timeout=30) as s:
+            s.sendall(head)
+            assert s.recv(64).startswith(b"HTTP/1.1 100 Continue")
+            s.sendall(body)
+            answer = b""
+            while chunk := s.recv(65536):
+                answer += chunk
+        assert b"HTTP/1.1 200" in answer and b"a\\n1.0\\n" in answer, answer[:500]
+    finally:
+        served.stop()
