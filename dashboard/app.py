@@ -116,7 +116,7 @@ def _register_scripts(app: Any) -> None:
     rendered the page. Run here, the step happens once in the process that builds the app — before
     gunicorn forks its workers, which inherit the registered paths. A stand-in layout is checked in
     place of the page's own, so nothing reads the snapshot before the fork (the page's layout is
-    built per visit; tests/dashboard/test_app.py checks it).
+    built per visit; tests/dashboard/test_first_load.py runs Dash's check over it).
     """
     from dash import html
 

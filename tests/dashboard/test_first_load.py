@@ -128,3 +128,14 @@ def test_first_page_load_renders_on_fresh_servers(small_snapshot: Path, chromium
 def test_first_page_load_renders_twenty_times_in_twenty(small_snapshot: Path, chromium_path: str) -> None:
     failures = first_loads(small_snapshot, chromium_path, 20)
     assert not failures, f"{len(failures)} of 20 first loads failed: {failures}"
+
+
+def test_the_page_layout_passes_dashs_own_check(snapshot_path: Path) -> None:
+    """`create_app` runs Dash's setup over a stand-in layout (no snapshot read before the fork),
+    so Dash no longer checks the page's own layout (unique ids, valid components) on the first
+    request; this test does, over the real snapshot."""
+    from dash import _validate
+
+    app = create_app(DashboardSettings(snapshot=snapshot_path))
+    with app.server.test_request_context("/"):
+        _validate.validate_layout(app.layout, app._layout_value())
