@@ -28,11 +28,18 @@ WORKER_THREADS = 4
 #: Seconds a client has to send a whole request (head and body) once its connection is readable;
 #: then the connection is closed (see `_worker_class`). Browsers send a request in one go.
 HEAD_TIMEOUT = 10.0
+#: Bytes per second a declared request body must at least arrive at: once the head is in, the
+#: body gets `HEAD_TIMEOUT` more seconds plus its length at this rate (16 MiB: about 4 minutes).
+MIN_BODY_RATE = 64 * 1024
 #: Largest request head, in bytes, read before the connection is closed.
 MAX_HEAD_BYTES = 64 * 1024
-#: Largest request body, in bytes (answered 413 above it): the dashboard's callback requests
-#: are a few kilobytes.
-MAX_REQUEST_BYTES = 1024 * 1024
+#: Largest request body, in bytes (answered 413 above it). Most callback requests are a few
+#: kilobytes; the CSV download sends the chart's rows back (about 300 bytes per window for the
+#: model-health table: 16 MiB holds some 50 000 windows).
+MAX_REQUEST_BYTES = 16 * 1024 * 1024
+#: Bytes one worker holds at once for requests still arriving; past it, the connection whose data
+#: overflowed it is closed (bounds memory when many large bodies arrive together).
+MAX_BUFFERED_BYTES = 128 * 1024 * 1024
 #: Connections one worker holds at once (waiting, kept alive or being answered).
 WORKER_CONNECTIONS = 256
 #: Seconds one write of an answer may block on a client that does not read.
@@ -211,7 +218,9 @@ def _worker_class() -> Any:
     connections) reads each request — head and, when its length is declared and within
     `MAX_REQUEST_BYTES`, body — without blocking, and passes the connection to a thread only once
     the request is complete. A connection that has not delivered its request within
-    `HEAD_TIMEOUT` seconds of becoming readable is closed; a head over `MAX_HEAD_BYTES` too. A
+    `HEAD_TIMEOUT` seconds of being accepted (or, kept alive, of its next request starting) is
+    closed — a declared body gets `HEAD_TIMEOUT` more plus its length at `MIN_BODY_RATE`; so is one whose head exceeds `MAX_HEAD_BYTES`, or whose data would take the bytes a
+    worker holds for arriving requests past `MAX_BUFFERED_BYTES`. A
     waiting connection costs a socket, not a thread; each worker holds at most
     `WORKER_CONNECTIONS` at once (then it stops accepting until some close), so a flood larger
     than that still needs a reverse proxy's connection limits in front (README). Answers are
@@ -242,6 +251,7 @@ def _worker_class() -> Any:
 
         def init_process(self) -> None:
             self._reading: dict[Any, tuple[float, bytearray]] = {}  # conn -> (deadline, bytes so far)
+            self._buffered = 0  # bytes held in self._reading
             super().init_process()
 
         def accept(self, listener: Any) -> None:
@@ -270,7 +280,9 @@ def _worker_class() -> Any:
             self.poller.register(conn.sock, selectors.EVENT_READ, partial(self._on_readable, conn))
 
         def _drop(self, conn: Any) -> None:
-            self._reading.pop(conn, None)
+            held = self._reading.pop(conn, None)
+            if held is not None:
+                self._buffered -= len(held[1])
             try:
                 self.poller.unregister(conn.sock)
             except (KeyError, ValueError, OSError):
@@ -290,23 +302,35 @@ def _worker_class() -> Any:
                 self._drop(conn)
                 return
             data += chunk
+            self._buffered += len(chunk)
+            if self._buffered > MAX_BUFFERED_BYTES:
+                self._drop(conn)
+                return
             if _request_complete(data) is None:
                 end = data.find(b"\r\n\r\n")
-                if end < 0 and len(data) > MAX_HEAD_BYTES:
-                    self._drop(conn)
-                elif end >= 0 and not getattr(conn, "continued", False) and _expects_continue(data[:end]):
+                if end < 0:
+                    if len(data) > MAX_HEAD_BYTES:
+                        self._drop(conn)
+                    return
+                if getattr(conn, "body_started", False):
+                    return
+                # the head is in: the body gets time in proportion to its declared length
+                conn.body_started = True
+                allowed = HEAD_TIMEOUT + _declared_length(data[:end]) / MIN_BODY_RATE
+                self._reading[conn] = (time.monotonic() + allowed, data)
+                if _expects_continue(data[:end]):
                     # the client waits for this before sending its body (curl does, for large ones)
-                    conn.continued = True
                     try:
                         conn.sock.send(b"HTTP/1.1 100 Continue\r\n\r\n")
                     except OSError:
                         self._drop(conn)
                 return
             self._reading.pop(conn)
+            self._buffered -= len(data)
             self.poller.unregister(conn.sock)
             conn.sock.setblocking(True)
             conn.data_ready = True
-            conn.continued = False
+            conn.body_started = False
             conn.prefetched = bytes(data)
             self.enqueue_req(conn)
 
@@ -351,17 +375,22 @@ def _request_complete(data: bytes | bytearray) -> bool | None:
     if b"\ntransfer-encoding:" in head:
         # chunked: wait for the last chunk, or hand over once the limit is reached (refused 413)
         return True if data.endswith(b"0\r\n\r\n") or len(data) > MAX_REQUEST_BYTES else None
-    length = 0
-    for line in head.split(b"\r\n")[1:]:
+    length = _declared_length(head)
+    if length < 0 or length > MAX_REQUEST_BYTES:
+        return True  # malformed (gunicorn's parser answers 400) or too large (the app answers 413)
+    return True if len(data) - (end + 4) >= length else None
+
+
+def _declared_length(head: bytes | bytearray) -> int:
+    """The Content-Length a request head declares: 0 without one, -1 when it is not a number."""
+    for line in bytes(head).lower().split(b"\r\n")[1:]:
         name, _, value = line.partition(b":")
         if name.strip() == b"content-length":
             try:
-                length = int(value.strip())
+                return max(int(value.strip()), -1)
             except ValueError:
-                return True  # malformed: gunicorn's parser answers 400
-    if length > MAX_REQUEST_BYTES:
-        return True
-    return True if len(data) - (end + 4) >= length else None
+                return -1
+    return 0
 
 
 def serve(
