@@ -250,7 +250,7 @@ def _worker_class() -> Any:
         # -- reading requests in the event loop ------------------------------------------------
 
         def init_process(self) -> None:
-            self._reading: dict[Any, tuple[float, bytearray]] = {}  # conn -> (deadline, bytes so far)
+            self._reading: dict[Any, _Arriving] = {}  # connections whose request is arriving
             self._buffered = 0  # bytes held in self._reading
             super().init_process()
 
@@ -276,13 +276,13 @@ def _worker_class() -> Any:
                 self.enqueue_req(conn)
                 return
             conn.sock.setblocking(False)
-            self._reading[conn] = (time.monotonic() + HEAD_TIMEOUT, bytearray())
+            self._reading[conn] = _Arriving(time.monotonic() + HEAD_TIMEOUT)
             self.poller.register(conn.sock, selectors.EVENT_READ, partial(self._on_readable, conn))
 
         def _drop(self, conn: Any) -> None:
-            held = self._reading.pop(conn, None)
-            if held is not None:
-                self._buffered -= len(held[1])
+            arriving = self._reading.pop(conn, None)
+            if arriving is not None:
+                self._buffered -= len(arriving.data)
             try:
                 self.poller.unregister(conn.sock)
             except (KeyError, ValueError, OSError):
@@ -291,7 +291,7 @@ def _worker_class() -> Any:
             conn.close()
 
         def _on_readable(self, conn: Any, client: Any) -> None:
-            data = self._reading[conn][1]
+            arriving = self._reading[conn]
             try:
                 chunk = conn.sock.recv(65536)
             except (BlockingIOError, InterruptedError):
@@ -301,44 +301,40 @@ def _worker_class() -> Any:
             if not chunk:  # the client went away
                 self._drop(conn)
                 return
-            data += chunk
             self._buffered += len(chunk)
             if self._buffered > MAX_BUFFERED_BYTES:
                 self._drop(conn)
                 return
-            if _request_complete(data) is None:
-                end = data.find(b"\r\n\r\n")
-                if end < 0:
-                    if len(data) > MAX_HEAD_BYTES:
-                        self._drop(conn)
-                    return
-                if getattr(conn, "body_started", False):
-                    return
-                # the head is in: the body gets time in proportion to its declared length
-                conn.body_started = True
-                allowed = HEAD_TIMEOUT + _declared_length(data[:end]) / MIN_BODY_RATE
-                self._reading[conn] = (time.monotonic() + allowed, data)
-                if _expects_continue(data[:end]):
-                    # the client waits for this before sending its body (curl does, for large ones)
-                    try:
-                        conn.sock.send(b"HTTP/1.1 100 Continue\r\n\r\n")
-                    except OSError:
-                        self._drop(conn)
+            head_was_in = arriving.body_start is not None
+            arriving.add(chunk)
+            if arriving.body_start is None:
+                if len(arriving.data) > MAX_HEAD_BYTES:
+                    self._drop(conn)
                 return
-            self._reading.pop(conn)
-            self._buffered -= len(data)
+            if not arriving.complete():
+                if not head_was_in:
+                    # the head is in: the body gets time in proportion to its declared length
+                    arriving.deadline = time.monotonic() + HEAD_TIMEOUT + arriving.length / MIN_BODY_RATE
+                    if arriving.expects_continue:
+                        # the client waits for this before sending its body (curl does, for large ones)
+                        try:
+                            conn.sock.send(b"HTTP/1.1 100 Continue\r\n\r\n")
+                        except OSError:
+                            self._drop(conn)
+                return
+            del self._reading[conn]
+            self._buffered -= len(arriving.data)
             self.poller.unregister(conn.sock)
             conn.sock.setblocking(True)
             conn.data_ready = True
-            conn.body_started = False
-            conn.prefetched = bytes(data)
+            conn.prefetched = bytes(arriving.data)
             self.enqueue_req(conn)
 
         def murder_keepalived(self, force: bool = False) -> None:
             super().murder_keepalived(force)
             now = time.monotonic()
-            for conn, (deadline, _) in list(self._reading.items()):
-                if force or now >= deadline:
+            for conn, arriving in list(self._reading.items()):
+                if force or now >= arriving.deadline:
                     self._drop(conn)
 
         def handle(self, conn: Any) -> Any:
@@ -357,40 +353,50 @@ def _worker_class() -> Any:
     return HardenedWorker
 
 
-def _expects_continue(head: bytes | bytearray) -> bool:
-    """True when a request head asks for ``100 Continue`` before its body."""
-    return any(
-        name.strip() == b"expect" and value.strip() == b"100-continue"
-        for name, _, value in (line.partition(b":") for line in bytes(head).lower().split(b"\r\n")[1:])
-    )
+class _Arriving:
+    """A request arriving on one connection: its bytes so far and what its head declared.
 
+    Each chunk costs work in proportion to its own length only (the head's end is searched for
+    from where the last chunk ended; the head is parsed once), so tiny chunks cannot make the
+    event loop rescan what it already has.
+    """
 
-def _request_complete(data: bytes | bytearray) -> bool | None:
-    """True when `data` holds a whole request head and the body it declares (or a body too large
-    to wait for, which the app refuses 413); None while more is needed."""
-    end = data.find(b"\r\n\r\n")
-    if end < 0:
-        return None
-    head = bytes(data[:end]).lower()
-    if b"\ntransfer-encoding:" in head:
-        # chunked: wait for the last chunk, or hand over once the limit is reached (refused 413)
-        return True if data.endswith(b"0\r\n\r\n") or len(data) > MAX_REQUEST_BYTES else None
-    length = _declared_length(head)
-    if length < 0 or length > MAX_REQUEST_BYTES:
-        return True  # malformed (gunicorn's parser answers 400) or too large (the app answers 413)
-    return True if len(data) - (end + 4) >= length else None
+    def __init__(self, deadline: float) -> None:
+        self.deadline = deadline
+        self.data = bytearray()
+        self.body_start: int | None = None  # index after the blank line ending the head
+        self.length = 0  # declared Content-Length; -1 when malformed
+        self.chunked = False
+        self.expects_continue = False
 
+    def add(self, chunk: bytes) -> None:
+        seen = len(self.data)
+        self.data += chunk
+        if self.body_start is not None:
+            return
+        end = self.data.find(b"\r\n\r\n", max(0, seen - 3))
+        if end < 0:
+            return
+        self.body_start = end + 4
+        for line in bytes(self.data[:end]).lower().split(b"\r\n")[1:]:
+            name, _, value = (part.strip() for part in line.partition(b":"))
+            if name == b"content-length":
+                self.length = int(value) if value.isdigit() else -1
+            elif name == b"transfer-encoding":
+                self.chunked = True
+            elif name == b"expect" and value == b"100-continue":
+                self.expects_continue = True
 
-def _declared_length(head: bytes | bytearray) -> int:
-    """The Content-Length a request head declares: 0 without one, -1 when it is not a number."""
-    for line in bytes(head).lower().split(b"\r\n")[1:]:
-        name, _, value = line.partition(b":")
-        if name.strip() == b"content-length":
-            try:
-                return max(int(value.strip()), -1)
-            except ValueError:
-                return -1
-    return 0
+    def complete(self) -> bool:
+        """True once the head and the body it declares are in — or a body that will not be
+        waited for: too large (the app answers 413) or malformed (gunicorn answers 400)."""
+        assert self.body_start is not None
+        body = len(self.data) - self.body_start
+        if self.chunked:  # the last chunk, or over the limit
+            return self.data.endswith(b"0\r\n\r\n") or body > MAX_REQUEST_BYTES
+        if self.length < 0 or self.length > MAX_REQUEST_BYTES:
+            return True
+        return body >= self.length
 
 
 def serve(

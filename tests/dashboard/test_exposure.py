@@ -105,6 +105,8 @@ def test_a_trailing_newline_is_stripped_from_secrets(tmp_path: Path, ending: str
                                                     "SHOCKFLOW_DASHBOARD_PASSWORD": "pw" + ending})  # fmt: skip
     assert (s.token, s.username, s.password) == (TOKEN, "ana", "pw")
     assert DashboardSettings(snapshot=tmp_path / "s", token=TOKEN + ending).token == TOKEN
+    in_file = load(tmp_path, f'[dashboard]\ntoken = "{TOKEN}{ending.encode("unicode_escape").decode()}"\n')
+    assert DashboardSettings.from_config(in_file).token == TOKEN
 
 
 def test_the_token_leaves_the_address_bar_even_when_signed_in(snapshot_path: Path) -> None:

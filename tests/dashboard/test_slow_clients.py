@@ -165,3 +165,23 @@ def test_a_client_waiting_for_100_continue_gets_it_and_its_answer(small_snapshot
         assert b"HTTP/1.1 200" in answer and b"a\\n1.0\\n" in answer, answer[:500]
     finally:
         served.stop()
+
+
+def test_a_request_sent_a_byte_at_a_time_is_answered(small_snapshot: Path) -> None:
+    """The end of the head is found across chunk boundaries (the reading loop searches only what
+    is new, plus the three bytes before it)."""
+    served = Served(small_snapshot, workers=1)
+    request = b"GET /_dash-layout HTTP/1.1\r\nHost: 127.0.0.1\r\nX-Pad: " + b"p" * 300 + b"\r\nConnection: close\r\n\r\n"
+    try:
+        with socket.create_connection(("127.0.0.1", served.port), timeout=30) as s:
+            s.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
+            for i in range(len(request)):
+                s.sendall(request[i : i + 1])
+                if request[i : i + 1] in (b"\r", b"\n"):
+                    time.sleep(0.005)  # let the line breaks arrive in separate segments
+            answer = b""
+            while chunk := s.recv(65536):
+                answer += chunk
+        assert answer.startswith(b"HTTP/1.1 200"), answer[:300]
+    finally:
+        served.stop()
