@@ -10,7 +10,8 @@ class DashboardError(Exception):
 
 
 class InsecureBindError(DashboardError):
-    """Asked to listen on a non-loopback address with no access token or basic-auth credentials."""
+    """Asked to listen on a non-loopback address with no access token or basic-auth credentials,
+    or with a token shorter than `auth.MIN_TOKEN_LENGTH` characters."""
 
 
 class SnapshotMissingError(DashboardError):

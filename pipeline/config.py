@@ -16,7 +16,8 @@ Sections (every key is documented in the README):
   [universes.bands], granger_level, portmanteau_lags, arrays_every
 - ``[schedule]`` cron, timezone
 - ``[export]`` directory, formats
-- ``[dashboard]`` host, port, workers, token | username + password, or the *_env names of variables holding them
+- ``[dashboard]`` host, port, workers, token | username + password, or the *_env names of variables holding them,
+  trusted_proxies (reverse proxies whose X-Forwarded-Proto is believed)
 - ``[execution]`` runner, address, block_windows
 """
 
