@@ -2,8 +2,8 @@
 
 ``create_app(settings_or_config)`` builds the app; ``serve(config_or_settings, host=, port=,
 workers=)`` builds it and serves it with several worker processes (gunicorn; loopback unless
-credentials protect it). Importing this package is cheap: Dash, Plotly, DuckDB and gunicorn load
-only when an app is created or served.
+credentials protect it). Importing this package is cheap: Dash, Plotly, DuckDB, gunicorn and the
+pipeline's config load only when settings, an app or a server are asked for.
 """
 
 from __future__ import annotations
@@ -11,10 +11,10 @@ from __future__ import annotations
 from typing import TYPE_CHECKING, Any
 
 from ._errors import DashboardError, InsecureBindError, SnapshotMissingError, WindowError
-from .settings import DashboardSettings
 
 if TYPE_CHECKING:
     from .app import create_app, serve
+    from .settings import DashboardSettings
 
 __all__ = [
     "DashboardError",
@@ -32,5 +32,9 @@ def __getattr__(name: str) -> Any:
         from . import app
 
         return getattr(app, name)
+    if name == "DashboardSettings":  # reads the pipeline's config declarations (arlib, sources)
+        from .settings import DashboardSettings
+
+        return DashboardSettings
     msg = f"module 'dashboard' has no attribute {name!r}"
     raise AttributeError(msg)

@@ -17,4 +17,5 @@ DashboardError = ServingError
 
 
 class InsecureBindError(DashboardError):
-    """Asked to listen on a non-loopback address with no access token or basic-auth credentials."""
+    """Asked to listen on a non-loopback address with no access token or basic-auth credentials,
+    or with a token shorter than `auth.MIN_TOKEN_LENGTH` characters."""

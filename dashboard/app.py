@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import errno
 import logging
 import os
 import signal
@@ -10,6 +11,8 @@ import sys
 from collections.abc import Callable
 from pathlib import Path
 from typing import Any
+
+from pipeline.config import is_loopback
 
 from . import auth
 from ._errors import DashboardError, InsecureBindError
@@ -22,6 +25,25 @@ __all__ = ["Running", "check_bind", "create_app", "serve"]
 WORKER_TIMEOUT = 300
 #: Threads per worker process (requests one process answers at once; they share its Python lock).
 WORKER_THREADS = 4
+#: Seconds a client has to send a whole request (head and body) once its connection is readable;
+#: then the connection is closed (see `_worker_class`). Browsers send a request in one go.
+HEAD_TIMEOUT = 10.0
+#: Bytes per second a declared request body must at least arrive at: once the head is in, the
+#: body gets `HEAD_TIMEOUT` more seconds plus its length at this rate (16 MiB: about 4 minutes).
+MIN_BODY_RATE = 64 * 1024
+#: Largest request head, in bytes, read before the connection is closed.
+MAX_HEAD_BYTES = 64 * 1024
+#: Largest request body, in bytes (answered 413 above it). Most callback requests are a few
+#: kilobytes; the CSV download sends the chart's rows back (about 300 bytes per window for the
+#: model-health table: 16 MiB holds some 50 000 windows).
+MAX_REQUEST_BYTES = 16 * 1024 * 1024
+#: Bytes one worker holds at once for requests still arriving; past it, the connection whose data
+#: overflowed it is closed (bounds memory when many large bodies arrive together).
+MAX_BUFFERED_BYTES = 128 * 1024 * 1024
+#: Connections one worker holds at once (waiting, kept alive or being answered).
+WORKER_CONNECTIONS = 256
+#: Seconds one write of an answer may block on a client that does not read.
+SEND_TIMEOUT = 30.0
 
 log = logging.getLogger(__name__)
 ASSETS = Path(__file__).with_name("assets")
@@ -62,6 +84,7 @@ def create_app(settings_or_config: Any) -> Any:
         serve_locally=True,
         suppress_callback_exceptions=True,
     )
+    app.server.config["MAX_CONTENT_LENGTH"] = MAX_REQUEST_BYTES  # larger bodies: 413
     auth.install(app.server, token=settings.token, username=settings.username, password=settings.password)
 
     # one snapshot file per request: a publish mid-request never mixes two runs in one answer
@@ -83,21 +106,55 @@ def create_app(settings_or_config: Any) -> Any:
             abort(404)
         return send_file(path, as_attachment=True, download_name=path.name, max_age=0)
 
+    _register_scripts(app)
     app.server.extensions["shockflow_snapshot"] = snap
     app.server.extensions["shockflow_settings"] = settings
     return app
 
 
+def _register_scripts(app: Any) -> None:
+    """Do Dash's one-time server setup now, so every worker serves every script from its first request.
+
+    Dash learns which files it may serve under ``/_dash-component-suites/`` only while rendering
+    the index page, in a setup step it runs before the first request a process answers. That step
+    marks itself done before it has finished: another thread of the same worker asking for a
+    script meanwhile was answered 500 ("not a registered library"), and a fresh server's page
+    stuck on "Loading..." whenever the browser's script requests reached a worker that had not yet
+    rendered the page. Run here, the step happens once in the process that builds the app — before
+    gunicorn forks its workers, which inherit the registered paths. A stand-in layout is checked in
+    place of the page's own, so nothing reads the snapshot before the fork (the page's layout is
+    built per visit; tests/dashboard/test_first_load.py runs Dash's check over it).
+    """
+    from dash import html
+
+    page_layout = app.layout
+    app.layout = html.Div()
+    try:
+        with app.server.test_request_context("/"):
+            app._setup_server()  # Dash's own setup (private): registers scripts and stylesheets
+    finally:
+        app.layout = page_layout
+
+
 def check_bind(settings: DashboardSettings) -> None:
-    """Refuse a non-loopback address without an access token or basic-auth credentials."""
-    if auth.is_loopback(settings.host) or settings.has_credentials:
+    """Refuse a non-loopback address without an access token or basic-auth credentials, or with
+    a token shorter than `auth.MIN_TOKEN_LENGTH` characters (guessable)."""
+    if is_loopback(settings.host):
         return
-    msg = (
-        f"refusing to serve the dashboard on {settings.host!r} without access control: set an access "
-        "token (SHOCKFLOW_DASHBOARD_TOKEN, or [dashboard] token/token_env) or basic-auth credentials "
-        "(username + password), or listen on 127.0.0.1"
-    )
-    raise InsecureBindError(msg)
+    if not settings.has_credentials:
+        msg = (
+            f"refusing to serve the dashboard on {settings.host!r} without access control: set an "
+            "access token (SHOCKFLOW_DASHBOARD_TOKEN, or [dashboard] token/token_env) or basic-auth "
+            "credentials (username + password), or listen on 127.0.0.1"
+        )
+        raise InsecureBindError(msg)
+    if settings.token is not None and len(settings.token) < auth.MIN_TOKEN_LENGTH:
+        msg = (
+            f"refusing to serve the dashboard on {settings.host!r} with an access token of "
+            f"{len(settings.token)} characters: use at least {auth.MIN_TOKEN_LENGTH} (e.g. the output "
+            "of `python -c 'import secrets; print(secrets.token_urlsafe(24))'`), or listen on 127.0.0.1"
+        )
+        raise InsecureBindError(msg)
 
 
 class Running:
@@ -152,17 +209,36 @@ def _ignore_interrupt(worker: Any) -> None:
 
 
 def _worker_class() -> Any:
-    """gunicorn's gthread worker, made safe against a second quit signal inside the first.
+    """gunicorn's gthread worker, hardened against slow clients and a second quit signal.
 
-    Ctrl+C in a terminal sends SIGINT to every process of the group, and the master then sends its
-    workers SIGQUIT: when the second arrives while the first handler is shutting the worker's
-    thread pool down, the nested handler waits for the pool's lock the outer one holds, and the
-    worker hangs until the master kills it (seen after a Prefect run in the same process). The
-    first handler alone finishes the job, so a nested call returns at once.
+    **Slow clients.** gthread hands a connection to one of its few threads as soon as its first
+    byte arrives, and the thread then reads the rest of the request head and body with no time
+    limit: 24–50 connections trickling a header line every 2 s held every thread of every worker
+    and nobody else was answered. Here the worker's event loop (the one that accepts
+    connections) reads each request — head and, when its length is declared and within
+    `MAX_REQUEST_BYTES`, body — without blocking, and passes the connection to a thread only once
+    the request is complete. A connection that has not delivered its request within
+    `HEAD_TIMEOUT` seconds of being accepted (or, kept alive, of its next request starting) is
+    closed — a declared body gets `HEAD_TIMEOUT` more plus its length at `MIN_BODY_RATE`; so is one whose head exceeds `MAX_HEAD_BYTES`, or whose data would take the bytes a
+    worker holds for arriving requests past `MAX_BUFFERED_BYTES`. A
+    waiting connection costs a socket, not a thread; each worker holds at most
+    `WORKER_CONNECTIONS` at once (then it stops accepting until some close), so a flood larger
+    than that still needs a reverse proxy's connection limits in front (README). Answers are
+    written with a `SEND_TIMEOUT` per write, so a client that stops reading frees its thread.
+
+    **Quit signals.** Ctrl+C in a terminal sends SIGINT to every process of the group, and the
+    master then sends its workers SIGQUIT: when the second arrives while the first handler is
+    shutting the worker's thread pool down, the nested handler waits for the pool's lock the
+    outer one holds, and the worker hangs until the master kills it (seen after a Prefect run in
+    the same process). The first handler alone finishes the job, so a nested call returns at once.
     """
+    import selectors
+    import time
+    from functools import partial
+
     from gunicorn.workers.gthread import ThreadWorker
 
-    class QuitOnceWorker(ThreadWorker):  # type: ignore[misc]
+    class HardenedWorker(ThreadWorker):  # type: ignore[misc]
         _quitting = False
 
         def handle_quit(self, sig: Any, frame: Any) -> None:
@@ -171,7 +247,156 @@ def _worker_class() -> Any:
             self._quitting = True
             super().handle_quit(sig, frame)
 
-    return QuitOnceWorker
+        # -- reading requests in the event loop ------------------------------------------------
+
+        def init_process(self) -> None:
+            self._reading: dict[Any, _Arriving] = {}  # connections whose request is arriving
+            self._buffered = 0  # bytes held in self._reading
+            super().init_process()
+
+        def accept(self, listener: Any) -> None:
+            try:
+                client, address = listener.accept()
+            except OSError as exc:
+                if exc.errno not in (errno.EAGAIN, errno.ECONNABORTED, errno.EWOULDBLOCK):
+                    raise
+                return
+            from gunicorn.workers.gthread import TConn
+
+            self.nr_conns += 1
+            self._read_request(TConn(self.cfg, client, address, listener.getsockname()))
+
+        def on_client_socket_readable(self, conn: Any, client: Any) -> None:
+            self.poller.unregister(client)
+            self.keepalived_conns.remove(conn)
+            self._read_request(conn)
+
+        def _read_request(self, conn: Any) -> None:
+            if self.cfg.is_ssl:  # gunicorn terminating TLS itself: the thread reads (see README)
+                self.enqueue_req(conn)
+                return
+            conn.sock.setblocking(False)
+            self._reading[conn] = _Arriving(time.monotonic() + HEAD_TIMEOUT)
+            self.poller.register(conn.sock, selectors.EVENT_READ, partial(self._on_readable, conn))
+
+        def _drop(self, conn: Any) -> None:
+            arriving = self._reading.pop(conn, None)
+            if arriving is not None:
+                self._buffered -= len(arriving.data)
+            try:
+                self.poller.unregister(conn.sock)
+            except (KeyError, ValueError, OSError):
+                pass
+            self.nr_conns -= 1
+            conn.close()
+
+        def _on_readable(self, conn: Any, client: Any) -> None:
+            arriving = self._reading[conn]
+            try:
+                chunk = conn.sock.recv(65536)
+            except (BlockingIOError, InterruptedError):
+                return
+            except OSError:
+                chunk = b""
+            if not chunk:  # the client went away
+                self._drop(conn)
+                return
+            self._buffered += len(chunk)
+            if self._buffered > MAX_BUFFERED_BYTES:
+                self._drop(conn)
+                return
+            head_was_in = arriving.body_start is not None
+            arriving.add(chunk)
+            if arriving.body_start is None:
+                if len(arriving.data) > MAX_HEAD_BYTES:
+                    self._drop(conn)
+                return
+            if not arriving.complete():
+                if not head_was_in:
+                    # the head is in: the body gets time in proportion to its declared length
+                    arriving.deadline = time.monotonic() + HEAD_TIMEOUT + arriving.length / MIN_BODY_RATE
+                    if arriving.expects_continue:
+                        # the client waits for this before sending its body (curl does, for large ones)
+                        try:
+                            conn.sock.send(b"HTTP/1.1 100 Continue\r\n\r\n")
+                        except OSError:
+                            self._drop(conn)
+                return
+            del self._reading[conn]
+            self._buffered -= len(arriving.data)
+            self.poller.unregister(conn.sock)
+            conn.sock.setblocking(True)
+            conn.data_ready = True
+            conn.prefetched = bytes(arriving.data)
+            self.enqueue_req(conn)
+
+        def murder_keepalived(self, force: bool = False) -> None:
+            super().murder_keepalived(force)
+            now = time.monotonic()
+            for conn, arriving in list(self._reading.items()):
+                if force or now >= arriving.deadline:
+                    self._drop(conn)
+
+        def handle(self, conn: Any) -> Any:
+            prefetched = getattr(conn, "prefetched", None)
+            if prefetched is not None:
+                conn.prefetched = None
+                conn.sock.setblocking(True)
+                conn.init()
+                conn.parser.unreader.unread(prefetched)
+            return super().handle(conn)
+
+        def handle_request(self, req: Any, conn: Any) -> Any:
+            conn.sock.settimeout(SEND_TIMEOUT)  # the request is read; this bounds each write
+            return super().handle_request(req, conn)
+
+    return HardenedWorker
+
+
+class _Arriving:
+    """A request arriving on one connection: its bytes so far and what its head declared.
+
+    Each chunk costs work in proportion to its own length only (the head's end is searched for
+    from where the last chunk ended; the head is parsed once), so tiny chunks cannot make the
+    event loop rescan what it already has.
+    """
+
+    def __init__(self, deadline: float) -> None:
+        self.deadline = deadline
+        self.data = bytearray()
+        self.body_start: int | None = None  # index after the blank line ending the head
+        self.length = 0  # declared Content-Length; -1 when malformed
+        self.chunked = False
+        self.expects_continue = False
+
+    def add(self, chunk: bytes) -> None:
+        seen = len(self.data)
+        self.data += chunk
+        if self.body_start is not None:
+            return
+        end = self.data.find(b"\r\n\r\n", max(0, seen - 3))
+        if end < 0:
+            return
+        self.body_start = end + 4
+        for line in bytes(self.data[:end]).lower().split(b"\r\n")[1:]:
+            name, _, value = (part.strip() for part in line.partition(b":"))
+            if name == b"content-length":
+                self.length = int(value) if value.isdigit() else -1
+            elif name == b"transfer-encoding":
+                self.chunked = True
+            elif name == b"expect" and value == b"100-continue":
+                self.expects_continue = True
+
+    def complete(self) -> bool:
+        """True once the head and the body it declares are in — or a body that will not be
+        waited for: too large (the app answers 413) or malformed (gunicorn answers 400)."""
+        assert self.body_start is not None
+        body = len(self.data) - self.body_start
+        if self.chunked:  # the last chunk, or over the limit
+            return self.data.endswith(b"0\r\n\r\n") or body > MAX_REQUEST_BYTES
+        if self.length < 0 or self.length > MAX_REQUEST_BYTES:
+            return True
+        return body >= self.length
 
 
 def serve(
@@ -189,11 +414,13 @@ def serve(
 
     Requests are answered by `workers` processes (gunicorn's pre-fork server), so Python's
     one-thread-at-a-time lock no longer caps the whole server at one core. Each process runs
-    `WORKER_THREADS` threads (gunicorn's gthread workers): a slow client or a long on-demand
+    `WORKER_THREADS` threads (gunicorn's gthread workers, hardened in `_worker_class`: a request
+    reaches a thread only once it has fully arrived, within `HEAD_TIMEOUT`): a long on-demand
     computation holds one thread, not the process, and browsers keep their connections alive.
     (Sync workers gave a slightly tighter p95 on the loopback load benchmark, but block a whole
     process while a remote client downloads an answer.) The app is built once, before the fork,
-    with nothing open: each worker opens the snapshot on its first request, pins every request to
+    with Dash's script registry filled (`_register_scripts`) and nothing open: each worker opens
+    the snapshot on its first request, pins every request to
     one snapshot file and reopens the file when the pipeline replaces it, on its own. Ctrl+C (or
     SIGTERM) stops
     the workers and returns. `ready`, if given, is called in this process with a `Running` once
@@ -228,16 +455,23 @@ def serve(
     options = {
         "bind": [_bind_text(settings.host, settings.port)],
         "workers": settings.workers,
-        "worker_class": _worker_class() if WORKER_THREADS > 1 else "sync",
+        "worker_class": _worker_class(),
         "threads": WORKER_THREADS,
         "preload_app": True,  # imports once; no snapshot is open before the fork (opened lazily)
         "timeout": WORKER_TIMEOUT,
         "graceful_timeout": 10,
         "keepalive": 2,
+        "worker_connections": WORKER_CONNECTIONS,
         "loglevel": "warning",  # one line per request would drown the start-up message
         "accesslog": None,
         "errorlog": "-",
         "control_socket_disable": True,  # no control socket file in the user's home
+        # X-Forwarded-Proto is believed from the configured reverse proxies only (gunicorn's own
+        # default believes any loopback peer, and more headers); it sets the request's scheme,
+        # which marks the session cookie Secure (auth.py)
+        "forwarded_allow_ips": ",".join(settings.trusted_proxies),
+        "secure_scheme_headers": {"X-FORWARDED-PROTO": "https"},
+        "forwarder_headers": "",
         "proc_name": "shockflow-dashboard",
         "when_ready": when_ready,
         "post_worker_init": _ignore_interrupt,

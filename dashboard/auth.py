@@ -4,8 +4,12 @@ With neither configured nothing is checked (the app then only listens on loopbac
 anything else). With a token, a request is let in when it carries
 
 - ``Authorization: Bearer <token>``, or
-- the session cookie set after a visit to any page with ``?token=<token>`` (the browser is then
-  redirected to the same page without the token in its address).
+- the session cookie set after a visit to any page with ``?token=<token>``. The browser is then
+  redirected to the same page without the token in its address — also when it was signed in
+  already, so the token never stays in the address bar, history or a shared link. The cookie is
+  ``HttpOnly``, ``SameSite=Strict``, and ``Secure`` when the request came over TLS (directly, or
+  through a reverse proxy listed in ``[dashboard] trusted_proxies`` that says so with
+  ``X-Forwarded-Proto: https``; `serve` tells gunicorn which proxies to believe).
 
 With a username and password, ``Authorization: Basic`` must match (the browser asks once).
 Both may be configured; either then suffices. Secrets are compared in constant time, and the
@@ -17,24 +21,14 @@ from __future__ import annotations
 
 import hashlib
 import hmac
-import ipaddress
 import urllib.parse
 from typing import Any
 
-__all__ = ["COOKIE", "install", "is_loopback"]
+__all__ = ["COOKIE", "MIN_TOKEN_LENGTH", "install"]
 
 COOKIE = "shockflow_access"
-
-
-def is_loopback(host: str) -> bool:
-    """True only for ``localhost`` and literal loopback addresses (127.0.0.0/8, ::1)."""
-    text = host.strip().strip("[]").lower()
-    if text == "localhost":
-        return True
-    try:
-        return ipaddress.ip_address(text).is_loopback
-    except ValueError:
-        return False
+#: Fewest characters of a token that guards a non-loopback address (`dashboard.app.check_bind`).
+MIN_TOKEN_LENGTH = 16
 
 
 def _cookie_value(token: str) -> str:
@@ -81,20 +75,24 @@ def install(
                 return _same(auth.username, username) & _same(auth.password, password)
         return False
 
+    def without_token() -> str:
+        query = [(k, v) for k, v in request.args.items(multi=True) if k != "token"]
+        return request.path + ("?" + urllib.parse.urlencode(query) if query else "")
+
     @server.before_request
     def _check() -> Any:
-        if authorised():
-            return None
         given = request.args.get("token")
         if token is not None and given is not None and _same(given, token):
-            query = [(k, v) for k, v in request.args.items(multi=True) if k != "token"]
-            target = request.path + ("?" + urllib.parse.urlencode(query) if query else "")
-            response = redirect(target, code=303)
+            response = redirect(without_token(), code=303)
             response.set_cookie(
                 COOKIE, expected_cookie or "", httponly=True, samesite="Strict",
                 secure=request.is_secure, path="/",
             )  # fmt: skip
             return response
+        if authorised():
+            if "token" in request.args and request.method in ("GET", "HEAD"):
+                return redirect(without_token(), code=303)  # the token leaves the address bar
+            return None
         if username is not None:
             return Response(
                 "Sign in to the shockflow dashboard.\n", status=401,

@@ -1,17 +1,20 @@
 """What the dashboard needs to know to start: where the snapshot is, where reports are, who may look.
 
-`DashboardSettings` is a frozen value object. `DashboardSettings.from_config` reads the pipeline's
-`Config` (``config.warehouse.snapshot``, ``config.export.directory``, ``config.dashboard.*``)
-defensively, so a config without a ``[dashboard]`` table (or without a key, such as ``workers``)
-still gives loopback-only defaults.
+`DashboardSettings` is a frozen value object. `DashboardSettings.from_config` takes its values from
+the pipeline's loaded `Config` — ``config.warehouse.snapshot``, ``config.export.directory`` and
+``config.dashboard`` (`pipeline.config.DashboardConfig`, which declares the ``[dashboard]`` keys,
+their defaults and their checks once); nothing here re-reads the TOML. The defaults of a
+`DashboardSettings` built directly are that declaration's defaults.
 
 Credentials may come from the config itself or from environment variables; the config may name the
-variables (``token_env``, ``username_env``, ``password_env``), otherwise these defaults are read:
+variables (``token_env``, ``username_env``, ``password_env``), otherwise these defaults are read
+(`DEFAULT_ENV`, which is `pipeline.config.DEFAULT_CREDENTIAL_ENV`):
 
 ``SHOCKFLOW_DASHBOARD_TOKEN``, ``SHOCKFLOW_DASHBOARD_USERNAME``, ``SHOCKFLOW_DASHBOARD_PASSWORD``.
 
-Only the entry point reads the environment: the CLI passes ``environ=os.environ``; nothing in this
-package looks at ``os.environ`` by itself.
+A trailing newline (``\\n`` or ``\\r\\n``, as ``echo`` or a secrets file leaves it) is stripped
+from each secret. Only the entry point reads the environment: the CLI passes
+``environ=os.environ``; nothing in this package looks at ``os.environ`` by itself.
 """
 
 from __future__ import annotations
@@ -19,39 +22,33 @@ from __future__ import annotations
 import dataclasses
 from collections.abc import Mapping
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
+
+from pipeline.config import DEFAULT_CREDENTIAL_ENV, DashboardConfig
 
 from ._errors import DashboardError
 
+if TYPE_CHECKING:
+    from pipeline.config import Config
+
 __all__ = ["DEFAULT_ENV", "DEFAULT_WORKERS", "MAX_WORKERS", "DashboardSettings"]
 
+_DEFAULTS = DashboardConfig()
 #: Worker processes `serve` starts unless told otherwise (one per core of a small machine).
-DEFAULT_WORKERS = 2
+DEFAULT_WORKERS = _DEFAULTS.workers
 MAX_WORKERS = 64
 
 #: Environment variables read for credentials when the config names none.
-DEFAULT_ENV = {
-    "token": "SHOCKFLOW_DASHBOARD_TOKEN",
-    "username": "SHOCKFLOW_DASHBOARD_USERNAME",
-    "password": "SHOCKFLOW_DASHBOARD_PASSWORD",
-}
-
-
-def _attr(obj: Any, name: str, default: Any = None) -> Any:
-    """`obj.name` or `obj[name]` (config sections may be objects or plain mappings)."""
-    if obj is None:
-        return default
-    if isinstance(obj, Mapping):
-        return obj.get(name, default)
-    return getattr(obj, name, default)
+DEFAULT_ENV = DEFAULT_CREDENTIAL_ENV
 
 
 def _secret(value: Any) -> str | None:
-    """A secret as a plain string; accepts pydantic-style SecretStr objects; empty means none."""
+    """A secret as a plain string without a trailing newline; accepts pydantic-style SecretStr
+    objects; empty means none."""
     if value is None:
         return None
     getter = getattr(value, "get_secret_value", None)
-    text = str(getter() if callable(getter) else value)
+    text = str(getter() if callable(getter) else value).rstrip("\r\n")
     return text if text.strip() else None
 
 
@@ -70,16 +67,20 @@ class DashboardSettings:
     username, password : HTTP basic-auth credentials (both or neither).
     workers : processes `serve` answers requests with (Python runs one thread at a time per
         process, so one process per core lets every core work).
+    trusted_proxies : addresses or networks (or ``"*"``) of reverse proxies whose
+        ``X-Forwarded-Proto: https`` is believed (the session cookie is then marked ``Secure``);
+        empty (the default): the header is ignored, from anyone.
     """
 
     snapshot: Path
     export_dir: Path | None = None
-    host: str = "127.0.0.1"
-    port: int = 8050
+    host: str = _DEFAULTS.host
+    port: int = _DEFAULTS.port
     token: str | None = dataclasses.field(default=None, repr=False)
     username: str | None = None
     password: str | None = dataclasses.field(default=None, repr=False)
     workers: int = DEFAULT_WORKERS
+    trusted_proxies: tuple[str, ...] = _DEFAULTS.trusted_proxies
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "snapshot", Path(self.snapshot).expanduser().resolve())
@@ -103,6 +104,7 @@ class DashboardSettings:
             raise DashboardError(msg)
         for name in ("token", "username", "password"):
             object.__setattr__(self, name, _secret(getattr(self, name)))
+        object.__setattr__(self, "trusted_proxies", tuple(self.trusted_proxies))
         if (self.username is None) != (self.password is None):
             msg = (
                 "basic auth needs both `username` and `password` "
@@ -116,48 +118,24 @@ class DashboardSettings:
         return self.token is not None or self.username is not None
 
     @classmethod
-    def from_config(
-        cls, config: Any, *, environ: Mapping[str, str] | None = None
-    ) -> DashboardSettings:
-        """Settings from the pipeline's `Config` (or anything shaped like it).
+    def from_config(cls, config: Config, *, environ: Mapping[str, str] | None = None) -> DashboardSettings:
+        """Settings from the pipeline's loaded `Config` (its values, already checked there).
 
-        Reads ``config.warehouse.snapshot``, ``config.export.directory`` and the optional
-        ``config.dashboard`` section (host, port, workers, token, username, password, and ``*_env``
-        names of environment variables holding the secrets). Secrets named by variable are looked
-        up in `environ` — the entry point passes ``os.environ``; None means no environment. Values
-        set in the config win over the environment.
+        Secrets named by variable (or the `DEFAULT_ENV` ones) are looked up in `environ` — the
+        entry point passes ``os.environ``; None means no environment. Values set in the config
+        win over the environment.
         """
         if isinstance(config, DashboardSettings):
             return config
-        env: Mapping[str, str] = {} if environ is None else environ
-        warehouse = _attr(config, "warehouse")
-        snapshot = _attr(warehouse, "snapshot")
-        if snapshot is None:
-            msg = (
-                "the config gives no serving snapshot (`[warehouse] snapshot`); "
-                "set it to the DuckDB file the pipeline publishes, e.g. ./shockflow-serving.duckdb"
-            )
-            raise DashboardError(msg)
-        export = _attr(config, "export")
-        export_dir = _attr(export, "directory")
-        dash_cfg = _attr(config, "dashboard")
-        values: dict[str, Any] = {}
-        for name in ("token", "username", "password"):
-            value = _secret(_attr(dash_cfg, name))
-            if value is None:
-                var = _attr(dash_cfg, f"{name}_env") or DEFAULT_ENV[name]
-                value = _secret(env.get(str(var)))
-            values[name] = value
-        host = _attr(dash_cfg, "host") or "127.0.0.1"
-        port = _attr(dash_cfg, "port")
-        workers = _attr(dash_cfg, "workers")
+        dash = config.dashboard
         return cls(
-            snapshot=Path(snapshot),
-            export_dir=None if export_dir is None else Path(export_dir),
-            host=str(host),
-            port=8050 if port is None else port,
-            workers=DEFAULT_WORKERS if workers is None else workers,
-            **values,
+            snapshot=config.warehouse.snapshot,
+            export_dir=config.export.directory,
+            host=dash.host,
+            port=dash.port,
+            workers=dash.workers,
+            trusted_proxies=dash.trusted_proxies,
+            **dash.credentials({} if environ is None else environ),
         )
 
     def with_address(

@@ -34,12 +34,12 @@ default 1000) keep the per-task cost small beside the compute.
 
 from __future__ import annotations
 
-import ipaddress
 import socket
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 from urllib.parse import urlsplit
 
+from pipeline.config import is_loopback
 from pipeline.errors import ShockflowError
 
 if TYPE_CHECKING:
@@ -132,15 +132,6 @@ def check_scheduler(address: str, *, timeout: float = CONNECT_TIMEOUT) -> None:
         raise ExecutionError(msg) from None
 
 
-def _is_loopback_host(host: str) -> bool:
-    if host == "localhost":
-        return True
-    try:
-        return ipaddress.ip_address(host).is_loopback
-    except ValueError:
-        return False
-
-
 def check_prefect_api(address: str, api_url: str | None) -> None:
     """Raise ExecutionError when workers at `address` could not report to Prefect.
 
@@ -151,7 +142,7 @@ def check_prefect_api(address: str, api_url: str | None) -> None:
     on this machine is accepted without one.
     """
     host = urlsplit(address).hostname or ""
-    if api_url or _is_loopback_host(host):
+    if api_url or is_loopback(host):
         return
     msg = (
         f"[execution] address {address!r} is a cluster on other machines, but PREFECT_API_URL is "

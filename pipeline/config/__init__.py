@@ -34,6 +34,7 @@ from pipeline.config._load import (
     load_config_text,
 )
 from pipeline.config._sections import (
+    DEFAULT_CREDENTIAL_ENV,
     FIT_FORMAT_VERSION,
     FREQUENCIES,
     Bands,
@@ -51,6 +52,7 @@ from pipeline.config._sections import (
 from pipeline.sources import SourceConfig
 
 __all__ = [
+    "DEFAULT_CREDENTIAL_ENV",
     "FIT_FORMAT_VERSION",
     "FREQUENCIES",
     "SECTIONS",

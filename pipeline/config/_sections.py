@@ -23,6 +23,7 @@ from pipeline.sources import SourceConfig
 from pipeline.sources._config import check_name
 
 __all__ = [
+    "DEFAULT_CREDENTIAL_ENV",
     "FIT_FORMAT_VERSION",
     "FREQUENCIES",
     "Bands",
@@ -55,13 +56,40 @@ MAX_WORKERS = 64
 
 
 def is_loopback(host: str) -> bool:
-    """True when `host` only listens on this machine ('localhost' or a loopback address)."""
-    if host == "localhost":
+    """True only for ``localhost`` and literal loopback addresses (127.0.0.0/8, ::1, ``[::1]``).
+
+    The one rule for "reachable from this machine only", used by the config, the dashboard and
+    the execution checks; case and surrounding spaces or brackets do not matter.
+    """
+    text = host.strip().strip("[]").strip().lower()
+    if text == "localhost":
         return True
     try:
-        return ipaddress.ip_address(host).is_loopback
+        return ipaddress.ip_address(text).is_loopback
     except ValueError:
         return False
+
+
+def _proxies(proxies: tuple[str, ...]) -> tuple[str, str] | None:
+    for proxy in proxies:
+        try:
+            ok = proxy == "*" or bool(ipaddress.ip_network(proxy, strict=False))
+        except ValueError:
+            ok = False
+        if not ok:
+            return (
+                f"contains {proxy!r}",
+                'list IP addresses or networks of your reverse proxies (e.g. ["127.0.0.1"]), or "*"',
+            )
+    return None
+
+
+#: Environment variables holding the dashboard's credentials when no ``*_env`` key names others.
+DEFAULT_CREDENTIAL_ENV = {
+    "token": "SHOCKFLOW_DASHBOARD_TOKEN",
+    "username": "SHOCKFLOW_DASHBOARD_USERNAME",
+    "password": "SHOCKFLOW_DASHBOARD_PASSWORD",
+}
 
 
 def _level(value: float) -> tuple[str, str] | None:
@@ -302,6 +330,10 @@ class DashboardConfig:
     token_env: str | None = setting(None, doc="the environment variable holding the token")
     username_env: str | None = setting(None, doc="the environment variable holding the user name")
     password_env: str | None = setting(None, doc="the environment variable holding the password")
+    trusted_proxies: tuple[str, ...] = setting(
+        (), check=_proxies, default_doc="none",
+        doc="reverse proxies (addresses, networks or `\"*\"`) whose `X-Forwarded-Proto` is believed",
+    )  # fmt: skip
 
     @property
     def is_loopback(self) -> bool:
@@ -315,17 +347,15 @@ class DashboardConfig:
         environment.
         """
 
-        def pick(value: str | None, env: str | None) -> str | None:
+        def pick(value: str | None, env: str | None, name: str) -> str | None:
             if value:
                 return value
-            if env:
-                return environ.get(env) or None
-            return None
+            return environ.get(env or DEFAULT_CREDENTIAL_ENV[name]) or None
 
         return {
-            "token": pick(self.token, self.token_env),
-            "username": pick(self.username, self.username_env),
-            "password": pick(self.password, self.password_env),
+            "token": pick(self.token, self.token_env, "token"),
+            "username": pick(self.username, self.username_env, "username"),
+            "password": pick(self.password, self.password_env, "password"),
         }
 
 

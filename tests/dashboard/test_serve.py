@@ -19,9 +19,6 @@ import json
 import os
 import shutil
 import signal
-import subprocess
-import sys
-import tempfile
 import threading
 import time
 import urllib.request
@@ -32,108 +29,19 @@ import pytest
 
 from dashboard import DashboardError, DashboardSettings, create_app, serve
 
+from ._served import PROC, Served, needs_proc, stop_all
 from ._snapshot import SERIES, write_snapshot
 from .conftest import read
 
 ROOT = Path(__file__).resolve().parents[2]
 UNIVERSE = "demo_four"
 HORIZON = 8  # shock paths asked for (the snapshot stores 10: the stored paths, cut)
-PROC = Path("/proc")
-needs_proc = pytest.mark.skipif(not (PROC / "self" / "stat").exists(), reason="reads /proc (Linux)")
-
-#: The child: `serve` with the given snapshot and workers; prints the bound port once ready.
-SERVER = """
-import sys
-from dashboard import DashboardSettings, serve
-def ready(running):
-    print(running.server_port, flush=True)
-serve(DashboardSettings(snapshot=sys.argv[1], port=0), workers=int(sys.argv[2]), ready=ready)
-print("serve returned", flush=True)
-"""
-
-
-_STARTED: list[Served] = []
-
 
 @pytest.fixture(autouse=True)
 def _no_server_left() -> Any:
     """Whatever a test asserts, the servers it started end with it (their own process groups)."""
     yield
-    while _STARTED:
-        served = _STARTED.pop()
-        if served.proc.poll() is None:
-            try:
-                os.killpg(served.proc.pid, signal.SIGKILL)
-            except ProcessLookupError:
-                pass
-            served.proc.wait(10)
-
-
-class Served:
-    """`serve` in a child process group; `base` is its URL."""
-
-    def __init__(self, snapshot: Path, workers: int) -> None:
-        env = {**os.environ, "PYTHONPATH": str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", "")}
-        self.stdout = self.stderr = ""
-        self._err = tempfile.TemporaryFile(mode="w+")  # a file, so logs can never fill a pipe
-        self.proc = subprocess.Popen(
-            [sys.executable, "-c", SERVER, str(snapshot), str(workers)],
-            stdout=subprocess.PIPE, stderr=self._err, text=True, env=env, cwd=ROOT,
-            start_new_session=True,
-        )  # fmt: skip
-        _STARTED.append(self)
-        assert self.proc.stdout is not None
-        line = self.proc.stdout.readline().strip()
-        if not line.isdigit():
-            self.stop()
-            pytest.fail(f"serve did not start: {line!r} {self.stderr[-2000:]}")
-        self.port = int(line)
-        self.base = f"http://127.0.0.1:{self.port}/"
-
-    def workers(self) -> list[int]:
-        """Process ids of the server's worker processes (children of the server process)."""
-        out = []
-        for stat in PROC.glob("[0-9]*/stat"):
-            try:
-                if int(stat.read_text().rsplit(")", 1)[1].split()[1]) == self.proc.pid:
-                    out.append(int(stat.parent.name))
-            except (OSError, ValueError, IndexError):
-                continue
-        return sorted(out)
-
-    def wait_workers(self, count: int, timeout: float = 60.0) -> list[int]:
-        """The worker pids once `count` of them run (they start after the address is bound)."""
-        deadline = time.monotonic() + timeout
-        while len(pids := self.workers()) < count and time.monotonic() < deadline:
-            time.sleep(0.1)
-        return pids
-
-    def group_alive(self) -> list[int]:
-        """Processes still in the server's process group (the server's session)."""
-        alive = []
-        for stat in PROC.glob("[0-9]*/stat"):
-            try:
-                fields = stat.read_text().rsplit(")", 1)[1].split()
-                if int(fields[2]) == self.proc.pid and fields[0] != "Z":
-                    alive.append(int(stat.parent.name))
-            except (OSError, ValueError, IndexError):
-                continue
-        return alive
-
-    def stop(self, sig: int = signal.SIGTERM, timeout: float = 30.0) -> int:
-        if self.proc.poll() is None:
-            self.proc.send_signal(sig)
-            try:
-                self.proc.wait(timeout)
-            except subprocess.TimeoutExpired:
-                os.killpg(self.proc.pid, signal.SIGKILL)  # this test's own child session
-                self.proc.wait(10)
-        out, _ = self.proc.communicate()
-        self.stdout = out or ""
-        self._err.seek(0)
-        self.stderr = self._err.read()
-        self._err.close()
-        return int(self.proc.returncode)
+    stop_all()
 
 
 def get(url: str) -> tuple[int, bytes]:
@@ -445,7 +353,7 @@ def test_cli_reads_the_token_from_the_environment(tmp_path: Path, small_snapshot
         port = taken.getsockname()[1]
         result = CliRunner().invoke(
             app, ["dashboard", "--config", str(config), "--host", "0.0.0.0", "--port", str(port)],
-            env={"SHOCKFLOW_TEST_DASH_TOKEN": "s3cret-token"},
+            env={"SHOCKFLOW_TEST_DASH_TOKEN": "s3cret-token-of-24-chars"},
         )  # fmt: skip
     assert result.exit_code == 1, result.output
     lines = [line for line in result.output.splitlines() if line.strip()]
