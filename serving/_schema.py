@@ -213,6 +213,23 @@ SCHEMA: tuple[Table, ...] = (
         *_window_key(), _c("method", "VARCHAR", nn=True), _c("horizon", "INTEGER", nn=True),
         _arr("share", ("H", "n", "n"), nn=True, axes=("step", "variable", "shock")),
     )),
+    Table("band_connectedness", "universe × window_end × frequency band", "window", (
+        *_window_key(), _c("band", "INTEGER", nn=True, note="(0 = the shortest cycles)"),
+        _c("period_lo", "DOUBLE", nn=True),
+        _c("period_hi", "DOUBLE", nn=True, note="(the band holds cycles of period_lo < P ≤ period_hi rows; `inf` for the longest)"),
+        _c("truncation", "INTEGER", nn=True, note="(MA terms; the bands add up to connectedness at this horizon)"),
+        _c("total", "DOUBLE", nn=True, note="(frequency connectedness, percent: the bands' values add up to the total index)"),
+        _c("within_total", "DOUBLE", note="(connectedness within the band alone, percent; NULL for an empty band)"),
+        _c("band_share", "DOUBLE", nn=True, note="(share of forecast-error variance in the band)"),
+        _arr("to_others", ("n",), nn=True), _arr("from_others", ("n",), nn=True),
+        _arr("table", ("n", "n"), nn=True, axes=("variable", "shock"), note="percent"),
+    ), note="Baruník & Křehlík (2018); only universes with `frequency_bands`"),
+    Table("joint_connectedness", "universe × window_end", "window", (
+        *_window_key(),
+        _c("total", "DOUBLE", nn=True, note="(joint total index, percent)"),
+        _c("generalized_total", "DOUBLE", nn=True, note="(the Diebold–Yilmaz index at the same horizon)"),
+        _arr("from_others", ("n",), nn=True, note="(share of each series' variance due to all others jointly, percent)"),
+    ), note="Lastrapes & Wiesen (2021); only universes with `joint = true`"),
 )
 
 _BY_NAME = {t.name: t for t in SCHEMA}
