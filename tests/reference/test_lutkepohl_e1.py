@@ -44,7 +44,8 @@ BOOK_COEF_HALF_UNIT = 5e-4 + 1e-12
 # Lütkepohl (2005), eq. 3.5.18, p. 99: approximate 2-step forecast MSE matrix Σ̂_ŷ(2) = Σ̂_y(2) +
 # Ω̂(2)/T (estimation uncertainty included), × 10^4. Source of the numbers: the book as quoted in
 # statsmodels/tsa/vector_ar/tests/test_var.py (TestVARResultsLutkepohl.test_approx_mse, comment
-# "3.5.18, p. 99"); not recalled. 25.12 is printed to 2 decimals, every other entry to 3.
+# "3.5.18, p. 99"); not recalled. They are not statsmodels output: its default forecast_cov omits
+# Ω̂(2)/T and gives 23.67 for the (1, 1) entry. 25.12 is printed to 2 decimals, the rest to 3.
 BOOK_MSE2_E4 = np.array([[25.12, 0.580, 1.300], [0.580, 1.581, 0.586], [1.300, 0.586, 1.009]])
 BOOK_MSE2_HALF_UNIT_E4 = np.full((3, 3), 5e-4) + 1e-12
 BOOK_MSE2_HALF_UNIT_E4[0, 0] = 5e-3 + 1e-12
