@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from scipy import stats
 
 import arlib
 
@@ -30,8 +31,12 @@ def test_single_equation_f_equals_restricted_regression_f(var2_data: np.ndarray)
     f_classic = ((ssr_r - ssr_u) / 4) / (ssr_u / (T - 2 - 7))
     assert res.f_stat == pytest.approx(f_classic, rel=1e-10)
     assert res.df == (4, 3 * (T - 2 - 7))
-    assert res.wald_stat == pytest.approx(4 * res.f_stat)
+    # Wald form computed from the two regressions, not from λ_F: (SSR_r − SSR_u)/σ̂²_11
+    wald_classic = (ssr_r - ssr_u) / (ssr_u / (T - 2 - 7))
+    assert res.wald_stat == pytest.approx(wald_classic, rel=1e-10)
     assert res.wald_df == 4
+    assert res.wald_p_value == pytest.approx(stats.chi2.sf(wald_classic, 4), rel=1e-9)
+    assert res.p_value == pytest.approx(stats.f.sf(f_classic, 4, 3 * (T - 9)), rel=1e-9)
     assert res.null_hypothesis == "'b' and 'c' do not Granger-cause 'a'"
     assert res.caused == ("a",) and res.causing == ("b", "c")
 
@@ -42,9 +47,41 @@ def test_p_values_and_power(var2_data: np.ndarray) -> None:
     strong = arlib.granger_test(fit, 1, 0)
     assert strong.p_value < 1e-3 and strong.rejects(0.01)
     assert strong.null_hypothesis == "'y0' does not Granger-cause 'y1'"
-    # true A1[0, 2] = 0, A2[0, 2] = 0.05: the test returns a proper probability
+    # true A1[0, 2] = 0, A2[0, 2] = 0.05: the p-value of the restricted-regression F for
+    # equation 0 without the 2 lags of y2, from F(2, n·(T_eff − k)) (Lütkepohl 2005, eq. 3.6.7)
     weak = arlib.granger_test(fit, 0, 2)
-    assert 0.0 <= weak.p_value <= 1.0
+    y = var2_data
+    T = len(y)
+    lags = {(lag, j): y[2 - lag : T - lag, j] for lag in (1, 2) for j in range(3)}
+    keep = [(lag, j) for lag in (1, 2) for j in range(3)]
+    full = np.column_stack([np.ones(T - 2)] + [lags[c] for c in keep])
+    restricted = np.column_stack([np.ones(T - 2)] + [lags[c] for c in keep if c[1] != 2])
+    ssr_u, ssr_r = _ssr(full, y[2:, 0]), _ssr(restricted, y[2:, 0])
+    f_classic = ((ssr_r - ssr_u) / 2) / (ssr_u / (T - 2 - 7))
+    assert weak.f_stat == pytest.approx(f_classic, rel=1e-10)
+    assert weak.p_value == pytest.approx(stats.f.sf(f_classic, 2, 3 * (T - 9)), rel=1e-9)
+
+
+def test_block_wald_statistic_equals_the_explicit_restriction_matrix_form(
+    var2_data: np.ndarray,
+) -> None:
+    """Two caused series: λ_W = (Cβ)'[C((Z'Z)^{-1} ⊗ Σ̂_u)C']^{-1}(Cβ) with β = vec(B') built
+    here with an explicit 0/1 matrix C and np.kron (Lütkepohl 2005, eq. 3.6.5), λ_F = λ_W/J."""
+    fit = arlib.fit_var(var2_data, 2)
+    res = arlib.granger_test(fit, [0, 1], 2)
+    B = np.asarray(fit.params)  # (k, n): row r = regressor, column e = equation
+    k, n = B.shape
+    beta = B.reshape(-1)  # index r·n + e: regressor-major, so Cov = (Z'Z)^{-1} ⊗ Σ̂_u
+    cov = np.kron(fit.gram_inv, fit.sigma_u)
+    restricted = [(1 + (lag - 1) * n + 2) * n + e for lag in (1, 2) for e in (0, 1)]
+    C = np.zeros((len(restricted), k * n))
+    C[np.arange(len(restricted)), restricted] = 1.0
+    Cb = C @ beta
+    wald = float(Cb @ np.linalg.solve(C @ cov @ C.T, Cb))
+    assert res.wald_df == 4 and res.df == (4, 3 * fit.df_resid)
+    assert res.wald_stat == pytest.approx(wald, rel=1e-10)
+    assert res.f_stat == pytest.approx(wald / 4, rel=1e-10)
+    assert res.wald_p_value == pytest.approx(stats.chi2.sf(wald, 4), rel=1e-9)
 
 
 def test_rejects_process_and_overlap(var2_data: np.ndarray) -> None:

@@ -93,6 +93,26 @@ def test_unit_and_orthogonal_responses(pair: tuple) -> None:
     agree(arlib.impulse_responses(ours, 12, cumulative=True), irf.orth_cum_effects)
 
 
+def test_asymptotic_response_bands(pair: tuple) -> None:
+    """Delta-method standard errors of unit and Cholesky responses, plain and cumulative, against
+    statsmodels' `irf(H).stderr` / `cum_effect_stderr` (Lütkepohl 2005, Sec. 3.7, in both); the
+    band limits are Θ̂ ± z_{(1+c)/2} · s.e. with z from scipy's normal quantile."""
+    from scipy import stats
+
+    ours, ref, _ = pair
+    irf = ref.irf(8)
+    for shocks, orth in (("unit", False), ("cholesky", True)):
+        for cumulative, ref_se in ((False, irf.stderr), (True, irf.cum_effect_stderr)):
+            band = arlib.irf_bands(
+                ours, 8, shocks=shocks, kind="asymptotic", coverage=0.8, cumulative=cumulative
+            )
+            se = ref_se(orth=orth)
+            agree(band.std, se)
+            z = stats.norm.ppf(0.9)
+            agree(band.lower, band.point - z * se)
+            agree(band.upper, band.point + z * se)
+
+
 def test_cholesky_decomposition(pair: tuple) -> None:
     ours, ref, _ = pair
     agree(arlib.variance_decomposition(ours, 10), ref.fevd(10).decomp.transpose(1, 0, 2))
