@@ -109,6 +109,7 @@ class SourceConfig:
     timeout: float = 30.0
     retries: int = 3
     backoff: float = 1.0
+    external_access: bool = False  # duckdb_sql: let the query read files/URLs besides `database`
 
     @property
     def where(self) -> str:
@@ -520,6 +521,7 @@ def _load_source(t: _Table, base: Path) -> SourceConfig:
     timeout = t.get("timeout", float, 30.0)
     retries = t.integer("retries", 3, minimum=0)
     backoff = t.get("backoff", float, 1.0)
+    external_access = t.get("external_access", bool, False) if kind == "duckdb_sql" else False
     t.finish()
     needs = {"csv": "path", "parquet": "path", "http_csv": "url", "duckdb_sql": "query", "demo": "dataset"}[kind]
     given = {"path": path, "url": url, "query": query, "dataset": dataset}
@@ -562,6 +564,7 @@ def _load_source(t: _Table, base: Path) -> SourceConfig:
         timeout=timeout,
         retries=retries,
         backoff=backoff,
+        external_access=external_access,
     )
 
 

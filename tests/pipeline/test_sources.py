@@ -246,3 +246,160 @@ def test_http_truncated_body_is_retried_then_fails(server: str) -> None:
 def test_http_hang_times_out(server: str) -> None:
     with pytest.raises(SourceError, match=r"failed after 1 attempts, last: no answer within the 0.3 s timeout"):
         fetch_with_retries(server + "/hang.csv", timeout=0.3, retries=0, backoff=0)
+
+
+# --------------------------------------------------------------------------------------------
+# Rows with the wrong number of fields (a file cut mid-write, a damaged row) and CSV quoting
+# --------------------------------------------------------------------------------------------
+
+_TRUNCATED_WIDE = (
+    "date,A,B,C\n"
+    "2021-06-10,76.10000001,118.5,3.25\n"
+    "2021-06-11,77.00000002,119.0,3.5\n"
+    "2021-06-14,77.72549029,1"  # the last line, cut mid-write: no B value ends in '1', no C at all
+)
+
+
+@pytest.mark.parametrize(
+    ("text", "kw", "pattern"),
+    [
+        (_TRUNCATED_WIDE, {}, r"t\.csv, line 4: 3 fields where the header has 4 \('2021-06-14,77\.72549029,1'\)"),
+        (
+            "date,A,B,C,D,E\n2024-01-02,1,2,3,4,5\n2024-01-03,1,2\n2024-01-04,1,2,3,4,5\n", {},
+            r"t\.csv, line 3: 3 fields where the header has 6",
+        ),
+        ("date,A,B\n2024-01-02,1,2\n2024-01-03,1,2,3\n", {}, r"t\.csv, line 3: 4 fields where the header has 3"),
+        ("date,A,B\n2024-01-02,1,2\n\n2024-01-03,1,2\n", {}, r"t\.csv, line 3: 1 field where the header has 3 \(an empty line\)"),
+        (
+            "date,series,value\n2024-01-02,A,1\n2024-01-03,A\n", {"layout": "long"},
+            r"t\.csv, line 3: 2 fields where the header has 3",
+        ),
+        # a quoted field may hold the delimiter and a line break: line 4 is the short row
+        ('date,A,"B,C"\n2024-01-02,1,"2"\n2024-01-03,"x\ny",2\n2024-01-04,1\n', {}, r"t\.csv, line 5: 2 fields where the header has 3"),
+    ],
+)
+def test_row_with_wrong_number_of_fields_is_an_error(tmp_path: Path, text: str, kw: dict, pattern: str) -> None:
+    with pytest.raises(DataError, match=pattern) as info:
+        read(tmp_path / "t.csv", text, **kw)
+    assert "\n" not in str(info.value)
+    assert "fix the row or remove it" in str(info.value)
+
+
+def test_quoted_headers_and_cells_follow_csv_quoting(tmp_path: Path) -> None:
+    text = 'date,"e""f","g,h"\n2024-01-02,"1.5",2\n"2024-01-03",3,"4"\n'
+    got = read(tmp_path / "q.csv", text)
+    assert got.equals(
+        pl.DataFrame(
+            {
+                "series": ['e"f', 'e"f', "g,h", "g,h"],
+                "date": [date(2024, 1, 2), date(2024, 1, 3)] * 2,
+                "value": [1.5, 3.0, 2.0, 4.0],
+            }
+        )
+    )
+
+
+# --------------------------------------------------------------------------------------------
+# duckdb_sql: the query only reads (one SELECT on a read-only, locked-down connection)
+# --------------------------------------------------------------------------------------------
+
+
+def _source_db(tmp_path: Path) -> Path:
+    db = tmp_path / "other.duckdb"
+    con = duckdb.connect(str(db))
+    con.execute("CREATE TABLE px (d DATE, name VARCHAR, v DOUBLE)")
+    con.execute("INSERT INTO px VALUES ('2024-01-02','A',100), ('2024-01-03','A',101.5), ('2024-01-04','A',102), ('2024-01-02','B',50), ('2024-01-04','B',51)")
+    con.close()
+    return db
+
+
+def _db_state(db: Path) -> tuple[bytes, list[tuple]]:
+    con = duckdb.connect(str(db), read_only=True)
+    try:
+        tables = con.execute("SELECT database_name, table_name FROM duckdb_tables() ORDER BY ALL").fetchall()
+        rows = con.execute("SELECT * FROM px ORDER BY ALL").fetchall()
+    finally:
+        con.close()
+    return db.read_bytes(), [*tables, *rows]
+
+
+_SELECT = "SELECT d AS date, name AS series, v AS value FROM px"
+
+
+@pytest.mark.parametrize(
+    "attack",
+    [
+        "ATTACH '{dir}/new.duckdb' AS w",
+        "DETACH src",
+        "DROP TABLE px",
+        "COPY px TO '{dir}/stolen.csv'",
+        "SET enable_external_access = true",
+        "INSERT INTO px VALUES ('2024-01-05', 'A', 1)",
+        _SELECT + "; DROP TABLE px",
+        _SELECT + "; COPY px TO '{dir}/stolen.csv'",
+        "ATTACH '{dir}/new.duckdb' AS w; " + _SELECT,
+    ],
+)
+def test_duckdb_sql_query_that_writes_is_refused(tmp_path: Path, attack: str) -> None:
+    db = _source_db(tmp_path)
+    before = _db_state(db)
+    query = attack.format(dir=tmp_path)
+    src = SourceConfig(name="q", kind="duckdb_sql", database=db, layout="long", query=query)
+    with pytest.raises(SourceError, match=r"query of source 'q' on .*other\.duckdb refused: .* must be one SELECT statement") as info:
+        read_source(src, today=TODAY)
+    assert "\n" not in str(info.value)
+    assert _db_state(db) == before
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["other.duckdb"]
+
+
+@pytest.mark.parametrize(
+    "query",
+    [
+        "SELECT * FROM read_csv('{dir}/other.csv')",  # another file: needs external_access
+        "SELECT * FROM (SELECT 1) WHERE 1 = (SELECT count(*) FROM read_text('/etc/hostname'))",
+    ],
+)
+def test_duckdb_sql_select_cannot_reach_other_files(tmp_path: Path, query: str) -> None:
+    db = _source_db(tmp_path)
+    (tmp_path / "other.csv").write_text("date,series,value\n2024-01-02,A,1\n")
+    src = SourceConfig(name="q", kind="duckdb_sql", database=db, layout="long", query=query.format(dir=tmp_path))
+    with pytest.raises(SourceError, match=r"failed: Permission Error: .*unless the source sets `external_access = true`"):
+        read_source(src, today=TODAY)
+    # the explicit opt-in lets the query read the file (the database stays read-only)
+    allowed = dataclasses.replace(src, query=f"SELECT * FROM read_csv('{tmp_path}/other.csv')", external_access=True)
+    assert read_source(allowed, today=TODAY).frame["value"].to_list() == [1.0]
+    writes = dataclasses.replace(allowed, query="DROP TABLE px")
+    with pytest.raises(SourceError, match="must be one SELECT statement"):
+        read_source(writes, today=TODAY)
+
+
+@pytest.mark.parametrize("query", [";", "  ", "-- nothing\n;"])
+def test_duckdb_sql_empty_query_is_a_one_line_error(tmp_path: Path, query: str) -> None:
+    src = SourceConfig(name="q", kind="duckdb_sql", database=_source_db(tmp_path), layout="long", query=query)
+    with pytest.raises(SourceError, match=r"^source 'q': `query` is empty .*; write one SELECT statement$") as info:
+        read_source(src, today=TODAY)
+    assert "\n" not in str(info.value)
+
+
+def test_check_refuses_a_writing_query_and_the_config_key_opts_in(tmp_path: Path) -> None:
+    from pipeline.config import load_config
+    from tests.bad_inputs.night import invoke
+
+    db = _source_db(tmp_path)
+    before = _db_state(db)
+    config = tmp_path / "c.toml"
+    body = (
+        '[warehouse]\npath = "wh.duckdb"\nsnapshot = "serving.duckdb"\n\n'
+        '[[sources]]\nname = "q"\nkind = "duckdb_sql"\ndatabase = "other.duckdb"\n{extra}'
+        "query = \"COPY px TO '{dir}/stolen.csv'\"\n\n"
+        '[[universes]]\nname = "u"\nseries = ["A", "B"]\nwindow = 30\nlags = 1\nhorizon = 2\n'
+        "\n[export]\nformats = []\n"
+    )
+    config.write_text(body.format(extra="", dir=tmp_path), encoding="utf-8")
+    result = invoke("check", "--config", str(config))
+    assert result.exit_code != 0
+    assert any("must be one SELECT statement" in ln for ln in result.lines("error:")), result.stderr
+    assert not (tmp_path / "stolen.csv").exists()
+    assert _db_state(db) == before
+    config.write_text(body.format(extra="external_access = true\n", dir=tmp_path), encoding="utf-8")
+    assert load_config(config).sources[0].external_access is True
