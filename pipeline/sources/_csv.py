@@ -38,7 +38,7 @@ def resolve_glob(source: SourceConfig) -> list[str]:
 
 #: Bytes of a CSV file parsed at a time: peak memory is the file's validated long rows plus a
 #: few times this, whatever the file's size.
-CHUNK_BYTES = 8 * 2**20
+CHUNK_BYTES = 4 * 2**20
 
 _BOM = b"\xef\xbb\xbf"
 _NL, _CR, _QUOTE = 10, 13, 34

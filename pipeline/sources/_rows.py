@@ -33,8 +33,9 @@ if TYPE_CHECKING:
 
 __all__ = ["LONG_SCHEMA", "MAX_ABS_VALUE", "MISSING_MARKERS", "LongRows", "from_table"]
 
-#: The long frame every adapter returns.
-LONG_SCHEMA = {"series": pl.String, "date": pl.Date, "value": pl.Float64}
+#: The long frame every adapter returns. Series names are Categorical: a name is stored once, and
+#: each row holds a 4-byte code (a large wide file's rows would otherwise repeat the name per cell).
+LONG_SCHEMA = {"series": pl.Categorical, "date": pl.Date, "value": pl.Float64}
 
 #: Values whose magnitude reaches this are refused as overflow or fill-in markers (e.g. 1e308).
 #: Real price and macro levels stay far below (a 25-trillion GDP is 2.5e13).
@@ -310,9 +311,9 @@ class LongRows:
             lines=lines, others=self.rows > 0,
         )  # fmt: skip
         values = _parse_values(df[src.value_column], origin=origin, series=series, lines=lines)
-        long = pl.DataFrame({"date": dates, "series": series, "value": values})
+        long = pl.DataFrame({"date": dates, "series": series.cast(pl.Categorical), "value": values})
         if lines is not None:
-            long = long.with_columns(lines.alias("_line"))
+            long = long.with_columns(lines.cast(pl.Int32).alias("_line"))
         present = long.group_by("series").agg(pl.col("value").is_not_null().any().alias("any"))
         self.named.update(present["series"].to_list())
         self.with_values.update(present.filter(pl.col("any"))["series"].to_list())
@@ -429,5 +430,5 @@ def _finish(
             )
             raise DataError(msg)
         long = long.unique(subset=["series", "date"], keep="first", maintain_order=True)
-    out = long.select(pl.col("series").cast(pl.String), pl.col("date").cast(pl.Date), pl.col("value").cast(pl.Float64))
+    out = long.select(pl.col("series").cast(pl.Categorical), pl.col("date").cast(pl.Date), pl.col("value").cast(pl.Float64))
     return out if presorted else out.sort("series", "date")

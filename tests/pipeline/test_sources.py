@@ -48,7 +48,8 @@ def test_csv_wide_and_long_give_the_same_rows(tmp_path: Path) -> None:
     long = read(tmp_path / "l.csv", LONG, layout="long")
     assert wide.equals(EXPECTED)
     assert long.equals(EXPECTED)
-    assert wide.schema == {"series": pl.String, "date": pl.Date, "value": pl.Float64}
+    assert wide.schema == long.schema
+    assert [wide.schema[c] for c in ("series", "date", "value")] == [pl.Categorical, pl.Date, pl.Float64]
 
 
 def test_csv_glob_combines_files_and_sorts(tmp_path: Path) -> None:
