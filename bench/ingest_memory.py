@@ -46,7 +46,6 @@ import duckdb, polars as pl
 from datetime import date
 from pipeline import jobs
 from pipeline.config import SourceConfig
-from pipeline.sources._csv import parse_csv_stream
 
 def peak():
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024  # kB on Linux
@@ -58,6 +57,7 @@ rows = 0
 if mode == "polars":
     rows = pl.read_csv(file).height
 elif mode == "one_chunk":
+    from pipeline.sources._csv import parse_csv_stream
     with open(file, "rb") as stream:
         size = Path(file).stat().st_size
         rows = parse_csv_stream(stream, origin=file, source=source, today=date.today(), chunk_bytes=size + 1).height

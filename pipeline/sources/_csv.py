@@ -87,8 +87,6 @@ class _Records:
         block = self.stream.read(self.size)
         if not block:
             self.eof = True
-        elif self.offset == 0 and not self.buf and block.startswith(_BOM):
-            self.buf, self.offset = block[len(_BOM) :], len(_BOM)
         else:
             self.buf += block
 
@@ -128,8 +126,11 @@ class _Records:
 
     def header(self) -> list[str]:
         """Column names of the first record, unquoted by CSV rules."""
-        self._fill()
-        if self.eof or (not self.buf.strip() and self._at_end()):
+        while not self.eof and len(self.buf) < len(_BOM):
+            self._fill()
+        if self.buf.startswith(_BOM):
+            self.buf, self.offset = self.buf[len(_BOM) :], len(_BOM)
+        if not self.buf.strip() and self._at_end():
             msg = f"{self.origin}: the file is empty; check the export that wrote it"
             raise SourceError(msg)
         body = self._take(first=True) or b""

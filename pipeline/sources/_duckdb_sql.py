@@ -19,7 +19,7 @@ import polars as pl
 
 from pipeline.errors import SourceError
 from pipeline.sources._frame import SourceFrame
-from pipeline.sources._rows import from_table
+from pipeline.sources._rows import CHUNK_CELLS, LongRows
 
 if TYPE_CHECKING:
     from pipeline.config import SourceConfig
@@ -75,9 +75,18 @@ def read_duckdb_sql(source: SourceConfig, *, today: date) -> SourceFrame:
         text = " ".join(str(exc).split())[:400]
         msg = f"source {source.name!r}: database {str(source.database)!r} cannot be opened read-only: {text}"
         raise SourceError(msg) from None
+    where = f"{origin} (row numbers from 1)"
+    rows = LongRows(origin=where, source=source, today=today)
     try:
         _one_select(con, source, origin)
-        table = con.sql(source.query).to_arrow_table()
+        relation = con.sql(source.query)
+        rows.check_header(relation.columns)
+        step = max(CHUNK_CELLS // max(len(relation.columns), 1), 1)
+        reader = relation.to_arrow_reader(step)
+        for batch in reader:  # one slice of the result at a time
+            part = pl.from_arrow(batch)
+            assert isinstance(part, pl.DataFrame)
+            rows.add(part, lines=pl.Series("line", range(rows.rows + 1, rows.rows + 1 + part.height)))
     except duckdb.Error as exc:
         text = " ".join(str(exc).split())[:400]
         hint = (
@@ -88,7 +97,7 @@ def read_duckdb_sql(source: SourceConfig, *, today: date) -> SourceFrame:
         raise SourceError(msg) from None
     finally:
         con.close()
-    df = pl.from_arrow(table)
-    assert isinstance(df, pl.DataFrame)
-    frame = from_table(df, origin=f"{origin} (row numbers from 1)", source=source, today=today, first_line=1)
-    return SourceFrame(source=source.name, frame=frame, origins=(origin,))
+    if rows.rows == 0:
+        msg = f"{where}: has a header but no data rows; check the export that wrote it"
+        raise SourceError(msg)
+    return SourceFrame(source=source.name, frame=rows.finish(), origins=(origin,))

@@ -31,7 +31,7 @@ from pipeline.errors import DataError, SourceError
 if TYPE_CHECKING:
     from pipeline.config import SourceConfig
 
-__all__ = ["LONG_SCHEMA", "MAX_ABS_VALUE", "MISSING_MARKERS", "LongRows", "from_table"]
+__all__ = ["CHUNK_CELLS", "LONG_SCHEMA", "MAX_ABS_VALUE", "MISSING_MARKERS", "LongRows", "from_table"]
 
 #: The long frame every adapter returns. Series names are Categorical: a name is stored once, and
 #: each row holds a 4-byte code (a large wide file's rows would otherwise repeat the name per cell).
@@ -40,6 +40,9 @@ LONG_SCHEMA = {"series": pl.Categorical, "date": pl.Date, "value": pl.Float64}
 #: Values whose magnitude reaches this are refused as overflow or fill-in markers (e.g. 1e308).
 #: Real price and macro levels stay far below (a 25-trillion GDP is 2.5e13).
 MAX_ABS_VALUE = 1e15
+
+#: Cells per part when a source that is not CSV (Parquet, a query result) is read in slices.
+CHUNK_CELLS = 500_000
 
 MISSING_MARKERS = ("", "NA", "N/A", "#N/A", "NaN", "nan", "NAN", "null", "NULL", "None", ".", "-")
 
