@@ -291,7 +291,7 @@ def _arrow_stream(frame: pl.DataFrame, rows: int = 1 << 20) -> pa.RecordBatchRea
 
     def batches() -> Iterator[pa.RecordBatch]:
         for part in frame.iter_slices(rows):
-            yield from part.to_arrow().cast(schema).to_batches()
+            yield from part.rechunk().to_arrow().cast(schema).to_batches()  # one batch per slice
 
     return pa.RecordBatchReader.from_batches(schema, batches())
 
