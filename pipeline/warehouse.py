@@ -230,6 +230,34 @@ def finish_batch(
         raise from_duckdb(exc, path=path, action="closing an ingest batch") from None
 
 
+def _arrow_stream(frame: pl.DataFrame, rows: int = 1 << 20) -> pa.RecordBatchReader:
+    """`frame` as Arrow batches made one slice at a time (DuckDB reads it once, streaming)."""
+    schema = frame.head(0).to_arrow().schema
+
+    def batches() -> Iterator[pa.RecordBatch]:
+        for part in frame.iter_slices(rows):
+            yield from part.rechunk().to_arrow().cast(schema).to_batches()  # one batch per slice
+
+    return pa.RecordBatchReader.from_batches(schema, batches())
+
+
+#: DuckDB's memory limit while observations are merged: the join and inserts spill to the
+#: warehouse's temp folder beyond it, so a large source costs a fixed amount of memory here.
+UPSERT_MEMORY_LIMIT = "128MB"
+
+
+@contextmanager
+def _memory_limit(con: duckdb.DuckDBPyConnection, limit: str) -> Iterator[None]:
+    """Run the block under DuckDB `memory_limit` = `limit`, then restore the previous limit."""
+    row = con.execute("SELECT current_setting('memory_limit')").fetchone()
+    con.execute(f"SET memory_limit = '{limit}'")
+    try:
+        yield
+    finally:
+        if row is not None:
+            con.execute(f"SET memory_limit = '{row[0]}'")
+
+
 def upsert_observations(
     con: duckdb.DuckDBPyConnection,
     frame: pl.DataFrame,
@@ -242,11 +270,12 @@ def upsert_observations(
 
     New (series, date) pairs are inserted; a stored pair whose value differs is updated and the
     change logged in `revisions` (old and new value, batch); equal values are left untouched, so a
-    rerun writes nothing. Stored rows absent from `frame` are kept (ingest never deletes).
+    rerun writes nothing. Stored rows absent from `frame` are kept (ingest never deletes). DuckDB runs
+    the merge under `UPSERT_MEMORY_LIMIT` (spilling beyond it), so memory stays bounded for large sources.
     """
-    table = frame.select("series", "date", "value").to_arrow()
+    table = _arrow_stream(frame.select("series", "date", "value"))
     view = f"_incoming_{uuid.uuid4().hex[:8]}"
-    with transaction(con, path=path, action=f"storing observations of source {source!r}"):
+    with _memory_limit(con, UPSERT_MEMORY_LIMIT), transaction(con, path=path, action=f"storing observations of source {source!r}"):
         con.register(view, table)
         try:
             empty = not con.execute("SELECT EXISTS (SELECT 1 FROM observations)").fetchall()[0][0]

@@ -48,7 +48,11 @@ class SourceConfig:
         None, doc="`csv`/`parquet`: a file or glob (`data/*.csv`, `**` allowed); all matching files are combined"
     )
     url: str | None = setting(None, doc="`http_csv`: an `http://` or `https://` address")
-    query: str | None = setting(None, doc="`duckdb_sql`: a SQL query run read-only against the DuckDB file `database`")
+    query: str | None = setting(
+        None,
+        doc="`duckdb_sql`: one SELECT statement run against the DuckDB file `database`, attached "
+        "read-only on a locked-down connection (no ATTACH, DETACH, DROP, COPY, SET; no other files)",
+    )  # fmt: skip
     database: Path | None = setting(None, doc="`duckdb_sql`: the DuckDB file the query reads")
     dataset: str | None = setting(None, doc="`demo`: {choices} (the files in `data_samples/`)")
     layout: str = setting(
@@ -66,6 +70,11 @@ class SourceConfig:
         doc="`http_csv`: extra attempts after a timeout, a dropped or truncated body, or HTTP 408/425/429/5xx",
     )  # fmt: skip
     backoff: float = setting(1.0, doc="`http_csv`: attempt k (0-based) that fails waits `backoff · 2^k` seconds", check=_seconds)
+    external_access: bool = setting(
+        False,
+        doc="`duckdb_sql`: let the query read files or URLs besides `database` (the database stays "
+        "read-only and the query one SELECT)",
+    )  # fmt: skip
 
     @property
     def where(self) -> str:

@@ -13,9 +13,9 @@ __all__ = ["SourceFrame"]
 class SourceFrame:
     """Validated long rows of one source.
 
-    `frame` has columns series (str), date (Date), value (Float64), one row per series × date,
-    sorted; `origins` names the files / URL / query read; `rows_read` counts long rows before
-    missing values were dropped is not tracked — it is the number of rows returned.
+    `frame` has columns series (Categorical: each name stored once), date (Date), value (Float64),
+    one row per series × date, sorted by series and date; `origins` names the files / URL / query
+    read; `rows` is the number of rows returned (missing values are not counted).
     """
 
     source: str

@@ -19,6 +19,7 @@ values for the same series and date, a series column with no values at all.
 
 from __future__ import annotations
 
+import itertools
 import re
 from datetime import date
 from typing import TYPE_CHECKING
@@ -30,14 +31,18 @@ from pipeline.errors import DataError, SourceError
 if TYPE_CHECKING:
     from pipeline.sources._config import SourceConfig
 
-__all__ = ["LONG_SCHEMA", "MAX_ABS_VALUE", "MISSING_MARKERS", "from_long", "from_table", "from_wide"]
+__all__ = ["CHUNK_CELLS", "LONG_SCHEMA", "MAX_ABS_VALUE", "MISSING_MARKERS", "LongRows", "from_table"]
 
-#: The long frame every adapter returns.
-LONG_SCHEMA = {"series": pl.String, "date": pl.Date, "value": pl.Float64}
+#: The long frame every adapter returns. Series names are Categorical: a name is stored once, and
+#: each row holds a 4-byte code (a large wide file's rows would otherwise repeat the name per cell).
+LONG_SCHEMA = {"series": pl.Categorical, "date": pl.Date, "value": pl.Float64}
 
 #: Values whose magnitude reaches this are refused as overflow or fill-in markers (e.g. 1e308).
 #: Real price and macro levels stay far below (a 25-trillion GDP is 2.5e13).
 MAX_ABS_VALUE = 1e15
+
+#: Cells per part when a source that is not CSV (Parquet, a query result) is read in slices.
+CHUNK_CELLS = 500_000
 
 MISSING_MARKERS = ("", "NA", "N/A", "#N/A", "NaN", "nan", "NAN", "null", "NULL", "None", ".", "-")
 
@@ -54,9 +59,12 @@ def _line(lines: pl.Series | None, index: int) -> int | None:
 
 
 def _parse_dates(
-    raw: pl.Series, *, origin: str, column: str, date_format: str, lines: pl.Series | None
+    raw: pl.Series, *, origin: str, column: str, date_format: str, lines: pl.Series | None, others: bool = False
 ) -> pl.Series:
-    """Dates from a column of any type; errors name the first bad row."""
+    """Dates from a column of any type; errors name the first bad row.
+
+    others: dates of earlier parts of the same file parsed (a later mismatch is a mixed format).
+    """
     dtype = raw.dtype
     if dtype == pl.Date:
         out = raw
@@ -96,7 +104,7 @@ def _parse_dates(
                     f"{where}: date {value!r} has a time of day; write plain dates in the format "
                     f"{date_format!r} (or set date_format to match, e.g. '%Y-%m-%d %H:%M:%S')"
                 )
-            elif out.is_not_null().any():
+            elif others or out.is_not_null().any():
                 msg = (
                     f"{where}: date {value!r} does not match date_format {date_format!r} that other "
                     "rows use (mixed date formats); write every date the same way"
@@ -183,7 +191,7 @@ def _require_columns(df: pl.DataFrame, names: list[str], *, origin: str, source:
         raise SourceError(msg)
 
 
-def _values_frame(vals: pl.DataFrame, *, origin: str, lines: pl.Series | None) -> pl.DataFrame:
+def _values_frame(vals: pl.DataFrame, *, origin: str, lines: pl.Series | None, whole: bool = True) -> pl.DataFrame:
     """All value columns of a wide table → Float64 in one pass; errors name the first bad cell."""
     markers = list(MISSING_MARKERS)
     exprs = []
@@ -211,78 +219,181 @@ def _values_frame(vals: pl.DataFrame, *, origin: str, lines: pl.Series | None) -
     if huge:
         for n in floats.columns:
             _parse_values(floats[n], origin=origin, series=n, lines=lines)  # raises with line and value
-    counts = floats.null_count().row(0, named=True)
-    for n, missing in counts.items():
-        if missing == floats.height:
-            msg = f"{origin}: column {n!r} has no values (all missing); remove the column or fill it"
-            raise DataError(msg)
+    if whole:
+        counts = floats.null_count().row(0, named=True)
+        for n, missing in counts.items():
+            if missing == floats.height:
+                _no_values(origin, n)
     return floats
 
 
-def from_wide(
-    df: pl.DataFrame, *, origin: str, source: SourceConfig, today: date, first_line: int | None = 2
-) -> pl.DataFrame:
-    """Wide table (a date column + one column per series) → validated long rows."""
-    df = df.rename({c: c.strip() for c in df.columns})
-    _require_columns(df, [source.date_column], origin=origin, source=source)
-    value_columns = [c for c in df.columns if c != source.date_column]
-    if not value_columns:
-        msg = f"{origin}: only the date column {source.date_column!r} is present; add one column per series"
-        raise SourceError(msg)
-    lines = pl.Series("line", range(first_line, first_line + df.height)) if first_line is not None else None
-    dates = _parse_dates(
-        df[source.date_column], origin=origin, column=source.date_column, date_format=source.date_format, lines=lines
-    )
-    floats = _values_frame(df.select(value_columns), origin=origin, lines=lines)
-    wide = floats.with_columns(dates.alias("date"))
-    if lines is not None:
-        wide = wide.with_columns(lines.alias("_line"))
-    repeated = bool(dates.is_duplicated().any())
-    wide = wide.sort("date")
-    index = ["date", *(["_line"] if lines is not None else [])]
-    long = wide.unpivot(on=value_columns, index=index, variable_name="series", value_name="value").drop_nulls("value")
-    # one column per series: duplicates can only come from a repeated date
-    return _finish(long, origin=origin, today=today, check_duplicates=repeated, presorted=True)
+def _no_values(origin: str, column: str) -> None:
+    msg = f"{origin}: column {column!r} has no values (all missing); remove the column or fill it"
+    raise DataError(msg)
 
 
-def from_long(
-    df: pl.DataFrame, *, origin: str, source: SourceConfig, today: date, first_line: int | None = 2
-) -> pl.DataFrame:
-    """Long table (date, series, value columns) → validated long rows."""
-    df = df.rename({c: c.strip() for c in df.columns})
-    _require_columns(df, [source.date_column, source.series_column, source.value_column], origin=origin, source=source)
-    lines = pl.Series("line", range(first_line, first_line + df.height)) if first_line is not None else None
-    series = df[source.series_column].cast(pl.String).str.strip_chars()
-    empty = series.is_null() | (series == "")
-    if empty.any():
-        i = int(empty.arg_max())  # type: ignore[arg-type]
-        msg = f"{_where(origin, _line(lines, i))}: the series name in column {source.series_column!r} is empty; name every row's series"
-        raise DataError(msg)
-    dates = _parse_dates(
-        df[source.date_column], origin=origin, column=source.date_column, date_format=source.date_format, lines=lines
-    )
-    values = _parse_values(df[source.value_column], origin=origin, series=series, lines=lines)
-    long = pl.DataFrame({"date": dates, "series": series, "value": values})
-    if lines is not None:
-        long = long.with_columns(lines.alias("_line"))
-    all_missing = long.group_by("series").agg(pl.col("value").is_not_null().any().alias("any"))
-    if not all_missing["any"].all():
-        name = all_missing.filter(~pl.col("any"))["series"].sort()[0]
-        msg = f"{origin}: series {name!r} has no values (all missing); remove its rows or fill them"
-        raise DataError(msg)
-    long = long.drop_nulls("value")
-    return _finish(long, origin=origin, today=today)
+class LongRows:
+    """Validated long rows of one table that arrives in parts (chunks of a file, in file order).
+
+    `add` checks one part — dates, values, future dates and duplicates inside the part — and keeps
+    its long rows; `finish` runs the checks that need the whole table (a column or series without
+    any value, a series and date repeated in two parts) and returns the rows sorted by series and
+    date. A large file is thus never held whole, only its validated long rows. `from_table` is the
+    one-part case, so every source obeys the same checks and messages.
+    """
+
+    def __init__(self, *, origin: str, source: SourceConfig, today: date) -> None:
+        self.origin, self.source, self.today = origin, source, today
+        self.wide = source.layout == "wide"
+        self.columns: list[str] | None = None  # stripped header
+        self.parts: list[pl.DataFrame] = []  # wide: validated long rows; long: checked rows with _line
+        self.keys: list[pl.DataFrame] = []  # wide: each part's (date, _line), for repeats across parts
+        self.named: set[str] = set()  # long: every series name seen
+        self.with_values: set[str] = set()  # columns (wide) / series (long) with at least one value
+        self.rows = 0  # input rows added
+
+    def check_header(self, columns: list[str]) -> None:
+        """The required columns are present (before any row is read)."""
+        names = [c.strip() for c in columns]
+        seen: set[str] = set()
+        for name in names:
+            if name in seen:
+                msg = f"{self.origin}: column {name!r} appears twice in the header; give every column its own name"
+                raise SourceError(msg)
+            seen.add(name)
+        src = self.source
+        required = [src.date_column] if self.wide else [src.date_column, src.series_column, src.value_column]
+        _require_columns(pl.DataFrame(schema=dict.fromkeys(names, pl.String)), required, origin=self.origin, source=src)
+        if self.wide and len(names) < 2:
+            msg = f"{self.origin}: only the date column {src.date_column!r} is present; add one column per series"
+            raise SourceError(msg)
+        self.columns = names
+
+    def add(self, df: pl.DataFrame, *, lines: pl.Series | None) -> None:
+        """Check one part; `lines` numbers its rows in the file (None: no line numbers)."""
+        if self.columns is None:
+            self.check_header(df.columns)
+        df = df.rename({c: c.strip() for c in df.columns})
+        if df.height == 0:
+            return
+        (self._add_wide if self.wide else self._add_long)(df, lines)
+        self.rows += df.height
+
+    def _add_wide(self, df: pl.DataFrame, lines: pl.Series | None) -> None:
+        src = self.source
+        value_columns = [c for c in df.columns if c != src.date_column]
+        dates = _parse_dates(
+            df[src.date_column], origin=self.origin, column=src.date_column, date_format=src.date_format,
+            lines=lines, others=self.rows > 0,
+        )  # fmt: skip
+        floats = _values_frame(df.select(value_columns), origin=self.origin, lines=lines, whole=False)
+        missing = floats.null_count().row(0, named=True)
+        self.with_values.update(n for n, m in missing.items() if m < floats.height)
+        wide = floats.with_columns(dates.alias("date"))
+        if lines is not None:
+            wide = wide.with_columns(lines.alias("_line"))
+        repeated = bool(dates.is_duplicated().any())
+        wide = wide.sort("date")
+        index = ["date", *(["_line"] if lines is not None else [])]
+        long = wide.unpivot(on=value_columns, index=index, variable_name="series", value_name="value").drop_nulls("value")
+        del wide, floats
+        # one column per series: duplicates inside the part can only come from a repeated date
+        self.parts.append(_finish(long, origin=self.origin, today=self.today, check_duplicates=repeated, presorted=True))
+        self.keys.append(pl.DataFrame({"date": dates, "_line": lines if lines is not None else pl.Series([None] * len(dates), dtype=pl.Int64)}))
+
+    def _add_long(self, df: pl.DataFrame, lines: pl.Series | None) -> None:
+        src, origin = self.source, self.origin
+        series = df[src.series_column].cast(pl.String).str.strip_chars()
+        empty = series.is_null() | (series == "")
+        if empty.any():
+            i = int(empty.arg_max())  # type: ignore[arg-type]
+            msg = f"{_where(origin, _line(lines, i))}: the series name in column {src.series_column!r} is empty; name every row's series"
+            raise DataError(msg)
+        dates = _parse_dates(
+            df[src.date_column], origin=origin, column=src.date_column, date_format=src.date_format,
+            lines=lines, others=self.rows > 0,
+        )  # fmt: skip
+        values = _parse_values(df[src.value_column], origin=origin, series=series, lines=lines)
+        long = pl.DataFrame({"date": dates, "series": series.cast(pl.Categorical), "value": values})
+        if lines is not None:
+            long = long.with_columns(lines.cast(pl.Int32).alias("_line"))
+        present = long.group_by("series").agg(pl.col("value").is_not_null().any().alias("any"))
+        self.named.update(present["series"].to_list())
+        self.with_values.update(present.filter(pl.col("any"))["series"].to_list())
+        self.parts.append(long.drop_nulls("value"))
+
+    def finish(self) -> pl.DataFrame:
+        """The whole table's checks; long rows (series, date, value) sorted by series and date."""
+        origin = self.origin
+        if not self.wide:
+            if self.named - self.with_values:
+                name = sorted(self.named - self.with_values)[0]
+                msg = f"{origin}: series {name!r} has no values (all missing); remove its rows or fill them"
+                raise DataError(msg)
+            long = self.parts[0] if len(self.parts) == 1 else pl.concat(self.parts)
+            self.parts.clear()
+            return _finish(long, origin=origin, today=self.today)
+        assert self.columns is not None
+        for name in self.columns:
+            if name != self.source.date_column and name not in self.with_values:
+                _no_values(origin, name)
+        parts, self.parts = self.parts, []
+        if len(parts) > 1:
+            parts = self._merge_repeated_dates(parts)
+        return _series_major(parts)
+
+    def _merge_repeated_dates(self, parts: list[pl.DataFrame]) -> list[pl.DataFrame]:
+        """A date in two parts: its rows are checked together (conflicts named with both lines)."""
+        keys = pl.concat([k.with_columns(pl.lit(i, pl.UInt32).alias("_part")) for i, k in enumerate(self.keys)])
+        counts = keys.group_by("date").agg(pl.col("_part").n_unique().alias("parts"))
+        repeated = counts.filter(pl.col("parts") > 1)["date"]
+        if repeated.is_empty():
+            return parts
+        candidates = []
+        for i, part in enumerate(parts):
+            hit = pl.col("date").is_in(repeated.implode())
+            first_line = self.keys[i].filter(hit).unique("date", keep="first", maintain_order=True)
+            candidates.append(part.filter(hit).join(first_line, on="date", how="left"))
+            parts[i] = part.filter(~hit)
+        merged = _finish(pl.concat(candidates), origin=self.origin, today=self.today)
+        return [*parts, merged]
+
+
+def _series_major(parts: list[pl.DataFrame]) -> pl.DataFrame:
+    """Parts whose rows are grouped by series (dates ascending in each) → one frame sorted by series, date.
+
+    When the parts cover disjoint date ranges (any file sorted by date, either way), the result is
+    assembled from slices of the parts without copying them; otherwise it is sorted whole.
+    """
+    parts = [p for p in parts if p.height]
+    if not parts:
+        return pl.DataFrame(schema=LONG_SCHEMA)
+    spans = sorted((p["date"].min(), p["date"].max(), i) for i, p in enumerate(parts))  # type: ignore[type-var]
+    disjoint = all(a[1] < b[0] for a, b in itertools.pairwise(spans))
+    if not disjoint:
+        return pl.concat(parts).sort("series", "date")
+    slices: dict[str, list[pl.DataFrame]] = {}
+    for _, _, i in spans:
+        part = parts[i]
+        runs = part.group_by("series", maintain_order=True).len()
+        offset = 0
+        for name, n in runs.iter_rows():
+            slices.setdefault(name, []).append(part.slice(offset, n))
+            offset += n
+    return pl.concat([s for name in sorted(slices) for s in slices[name]], rechunk=False)
 
 
 def from_table(
     df: pl.DataFrame, *, origin: str, source: SourceConfig, today: date, first_line: int | None = 2
 ) -> pl.DataFrame:
-    """Dispatch on the source's layout."""
+    """A whole table (wide or long, per the source's layout) → validated long rows."""
     if df.height == 0:
         msg = f"{origin}: has a header but no data rows; check the export that wrote it"
         raise SourceError(msg)
-    reader = from_wide if source.layout == "wide" else from_long
-    return reader(df, origin=origin, source=source, today=today, first_line=first_line)
+    rows = LongRows(origin=origin, source=source, today=today)
+    lines = pl.Series("line", range(first_line, first_line + df.height)) if first_line is not None else None
+    rows.add(df, lines=lines)
+    return rows.finish()
 
 
 def _finish(
@@ -322,5 +433,5 @@ def _finish(
             )
             raise DataError(msg)
         long = long.unique(subset=["series", "date"], keep="first", maintain_order=True)
-    out = long.select(pl.col("series").cast(pl.String), pl.col("date").cast(pl.Date), pl.col("value").cast(pl.Float64))
+    out = long.select(pl.col("series").cast(pl.Categorical), pl.col("date").cast(pl.Date), pl.col("value").cast(pl.Float64))
     return out if presorted else out.sort("series", "date")

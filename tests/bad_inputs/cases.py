@@ -138,6 +138,22 @@ def future_date(night: Night) -> dict[str, Any]:
     return _write_rates(night, "".join([*lines, row]), line=len(lines) + 1, day=day, today=date.today())
 
 
+def truncated_last_line(night: Night) -> dict[str, Any]:
+    # the export was cut mid-write: the last line ends inside RT_X's value, no newline, no RT_Y
+    lines = _rates_lines()
+    last = lines[-1]
+    cut = last[: last.index(",") + 4]
+    return _write_rates(night, "".join([*lines[:-1], cut]), line=len(lines), text=cut)
+
+
+def short_row(night: Night) -> dict[str, Any]:
+    # line 50 lost its last field (and its separator) in the middle of the file
+    lines = _rates_lines()
+    cells = lines[49].rstrip("\n").split(",")
+    lines[49] = ",".join(cells[:-1]) + "\n"
+    return _write_rates(night, "".join(lines), line=50, text=",".join(cells[:-1]))
+
+
 def zero_price(night: Night) -> dict[str, Any]:
     lines = _rates_lines()
     return _write_rates(night, "".join(_set_cell(lines, len(lines), 1, "0")), day=_date_of(len(lines)))
@@ -201,6 +217,16 @@ FILE_CASES = [
     Case(
         "duplicate-date-conflict", duplicate_conflict, "source",
         r"{file}: series 'RT_Y' has 2 different values for {day} \(lines {first}, {second}\): .*123\.25.*; keep one row per series and date",
+    ),
+    Case(
+        "truncated-last-line", truncated_last_line, "source",
+        r"{file}, line {line}: 2 fields where the header has 3 \('{text}'\); the row is truncated or damaged — "
+        r"fix the row or remove it",
+    ),
+    Case(
+        "short-row", short_row, "source",
+        r"{file}, line {line}: 2 fields where the header has 3 \('{text}'\); the row is truncated or damaged — "
+        r"fix the row or remove it",
     ),
     Case("duplicate-date-same-value", duplicate_same_value, "accepted", "", check=check_duplicate_same),
     Case("unsorted-dates", unsorted, "accepted", "", check=check_unsorted),

@@ -68,6 +68,10 @@ def test_bad_file(night: Night, case: Case) -> None:
         assert_kept(before, after, untouched=["rates_pair"], grown=["stocks"])
         rt = after["observations"].filter(pl.col("source") == "rates")
         assert rt.equals(before["observations"].filter(pl.col("source") == "rates"))
+        # `check` reads the same file and refuses it with the same message
+        check = night.check()
+        assert check.exit_code != 0, check.stdout
+        assert f"error: {message}" in check.lines("error:"), check.stderr
     elif case.outcome == "universe":
         assert result.exit_code == 2, result.stderr
         assert rates_batch["status"] == "succeeded"
