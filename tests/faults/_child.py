@@ -84,7 +84,7 @@ def main(argv: list[str]) -> None:
     point, sep, *cli_args = argv
     assert sep == "--", "usage: python -m tests.faults._child POINT -- run --config FILE"
     arm(point)
-    from pipeline.cli import main as cli_main
+    from shockflow.cli import main as cli_main
 
     sys.argv = ["shockflow", *cli_args]
     cli_main()

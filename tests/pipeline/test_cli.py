@@ -16,7 +16,7 @@ import polars as pl
 import pytest
 from typer.testing import CliRunner
 
-from pipeline.cli import app
+from shockflow.cli import app
 from tests.pipeline.helpers import write_config
 
 CONFIG = """
@@ -154,7 +154,7 @@ def test_cli_check_names_missing_series_and_failed_source(tmp_path: Path) -> Non
 
 
 def test_prefect_environment_defaults_do_not_override() -> None:
-    from pipeline.cli import prefect_environment
+    from shockflow.cli import prefect_environment
 
     env = {"PREFECT_LOGGING_LEVEL": "DEBUG"}
     prefect_environment(env)
@@ -162,3 +162,51 @@ def test_prefect_environment_defaults_do_not_override() -> None:
     assert env["PREFECT_SERVER_ANALYTICS_ENABLED"] == "false"
     assert env["PREFECT_SERVER_EPHEMERAL_STARTUP_TIMEOUT_SECONDS"] == "120"
     assert env["DO_NOT_TRACK"] == "1"
+
+
+def _served_windows(tmp_path: Path) -> int:
+    con = duckdb.connect(str(tmp_path / "wh" / "macro-serving.duckdb"), read_only=True)
+    try:
+        return con.execute("SELECT count(*) FROM window_fits WHERE universe = 'us_real'").fetchall()[0][0]
+    finally:
+        con.close()
+
+
+@pytest.mark.prefect
+def test_a_window_larger_than_the_data_is_reported_and_never_wipes_stored_results(prefect_harness: None, tmp_path: Path) -> None:
+    """Issue 10 item 8: `check` reports it, `run` fails the universe (exit 2) and keeps serving the
+    previous results; only `--full` with the changed config replaces them by none, and says so."""
+    macro_csv(tmp_path / "macrodata.csv")
+    config = write_config(tmp_path, CONFIG)
+    runner = CliRunner()
+    first = runner.invoke(app, ["run", "--config", str(config)])
+    assert first.exit_code == 0, first.output
+    assert _served_windows(tmp_path) == 31
+
+    # 202 prepared rows (203 quarters → 202 log returns); a window of 500 cannot fit
+    write_config(tmp_path, CONFIG.replace("window = 80", "window = 500"))
+    checked = runner.invoke(app, ["check", "--config", str(config)])
+    flat = " ".join(checked.output.split())
+    assert checked.exit_code == 2, checked.output
+    assert "universe 'us_real': window = 500 is more than its 202 prepared row(s)" in flat
+    assert "config ok" not in flat
+
+    result = runner.invoke(app, ["run", "--config", str(config)])
+    flat = " ".join(result.output.split())
+    assert result.exit_code == 2, result.output
+    assert "universe us_real: failed" in flat
+    assert "failed: universe 'us_real': window = 500 is more than its 202 prepared row(s)" in flat
+    assert "its previous results stay served" in flat
+    assert _served_windows(tmp_path) == 31  # was 0: every stored window deleted, "succeeded"
+    con = duckdb.connect(str(tmp_path / "wh" / "macro.duckdb"), read_only=True)
+    try:
+        assert con.execute("SELECT count(*) FROM window_fits").fetchall() == [(31,)]
+    finally:
+        con.close()
+
+    # the user asks: --full with the changed config replaces them by none, and the summary says so
+    full = runner.invoke(app, ["run", "--config", str(config), "--full"])
+    flat = " ".join(full.output.split())
+    assert full.exit_code == 0, full.output
+    assert "--full with a changed config: every one of the 31 stored window(s) deleted as asked" in flat
+    assert _served_windows(tmp_path) == 0

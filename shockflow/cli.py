@@ -1,7 +1,12 @@
 """The `shockflow` command (typer): run, check, export, schedule, demo, dashboard.
 
-Exit codes: 0 everything ran; 2 partial (something failed, the rest ran); 1 nothing ran or a
-usage/config error. Errors print as one line; ``--debug`` adds the traceback.
+This package assembles the pipeline and the dashboard; neither of those imports the other (nor
+this). ``python -m shockflow`` is the same command.
+
+Exit codes (``EXIT_*`` below, documented in the README): 0 everything ran; 1 nothing ran, or a
+configuration / input error stopped the command; 2 partial (something failed, the rest ran);
+64 a command-line usage error (unknown option, missing value; sysexits' EX_USAGE); 130 interrupted
+(Ctrl+C); 143 terminated (SIGTERM). Errors print as one line; ``--debug`` adds the traceback.
 
 This is the entry point, the one place that reads the environment: it sets Prefect's settings for
 the project's own processes (analytics off, a longer start-up limit for Prefect's temporary
@@ -10,7 +15,10 @@ server, quiet logs) before Prefect is imported.
 
 from __future__ import annotations
 
+import json
 import os
+import re
+import signal
 import sys
 import time
 from collections.abc import Callable
@@ -21,7 +29,9 @@ import typer
 from rich.console import Console
 from rich.markup import escape
 from rich.table import Table
+from typer.core import TyperGroup
 
+import data_samples
 from dashboard import DashboardError  # the package import is light (no Dash, DuckDB)
 from pipeline.errors import ShockflowError
 
@@ -29,21 +39,77 @@ if TYPE_CHECKING:
     from pipeline.config import Config
     from pipeline.flows import NightlySummary
 
-__all__ = ["app", "main", "prefect_environment"]
+__all__ = [
+    "EXIT_INTERRUPTED",
+    "EXIT_NOTHING_RAN",
+    "EXIT_OK",
+    "EXIT_PARTIAL",
+    "EXIT_TERMINATED",
+    "EXIT_USAGE",
+    "app",
+    "demo_config",
+    "main",
+    "prefect_environment",
+]
+
+EXIT_OK = 0
+#: nothing ran, or a configuration / input error stopped the command
+EXIT_NOTHING_RAN = 1
+#: something failed, the rest ran (the summary names each failure)
+EXIT_PARTIAL = 2
+#: the command line itself is wrong (sysexits.h EX_USAGE); click's own default, 2, is "partial" here
+EXIT_USAGE = 64
+EXIT_INTERRUPTED = 130
+EXIT_TERMINATED = 143
 
 console = Console(stderr=True, highlight=False)
 out = Console(highlight=False)
 
+class Terminated(KeyboardInterrupt):
+    """Raised in the main thread by SIGTERM: the run stops as on Ctrl+C (Prefect's temporary server
+    is stopped at exit, see pipeline._tempserver) and the command exits 143."""
+
+
+def _on_sigterm(signum: int, frame: Any) -> None:
+    raise Terminated
+
+
+def _usage_exit_code(exc: Exception) -> None:
+    if any(c.__name__ == "UsageError" for c in type(exc).__mro__):
+        exc.exit_code = EXIT_USAGE  # type: ignore[attr-defined]  # click's ClickException attribute
+
+
+class _Group(TyperGroup):
+    """The command group: a command-line usage error exits EXIT_USAGE, not click's 2."""
+
+    def make_context(self, *args: Any, **kwargs: Any) -> Any:
+        try:
+            return super().make_context(*args, **kwargs)
+        except Exception as exc:
+            _usage_exit_code(exc)
+            raise
+
+    def invoke(self, ctx: Any) -> Any:
+        try:
+            return super().invoke(ctx)
+        except Exception as exc:
+            _usage_exit_code(exc)
+            raise
+
+
 app = typer.Typer(
+    cls=_Group,
     name="shockflow",
     help="Nightly rolling VARs, impulse responses, Granger tests, variance decompositions and "
     "connectedness over market universes. A research tool, not financial advice.",
     no_args_is_help=True,
     add_completion=False,
     pretty_exceptions_enable=False,
+    rich_markup_mode=None,  # plain help: brackets print as written, flags show no value, fits 80 columns
 )
 
-DEMO_CONFIG = Path(__file__).resolve().parents[1] / "data_samples" / "demo.toml"
+#: the demo's configuration, shipped as package data with the demo files (data_samples/)
+DEMO_CONFIG = data_samples.folder() / "demo.toml"
 
 #: Prefect settings for the project's own processes (existing values win).
 PREFECT_DEFAULTS = {
@@ -64,8 +130,24 @@ def prefect_environment(environ: dict[str, str] | os._Environ[str] = os.environ,
         environ.setdefault(key, value)
 
 
-ConfigOpt = Annotated[Path, typer.Option("--config", "-c", help="The TOML configuration file.")]
+ConfigOpt = Annotated[Path, typer.Option("--config", "-c", metavar="FILE", help="The TOML configuration file.")]
 DebugOpt = Annotated[bool, typer.Option("--debug", help="Show full tracebacks on errors.")]
+HostOpt = Annotated[
+    str | None,
+    typer.Option(
+        "--host", metavar="ADDRESS",
+        help="Address to listen on (default: [dashboard] host, else 127.0.0.1). Any other than "
+        "loopback needs an access token or credentials.",
+    ),
+]
+PortOpt = Annotated[
+    int | None,
+    typer.Option("--port", metavar="PORT", help="Port to listen on (default: [dashboard] port, else 8050)."),
+]
+UniverseOpt = Annotated[
+    list[str] | None,
+    typer.Option("--universe", "-u", metavar="NAME", help="Only this universe (repeatable)."),
+]
 
 
 def _fail(exc: BaseException, debug: bool) -> typer.Exit:
@@ -81,9 +163,12 @@ def _guard(debug: bool, fn: Callable[[], int]) -> None:
         code = fn()
     except typer.Exit:
         raise
+    except Terminated:
+        console.print("[yellow]terminated (SIGTERM)[/]")
+        raise typer.Exit(EXIT_TERMINATED) from None
     except KeyboardInterrupt:
         console.print("[yellow]interrupted[/]")
-        raise typer.Exit(130) from None
+        raise typer.Exit(EXIT_INTERRUPTED) from None
     except Exception as exc:
         raise _fail(exc, debug) from None
     raise typer.Exit(code)
@@ -100,7 +185,7 @@ def _load(config: Path) -> Config:
 # ------------------------------------------------------------------------------------------
 
 
-def _summary_table(summary: NightlySummary, wall: float) -> Table:
+def _summary_table(summary: NightlySummary) -> Table:
     table = Table(title="shockflow run", title_justify="left")
     for col in ("universe", "status", "fitted", "skipped", "failed", "reused", "prepare s", "fit s", "store s", "note"):
         table.add_column(col, justify="right" if col not in ("universe", "status", "note") else "left")
@@ -108,11 +193,25 @@ def _summary_table(summary: NightlySummary, wall: float) -> Table:
         style = "green" if r.status == "succeeded" else "red"
         s = r.seconds
         table.add_row(
-            r.universe, f"[{style}]{r.status}[/]", str(r.fitted), str(r.skipped), str(r.failed), str(r.reused),
+            escape(r.universe), f"[{style}]{r.status}[/]", str(r.fitted), str(r.skipped), str(r.failed), str(r.reused),
             f"{s.get('prepare', 0):.2f}", f"{s.get('fit', 0):.2f}", f"{s.get('store', 0):.2f}",
             escape(r.message or r.reason),
         )
     return table
+
+
+def _summary_lines(summary: NightlySummary) -> list[str]:
+    lines = []
+    for r in summary.universes:
+        s = r.seconds
+        line = (
+            f"universe {r.universe}: {r.status}; fitted {r.fitted}, skipped {r.skipped}, failed {r.failed}, "
+            f"reused {r.reused}; prepare {s.get('prepare', 0):.2f} s, fit {s.get('fit', 0):.2f} s, "
+            f"store {s.get('store', 0):.2f} s"
+        )
+        note = r.message or r.reason
+        lines.append(f"{line}; {note}" if note else line)
+    return lines
 
 
 def _sources_table(summary: NightlySummary) -> Table:
@@ -121,12 +220,48 @@ def _sources_table(summary: NightlySummary) -> Table:
         table.add_column(col, justify="left" if col in ("source", "status", "note") else "right")
     for r in summary.ingest:
         style = "green" if r.status == "succeeded" else "red"
-        rate = f"{r.rows_read / r.seconds:,.0f}" if r.seconds > 0 and r.rows_read else "-"
         table.add_row(
-            r.source, f"[{style}]{r.status}[/]", f"{r.rows_read:,}", f"{r.rows_new:,}", f"{r.rows_revised:,}",
-            f"{r.seconds:.2f}", rate, escape(r.message or ""),
+            escape(r.source), f"[{style}]{r.status}[/]", f"{r.rows_read:,}", f"{r.rows_new:,}", f"{r.rows_revised:,}",
+            f"{r.seconds:.2f}", _rate(r), escape(r.message or ""),
         )
     return table
+
+
+def _rate(r: Any) -> str:
+    return f"{r.rows_read / r.seconds:,.0f}" if r.seconds > 0 and r.rows_read else "-"
+
+
+def _sources_lines(summary: NightlySummary) -> list[str]:
+    lines = []
+    for r in summary.ingest:
+        line = (
+            f"source {r.source}: {r.status}; {r.rows_read:,} rows read, {r.rows_new:,} new, "
+            f"{r.rows_revised:,} revised; {r.seconds:.2f} s, {_rate(r)} rows/s"
+        )
+        lines.append(f"{line}; {r.message}" if r.message else line)
+    return lines
+
+
+def _fits(table: Table, console: Console) -> bool:
+    """Whether `table` prints on `console` with no cell wrapped: a terminal at least as wide as it.
+
+    Anything else (a log file, a pipe, a narrow terminal) gets the plain one-line-per-row form.
+    """
+    if not console.is_terminal:
+        return False
+    from rich.measure import Measurement
+
+    return Measurement.get(console, console.options, table).maximum <= console.width
+
+
+def _emit(table: Table, lines: list[str], title: str) -> None:
+    """Print `table` where it fits, else `title` and `lines` as they are (never wrapped mid-word)."""
+    if _fits(table, out):
+        out.print(table)
+        return
+    out.print(f"{title}:", markup=False, highlight=False, soft_wrap=True)
+    for line in lines:
+        out.print(f"  {line}", markup=False, highlight=False, soft_wrap=True)
 
 
 def _stages_line(summary: NightlySummary, wall: float) -> str:
@@ -159,12 +294,16 @@ def _run(
 
     from pipeline import flows
     from pipeline._logs import quiet_tracebacks
+    from pipeline._tempserver import reap_orphans, start_temporary_server
 
     quiet_tracebacks(debug)  # Prefect's console logs: one line per failure unless --debug
 
     if universes:
         for name in universes:
             config.universe(name)  # did-you-mean before anything starts
+    reaped = reap_orphans()
+    if reaped:
+        console.print(f"[yellow]note:[/] stopped {len(reaped)} temporary Prefect server(s) left running by a killed run")
     t0 = time.perf_counter()
     with Progress(
         SpinnerColumn(), TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), TimeElapsedColumn(),
@@ -182,6 +321,7 @@ def _run(
 
         flows.set_progress_hook(hook)
         try:
+            start_temporary_server()  # from this (main) thread, so it dies with this process
             summary = flows.nightly(config, universes=universes, full=full, export=export)
         finally:
             flows.set_progress_hook(None)
@@ -189,16 +329,16 @@ def _run(
 
 
 def _report(summary: NightlySummary, wall: float, config: Config) -> None:
-    out.print(_sources_table(summary))
-    out.print(_summary_table(summary, wall))
-    out.print(_stages_line(summary, wall))
+    _emit(_sources_table(summary), _sources_lines(summary), "ingest")
+    _emit(_summary_table(summary), _summary_lines(summary), "shockflow run")
+    out.print(_stages_line(summary, wall), soft_wrap=True)
     if summary.published:
-        out.print(f"snapshot published: {config.warehouse.snapshot}")
+        out.print(f"snapshot published: {config.warehouse.snapshot}", markup=False, soft_wrap=True)
     elif summary.publish_message and not summary.publish_failed:
-        out.print(f"snapshot not republished: {summary.publish_message}")
+        out.print(f"snapshot not republished: {summary.publish_message}", markup=False, soft_wrap=True)
     n_files = sum(len(v) for v in summary.exported.values())
     if n_files:
-        out.print(f"exports: {n_files} file(s) under {config.export.directory}")
+        out.print(f"exports: {n_files} file(s) under {config.export.directory}", markup=False, soft_wrap=True)
     for failure in summary.failures:
         console.print(f"[bold red]failed:[/] {escape(failure)}", soft_wrap=True)
     if summary.interrupted_marked:
@@ -208,8 +348,16 @@ def _report(summary: NightlySummary, wall: float, config: Config) -> None:
 @app.command()
 def run(
     config: ConfigOpt,
-    universe: Annotated[list[str] | None, typer.Option("--universe", "-u", help="Only this universe (repeatable).")] = None,
-    full: Annotated[bool, typer.Option("--full", help="Refit every window, not only new or changed ones.")] = False,
+    universe: UniverseOpt = None,
+    full: Annotated[
+        bool,
+        typer.Option(
+            "--full",
+            help="Refit every window, not only new or changed ones. With a changed config this may "
+            "replace a universe's stored results by none (its window no longer fits the data); "
+            "the summary then says so.",
+        ),
+    ] = False,
     no_export: Annotated[bool, typer.Option("--no-export", help="Skip the report exports.")] = False,
     debug: DebugOpt = False,
 ) -> None:
@@ -236,9 +384,57 @@ def _writable_folder(path: Path) -> bool:
     return p.is_dir() and os.access(p, os.W_OK)
 
 
+def _stored_observations(cfg: Config) -> list[Any]:
+    """The warehouse's observations of the configured series, read-only; none if it cannot be read
+    (no warehouse yet, or a run holds it)."""
+    import duckdb
+
+    from pipeline.warehouse import query
+
+    path = cfg.warehouse.path
+    if not path.is_file():
+        return []
+    names = sorted({n for u in cfg.universes for n in u.names})
+    try:
+        con = duckdb.connect(str(path), read_only=True)
+    except duckdb.Error:
+        return []
+    try:
+        return [query(con, "SELECT series, date, value FROM observations WHERE list_contains(?, series)", [names])]
+    except duckdb.Error:
+        return []
+    finally:
+        con.close()
+
+
+def _window_problems(cfg: Config, frames: list[Any]) -> list[str]:
+    """Universes whose window exceeds the rows their series give (prepared as a run would)."""
+    import polars as pl
+
+    from pipeline.errors import ShockflowError as _Err
+    from pipeline.jobs import window_problem
+    from pipeline.prepare import prepare_universe
+
+    # the observations a run would hold: what the warehouse already has (if it can be read now),
+    # then the sources (the last source listed wins a (series, date) two give)
+    frames = [*_stored_observations(cfg), *(f.select("series", "date", "value") for f in frames)]
+    obs = pl.concat(frames, how="vertical_relaxed").unique(["series", "date"], keep="last", maintain_order=True)
+    problems = []
+    for universe in cfg.universes:
+        rows = obs.filter(pl.col("series").is_in(list(universe.names))).sort(["series", "date"])
+        try:
+            prepared = prepare_universe(rows, universe)
+        except _Err:
+            continue  # a missing series or bad values: reported by the coverage check or by `run`
+        problem = window_problem(prepared, universe)
+        if problem:
+            problems.append(problem)
+    return problems
+
+
 @app.command()
 def check(config: ConfigOpt, debug: DebugOpt = False) -> None:
-    """Validate the config and read every source; writes nothing."""
+    """Validate the config, read every source, check each universe's window fits its data; writes nothing."""
 
     def body() -> int:
         from pipeline.config import check_series_coverage
@@ -248,22 +444,30 @@ def check(config: ConfigOpt, debug: DebugOpt = False) -> None:
         table = Table(title=f"sources of {cfg.path.name}", title_justify="left")
         for col in ("source", "kind", "status", "series", "rows", "first", "last", "note"):
             table.add_column(col)
+        lines: list[str] = []
         available: dict[str, set[str]] = {}
+        frames = []
         problems: list[str] = []
         for source in cfg.sources:
             try:
                 frame = read_source(source)
             except ShockflowError as exc:
-                table.add_row(source.name, source.kind, "[red]failed[/]", "", "", "", "", escape(str(exc)))
+                table.add_row(escape(source.name), source.kind, "[red]failed[/]", "", "", "", "", escape(str(exc)))
+                lines.append(f"source {source.name} ({source.kind}): failed; {exc}")
                 problems.append(str(exc))
                 continue
             available[source.name] = set(frame.series)
+            frames.append(frame.frame)
             dates = frame.frame["date"]
             table.add_row(
-                source.name, source.kind, "[green]ok[/]", str(len(frame.series)), f"{frame.rows:,}",
+                escape(source.name), source.kind, "[green]ok[/]", str(len(frame.series)), f"{frame.rows:,}",
                 str(dates.min()), str(dates.max()), "",
             )
-        out.print(table)
+            lines.append(
+                f"source {source.name} ({source.kind}): ok; {len(frame.series)} series, {frame.rows:,} rows, "
+                f"{dates.min()} to {dates.max()}"
+            )
+        _emit(table, lines, f"sources of {cfg.path.name}")
         if available:
             try:
                 check_series_coverage(cfg, available)
@@ -274,6 +478,7 @@ def check(config: ConfigOpt, debug: DebugOpt = False) -> None:
                     if unread else ""
                 )  # fmt: skip
                 problems.append(str(exc) + note)
+            problems += _window_problems(cfg, frames)
         for label, folder in (
             ("[warehouse] path", cfg.warehouse.path.parent),
             ("[warehouse] snapshot", cfg.warehouse.snapshot.parent),
@@ -299,8 +504,10 @@ def check(config: ConfigOpt, debug: DebugOpt = False) -> None:
 @app.command()
 def export(
     config: ConfigOpt,
-    universe: Annotated[list[str] | None, typer.Option("--universe", "-u", help="Only this universe (repeatable).")] = None,
-    out_dir: Annotated[Path | None, typer.Option("--out", help="Export folder (default: [export] directory).")] = None,
+    universe: UniverseOpt = None,
+    out_dir: Annotated[
+        Path | None, typer.Option("--out", metavar="DIR", help="Export folder (default: the config's [export] directory).")
+    ] = None,
     debug: DebugOpt = False,
 ) -> None:
     """Write reports and extracts from the serving snapshot."""
@@ -340,9 +547,11 @@ def schedule(config: ConfigOpt, debug: DebugOpt = False) -> None:
 @app.command()
 def dashboard(
     config: ConfigOpt,
-    host: Annotated[str | None, typer.Option("--host", help="Address to bind (default 127.0.0.1).")] = None,
-    port: Annotated[int | None, typer.Option("--port", help="Port (default 8050).")] = None,
-    workers: Annotated[int | None, typer.Option("--workers", help="Worker processes (default 2).")] = None,
+    host: HostOpt = None,
+    port: PortOpt = None,
+    workers: Annotated[
+        int | None, typer.Option("--workers", metavar="N", help="Worker processes (default: [dashboard] workers, else 2).")
+    ] = None,
     debug: DebugOpt = False,
 ) -> None:
     """Serve the dashboard over the serving snapshot (read-only)."""
@@ -358,25 +567,63 @@ def dashboard(
     _guard(debug, body)
 
 
+_DEMO_OUTPUT = re.compile(r'"\.\./demo_output/')
+_DEMO_DATA_PATH = re.compile(r'^(path\s*=\s*)"([^"/]+)"', re.MULTILINE)
+
+
+def demo_config(out_dir: Path) -> Path:
+    """Write the demo's configuration for output folder `out_dir`; returns its path.
+
+    The packaged data_samples/demo.toml (found with importlib.resources, so an installed wheel has
+    it) reads its CSV files beside itself and writes to ``../demo_output/``. The copy written to
+    ``<out_dir>/demo.toml`` names those data files by absolute path and puts the warehouse, the
+    snapshot and the exports in `out_dir`, wherever shockflow is installed.
+    """
+    folder = data_samples.folder()
+    text = DEMO_CONFIG.read_text(encoding="utf-8")
+    text = _DEMO_OUTPUT.sub('"./', text)
+
+    def absolute(m: re.Match[str]) -> str:
+        data = folder / m.group(2)
+        return f"{m.group(1)}{json.dumps(str(data))}" if data.is_file() else m.group(0)
+
+    text = _DEMO_DATA_PATH.sub(absolute, text)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    target = out_dir / "demo.toml"
+    header = (
+        f"# Written by `shockflow demo` from {DEMO_CONFIG} (rewritten at every demo run:\n"
+        "# edit a copy instead). Output paths are relative to this folder.\n"
+    )
+    target.write_text(header + text, encoding="utf-8")
+    return target
+
+
 @app.command()
 def demo(
     no_serve: Annotated[bool, typer.Option("--no-serve", help="Build the demo warehouse and exports only.")] = False,
-    host: Annotated[str | None, typer.Option("--host")] = None,
-    port: Annotated[int | None, typer.Option("--port")] = None,
+    out_dir: Annotated[
+        Path,
+        typer.Option(
+            "--out", metavar="DIR",
+            help="Folder for the demo's warehouse, snapshot and exports (default: demo_output in the current folder).",
+        ),
+    ] = Path("demo_output"),
+    host: HostOpt = None,
+    port: PortOpt = None,
     debug: DebugOpt = False,
 ) -> None:
     """Run the nightly job on the invented demo scenario (data_samples/demo.toml), then serve it."""
 
     def body() -> int:
-        cfg = _load(DEMO_CONFIG)
+        cfg = _load(demo_config(out_dir.expanduser().resolve()))
         out.print(
             "shockflow demo — the Republic of Veloria, an invented market (data_samples/README.md).\n"
             "Caution: a research tool, not financial advice; estimated relations between markets change."
         )
         summary, wall = _run(cfg, universes=None, full=False, export=True, debug=debug)
         _report(summary, wall, cfg)
-        out.print(f"warehouse: {cfg.warehouse.path}")
-        if summary.exit_code == 1 or no_serve:
+        out.print(f"warehouse: {cfg.warehouse.path}", markup=False, soft_wrap=True)
+        if summary.exit_code == EXIT_NOTHING_RAN or no_serve:
             return summary.exit_code
         import dashboard as dash_pkg
 
@@ -387,7 +634,8 @@ def demo(
 
 
 def main() -> None:
-    """Console-script entry (`shockflow`)."""
+    """Console-script entry (`shockflow`): SIGTERM stops a run cleanly (exit 143)."""
+    signal.signal(signal.SIGTERM, _on_sigterm)
     app(prog_name="shockflow")
 
 
