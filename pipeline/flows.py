@@ -76,6 +76,8 @@ class NightlySummary:
     exported: dict[str, list[str]] = field(default_factory=dict)
     export_message: str | None = None
     interrupted_marked: int = 0
+    #: temporary export files and folders of a killed run, removed at the start of this one
+    abandoned_removed: int = 0
     seconds: dict[str, float] = field(default_factory=dict)
     #: Prefect flow run ids: the nightly flow's, then its work subflow's (where the logs are)
     flow_run_ids: list[str] = field(default_factory=list)
@@ -255,6 +257,11 @@ def _nightly_steps(
     summary = NightlySummary()
     path = config.warehouse.path
     summary.interrupted_marked = wh.mark_interrupted(con, path=path)
+    if config.export.formats:  # what an export killed mid-write left (temporary files, profiles)
+        try:
+            summary.abandoned_removed = jobs.remove_abandoned_step(config)
+        except OSError as exc:
+            log.warning("could not remove temporary files of an earlier export: %s", exc)
 
     # ingest: reads in parallel, stores one at a time in this process
     t0 = time.perf_counter()

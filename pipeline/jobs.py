@@ -55,6 +55,7 @@ __all__ = [
     "plan_universe",
     "publish_step",
     "read_source_step",
+    "remove_abandoned_step",
     "run_universe",
     "stale_step",
     "start_universe",
@@ -393,6 +394,16 @@ def stale_step(config: Config) -> list[str] | None:
         return stale_universes(con, config.warehouse.snapshot)
     finally:
         con.close()
+
+
+def remove_abandoned_step(config: Config) -> int:
+    """Delete temporary export files left by a killed run (pipeline.export.remove_abandoned)."""
+    from pipeline.export import remove_abandoned
+
+    removed = remove_abandoned(config.export.directory)
+    for p in removed:
+        log.info("removed %s, left by an export that was killed", p)
+    return len(removed)
 
 
 def missing_exports_step(config: Config, universes: list[str]) -> list[str]:

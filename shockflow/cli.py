@@ -251,7 +251,8 @@ def _fits(table: Table, console: Console) -> bool:
         return False
     from rich.measure import Measurement
 
-    return Measurement.get(console, console.options, table).maximum <= console.width
+    natural = Measurement.get(console, console.options.update(max_width=100_000), table).maximum
+    return natural <= console.width
 
 
 def _emit(table: Table, lines: list[str], title: str) -> None:
@@ -341,6 +342,8 @@ def _report(summary: NightlySummary, wall: float, config: Config) -> None:
         out.print(f"exports: {n_files} file(s) under {config.export.directory}", markup=False, soft_wrap=True)
     for failure in summary.failures:
         console.print(f"[bold red]failed:[/] {escape(failure)}", soft_wrap=True)
+    if summary.abandoned_removed:
+        console.print(f"[yellow]note:[/] removed {summary.abandoned_removed} temporary export file(s) left by a killed run")
     if summary.interrupted_marked:
         console.print(f"[yellow]note:[/] {summary.interrupted_marked} run(s) left running by an earlier process were marked failed")
 

@@ -23,7 +23,7 @@ from __future__ import annotations
 
 from pipeline.export._export import FORMATS, export_all, export_universe
 from pipeline.export._extracts import EXTRACT_TABLES
-from pipeline.export._paths import safe_dir_name
+from pipeline.export._paths import remove_abandoned, safe_dir_name
 from pipeline.export._pdf import find_chromium, pdf_page_count
 from pipeline.export._report import CAUTION
 
@@ -35,5 +35,6 @@ __all__ = [
     "export_universe",
     "find_chromium",
     "pdf_page_count",
+    "remove_abandoned",
     "safe_dir_name",
 ]

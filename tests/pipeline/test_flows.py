@@ -60,7 +60,12 @@ def prefect_record(summary: object) -> tuple[object, list[object], list[object]]
     import uuid
 
     from prefect.client.orchestration import get_client
-    from prefect.client.schemas.filters import ArtifactFilter, ArtifactFilterFlowRunId, LogFilter, LogFilterFlowRunId
+    from prefect.client.schemas.filters import (
+        ArtifactFilter,
+        ArtifactFilterFlowRunId,
+        LogFilter,
+        LogFilterFlowRunId,
+    )
     from prefect.logging.handlers import APILogWorker
 
     ids = [uuid.UUID(i) for i in summary.flow_run_ids]  # type: ignore[attr-defined]
