@@ -52,13 +52,16 @@ def state_folder() -> Path:
 
 
 def _start_time(pid: int) -> int | None:
-    """The process's start time in clock ticks since boot (/proc), or None when it is gone."""
+    """The process's start time in clock ticks since boot (/proc), or None when it is gone (a
+    zombie, dead but not yet collected by its parent, counts as gone)."""
     try:
         text = Path(f"/proc/{pid}/stat").read_text()
     except OSError:
         return None
     fields = text[text.rindex(")") + 2 :].split()
-    return int(fields[19])  # field 22 of stat(5); fields[0] is field 3
+    if fields[0] in ("Z", "X"):  # field 3 of stat(5): the state
+        return None
+    return int(fields[19])  # field 22: starttime
 
 
 def _cmdline(pid: int) -> str:
