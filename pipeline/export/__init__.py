@@ -2,7 +2,8 @@
 
 Everything is read from the serving snapshot (read-only, parameterised queries) and written under
 ``<out_dir>/<date>/<universe>/``, where <date> is the universe's latest window end (or `as_of`)
-and <universe> the name reduced to letters, digits, `.`, `_`, `-` (checked to stay inside
+and <universe> the name reduced to letters, digits, `.`, `_`, `-` — with a short hash of the name
+appended when that changed it, so two universes never share a folder — (checked to stay inside
 `out_dir`):
 
 - ``<universe>-<date>.html`` — one file, plotly.js inlined, opens with no network: the caution;
