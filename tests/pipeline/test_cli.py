@@ -276,3 +276,22 @@ def test_summary_is_a_table_only_where_it_fits() -> None:
     assert cli._sources_lines(summary) == [
         "source veloria_exchange: succeeded; 12,000 rows read, 40 new, 2 revised; 0.50 s, 24,000 rows/s"
     ]
+
+
+def test_the_demo_config_reads_the_packaged_data_and_writes_into_its_folder(tmp_path: Path) -> None:
+    """Issue 11 item 6: the demo found its data through parents[2] of a checkout and wrote to
+    ../demo_output beside it; now the data come from the `data_samples` package wherever it is
+    installed and the output goes to the folder given (default ./demo_output)."""
+    import data_samples
+    from pipeline.config import load_config
+    from shockflow.cli import demo_config
+
+    cfg = load_config(demo_config(tmp_path / "out"))
+    out = (tmp_path / "out").resolve()
+    assert (cfg.warehouse.path, cfg.warehouse.snapshot, cfg.export.directory) == (
+        out / "shockflow.duckdb", out / "shockflow-serving.duckdb", out / "exports",
+    )
+    assert [s.path for s in cfg.sources] == [
+        str(data_samples.folder() / "markets_wide.csv"), str(data_samples.folder() / "rates_long.csv"),
+    ]
+    assert [u.name for u in cfg.universes] == ["all_markets", "rates_fx", "equities_weekly"]
