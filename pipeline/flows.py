@@ -375,7 +375,9 @@ def nightly(
     Returns the run's summary whatever the flow's final state (Failed when anything failed, see
     :func:`final_state`); an error that stopped the flow itself (e.g. a config error) is raised.
     """
-    state = nightly_flow(str(config.path), universes=universes, full=full, export=export, today=today, return_state=True)
+    state: Any = nightly_flow(  # a State (return_state); Prefect's stubs say Awaitable
+        str(config.path), universes=universes, full=full, export=export, today=today, return_state=True
+    )
     data = state.result(raise_on_failure=False)
     if isinstance(data, NightlySummary):
         return data

@@ -462,13 +462,14 @@ def check(config: ConfigOpt, debug: DebugOpt = False) -> None:
             available[source.name] = set(frame.series)
             frames.append(frame.frame)
             dates = frame.frame["date"]
+            first, last = str(dates.min()), str(dates.max())
             table.add_row(
                 escape(source.name), source.kind, "[green]ok[/]", str(len(frame.series)), f"{frame.rows:,}",
-                str(dates.min()), str(dates.max()), "",
+                first, last, "",
             )
             lines.append(
                 f"source {source.name} ({source.kind}): ok; {len(frame.series)} series, {frame.rows:,} rows, "
-                f"{dates.min()} to {dates.max()}"
+                f"{first} to {last}"
             )
         _emit(table, lines, f"sources of {cfg.path.name}")
         if available:
