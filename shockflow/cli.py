@@ -65,6 +65,7 @@ EXIT_TERMINATED = 143
 console = Console(stderr=True, highlight=False)
 out = Console(highlight=False)
 
+
 class Terminated(KeyboardInterrupt):
     """Raised in the main thread by SIGTERM: the run stops as on Ctrl+C (Prefect's temporary server
     is stopped at exit, see pipeline._tempserver) and the command exits 143."""
