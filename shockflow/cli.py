@@ -623,7 +623,8 @@ def demo(
         cfg = _load(demo_config(out_dir.expanduser().resolve()))
         out.print(
             "shockflow demo — the Republic of Veloria, an invented market (data_samples/README.md).\n"
-            "Caution: a research tool, not financial advice; estimated relations between markets change."
+            "Caution: a research tool, not financial advice; estimated relations between markets change.",
+            soft_wrap=True,
         )
         summary, wall = _run(cfg, universes=None, full=False, export=True, debug=debug)
         _report(summary, wall, cfg)
