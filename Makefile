@@ -20,8 +20,10 @@ $(STAMP): pyproject.toml
 venv: $(STAMP)
 
 ## make demo: build the demo warehouse from data_samples/ and serve the dashboard on http://127.0.0.1:8050
+## (another port: `make demo PORT=8060`)
+PORT ?=
 demo: $(STAMP)
-	$(VENV)/bin/shockflow demo
+	$(VENV)/bin/shockflow demo $(if $(PORT),--port $(PORT))
 
 ## make test: the whole suite (slow Monte Carlo checks excluded; `make test-slow` runs them)
 test: $(STAMP)
@@ -36,7 +38,7 @@ bench: $(STAMP)
 	$(PY) -m bench
 
 lint: $(STAMP)
-	$(VENV)/bin/ruff check arlib pipeline dashboard charts tests bench
+	$(VENV)/bin/ruff check arlib serving charts pipeline dashboard shockflow data_samples tests bench
 	$(VENV)/bin/mypy
 
 clean:

@@ -22,17 +22,28 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from prefect import flow, task
+from prefect import runtime as prefect_runtime
 from prefect.cache_policies import NO_CACHE
 
 from pipeline import execution, jobs
 from pipeline import warehouse as wh
+from pipeline._logs import pipeline_logs_to_prefect
 from pipeline.config import Config, load_config
 from pipeline.errors import ShockflowError
 
 if TYPE_CHECKING:
     from pipeline.jobs import IngestResult, UniverseResult
 
-__all__ = ["NightlySummary", "nightly", "nightly_flow", "nightly_run_flow", "set_progress_hook", "task_runner"]
+__all__ = [
+    "NightlySummary",
+    "final_state",
+    "nightly",
+    "nightly_flow",
+    "nightly_run_flow",
+    "set_progress_hook",
+    "summary_rows",
+    "task_runner",
+]
 
 log = logging.getLogger("shockflow.flows")
 
@@ -55,7 +66,7 @@ def _progress(stage: str, item: str, done: int, total: int) -> None:
 
 @dataclass
 class NightlySummary:
-    """What a nightly run did; `exit_code` 0 ok, 2 partial, 1 nothing ran."""
+    """What a nightly run did; `exit_code` 0 ok, 2 partial, 1 nothing ran (see jobs.exit_code)."""
 
     ingest: list[IngestResult] = field(default_factory=list)
     universes: list[UniverseResult] = field(default_factory=list)
@@ -65,16 +76,21 @@ class NightlySummary:
     exported: dict[str, list[str]] = field(default_factory=dict)
     export_message: str | None = None
     interrupted_marked: int = 0
+    #: temporary export files and folders of a killed run, removed at the start of this one
+    abandoned_removed: int = 0
     seconds: dict[str, float] = field(default_factory=dict)
+    #: Prefect flow run ids: the nightly flow's, then its work subflow's (where the logs are)
+    flow_run_ids: list[str] = field(default_factory=list)
 
     @property
     def failures(self) -> list[str]:
-        out = [f"source {r.source!r}: {r.message}" for r in self.ingest if r.status != "succeeded"]
-        out += [f"universe {r.universe!r}: {r.message}" for r in self.universes if r.status != "succeeded"]
+        """One line per failure, each naming what failed once ("source 'x': ...")."""
+        out = [_prefixed(f"source {r.source!r}", r.message) for r in self.ingest if r.status != "succeeded"]
+        out += [_prefixed(f"universe {r.universe!r}", r.message) for r in self.universes if r.status != "succeeded"]
         if self.publish_message and not self.published and self.publish_failed:
-            out.append(f"publish: {self.publish_message}")
+            out.append(_prefixed("publish", self.publish_message))
         if self.export_message:
-            out.append(f"export: {self.export_message}")
+            out.append(_prefixed("export", self.export_message))
         return out
 
     @property
@@ -85,6 +101,72 @@ class NightlySummary:
     @property
     def revisions(self) -> int:
         return sum(r.rows_revised for r in self.ingest)
+
+
+def _prefixed(prefix: str, message: str | None) -> str:
+    """`prefix: message`, unless the message already starts with that prefix (errors raised by a
+    step often name their source or universe themselves)."""
+    text = message or "failed (no reason recorded)"
+    return text if text.startswith(f"{prefix}:") else f"{prefix}: {text}"
+
+
+def summary_rows(summary: NightlySummary) -> list[dict[str, Any]]:
+    """The run summary as table rows (one per source and universe, then publish and export)."""
+    rows: list[dict[str, Any]] = [
+        {
+            "kind": "source", "name": r.source, "status": r.status, "rows read": r.rows_read, "new": r.rows_new,
+            "revised": r.rows_revised, "fitted": None, "skipped": None, "reused": None, "seconds": round(r.seconds, 2),
+            "note": r.message or "",
+        }
+        for r in summary.ingest
+    ]
+    rows += [
+        {
+            "kind": "universe", "name": r.universe, "status": r.status, "rows read": None, "new": None,
+            "revised": None, "fitted": r.fitted, "skipped": r.skipped, "reused": r.reused,
+            "seconds": round(sum(r.seconds.values()), 2), "note": r.message or r.reason,
+        }
+        for r in summary.universes
+    ]
+    publish = "succeeded" if summary.published else ("failed" if summary.publish_failed else "skipped")
+    rows.append({"kind": "publish", "name": "snapshot", "status": publish, "note": summary.publish_message or ""})
+    n_files = sum(len(v) for v in summary.exported.values())
+    rows.append({
+        "kind": "export", "name": f"{len(summary.exported)} universe(s), {n_files} file(s)",
+        "status": "failed" if summary.export_message else ("succeeded" if n_files else "skipped"),
+        "note": summary.export_message or "",
+    })
+    return rows
+
+
+def final_state(summary: NightlySummary) -> Any:
+    """The nightly flow's final state: Completed, or Failed naming every failure (`data`: the summary).
+
+    A night where any source, universe, publish or export failed ends Failed, so Prefect's
+    automations and a team's alerts on failed flow runs fire; the summary still comes back.
+    """
+    from prefect.states import Completed, Failed
+
+    failures = summary.failures
+    if not failures:
+        return Completed(message="every source and universe succeeded", data=summary)
+    what = "nothing ran" if summary.exit_code == 1 else "partial"
+    return Failed(message=f"{what}: {len(failures)} failure(s): " + "; ".join(failures), data=summary)
+
+
+def _publish_summary_artifact(summary: NightlySummary) -> None:
+    """The run summary as a Prefect table artifact of this flow run (key `shockflow-nightly-summary`)."""
+    from prefect.artifacts import create_table_artifact
+
+    failures = summary.failures
+    create_table_artifact(
+        table=summary_rows(summary),
+        key="shockflow-nightly-summary",
+        description=(
+            f"shockflow nightly run: {'no failures' if not failures else '; '.join(failures)}. "
+            "A research tool, not financial advice; estimated relations between markets change."
+        ),
+    )
 
 
 # ------------------------------------------------------------------------------------------
@@ -175,6 +257,11 @@ def _nightly_steps(
     summary = NightlySummary()
     path = config.warehouse.path
     summary.interrupted_marked = wh.mark_interrupted(con, path=path)
+    if config.export.formats:  # what an export killed mid-write left (temporary files, profiles)
+        try:
+            summary.abandoned_removed = jobs.remove_abandoned_step(config)
+        except OSError as exc:
+            log.warning("could not remove temporary files of an earlier export: %s", exc)
 
     # ingest: reads in parallel, stores one at a time in this process
     t0 = time.perf_counter()
@@ -254,7 +341,9 @@ def _nightly_steps(
     # is missing (an earlier run was killed between publishing and exporting); not after a failed
     # publish, as the snapshot then lags the warehouse (`shockflow export` re-exports on demand)
     t0 = time.perf_counter()
-    to_export = changed if summary.published else []
+    # (a universe left with no window, as `--full` with a too-large window asks, has no report)
+    emptied = {r.universe for r in summary.universes if r.status == "succeeded" and not (r.fitted + r.skipped + r.reused)}
+    to_export = [u for u in changed if u not in emptied] if summary.published else []
     if export and config.export.formats and not summary.publish_failed:
         try:
             missing = missing_exports_task(config, [u.name for u in selected])
@@ -281,8 +370,21 @@ def nightly(
     export: bool = True,
     today: date | None = None,
 ) -> NightlySummary:
-    """Run the nightly flow for a loaded config (the CLI's entry; starts Prefect's engine)."""
-    return nightly_flow(str(config.path), universes=universes, full=full, export=export, today=today)
+    """Run the nightly flow for a loaded config (the CLI's entry; starts Prefect's engine).
+
+    Returns the run's summary whatever the flow's final state (Failed when anything failed, see
+    :func:`final_state`); an error that stopped the flow itself (e.g. a config error) is raised.
+    """
+    state: Any = nightly_flow(  # a State (return_state); Prefect's stubs say Awaitable
+        str(config.path), universes=universes, full=full, export=export, today=today, return_state=True
+    )
+    data = state.result(raise_on_failure=False)
+    if isinstance(data, NightlySummary):
+        return data
+    if isinstance(data, BaseException):
+        raise data
+    msg = f"the nightly flow ended {state.type.value} without a summary: {state.message}"
+    raise ShockflowError(msg)
 
 
 @flow(name="shockflow-nightly", persist_result=False, log_prints=False)
@@ -292,7 +394,7 @@ def nightly_flow(
     full: bool = False,
     export: bool = True,
     today: date | None = None,
-) -> NightlySummary:
+) -> Any:
     """ingest → fit → publish → export for the config at `config_path` (what the schedule serves).
 
     Loads the config, then runs the work as a subflow whose task runner follows `[execution]`
@@ -300,7 +402,10 @@ def nightly_flow(
     """
     config = load_config(config_path)
     run = nightly_run_flow.with_options(task_runner=task_runner(config))
-    return run(config, universes=universes, full=full, export=export, today=today or date.today())
+    summary = run(config, universes=universes, full=full, export=export, today=today or date.today())
+    summary.flow_run_ids.insert(0, str(prefect_runtime.flow_run.id))
+    _publish_summary_artifact(summary)
+    return final_state(summary)
 
 
 @flow(name="shockflow-nightly-run", persist_result=False, log_prints=False, validate_parameters=False)
@@ -312,4 +417,7 @@ def nightly_run_flow(
     today: date,
 ) -> NightlySummary:
     """The nightly work for a loaded config (a subflow of nightly_flow)."""
-    return _nightly_body(config, universes=universes, full=full, export=export, today=today)
+    with pipeline_logs_to_prefect():  # the steps' INFO lines reach this flow run's logs
+        summary = _nightly_body(config, universes=universes, full=full, export=export, today=today)
+    summary.flow_run_ids.append(str(prefect_runtime.flow_run.id))
+    return summary

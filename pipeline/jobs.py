@@ -10,6 +10,7 @@ writer) → ``start_universe`` → ``plan_universe`` → ``fit_block_step`` (pur
 
 from __future__ import annotations
 
+import dataclasses
 import logging
 import time
 from dataclasses import dataclass, field
@@ -21,7 +22,7 @@ import numpy as np
 import polars as pl
 
 from pipeline import warehouse as wh
-from pipeline.errors import ShockflowError
+from pipeline.errors import FitError, ShockflowError
 from pipeline.fit import (
     code_version,
     data_fingerprint,
@@ -29,6 +30,7 @@ from pipeline.fit import (
     latest_window_bands,
     plan_windows,
     result_tables,
+    window_grid,
 )
 from pipeline.prepare import prepare_universe
 from pipeline.sources import read_source
@@ -53,11 +55,13 @@ __all__ = [
     "plan_universe",
     "publish_step",
     "read_source_step",
+    "remove_abandoned_step",
     "run_universe",
     "stale_step",
     "start_universe",
     "store_ingest",
     "store_universe",
+    "window_problem",
 ]
 
 log = logging.getLogger("shockflow.jobs")
@@ -204,9 +208,57 @@ def plan_universe(
         con.close()
     prepared = prepare_universe(obs, universe)
     plan = plan_windows(prepared, universe, stored=stored, full=full)
+    if plan.candidates == 0:  # no window fits in the data: never wipe stored results unasked
+        plan = _empty_grid(warehouse_path, universe, prepared, plan, stored=stored, full=full)
     blocks = tuple(plan.ends[i : i + block_windows] for i in range(0, plan.ends.size, block_windows))
     log.info("universe %s: %d prepared rows; %s", universe.name, len(prepared.dates), plan.reason)
     return UniverseJob(universe, run_id, prepared, plan, blocks, data_fingerprint(prepared), time.perf_counter() - t0)
+
+
+def window_problem(prepared: Prepared, universe: UniverseConfig) -> str | None:
+    """Why `universe` has no window to fit in `prepared` (its window exceeds the rows), or None."""
+    rows = len(prepared.dates)
+    if window_grid(rows, universe)[0].size:
+        return None
+    return (
+        f"universe {universe.name!r}: window = {universe.window} is more than its {rows} prepared row(s) "
+        f"(the dates where its series have values, after calendar, fill and transform), so no window "
+        f"can be fitted; lower `window` to at most {rows} or add history to its sources"
+    )
+
+
+def _empty_grid(
+    warehouse_path: str | Path,
+    universe: UniverseConfig,
+    prepared: Prepared,
+    plan: WindowPlan,
+    *,
+    stored: Any,
+    full: bool,
+) -> WindowPlan:
+    """The plan when no window fits: fail the universe (its stored results stay as they are and stay
+    served), except under ``--full`` with a changed config, which asks for the old results to go."""
+    problem = window_problem(prepared, universe) or "no window to fit"
+    if stored is None:
+        con = wh.connect(warehouse_path)
+        try:
+            stored = wh.stored_state(con, universe.name)
+        finally:
+            con.close()
+    held = 0 if stored is None else stored.windows.height
+    if held == 0:
+        raise FitError(problem)
+    if full and stored.config_hash != universe.config_hash:
+        reason = (
+            f"--full with a changed config: every one of the {held} stored window(s) deleted as asked; "
+            f"no window fits ({problem.split(': ', 1)[1]})"
+        )
+        return dataclasses.replace(plan, reason=reason)
+    keep = (
+        "; its previous results stay served (run with --full to replace them by none)"
+        if stored.config_hash != universe.config_hash else "; its previous results stay served"
+    )
+    raise FitError(problem + keep)
 
 
 def fit_block_step(
@@ -342,6 +394,16 @@ def stale_step(config: Config) -> list[str] | None:
         return stale_universes(con, config.warehouse.snapshot)
     finally:
         con.close()
+
+
+def remove_abandoned_step(config: Config) -> int:
+    """Delete temporary export files left by a killed run (pipeline.export.remove_abandoned)."""
+    from pipeline.export import remove_abandoned
+
+    removed = remove_abandoned(config.export.directory)
+    for p in removed:
+        log.info("removed %s, left by an export that was killed", p)
+    return len(removed)
 
 
 def missing_exports_step(config: Config, universes: list[str]) -> list[str]:

@@ -2,7 +2,8 @@
 
 Everything is read from the serving snapshot (read-only, parameterised queries) and written under
 ``<out_dir>/<date>/<universe>/``, where <date> is the universe's latest window end (or `as_of`)
-and <universe> the name reduced to letters, digits, `.`, `_`, `-` (checked to stay inside
+and <universe> the name reduced to letters, digits, `.`, `_`, `-` — with a short hash of the name
+appended when that changed it, so two universes never share a folder — (checked to stay inside
 `out_dir`):
 
 - ``<universe>-<date>.html`` — one file, plotly.js inlined, opens with no network: the caution;
@@ -23,7 +24,7 @@ from __future__ import annotations
 
 from pipeline.export._export import FORMATS, export_all, export_universe
 from pipeline.export._extracts import EXTRACT_TABLES
-from pipeline.export._paths import safe_dir_name
+from pipeline.export._paths import remove_abandoned, safe_dir_name
 from pipeline.export._pdf import find_chromium, pdf_page_count
 from pipeline.export._report import CAUTION
 
@@ -35,5 +36,6 @@ __all__ = [
     "export_universe",
     "find_chromium",
     "pdf_page_count",
+    "remove_abandoned",
     "safe_dir_name",
 ]

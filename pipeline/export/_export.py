@@ -6,14 +6,13 @@ import datetime as dt
 import importlib.metadata
 import logging
 import os
-import uuid
 from collections.abc import Iterable, Sequence
 from pathlib import Path
 
 from pipeline.errors import ExportError
 from pipeline.export._data import ReportData, gather
 from pipeline.export._extracts import write_extracts
-from pipeline.export._paths import safe_dir_name, universe_dir
+from pipeline.export._paths import remove_abandoned, safe_dir_name, temp_path, universe_dir
 from pipeline.export._pdf import find_chromium, print_pdf
 from pipeline.export._report import render_report
 from pipeline.export._snapshot import Snapshot, open_snapshot
@@ -63,7 +62,7 @@ def _write_text_atomic(path: Path, text: str) -> None:
 
     (A plain `open(..., "x")` rather than `mkstemp`, so the file gets the usual umask mode.)
     """
-    tmp = path.with_name(f".{path.name}.{os.getpid()}.{uuid.uuid4().hex}.tmp")
+    tmp = temp_path(path)
     try:
         with open(tmp, "x", encoding="utf-8") as fh:
             fh.write(text)
@@ -156,6 +155,8 @@ def export_all(
     day = _check_as_of(as_of)
     if "pdf" in fmts and chromium_path is not None:
         find_chromium(chromium_path)
+    for p in remove_abandoned(out_dir):
+        log.info("removed %s, left by an export that was killed", p)
     written: dict[str, list[Path]] = {}
     failures: list[str] = []
     snap: Snapshot

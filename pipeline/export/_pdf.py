@@ -21,6 +21,7 @@ import tempfile
 from pathlib import Path
 
 from pipeline.errors import ExportError
+from pipeline.export._paths import chromium_profile_prefix
 
 __all__ = ["find_chromium", "pdf_page_count", "print_pdf"]
 
@@ -76,7 +77,7 @@ def print_pdf(html_path: Path, pdf_path: Path, *, browser: str, timeout: float =
     html_path = html_path.resolve()
     pdf_path = pdf_path.resolve()
     pdf_path.unlink(missing_ok=True)
-    with tempfile.TemporaryDirectory(prefix="shockflow-chromium-") as profile:
+    with tempfile.TemporaryDirectory(prefix=chromium_profile_prefix()) as profile:  # pid in the name: see _paths
         cmd = [browser, *_FLAGS, f"--user-data-dir={profile}", f"--print-to-pdf={pdf_path}",
                html_path.as_uri()]
         try:

@@ -1,4 +1,8 @@
-"""The invented demo scenario shipped in data_samples/ (no path needed)."""
+"""The invented demo scenario shipped in data_samples/ (no path needed).
+
+The files are package data of the `data_samples` package (found through importlib.resources), so
+an installed shockflow reads them too, not only a checkout.
+"""
 
 from __future__ import annotations
 
@@ -7,6 +11,7 @@ from datetime import date
 from pathlib import Path
 from typing import TYPE_CHECKING
 
+import data_samples
 from pipeline.errors import SourceError
 from pipeline.sources._csv import parse_csv_bytes
 from pipeline.sources._frame import SourceFrame
@@ -16,7 +21,7 @@ if TYPE_CHECKING:
 
 __all__ = ["DEMO_DIR", "DEMO_FILES", "read_demo"]
 
-DEMO_DIR = Path(__file__).resolve().parents[2] / "data_samples"
+DEMO_DIR: Path = data_samples.folder()
 #: dataset name → (file in data_samples/, layout)
 DEMO_FILES = {"markets": ("markets_wide.csv", "wide"), "rates": ("rates_long.csv", "long")}
 

@@ -333,7 +333,7 @@ def _runner() -> Any:
 
 def invoke(*args: str) -> CliResult:
     """Run the `shockflow` CLI in this process (click's runner: real argv parsing, exit codes)."""
-    from pipeline.cli import app
+    from shockflow.cli import app
 
     result = _runner().invoke(app, list(args), catch_exceptions=False)
     return CliResult(result.exit_code, result.stdout, result.stderr)
@@ -375,7 +375,7 @@ def subprocess_env(api_url: str, **extra: str) -> dict[str, str]:
 
 def shockflow_command(*args: str) -> list[str]:
     """The console script `shockflow`, run by this interpreter (no reliance on PATH)."""
-    return [sys.executable, "-c", "from pipeline.cli import main; main()", *args]
+    return [sys.executable, "-c", "from shockflow.cli import main; main()", *args]
 
 
 def run_subprocess(night: Night, api_url: str, *args: str, timeout: float = 300) -> CliResult:

@@ -42,9 +42,9 @@ def _rest_of_night_ran(night: Night, before: dict[str, pl.DataFrame], after: dic
 
 
 def _failure_line(result: CliResult, what: str, message: str) -> None:
-    """The CLI prints the recorded message verbatim, on one line, once."""
+    """The CLI prints the recorded message verbatim, on one line, once, naming what failed once."""
     assert "\n" not in message
-    expected = f"failed: {what}: {message}"
+    expected = f"failed: {message}" if message.startswith(f"{what}:") else f"failed: {what}: {message}"
     assert result.lines("failed:") == [expected], result.stderr
 
 

@@ -324,7 +324,7 @@ def _cli_config(tmp_path: Path, snapshot: Path) -> Path:
 def test_cli_prints_dashboard_errors_as_one_plain_line(tmp_path: Path, small_snapshot: Path) -> None:
     from typer.testing import CliRunner
 
-    from pipeline.cli import app
+    from shockflow.cli import app
 
     config = _cli_config(tmp_path, small_snapshot)
     # no token in the environment: listening on all interfaces is refused before anything starts
@@ -344,7 +344,7 @@ def test_cli_reads_the_token_from_the_environment(tmp_path: Path, small_snapshot
 
     from typer.testing import CliRunner
 
-    from pipeline.cli import app
+    from shockflow.cli import app
 
     config = _cli_config(tmp_path, small_snapshot)
     with socket.socket() as taken:

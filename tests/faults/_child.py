@@ -11,6 +11,8 @@ one pipeline function so the kill lands at a known place:
   then stored in turn: nothing of tonight's fits is stored yet);
 - ``write``: inside the transaction that stores rates_pair's results, every row written, before COMMIT;
 - ``publish``: while the new snapshot file is being filled (after four of its tables);
+- ``export``: while a report is being written: its temporary file (``.<name>.<pid>.<id>.tmp``,
+  named by pipeline.export's own ``temp_path``) holds the whole report, before the rename;
 - ``none``: no kill (the plain CLI).
 """
 
@@ -23,7 +25,7 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 from typing import Any
 
-POINTS = ("ingest", "fit", "write", "publish", "none")
+POINTS = ("ingest", "fit", "write", "publish", "export", "none")
 
 
 def _die() -> None:
@@ -76,6 +78,16 @@ def arm(point: str) -> None:
             return original_order(table)
 
         publish._order_by = order_by  # type: ignore[assignment]
+    elif point == "export":
+        from pipeline.export import _export, _paths
+
+        def write_text_atomic(path: Any, text: str) -> None:
+            tmp = _paths.temp_path(path)
+            with open(tmp, "x", encoding="utf-8") as fh:
+                fh.write(text)
+            _die()  # the report is in its temporary file; the rename never happens
+
+        _export._write_text_atomic = write_text_atomic  # type: ignore[assignment]
     elif point != "none":
         raise SystemExit(f"unknown kill point {point!r}; use one of {', '.join(POINTS)}")
 
@@ -84,7 +96,7 @@ def main(argv: list[str]) -> None:
     point, sep, *cli_args = argv
     assert sep == "--", "usage: python -m tests.faults._child POINT -- run --config FILE"
     arm(point)
-    from pipeline.cli import main as cli_main
+    from shockflow.cli import main as cli_main
 
     sys.argv = ["shockflow", *cli_args]
     cli_main()

@@ -25,6 +25,7 @@ import subprocess
 import sys
 import time
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import polars as pl
@@ -254,3 +255,132 @@ def test_kill_at_a_random_moment(seed: int, night_two: Night, fault_night_one: N
         return f"{_classify(night_two, before, finished)} at {delay:.2f} s of {child_work_seconds:.2f} s"
 
     _survive(night_two, fault_night_one, reference, kill)
+
+
+# --------------------------------------------------------------------------------------------
+# What a killed run leaves outside the warehouse: Prefect's temporary server, export temp files
+# --------------------------------------------------------------------------------------------
+
+SERVER_MARK = "prefect.server.api.server:create_app"
+
+
+def _own_server_env(tmp: Path) -> dict[str, str]:
+    """A child environment with no PREFECT_API_URL (the run starts Prefect's temporary server
+    itself, as a lone `shockflow run` does) and its own temp folder (state files, profiles)."""
+    env = subprocess_env("unused", TMPDIR=str(tmp), PREFECT_SERVER_EPHEMERAL_STARTUP_TIMEOUT_SECONDS="120")
+    del env["PREFECT_API_URL"]
+    return env
+
+
+def _wait_for_server(child: subprocess.Popen[str], warehouse: Path) -> Any:
+    """The child's temporary Prefect server process, once the run is under way (warehouse open)."""
+    import psutil
+
+    deadline = time.monotonic() + 600
+    while True:
+        assert child.poll() is None, f"the run ended before the test could kill it: {child.communicate()}"
+        assert time.monotonic() < deadline, "the child never started its server and opened the warehouse"
+        servers = [p for p in psutil.Process(child.pid).children(recursive=True) if SERVER_MARK in " ".join(_cmdline(p))]
+        if servers and _warehouse_open(child.pid, warehouse):
+            (server,) = servers
+            return server
+        time.sleep(0.05)
+
+
+def _cmdline(proc: Any) -> list[str]:
+    import psutil
+
+    try:
+        return list(proc.cmdline())
+    except psutil.Error:
+        return []
+
+
+def _assert_gone(procs: list[Any], what: str) -> None:
+    import psutil
+
+    _gone, alive = psutil.wait_procs(procs, timeout=60)  # a bound on waiting, not a timing claim
+    assert not alive, f"{what}: still running after the run died: {[(p.pid, _cmdline(p)) for p in alive]}"
+
+
+@pytest.mark.parametrize("sig", [signal.SIGKILL, signal.SIGTERM], ids=["kill-9", "sigterm"])
+def test_a_killed_run_leaves_no_prefect_server_behind(sig: int, night_two: Night, prefect_api: str, tmp_path: Path) -> None:
+    """Issue 10 item 12: kill -9 or SIGTERM of `shockflow run` left Prefect's temporary server
+    listening (188 MB) for minutes. Now it dies with the run; SIGTERM stops the run cleanly."""
+    import psutil
+
+    del prefect_api  # this child starts its own temporary server, as a lone run does
+    tmp = tmp_path / "tmp"
+    tmp.mkdir()
+    child = subprocess.Popen(
+        shockflow_command("run", "--config", str(night_two.config), "--no-export"),
+        cwd=REPO, env=_own_server_env(tmp), stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+    )  # fmt: skip
+    try:
+        server = _wait_for_server(child, night_two.warehouse)
+        family = psutil.Process(child.pid).children(recursive=True)
+        assert list((tmp / f"shockflow-{os.getuid()}" / "prefect-servers").glob("*.json"))  # recorded
+        os.kill(child.pid, sig)
+        _out, err = child.communicate(timeout=120)
+    finally:
+        if child.poll() is None:
+            child.kill()
+            child.communicate()
+    if sig == signal.SIGKILL:
+        assert child.returncode == -signal.SIGKILL
+    else:
+        assert child.returncode == 143, err  # a clean stop: exit 143, "terminated"
+        assert "terminated (SIGTERM)" in err
+    _assert_gone([server, *family], f"after {signal.Signals(sig).name}")
+    assert not any(SERVER_MARK in " ".join(_cmdline(p)) and p.pid == server.pid for p in psutil.process_iter())
+
+
+def test_the_next_run_reaps_a_recorded_server_whose_run_died(tmp_path: Path) -> None:
+    """Where the kernel's parent-death signal is missing or was ignored, the next run stops a
+    recorded temporary server whose run is gone (a real process carrying the server's mark stands
+    in for the server; its recorded parent is a real process that has exited)."""
+    import json
+
+    import psutil
+
+    from pipeline._tempserver import _start_time, reap_orphans
+
+    folder = tmp_path / "servers"
+    folder.mkdir()
+    server = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(600)", SERVER_MARK])
+    parent = subprocess.Popen([sys.executable, "-c", "pass"])
+    parent_started = _start_time(parent.pid)
+    parent.wait()
+    live = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(600)", SERVER_MARK])
+    try:
+        for proc, owner, owner_started in ((server, parent.pid, parent_started), (live, os.getpid(), _start_time(os.getpid()))):
+            (folder / f"{proc.pid}.json").write_text(json.dumps({
+                "server_pid": proc.pid, "server_started": _start_time(proc.pid), "parent_pid": owner,
+                "parent_started": owner_started, "port": 8123,
+            }))
+        assert reap_orphans(folder) == [server.pid]
+        assert server.wait(timeout=60) is not None
+        assert live.poll() is None and psutil.pid_exists(live.pid)  # its run (this test) is alive
+        assert sorted(p.name for p in folder.iterdir()) == [f"{live.pid}.json"]
+    finally:
+        for p in (server, live):
+            if p.poll() is None:
+                p.kill()
+            p.wait()
+
+
+def test_a_run_killed_while_exporting_leaves_temp_files_the_next_run_removes(night_two: Night, prefect_api: str) -> None:
+    """Issue 10 item 12: a kill during export left the report's temporary file (about 4 MB, the
+    HTML with plotly inlined) for good. The next run removes it and writes the report."""
+    night_two.write_config(night_two.config_text().replace('formats = ["csv"]', 'formats = ["html", "csv"]'))
+    child = _spawn(night_two, prefect_api, "export")
+    _out, err = child.communicate(timeout=600)
+    assert child.returncode == -signal.SIGKILL, f"the child was not killed (exit {child.returncode}): {err}"
+    exports = night_two.folder / "exports"
+    left = [p for p in exports.rglob(".*.tmp") if p.is_file()]
+    assert len(left) == 1 and left[0].stat().st_size > 1_000_000, left  # the whole report, unrenamed
+    resumed = night_two.run()
+    assert resumed.exit_code == 0, resumed.stderr
+    assert not [p for p in exports.rglob("*.tmp")], "temporary export files left behind"
+    assert len(list(exports.rglob("*.html"))) == 2  # both universes' reports written
+    assert "removed 1 temporary export file(s) left by a killed run" in resumed.stderr

@@ -16,7 +16,7 @@ import polars as pl
 import pytest
 from typer.testing import CliRunner
 
-from pipeline.cli import app
+from shockflow.cli import app
 from tests.pipeline.helpers import write_config
 
 CONFIG = """
@@ -154,7 +154,7 @@ def test_cli_check_names_missing_series_and_failed_source(tmp_path: Path) -> Non
 
 
 def test_prefect_environment_defaults_do_not_override() -> None:
-    from pipeline.cli import prefect_environment
+    from shockflow.cli import prefect_environment
 
     env = {"PREFECT_LOGGING_LEVEL": "DEBUG"}
     prefect_environment(env)
@@ -162,3 +162,136 @@ def test_prefect_environment_defaults_do_not_override() -> None:
     assert env["PREFECT_SERVER_ANALYTICS_ENABLED"] == "false"
     assert env["PREFECT_SERVER_EPHEMERAL_STARTUP_TIMEOUT_SECONDS"] == "120"
     assert env["DO_NOT_TRACK"] == "1"
+
+
+def _served_windows(tmp_path: Path) -> int:
+    con = duckdb.connect(str(tmp_path / "wh" / "macro-serving.duckdb"), read_only=True)
+    try:
+        return con.execute("SELECT count(*) FROM window_fits WHERE universe = 'us_real'").fetchall()[0][0]
+    finally:
+        con.close()
+
+
+@pytest.mark.prefect
+def test_a_window_larger_than_the_data_is_reported_and_never_wipes_stored_results(prefect_harness: None, tmp_path: Path) -> None:
+    """Issue 10 item 8: `check` reports it, `run` fails the universe (exit 2) and keeps serving the
+    previous results; only `--full` with the changed config replaces them by none, and says so."""
+    macro_csv(tmp_path / "macrodata.csv")
+    config = write_config(tmp_path, CONFIG)
+    runner = CliRunner()
+    first = runner.invoke(app, ["run", "--config", str(config)])
+    assert first.exit_code == 0, first.output
+    assert _served_windows(tmp_path) == 31
+
+    # 202 prepared rows (203 quarters → 202 log returns); a window of 500 cannot fit
+    write_config(tmp_path, CONFIG.replace("window = 80", "window = 500"))
+    checked = runner.invoke(app, ["check", "--config", str(config)])
+    flat = " ".join(checked.output.split())
+    assert checked.exit_code == 2, checked.output
+    assert "universe 'us_real': window = 500 is more than its 202 prepared row(s)" in flat
+    assert "config ok" not in flat
+
+    result = runner.invoke(app, ["run", "--config", str(config)])
+    flat = " ".join(result.output.split())
+    assert result.exit_code == 2, result.output
+    assert "universe us_real: failed" in flat
+    assert "failed: universe 'us_real': window = 500 is more than its 202 prepared row(s)" in flat
+    assert "its previous results stay served" in flat
+    assert _served_windows(tmp_path) == 31  # was 0: every stored window deleted, "succeeded"
+    con = duckdb.connect(str(tmp_path / "wh" / "macro.duckdb"), read_only=True)
+    try:
+        assert con.execute("SELECT count(*) FROM window_fits").fetchall() == [(31,)]
+    finally:
+        con.close()
+
+    # the user asks: --full with the changed config replaces them by none, and the summary says so
+    full = runner.invoke(app, ["run", "--config", str(config), "--full"])
+    flat = " ".join(full.output.split())
+    assert full.exit_code == 0, full.output
+    assert "--full with a changed config: every one of the 31 stored window(s) deleted as asked" in flat
+    assert _served_windows(tmp_path) == 0
+
+
+def _flat_help(*args: str) -> str:
+    result = CliRunner().invoke(app, [*args, "--help"], env={"COLUMNS": "80"})
+    assert result.exit_code == 0, result.output
+    assert all(len(line) <= 80 for line in result.output.splitlines()), result.output
+    return " ".join(result.output.split())
+
+
+def test_help_shows_every_word_and_no_value_for_flags() -> None:
+    """Issue 10 item 14: "(default:  directory)" (markup ate "[export]"), `--full <bool>`, and
+    `demo --host/--port` without help."""
+    assert "(default: the config's [export] directory)" in _flat_help("export")
+    for command in ("run", "check", "export", "schedule", "dashboard", "demo"):
+        text = _flat_help(command)
+        assert "<bool>" not in text and "<list[str]>" not in text, (command, text)
+    run = _flat_help("run")
+    assert "--full Refit every window" in run and "--no-export Skip the report exports." in run
+    demo = _flat_help("demo")
+    assert "--host ADDRESS Address to listen on (default: [dashboard] host, else 127.0.0.1)" in demo
+    assert "--port PORT Port to listen on (default: [dashboard] port, else 8050)" in demo
+
+
+def test_usage_errors_exit_64_not_the_partial_code() -> None:
+    """Issue 10 item 13: click's usage errors exited 2, the code documented for "partial"."""
+    from shockflow.cli import EXIT_PARTIAL, EXIT_USAGE
+
+    assert (EXIT_USAGE, EXIT_PARTIAL) == (64, 2)
+    for args in (["run", "--bogus"], ["run"], ["nosuchcommand"], ["dashboard", "-c", "x.toml", "--port", "eighty"]):
+        result = CliRunner().invoke(app, args)
+        assert result.exit_code == EXIT_USAGE, (args, result.exit_code, result.output)
+
+
+def test_summary_is_a_table_only_where_it_fits() -> None:
+    """Issue 10 item 14: in an 80-column terminal or a log file the table wrapped mid-word; there
+    the summary is one plain line per universe, never wrapped."""
+    import io
+
+    from rich.console import Console
+
+    from pipeline.flows import NightlySummary
+    from pipeline.jobs import IngestResult, UniverseResult
+    from shockflow import cli
+
+    summary = NightlySummary(
+        ingest=[IngestResult("veloria_exchange", "succeeded", 12_000, 40, 2, None, 0.5)],
+        universes=[
+            UniverseResult("all_markets", "succeeded", "r1", 12, 0, 0, 300, "12 new window(s)", None,
+                           {"prepare": 0.2, "fit": 1.5, "store": 0.3}),
+            UniverseResult("rates_fx", "failed", "r2", message="universe 'rates_fx': window = 900 is more than its 800 prepared row(s)"),
+        ],
+    )
+    table = cli._summary_table(summary)
+    narrow = Console(file=io.StringIO(), force_terminal=True, width=80)
+    wide = Console(file=io.StringIO(), force_terminal=True, width=250)
+    log_file = Console(file=io.StringIO(), force_terminal=False, width=250)
+    assert not cli._fits(table, narrow) and cli._fits(table, wide) and not cli._fits(table, log_file)
+    assert cli._summary_lines(summary) == [
+        "universe all_markets: succeeded; fitted 12, skipped 0, failed 0, reused 300; prepare 0.20 s, fit 1.50 s, "
+        "store 0.30 s; 12 new window(s)",
+        "universe rates_fx: failed; fitted 0, skipped 0, failed 0, reused 0; prepare 0.00 s, fit 0.00 s, "
+        "store 0.00 s; universe 'rates_fx': window = 900 is more than its 800 prepared row(s)",
+    ]
+    assert cli._sources_lines(summary) == [
+        "source veloria_exchange: succeeded; 12,000 rows read, 40 new, 2 revised; 0.50 s, 24,000 rows/s"
+    ]
+
+
+def test_the_demo_config_reads_the_packaged_data_and_writes_into_its_folder(tmp_path: Path) -> None:
+    """Issue 11 item 6: the demo found its data through parents[2] of a checkout and wrote to
+    ../demo_output beside it; now the data come from the `data_samples` package wherever it is
+    installed and the output goes to the folder given (default ./demo_output)."""
+    import data_samples
+    from pipeline.config import load_config
+    from shockflow.cli import demo_config
+
+    cfg = load_config(demo_config(tmp_path / "out"))
+    out = (tmp_path / "out").resolve()
+    assert (cfg.warehouse.path, cfg.warehouse.snapshot, cfg.export.directory) == (
+        out / "shockflow.duckdb", out / "shockflow-serving.duckdb", out / "exports",
+    )
+    assert [s.path for s in cfg.sources] == [
+        str(data_samples.folder() / "markets_wide.csv"), str(data_samples.folder() / "rates_long.csv"),
+    ]
+    assert [u.name for u in cfg.universes] == ["all_markets", "rates_fx", "equities_weekly"]

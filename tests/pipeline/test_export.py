@@ -409,16 +409,34 @@ def test_nothing_is_written_outside_out_dir(snap: Path, tmp_path: Path) -> None:
     paths = export_universe(snap, "../escape", out, formats=("html", "csv"))
     root = out.resolve()
     assert paths and all(p.resolve().is_relative_to(root) for p in paths)
-    assert {p.parent.name for p in paths} == {"escape"}
+    assert {p.parent.name for p in paths} == {safe_dir_name("../escape")} == {"escape-1ba7343c"}
     on_disk = {p.resolve() for p in tmp_path.rglob("*") if p.is_file()}
     assert on_disk == {p.resolve() for p in paths}  # nothing else anywhere under tmp_path
 
 
+# a name sanitising changes gets the first 8 hex digits of sha256(name) (hashlib, computed here)
 @pytest.mark.parametrize(("name", "safe"), [("rates & fx", "rates_fx"), ("../../etc", "etc"),
                                             ("a/b\\c", "a_b_c"), (".hidden", "hidden"),
-                                            ("EM-fx_2.0", "EM-fx_2.0")])
+                                            ("EM-fx_2.0", "EM-fx_2.0"), ("x-0123abcd", "x-0123abcd")])
 def test_safe_dir_name(name: str, safe: str) -> None:
-    assert safe_dir_name(name) == safe
+    import hashlib
+
+    kept = name == safe and not re.search(r"-[0-9a-f]{8}$", name)
+    expected = safe if kept else f"{safe}-{hashlib.sha256(name.encode()).hexdigest()[:8]}"
+    assert safe_dir_name(name) == expected
+
+
+def test_names_that_sanitise_alike_get_different_folders(snap: Path, tmp_path: Path) -> None:
+    """Issue 10 item 10: "rates fx" then "rates&fx", exported by different runs, overwrote each
+    other's reports in one folder `rates_fx` (the same-run check could not see it)."""
+    import hashlib
+
+    names = ["rates fx", "rates&fx", "rates & fx", "rates_fx", "rates__fx",
+             "rates_fx-" + hashlib.sha256(b"rates fx").hexdigest()[:8]]
+    folders = [safe_dir_name(n) for n in names]
+    assert len(set(folders)) == len(names), folders
+    paths = export_universe(snap, "rates & fx", tmp_path, formats=("csv",))
+    assert {p.parent.name for p in paths} == {safe_dir_name("rates & fx")} != {"rates_fx"}
 
 
 @pytest.mark.parametrize("name", ["..", "/", "...", " "])
@@ -494,8 +512,12 @@ def test_a_file_that_is_not_a_snapshot_is_refused(tmp_path: Path) -> None:
 
 
 def test_export_all_refuses_colliding_directory_names(snap: Path, tmp_path: Path) -> None:
-    with pytest.raises(ExportError, match=r"share the export directory name 'rates_fx'"):
-        export_all(snap, tmp_path, formats=("csv",), universes=["rates & fx", "rates_fx"])
+    # folder names are injective up to the 8-hex-digit hash suffix; these two names share their
+    # sanitised text and their suffix (found by searching sha256 over "rates" + punctuation + "fx")
+    a, b = "rates !;;!fx", "rates$@%==fx"
+    assert safe_dir_name(a) == safe_dir_name(b) == "rates_fx-6135adc7"
+    with pytest.raises(ExportError, match=r"share the export directory name 'rates_fx-6135adc7'"):
+        export_all(snap, tmp_path, formats=("csv",), universes=[a, b])
 
 
 def test_export_all_tries_every_universe_and_names_failures(snap: Path, tmp_path: Path) -> None:

@@ -93,7 +93,8 @@ def test_report_sits_under_the_latest_window_date(published: Path, config: Confi
     last = snapshot_frame(published, "SELECT max(window_end) AS w FROM window_fits WHERE "
                           "universe = ?", [UNIVERSE])["w"][0]
     root = config.export.directory.resolve()
-    assert {p.parent for p in paths} == {root / last.isoformat() / "veloria_equity_ore"}
+    # the name sanitised, with the first 8 hex digits of sha256("veloria equity & ore") (pipeline.export)
+    assert {p.parent for p in paths} == {root / last.isoformat() / "veloria_equity_ore-c1a12621"}
 
 
 def test_report_numbers_are_the_pipeline_snapshot(published: Path,

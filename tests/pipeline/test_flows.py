@@ -50,6 +50,38 @@ formats = ["csv"]
 """
 
 
+def prefect_record(summary: object) -> tuple[object, list[object], list[object]]:
+    """(final state, artifacts, log records) of a nightly run, read back from the Prefect API.
+
+    Logs travel to the API in batches; the read waits for the INFO line of the run's first
+    stored source or failed source (or gives up after 60 s and returns what is there).
+    """
+    import time
+    import uuid
+
+    from prefect.client.orchestration import get_client
+    from prefect.client.schemas.filters import (
+        ArtifactFilter,
+        ArtifactFilterFlowRunId,
+        LogFilter,
+        LogFilterFlowRunId,
+    )
+    from prefect.logging.handlers import APILogWorker
+
+    ids = [uuid.UUID(i) for i in summary.flow_run_ids]  # type: ignore[attr-defined]
+    APILogWorker.drain_all(timeout=30)
+    with get_client(sync_client=True) as client:
+        state = client.read_flow_run(ids[0]).state
+        artifacts = client.read_artifacts(artifact_filter=ArtifactFilter(flow_run_id=ArtifactFilterFlowRunId(any_=ids)))
+        deadline = time.monotonic() + 60
+        while True:
+            logs = client.read_logs(log_filter=LogFilter(flow_run_id=LogFilterFlowRunId(any_=ids)))
+            if any(lg.name.startswith("shockflow.") for lg in logs) or time.monotonic() > deadline:
+                break
+            time.sleep(0.5)
+    return state, artifacts, logs
+
+
 def test_nightly_flow_runs_what_it_can_and_reports_partial(prefect_harness: None, tmp_path: Path) -> None:
     from pipeline.flows import nightly
 
@@ -63,6 +95,24 @@ def test_nightly_flow_runs_what_it_can_and_reports_partial(prefect_harness: None
     assert "series 'S9' has no observations" in (summary.universes[1].message or "")
     assert summary.published and summary.exit_code == 2
     assert len(summary.failures) == 2
+    # each failure names what failed once (was "source 'absent': source 'absent': ...")
+    assert all(f.count("source 'absent'") + f.count("universe 'broken'") == 1 for f in summary.failures), summary.failures
+
+    # Prefect's record: the flow run Failed naming both failures, the summary as a table artifact,
+    # the pipeline's INFO lines among the run's logs
+    state, artifacts, logs = prefect_record(summary)
+    assert state.type.value == "FAILED", state  # type: ignore[attr-defined]
+    assert "source 'absent'" in state.message and "universe 'broken'" in state.message  # type: ignore[attr-defined]
+    (artifact,) = [a for a in artifacts if a.key == "shockflow-nightly-summary"]  # type: ignore[attr-defined]
+    assert artifact.type == "table"  # type: ignore[attr-defined]
+    table = artifact.data if isinstance(artifact.data, list) else __import__("json").loads(artifact.data)  # type: ignore[attr-defined]
+    assert [(r["kind"], r["name"], r["status"]) for r in table][:4] == [
+        ("source", "prices", "succeeded"), ("source", "absent", "failed"),
+        ("universe", "trio", "succeeded"), ("universe", "broken", "failed"),
+    ]
+    info = [lg.message for lg in logs if lg.level == 20 and lg.name.startswith("shockflow.")]  # type: ignore[attr-defined]
+    assert any(m.startswith("source prices:") and "rows read" in m for m in info), info
+    assert any(m.startswith("universe trio: 12 fitted") for m in info), info
     # the snapshot holds the succeeded universe; the failure is in `runs` and `ingest_batches`
     snap = duckdb.connect(str(cfg.warehouse.snapshot), read_only=True)
     try:
@@ -91,6 +141,8 @@ def test_nothing_runs_gives_exit_code_1(prefect_harness: None, tmp_path: Path) -
     assert all(r.status == "failed" for r in summary.ingest + summary.universes)  # type: ignore[operator]
     assert not summary.published and summary.exit_code == 1
     assert not cfg.warehouse.snapshot.exists()
+    state, _artifacts, _logs = prefect_record(summary)
+    assert state.type.value == "FAILED" and state.message.startswith("nothing ran"), state  # type: ignore[attr-defined]
 
 
 CATCH_UP = """
@@ -133,6 +185,7 @@ def test_a_missing_report_is_exported_again_and_a_present_one_is_left_alone(pref
     cfg = load_config(write_config(tmp_path, CATCH_UP))
     first = nightly(cfg)
     assert first.published and first.exit_code == 0
+    assert prefect_record(first)[0].type.value == "COMPLETED"  # type: ignore[attr-defined]
     (folder,) = {Path(p).parent for p in first.exported["trio"]}
     # the folder is named by the universe's latest window end in the snapshot (pipeline.export)
     snap = duckdb.connect(str(cfg.warehouse.snapshot), read_only=True)
