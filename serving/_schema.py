@@ -222,7 +222,7 @@ SCHEMA: tuple[Table, ...] = (
         _c("within_total", "DOUBLE", note="(connectedness within the band alone, percent; NULL for an empty band)"),
         _c("band_share", "DOUBLE", nn=True, note="(share of forecast-error variance in the band)"),
         _arr("to_others", ("n",), nn=True), _arr("from_others", ("n",), nn=True),
-        _arr("table", ("n", "n"), nn=True, axes=("variable", "shock"), note="percent"),
+        _arr("shares", ("n", "n"), nn=True, axes=("variable", "shock"), note="percent (the band table)"),
     ), note="Baruník & Křehlík (2018); only universes with `frequency_bands`"),
     Table("joint_connectedness", "universe × window_end", "window", (
         *_window_key(),
