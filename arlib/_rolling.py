@@ -83,7 +83,13 @@ import numpy as np
 from scipy import linalg, stats
 
 from . import _rolling_kernels as K
-from ._estimate import TREND_TERMS, _check_sigma, _least_squares, _regressor_names, select_lags
+from ._estimate import (
+    TREND_TERMS,
+    _check_sigma,
+    _fit_least_squares,
+    _regressor_names,
+    select_lags,
+)
 from ._validate import InvalidInputError, as_names, check_int, check_option, readonly
 
 #: Response identifications that can be stored per window (names as in `impulse_responses`).
@@ -97,10 +103,15 @@ FAST_COND_LIMIT = 1e6
 #: ... or above this bound for the cross-products as factorised (working coordinates: the
 #: window's shift and trend scaling included), what the factorisation's rounding depends on.
 WORK_COND_LIMIT = 1e7
-#: ... or above this bound trace(Û'Û) trace((Û'Û)^{-1}) for the residual cross-products: every
-#: window `fit_var` would refuse as having a singular residual covariance (eigenvalue ratio
-#: below 1e-12) exceeds 1e12 here, so it is refitted and refused as `fit_var` refuses it.
+#: ... or above this bound trace(R) trace(R^{-1}) for the residual correlation matrix R: every
+#: window `fit_var` would refuse for linearly dependent residuals (eigenvalue ratio of R below
+#: 1e-12) exceeds 1e12 here, so it is refitted and refused as `fit_var` refuses it.
 SSE_COND_LIMIT = 1e10
+#: ... or above this bound max_i Σ_t y_ti² / Û'Û_ii (working coordinates): residual
+#: cross-products computed by cancelling more than six digits (a near-exact fit, or a series
+#: far from its working shift, as with trend "n", which is never shifted). Every window
+#: `fit_var` would refuse as fitting a series exactly (ratio above 1e12 about the mean) exceeds it.
+FIT_COND_LIMIT = 1e6
 #: Working-memory budget per chunk of windows (bytes); bounds peak memory beyond the outputs.
 CHUNK_BYTES = 32 * 2**20
 #: Budget (bytes) for the cross-product sums of one unit of windows summed together.
@@ -836,6 +847,7 @@ def _fit_chunk(
             | (cond > FAST_COND_LIMIT)
             | (sol["cond_work"] > WORK_COND_LIMIT)
             | (sol["sse_cond"] > SSE_COND_LIMIT)
+            | (sol["fit_cond"] > FIT_COND_LIMIT)
         )
         override: dict[int, dict[str, Any]] = {}
         for j in np.flatnonzero(direct):
@@ -943,9 +955,10 @@ def _direct_window(
     try:
         with _WARNINGS_LOCK, warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            B, _ = _least_squares(Z, Y, _regressor_names(names, p, trend), "y")
-            U = Y - Z @ B
-            _check_sigma(U.T @ U / rows.size, names, "y")
+            B, _, U = _fit_least_squares(
+                Z, Y, _regressor_names(names, p, trend), "y", const="const" in TREND_TERMS[trend]
+            )
+            _check_sigma(U.T @ U, Y, names, "y")
     except InvalidInputError as exc:
         raise _Skip(f"not fitted: {exc}".replace("`y` ", "the window ")) from None
     # the same fit in working coordinates (so the batched steps downstream apply unchanged)
@@ -960,8 +973,9 @@ def _direct_window(
     Q, R = np.linalg.qr(Zs / col)
     Rinv = np.linalg.solve(R, np.eye(k)) / col[:, None]  # (Z'Z)^{-1} = Rinv Rinv'
     Bs = Rinv @ (Q.T @ Ys)
-    Us = Ys - Zs @ Bs
-    sse = Us.T @ Us
+    d = len(TREND_TERMS[trend])
+    Bs[d:] = B[d:]  # lag coefficients and residuals as `fit_var` computes them (frame-free)
+    sse = U.T @ U
     _, logdet = np.linalg.slogdet(sse)
     c = int("const" in TREND_TERMS[trend])
     X = Zs[:, c:] - Zs[:, c:].mean(axis=0) if c else Zs
@@ -1147,6 +1161,7 @@ def _select_orders(
             & (sol["cond"] <= FAST_COND_LIMIT)
             & (sol["cond_work"] <= WORK_COND_LIMIT)
             & (sol["sse_cond"] <= SSE_COND_LIMIT)
+            & (sol["fit_cond"] <= FIT_COND_LIMIT)
         )
         for j in range(len(chunk)):
             w = chunk[j]

@@ -58,11 +58,27 @@ def test_collinear_series_names_regressors(data: np.ndarray) -> None:
         arlib.InvalidInputError, match=r"collinear regressors \['a.L1', 'b.L1', 'c.L1'\]"
     ):
         arlib.fit_var(y, 1, names=["a", "b", "c"])
-    # a series equal to a lag of another: the residual covariance is singular
+    # a series equal to a lag of another is fitted exactly: named, whatever its units
     z = data[:, :2].copy()
     z[1:, 1] = z[:-1, 0]
-    with pytest.raises(arlib.InvalidInputError, match="singular residual covariance"):
-        arlib.fit_var(z, 1)
+    exact = (
+        r"series 'b' fitted exactly \(residual variance [-+.e\d]+ times its own variance\), so "
+        r"the residual covariance is singular: it is an exact function of the lagged series"
+    )
+    for scale in (1.0, 1e7, 1e-7):
+        with pytest.raises(arlib.InvalidInputError, match=exact):
+            arlib.fit_var(z * [1.0, scale], 1, names=["a", "b"])
+    # residuals exactly linearly dependent (c_t = a_t + b_t − 0.5 a_{t−1}, c's residual is
+    # a's plus b's): the series involved are named, in any units
+    w = data.copy()
+    w[1:, 2] = w[1:, 0] + w[1:, 1] - 0.5 * w[:-1, 0]
+    dependent = (
+        r"residuals of \['a', 'b', 'c'\] that are exactly linearly dependent .* one of these "
+        r"series is an exact linear combination of the others' current values"
+    )
+    for scale in (1.0, 1e7):
+        with pytest.raises(arlib.InvalidInputError, match=dependent):
+            arlib.fit_var(w * [scale, 1.0, 1.0], 1, names=["a", "b", "c"])
 
 
 @pytest.mark.parametrize("lags", [0, -1, 1.5, True, "2"])

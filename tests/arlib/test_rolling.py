@@ -60,20 +60,28 @@ def simulate(
 
 
 def check_window(res: arlib.RollingVAR, w: int, rows: np.ndarray, lags: int) -> None:
-    """Compare window w of `res` with the single-fit functions on `rows`."""
+    """Compare window w of `res` with the single-fit functions on `rows`.
+
+    Quantities with units are compared in units of each series' residual standard deviation
+    s_i = sqrt(Σ̂_u,ii) of the reference fit (coefficients A_ij s_j / s_i, Σ_u,ij / (s_i s_j),
+    intercepts c_i / s_i, ...): the same comparison as on the raw numbers for unit-scale data,
+    and a meaningful one for series in wildly different units (a raw absolute floor would hide
+    every error in a series measured in small units)."""
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", arlib.UnstableProcessWarning)
         fit = arlib.fit_var(rows, lags, trend=res.trend)
     n = fit.n
+    s = np.sqrt(np.diag(fit.sigma_u))
     assert res.ok[w] and res.skip_reason[w] == ""
     assert res.nobs[w] == fit.nobs and res.lags[w] == lags
-    close(res.coefs[w, :lags], fit.coefs, "coefs")
+    ratio = s[None, :] / s[:, None]  # [i, j] = s_j / s_i
+    close(res.coefs[w, :lags] * ratio, fit.coefs * ratio, "coefs")
     assert np.all(res.coefs[w, lags:] == 0.0)
-    close(res.sigma_u[w], fit.sigma_u, "sigma_u")
+    close(res.sigma_u[w] / np.outer(s, s), fit.sigma_u / np.outer(s, s), "sigma_u")
     if fit.intercept is not None:
-        close(res.intercept[w], fit.intercept, "intercept")
+        close(res.intercept[w] / s, fit.intercept / s, "intercept")
     if fit.trend_coef is not None:
-        close(res.trend_coef[w], fit.trend_coef, "trend_coef")
+        close(res.trend_coef[w] / s, fit.trend_coef / s, "trend_coef")
     close(res.spectral_radius[w], fit.spectral_radius, "spectral radius")
     for name in ("aic", "bic", "hq", "fpe"):
         close(getattr(res, name)[w], getattr(fit, name), name)
@@ -94,7 +102,9 @@ def check_window(res: arlib.RollingVAR, w: int, rows: np.ndarray, lags: int) -> 
                     assert tuple(res.granger_df[w]) == g.df
     if res.responses is not None:
         irf = arlib.impulse_responses(fit, res.horizon, shocks=res.response_kind)
-        close(res.responses[w], irf, f"{res.response_kind} responses")
+        # response of i in units of s_i; a unit shock to j is one s_j per s_j of shock
+        unit = s[:, None] if res.response_kind != "unit" else s[:, None] / s[None, :]
+        close(res.responses[w] / unit, irf / unit, f"{res.response_kind} responses")
     if res.decomposition is not None:
         dec = arlib.variance_decomposition(fit, res.horizon, method=res.decomposition_kind)
         close(res.decomposition[w], dec, f"{res.decomposition_kind} decomposition")
@@ -284,6 +294,81 @@ def test_near_collinear_window_matches_direct_fit_or_is_marked() -> None:
     np.testing.assert_allclose(
         res2.coefs[res2.ends < 200], res.coefs[res.ends < 200], rtol=1e-12, atol=1e-14
     )
+
+
+def test_units_do_not_decide_which_windows_are_fitted() -> None:
+    """Two independent white-noise series, one in units a million times smaller: every window
+    is fitted (none skipped as "singular" because of units) and equals the single fits, and
+    statsmodels' VAR (outside reference library) agrees on a few windows."""
+    sm_var = pytest.importorskip("statsmodels.tsa.api").VAR
+    y = np.random.default_rng(15).standard_normal((400, 2))
+    y[:, 0] *= 1e6
+    for trend in ("n", "c", "ct"):
+        res = arlib.rolling_var(y, 60, 2, 5, trend=trend)
+        assert res.ok.all(), set(res.skip_reason[~res.ok])
+        for w in (0, 111, len(res) - 1):
+            rows = y[res.starts[w] : res.ends[w] + 1]
+            check_window(res, w, rows, 2)
+            sm = sm_var(rows).fit(2, trend=trend)
+            s = np.sqrt(np.diag(sm.sigma_u))
+            close(res.coefs[w] * s[None, None, :] / s[None, :, None],
+                  sm.coefs * s[None, None, :] / s[None, :, None], "coefs vs statsmodels")  # fmt: skip
+            close(res.sigma_u[w] / np.outer(s, s), sm.sigma_u / np.outer(s, s), "Σu vs statsmodels")
+
+
+def scaled_data(kind: str, seed: int) -> np.ndarray:
+    """(360, 3) invented data, badly scaled or far from zero (the scenario is invented):
+    "levels": a stationary VAR(2) around levels 1e6, 2e5 and −7e5 (unit-size moves);
+    "units": the same series in units 1, 1e4 and 1e8 times apart, around levels of 100 units;
+    "walk": random walks at 1e6 with moves of 1e-3 (nine digits between level and move)."""
+    y = simulate(3, 2, 360, seed=seed)
+    if kind == "levels":
+        return y + np.array([1e6, 2e5, -7e5])
+    if kind == "units":
+        return (y + 100.0) * np.array([1.0, 1e4, 1e8])
+    return 1e6 + 1e-3 * np.cumsum(y, axis=0)
+
+
+@pytest.mark.parametrize("trend", ["n", "c", "ct"])
+@pytest.mark.parametrize("kind", ["levels", "units", "walk"])
+def test_far_from_zero_and_badly_scaled_windows_equal_single_fits(kind: str, trend: str) -> None:
+    """Every window of series far from zero (levels to 1e6, nine digits between level and
+    move) or in units up to 1e8 apart agrees with `fit_var` and the other single-fit functions
+    to the documented 1e-8 (in units of each series' residual s.d., `check_window`), and is
+    fitted exactly when `fit_var` fits its rows."""
+    y = scaled_data(kind, seed={"levels": 41, "units": 42, "walk": 43}[kind])
+    res = arlib.rolling_var(y, 80, 2, 6, trend=trend, responses="generalized",
+                            decomposition="cholesky", portmanteau_lags=5)  # fmt: skip
+    assert res.ok.all(), set(res.skip_reason[~res.ok])
+    for w in range(0, len(res), 14):
+        check_window(res, w, y[res.starts[w] : res.ends[w] + 1], 2)
+
+
+def test_near_duplicates_far_from_zero_are_refused_as_fit_var_refuses() -> None:
+    """Series 2 = series 0 + δ·noise around a level of 1e6 (moves of size 1 and 0.01), for δ
+    from clearly distinct to an exact copy: a window is fitted exactly when `fit_var` fits its
+    rows, and a skipped window gives fit_var's own reason."""
+    rng = np.random.default_rng(16)
+    for trend, move in (("n", 1.0), ("c", 1.0), ("c", 1e-2), ("ct", 1e-2)):
+        base = simulate(3, 1, 300, seed=16) * move + 1e6
+        for delta in (1e-2, 1e-3, 1e-5, 1e-7, 1e-9, 0.0):
+            y = base.copy()
+            y[:, 2] = y[:, 0] + delta * move * rng.standard_normal(300)
+            res = arlib.rolling_var(y, 70, 1, 5, trend=trend, ends=np.arange(69, 300, 23))
+            for w in range(len(res)):
+                rows = y[res.starts[w] : res.ends[w] + 1]
+                try:
+                    with warnings.catch_warnings():
+                        warnings.simplefilter("ignore", arlib.UnstableProcessWarning)
+                        fit = arlib.fit_var(rows, 1, trend=trend)
+                except arlib.InvalidInputError as exc:
+                    assert not res.ok[w], (trend, delta, w, str(exc))
+                    assert res.skip_reason[w] == f"not fitted: {exc}".replace("`y` ", "the window ")
+                    continue
+                assert res.ok[w], (trend, delta, w, res.skip_reason[w])
+                s = np.sqrt(np.diag(fit.sigma_u))
+                close(res.sigma_u[w] / np.outer(s, s), fit.sigma_u / np.outer(s, s), "Σu")
+                close(res.total_connectedness[w], arlib.connectedness(fit, 5).total, "total")
 
 
 @pytest.mark.parametrize("criterion", ["aic", "bic", "hq", "fpe"])
