@@ -30,6 +30,7 @@ from ._validate import (
     InvalidInputError,
     as_data,
     as_names,
+    as_real_array,
     check_int,
     check_option,
     readonly,
@@ -88,8 +89,18 @@ def companion_matrix(coefs: np.ndarray) -> np.ndarray:
          [0,   ..., I_n, 0  ]]
 
     Accepts leading batch axes, e.g. one set of coefficients per rolling window.
+
+    Raises
+    ------
+    InvalidInputError : `coefs` is not a finite real array of shape (..., p, n, n), p, n >= 1.
     """
-    coefs = np.asarray(coefs, dtype=np.float64)
+    coefs = _as_array(coefs, "coefs")
+    if coefs.ndim < 3 or coefs.shape[-1] != coefs.shape[-2] or 0 in coefs.shape[-3:]:
+        msg = (
+            f"`coefs` must have shape (..., p, n, n) with p, n >= 1 (coefs[..., i, :, :] = "
+            f"A_(i+1)), got shape {coefs.shape}; for one lag pass coefs[None]"
+        )
+        raise InvalidInputError(msg)
     *batch, p, n, _ = coefs.shape
     out = np.zeros((*batch, n * p, n * p))
     out[..., :n, :] = np.concatenate(list(np.moveaxis(coefs, -3, 0)), axis=-1)
@@ -307,7 +318,15 @@ class VARProcess:
     def mean(self) -> np.ndarray:
         """(n,) stationary mean μ = (I − A_1 − ... − A_p)^{-1} c (Lütkepohl 2005, eq. 2.1.10)."""
         c = np.zeros(self.n) if self.intercept is None else self.intercept
-        return np.linalg.solve(np.eye(self.n) - self.coefs.sum(axis=0), c)
+        try:
+            return np.linalg.solve(np.eye(self.n) - self.coefs.sum(axis=0), c)
+        except np.linalg.LinAlgError:
+            msg = (
+                "`coefs` describe a process with no stationary mean: I − A_1 − ... − A_p is "
+                f"singular (a unit root; companion spectral radius {self.spectral_radius:.6g}); "
+                "use stable coefficients, or difference the series they describe"
+            )
+            raise InvalidInputError(msg) from None
 
     def __repr__(self) -> str:
         return (
@@ -550,11 +569,7 @@ def var_process(
 
 
 def _as_array(value: Any, arg: str) -> np.ndarray:
-    try:
-        arr = np.array(value, dtype=np.float64, copy=True)
-    except (TypeError, ValueError) as exc:
-        msg = f"`{arg}` must be numeric: {exc}"
-        raise InvalidInputError(msg) from exc
+    arr = as_real_array(value, arg, "a real numeric array")
     if not np.isfinite(arr).all():
         msg = f"`{arg}` contains NaN or inf; pass finite numbers"
         raise InvalidInputError(msg)

@@ -95,7 +95,7 @@ def forecast(
             raise InvalidInputError(msg)
         hist = np.asarray(model.y)
     else:
-        hist, _ = as_data(y, model.names)
+        hist, _ = as_data(y)
     n, p = model.n, model.lags
     if hist.shape[1] != n or hist.shape[0] < p:
         msg = (

@@ -28,6 +28,7 @@ from scipy import linalg, optimize
 from ._validate import (
     InvalidInputError,
     as_data,
+    as_real_array,
     check_int,
     check_model,
     readonly,
@@ -107,11 +108,7 @@ def spectral_density(fit: Any, freqs: Any) -> np.ndarray:
 
 
 def _frequencies(freqs: Any) -> np.ndarray:
-    try:
-        w = np.atleast_1d(np.asarray(freqs, dtype=np.float64))
-    except (TypeError, ValueError) as exc:
-        msg = f"`freqs` must be numbers in [0, π] (radians per observation): {exc}"
-        raise InvalidInputError(msg) from exc
+    w = np.atleast_1d(as_real_array(freqs, "freqs", "numbers in [0, π] (radians per observation)"))
     if w.ndim != 1 or w.size == 0:
         msg = f"`freqs` must be a non-empty 1-D array, got shape {w.shape}"
         raise InvalidInputError(msg)
@@ -246,7 +243,7 @@ def simulate_var(
         center = _mean(coefs, c) if model.is_stable else np.zeros(n)
         start = np.tile(center, (p, 1))
     else:
-        start, _ = as_data(initial, model.names, arg="initial")
+        start, _ = as_data(initial, arg="initial")
         if start.shape != (p, n):
             msg = f"`initial` must have shape (p, n) = ({p}, {n}), got {start.shape}"
             raise InvalidInputError(msg)

@@ -90,7 +90,14 @@ from ._estimate import (
     _regressor_names,
     select_lags,
 )
-from ._validate import InvalidInputError, as_names, check_int, check_option, readonly
+from ._validate import (
+    InvalidInputError,
+    as_names,
+    as_real_array,
+    check_int,
+    check_option,
+    readonly,
+)
 
 #: Response identifications that can be stored per window (names as in `impulse_responses`).
 RESPONSE_KINDS = ("cholesky", "generalized", "unit")
@@ -238,8 +245,18 @@ class RollingVAR:
 
         The parts must share data names and every setting; P becomes the largest lag axis.
         """
+        if isinstance(parts, RollingVAR) or not isinstance(parts, Sequence):
+            msg = f"`parts` must be a list of RollingVAR results, got {type(parts).__name__}"
+            raise InvalidInputError(msg)
         if not parts:
             msg = "`parts` is empty; pass at least one RollingVAR"
+            raise InvalidInputError(msg)
+        wrong = [type(part).__name__ for part in parts if not isinstance(part, RollingVAR)]
+        if wrong:
+            msg = (
+                f"`parts` must hold RollingVAR results (from `rolling_var`), got {wrong[0]}; "
+                "pass the results to join"
+            )
             raise InvalidInputError(msg)
         first = parts[0]
         same = ("names", "window", "step", "trend", "horizon", "expanding", "criterion",
@@ -467,11 +484,7 @@ def rolling_var(
 
 def _as_data_with_gaps(y: Any, names: Sequence[str] | None) -> tuple[np.ndarray, tuple[str, ...]]:
     """(T, n) float64 copy; NaN allowed (gaps), inf refused with its row and series."""
-    try:
-        arr = np.array(y, dtype=np.float64, copy=True)
-    except (TypeError, ValueError) as exc:
-        msg = f"`y` must be a numeric array of shape (T, n); converting it failed: {exc}"
-        raise InvalidInputError(msg) from exc
+    arr = as_real_array(y, "y", "a numeric array of shape (T, n)")
     if arr.ndim == 1:
         arr = arr[:, None]
     if arr.ndim != 2 or arr.shape[0] == 0 or arr.shape[1] == 0:
