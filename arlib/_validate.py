@@ -208,7 +208,7 @@ def check_fraction(value: Any, arg: str) -> float:
     return out
 
 
-def check_model(model: Any, arg: str = "fit") -> VARLike:
+def check_model(model: object, arg: str = "fit") -> VARLike:
     """`model` if it quacks like a VAR (a `VARFit` or `VARProcess`), else a clear error."""
     if not isinstance(model, VARLike):
         msg = (
