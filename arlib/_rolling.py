@@ -23,20 +23,36 @@ residual covariance singular (the checks `fit_var` makes).
 Accuracy
 --------
 Cross-products are formed in shifted coordinates (each series less a shift close to its values
-in the window, see Reproducibility) and summed without differencing running totals over the
-history (`_rolling_kernels.anchored_window_sums`); each window is solved by a Cholesky
-factorisation of its augmented cross-product matrix, which also yields the residual
-cross-products without cancellation. The loss of accuracy is about κ·1e-16 relative, where κ is
-`condition_number` = k'·Σ_i VIF_i over the k' non-constant regressors (centred when the model has
-an intercept): trace(R)·trace(R^{-1}) of their correlation matrix R, an upper bound on its 2-norm
-condition number (at most k'² times it), and a property of the window's rows alone. Windows with
-κ > `FAST_COND_LIMIT` (1e6), whose shifted cross-products are conditioned worse than
-`WORK_COND_LIMIT` (1e7), whose residual cross-products come near singular (`SSE_COND_LIMIT`) or
-whose factorisation fails are refitted directly from their rows by QR — the computation
-`fit_var` performs — and skipped with `fit_var`'s own reason when it would refuse them (collinear
-regressors, a constant series, a singular residual covariance); their κ then comes from the QR
-factor. So no reported number rests on an ill-conditioned cross-product solve, and every fitted
-window agrees with `fit_var` to about 1e-10 relative or better.
+in the window, see Reproducibility; no shift for trend "n", where a shift would change the model)
+and summed without differencing running totals over the history
+(`_rolling_kernels.anchored_window_sums`); each window is solved by a Cholesky factorisation of
+its augmented cross-product matrix, which also yields the residual cross-products. Every
+condition measure below is scale-free (the same in any units). The loss of accuracy is about
+κ·1e-16 relative, where κ is `condition_number` = k'·Σ_i VIF_i over the k' non-constant
+regressors (centred when the model has an intercept): trace(R)·trace(R^{-1}) of their
+correlation matrix R, an upper bound on its 2-norm condition number (at most k'² times it), and
+a property of the window's rows alone. A window is refitted directly from its rows — by the
+computation `fit_var` performs, whose coefficients, intercepts, Σ_u and residuals it then takes
+as they are — when κ > `FAST_COND_LIMIT` (1e6), when its cross-products as factorised are
+conditioned worse than `WORK_COND_LIMIT` (1e7), when its residual correlations come near
+singular (`SSE_COND_LIMIT`), when a residual sum of squares comes out of the factorisation by
+cancelling more than six digits (`FIT_COND_LIMIT`: a near-exact fit, or series far from zero
+under trend "n") or when the factorisation fails; it is skipped with `fit_var`'s own reason when
+`fit_var` would refuse its rows (collinear regressors, a constant series, a series fitted
+exactly, linearly dependent residuals); its κ then comes from the QR factor.
+
+So no reported number rests on an ill-conditioned cross-product solve. Windows solved from
+cross-products agree with `fit_var` to about 1e-10 relative or better (tested to 1e-8, in units
+of each series' residual standard deviation, on unit-scale data, on series at levels up to 1e6
+with nine digits between level and move, and on series whose units differ by up to 1e8).
+Refitted windows carry `fit_var`'s coefficients and Σ_u bit for bit; what is derived from them
+(connectedness, Granger tests, responses, spectral radius, information criteria) agrees up to the
+sensitivity of that quantity at the window's conditioning — in the near-collinear windows of the
+tests (κ ≈ 1e10) connectedness and Granger F to 1e-8 relative, responses to 1e-7 of their
+largest entry, the spectral radius to 1e-6 relative and the criteria (through log det of a
+near-singular Σ̃_u) to 1e-5 absolute. Under trend "n", series far from zero make the least-squares
+problem itself ill-conditioned (every regressor nearly proportional to the others): those
+windows are refitted, and their numbers are as accurate as `fit_var`'s.
 
 Reproducibility
 ---------------
@@ -152,8 +168,9 @@ class RollingVAR:
     condition_number : (W,) κ = k'·Σ_i VIF_i over the window's k' non-constant regressors
         (centred when there is an intercept): trace(R)·trace(R^{-1}) of their correlation matrix
         R, between its 2-norm condition number and k'² times it; a function of the window's rows
-        alone. Windows above `FAST_COND_LIMIT` (1e6) were refitted directly by QR (κ from the QR
-        factor).
+        alone and of no units. Windows above `FAST_COND_LIMIT` (1e6) were refitted directly by
+        `fit_var`'s computation (κ from the QR factor), as were windows failing the other guards
+        of the module docstring's Accuracy section.
     total_connectedness : (W,) percent, Σ_{i≠j} pairwise[i, j] / n.
     to_others, from_others, net : (W, n) percent; sums of off-diagonal pairwise entries over
         rows (to, column j) and columns (from, row i); net = to − from.
@@ -358,7 +375,9 @@ def rolling_var(
 
     Each window's numbers equal those of `fit_var`, `connectedness`, `granger_test`,
     `impulse_responses`, `variance_decomposition` and `portmanteau_test` applied to the same rows
-    (to about 1e-10 relative; tested to 1e-8).
+    (to about 1e-10 relative, tested to 1e-8, whatever the units and levels of the series;
+    windows refitted for ill-conditioning agree to the sensitivity of each quantity, see the
+    module docstring's Accuracy section).
 
     Parameters
     ----------
