@@ -316,7 +316,10 @@ class VARProcess:
 
     @property
     def mean(self) -> np.ndarray:
-        """(n,) stationary mean μ = (I − A_1 − ... − A_p)^{-1} c (Lütkepohl 2005, eq. 2.1.10)."""
+        """(n,) stationary mean μ = (I − A_1 − ... − A_p)^{-1} c (Lütkepohl 2005, eq. 2.1.10).
+
+        Raises InvalidInputError when I − A_1 − ... − A_p is singular (a unit root: no mean).
+        """
         c = np.zeros(self.n) if self.intercept is None else self.intercept
         try:
             return np.linalg.solve(np.eye(self.n) - self.coefs.sum(axis=0), c)
@@ -439,10 +442,15 @@ def fit_var(y: Any, lags: int, *, trend: str = "c", names: Sequence[str] | None 
     (eq. 3.3.3 generalised to k regressors), Σ̃_u = Û'Û/T_eff, and
     llf = −(T_eff n / 2) log 2π − (T_eff / 2)(log det Σ̃_u + n).
 
+    With a constant ("c", "ct") the least squares are solved in centred coordinates (same
+    estimates, without losing the digits of series far from zero; see `_fit_least_squares`).
+
     Raises
     ------
-    InvalidInputError : NaN/inf, a constant series, too few rows for the coefficients,
-        collinear regressors, singular residual covariance, bad `lags`/`trend`.
+    InvalidInputError : NaN/inf or complex values, a constant series, too few rows for the
+        coefficients, collinear regressors, a singular residual covariance — a series fitted
+        exactly by the regressors, or residuals exactly linearly dependent; both judged
+        without regard to units (`_check_sigma`) — bad `lags`/`trend`/`names`.
 
     Warns
     -----
