@@ -335,8 +335,13 @@ def scaled_data(kind: str, seed: int) -> np.ndarray:
     """(360, 3) invented data, badly scaled or far from zero (the scenario is invented):
     "levels": a stationary VAR(2) around levels 1e6, 2e5 and −7e5 (unit-size moves);
     "units": the same series in units 1, 1e4 and 1e8 times apart, around levels of 100 units;
-    "walk": random walks at 1e6 with moves of 1e-3 (nine digits between level and move)."""
+    "walk": random walks at 1e6 with moves of 1e-3 (nine digits between level and move);
+    "mixed": one series at 1e6, the others near zero (the regressors are not collinear, yet a
+    window's residual sum of squares, formed from cross-products of the raw values, would cancel
+    twelve digits without an intercept)."""
     y = simulate(3, 2, 360, seed=seed)
+    if kind == "mixed":
+        return y + np.array([1e6, 0.0, 0.0])
     if kind == "levels":
         return y + np.array([1e6, 2e5, -7e5])
     if kind == "units":
@@ -345,18 +350,32 @@ def scaled_data(kind: str, seed: int) -> np.ndarray:
 
 
 @pytest.mark.parametrize("trend", ["n", "c", "ct"])
-@pytest.mark.parametrize("kind", ["levels", "units", "walk"])
+@pytest.mark.parametrize("kind", ["levels", "units", "walk", "mixed"])
 def test_far_from_zero_and_badly_scaled_windows_equal_single_fits(kind: str, trend: str) -> None:
     """Every window of series far from zero (levels to 1e6, nine digits between level and
     move) or in units up to 1e8 apart agrees with `fit_var` and the other single-fit functions
     to the documented 1e-8 (in units of each series' residual s.d., `check_window`), and is
     fitted exactly when `fit_var` fits its rows."""
-    y = scaled_data(kind, seed={"levels": 41, "units": 42, "walk": 43}[kind])
+    y = scaled_data(kind, seed={"levels": 41, "units": 42, "walk": 43, "mixed": 44}[kind])
     res = arlib.rolling_var(y, 80, 2, 6, trend=trend, responses="generalized",
                             decomposition="cholesky", portmanteau_lags=5)  # fmt: skip
     assert res.ok.all(), set(res.skip_reason[~res.ok])
     for w in range(0, len(res), 14):
         check_window(res, w, y[res.starts[w] : res.ends[w] + 1], 2)
+
+
+def test_far_from_zero_without_intercept_expanding_and_univariate() -> None:
+    """Trend "n" with a series at 1e6: expanding windows, and a single series (whose one
+    regressor cannot be collinear with anything), equal the single fits — the residual
+    cross-products are never taken from a cancelling difference of raw cross-products."""
+    y = scaled_data("mixed", seed=45)
+    res = arlib.rolling_var(y, 80, 2, 6, trend="n", expanding=True, step=23)
+    for w in range(len(res)):
+        check_window(res, w, y[: res.ends[w] + 1], 2)
+    one = 1e6 + np.cumsum(simulate(1, 1, 300, seed=46), axis=0)
+    res = arlib.rolling_var(one, 60, 1, 4, trend="n", step=20)
+    for w in range(len(res)):
+        check_window(res, w, one[res.starts[w] : res.ends[w] + 1], 1)
 
 
 def test_near_duplicates_far_from_zero_are_refused_as_fit_var_refuses() -> None:
