@@ -71,8 +71,38 @@ class Terminated(KeyboardInterrupt):
     is stopped at exit, see pipeline._tempserver) and the command exits 143."""
 
 
+#: set by the SIGTERM handler: an exception a library raises in its place (DuckDB turns the signal
+#: into "RuntimeError: Query interrupted" when it arrives inside a query) still means "terminated"
+_TERMINATED: list[bool] = []
+
+
 def _on_sigterm(signum: int, frame: Any) -> None:
+    _TERMINATED.append(True)
     raise Terminated
+
+
+#: read end of the signal wake-up pipe: Python's C-level handler writes every signal number there,
+#: whichever Python handler runs (Prefect swaps in its own SIGTERM handler during a flow)
+_WAKE: list[int] = []
+
+
+def _watch_signals() -> None:
+    r, w = os.pipe()
+    os.set_blocking(r, False)
+    os.set_blocking(w, False)
+    signal.set_wakeup_fd(w, warn_on_full_buffer=False)
+    _WAKE.append(r)
+
+
+def _terminated() -> bool:
+    """True once SIGTERM arrived, even if another handler turned it into another exception."""
+    for r in _WAKE:
+        try:
+            if signal.SIGTERM in os.read(r, 4096):
+                _TERMINATED.append(True)
+        except BlockingIOError:
+            pass
+    return bool(_TERMINATED)
 
 
 def _usage_exit_code(exc: Exception) -> None:
@@ -171,7 +201,13 @@ def _guard(debug: bool, fn: Callable[[], int]) -> None:
         console.print("[yellow]interrupted[/]")
         raise typer.Exit(EXIT_INTERRUPTED) from None
     except Exception as exc:
+        if _terminated():  # the signal surfaced as another library's exception
+            console.print("[yellow]terminated (SIGTERM)[/]")
+            raise typer.Exit(EXIT_TERMINATED) from None
         raise _fail(exc, debug) from None
+    if _terminated():  # the flow caught the signal's exception and reported a failed state
+        console.print("[yellow]terminated (SIGTERM)[/]")
+        raise typer.Exit(EXIT_TERMINATED)
     raise typer.Exit(code)
 
 
@@ -642,6 +678,7 @@ def demo(
 def main() -> None:
     """Console-script entry (`shockflow`): SIGTERM stops a run cleanly (exit 143)."""
     signal.signal(signal.SIGTERM, _on_sigterm)
+    _watch_signals()
     app(prog_name="shockflow")
 
 
