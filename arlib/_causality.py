@@ -59,6 +59,23 @@ def _join(names: Sequence[str]) -> str:
     return quoted[0] if len(quoted) == 1 else ", ".join(quoted[:-1]) + " and " + quoted[-1]
 
 
+def wald_statistic(
+    params: np.ndarray, gram_inv: np.ndarray, sigma_u: np.ndarray, n: int, p: int, d: int,
+    eqs: Sequence[int], src: Sequence[int],
+) -> tuple[float, int]:  # fmt: skip
+    """λ_W and J for "the lags of `src` do not enter the equations `eqs`" (eq. 3.6.5).
+
+    params (k, n) B, gram_inv (k, k) (Z'Z)^{-1}, sigma_u (n, n) Σ̂_u; d deterministic terms.
+    """
+    # restricted entries of B (k, n): row d + (lag−1)·n + c (lag of series c), column e (equation)
+    rows = np.array([d + (lag - 1) * n + c for lag in range(1, p + 1) for c in src for _ in eqs])
+    cols = np.array([e for _ in range(1, p + 1) for _ in src for e in eqs])
+    beta = params[rows, cols]
+    # Cov(B_re, B_sf) = (Z'Z)^{-1}_rs Σ̂_uef  — the entries of (Z'Z)^{-1} ⊗ Σ̂_u picked by C
+    cov = gram_inv[np.ix_(rows, rows)] * sigma_u[np.ix_(cols, cols)]
+    return float(beta @ np.linalg.solve(cov, beta)), int(beta.size)
+
+
 def granger_test(
     fit: VARFit, caused: int | str | Sequence[int | str], causing: int | str | Sequence[int | str]
 ) -> GrangerResult:
@@ -91,14 +108,7 @@ def granger_test(
         raise InvalidInputError(msg)
     n, p = fit.n, fit.lags
     d = len(TREND_TERMS[fit.trend])
-    # restricted entries of B (k, n): row d + (lag−1)·n + c (lag of series c), column e (equation)
-    rows = np.array([d + (lag - 1) * n + c for lag in range(1, p + 1) for c in src for _ in eqs])
-    cols = np.array([e for _ in range(1, p + 1) for _ in src for e in eqs])
-    beta = fit.params[rows, cols]
-    # Cov(B_re, B_sf) = (Z'Z)^{-1}_rs Σ̂_uef  — the entries of (Z'Z)^{-1} ⊗ Σ̂_u picked by C
-    cov = fit.gram_inv[np.ix_(rows, rows)] * fit.sigma_u[np.ix_(cols, cols)]
-    wald = float(beta @ np.linalg.solve(cov, beta))
-    J = int(beta.size)
+    wald, J = wald_statistic(fit.params, fit.gram_inv, fit.sigma_u, n, p, d, eqs, src)
     df_den = n * fit.df_resid
     f_stat = wald / J
     verb = "does" if len(src) == 1 else "do"

@@ -19,12 +19,18 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any
 
 import numpy as np
 
 from ._responses import ma_kernel, resolve_order, response_kernel
-from ._validate import InvalidInputError, check_int, check_model, check_option, readonly
+from ._validate import (
+    InvalidInputError,
+    VARLike,
+    check_int,
+    check_model,
+    check_option,
+    readonly,
+)
 
 #: Decomposition method -> the shock identification (key of `SHOCKS`) whose responses feed it.
 METHODS: dict[str, str] = {"cholesky": "cholesky", "generalized": "generalized"}
@@ -82,7 +88,7 @@ def spillover_measures(table: np.ndarray) -> dict[str, np.ndarray]:
 
 
 def variance_decomposition(
-    fit: Any,
+    fit: VARLike,
     horizon: int,
     *,
     method: str = "cholesky",
@@ -146,7 +152,7 @@ class Connectedness:
         )
 
 
-def connectedness(fit: Any, horizon: int, *, method: str = "generalized") -> Connectedness:
+def connectedness(fit: VARLike, horizon: int, *, method: str = "generalized") -> Connectedness:
     """Diebold & Yilmaz (2012) connectedness from the H-step decomposition, in percent.
 
     table = 100 · θ̃(H), the row-normalised generalized decomposition at step H (responses

@@ -30,6 +30,7 @@ from ._validate import (
     InvalidInputError,
     as_data,
     as_names,
+    as_real_array,
     check_int,
     check_option,
     readonly,
@@ -41,6 +42,9 @@ TREND_TERMS: dict[str, tuple[str, ...]] = {"n": (), "c": ("const",), "ct": ("con
 
 #: Smallest reciprocal condition number of the column-scaled design accepted as full rank.
 RCOND_LIMIT = 1e-10
+
+#: Residual singularity threshold of `_check_sigma` (scale-free: R² and residual correlations).
+SINGULAR_LIMIT = 1e-12
 
 
 # ---------------------------------------------------------------------------------------------
@@ -85,8 +89,18 @@ def companion_matrix(coefs: np.ndarray) -> np.ndarray:
          [0,   ..., I_n, 0  ]]
 
     Accepts leading batch axes, e.g. one set of coefficients per rolling window.
+
+    Raises
+    ------
+    InvalidInputError : `coefs` is not a finite real array of shape (..., p, n, n), p, n >= 1.
     """
-    coefs = np.asarray(coefs, dtype=np.float64)
+    coefs = _as_array(coefs, "coefs")
+    if coefs.ndim < 3 or coefs.shape[-1] != coefs.shape[-2] or 0 in coefs.shape[-3:]:
+        msg = (
+            f"`coefs` must have shape (..., p, n, n) with p, n >= 1 (coefs[..., i, :, :] = "
+            f"A_(i+1)), got shape {coefs.shape}; for one lag pass coefs[None]"
+        )
+        raise InvalidInputError(msg)
     *batch, p, n, _ = coefs.shape
     out = np.zeros((*batch, n * p, n * p))
     out[..., :n, :] = np.concatenate(list(np.moveaxis(coefs, -3, 0)), axis=-1)
@@ -163,6 +177,37 @@ def _least_squares(
     return B_scaled / scale[:, None], W @ W.T  # (Z'Z)^{-1} = D^{-1} R^{-1} R^{-T} D^{-1}
 
 
+def _fit_least_squares(
+    Z: np.ndarray, Y: np.ndarray, regressors: Sequence[str], arg: str, *, const: bool
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """B (k, n), (Z'Z)^{-1} (k, k) and residuals Û (rows, n) of Y on Z, column 0 of Z being the
+    constant when `const`.
+
+    With a constant the regression is solved in centred coordinates: every other column and Y
+    less its (rounded) mean z̄, ȳ, the constant kept, so Z = Z̃ M with Z̃ = [1, Z_r − 1z̄'] and
+    M = [[1, z̄'], [0, I]]. In exact arithmetic this is the same fit (B = M^{-1} B̃ with the
+    intercept of Y − 1ȳ' shifted back by ȳ, (Z'Z)^{-1} = M^{-1} (Z̃'Z̃)^{-1} M^{-T}); in floating
+    point it keeps the digits of series far from zero, which would otherwise be nearly collinear
+    with the constant column (a series at 1e6 moving by 1 would lose about six digits in its
+    coefficients and residuals). The collinearity check then applies to Z̃, column-scaled.
+    """
+    if not const:
+        B, gram_inv = _least_squares(Z, Y, regressors, arg)
+        return B, gram_inv, Y - Z @ B
+    zbar = Z[:, 1:].mean(axis=0)
+    ybar = Y.mean(axis=0)
+    Zc = Z.copy()
+    Zc[:, 1:] -= zbar
+    Yc = Y - ybar
+    Bc, gram_c = _least_squares(Zc, Yc, regressors, arg)
+    resid = Yc - Zc @ Bc
+    m_inv = np.eye(Z.shape[1])
+    m_inv[0, 1:] = -zbar  # M^{-1} = [[1, −z̄'], [0, I]]
+    B = m_inv @ Bc
+    B[0] += ybar
+    return B, m_inv @ gram_c @ m_inv.T, resid
+
+
 def _check_constant(y: np.ndarray, names: Sequence[str], arg: str) -> None:
     span = np.ptp(y, axis=0)
     size = np.abs(y).max(axis=0)
@@ -190,15 +235,44 @@ def _check_rows(T: int, n: int, lags: int, d: int, arg: str, what: str = "lags")
         raise InvalidInputError(msg)
 
 
-def _check_sigma(sigma: np.ndarray, names: Sequence[str], arg: str) -> None:
-    eig = np.linalg.eigvalsh(sigma)
-    if eig[0] <= 1e-12 * max(eig[-1], np.finfo(float).tiny):
-        diag = np.diag(sigma)
-        j = int(np.argmin(diag / max(diag.max(), np.finfo(float).tiny)))
+def _check_sigma(sse: np.ndarray, y: np.ndarray, names: Sequence[str], arg: str) -> None:
+    """Refuse a singular residual covariance, judged without regard to units.
+
+    `sse` (n, n) is Û'Û, `y` (T_eff, n) the rows fitted. Both tests are scale-free (unchanged
+    when a series is multiplied by any factor, so units never decide):
+
+    1. a series fitted exactly: Û'Û_ii <= `SINGULAR_LIMIT` (1e-12) times its own centred sum of
+       squares Σ_t (y_ti − ȳ_i)² (R² = 1 to twelve digits): it is an exact function of the
+       regressors (its own and the other series' lags, the constant, the trend);
+    2. residuals exactly linearly dependent: the residual correlation matrix
+       R = D^{-1/2} Û'Û D^{-1/2} (D = diag Û'Û) has smallest/largest eigenvalue
+       <= `SINGULAR_LIMIT`: a series is an exact linear combination of the others' current
+       values (and lags).
+    """
+    resid_ss = np.diag(sse).copy()
+    own = ((y - y.mean(axis=0)) ** 2).sum(axis=0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = np.where(own > 0, resid_ss / np.where(own > 0, own, 1.0), 0.0)
+    exact = np.flatnonzero((ratio <= SINGULAR_LIMIT) | (resid_ss <= 0))
+    if exact.size:
+        j = int(exact[np.argmin(ratio[exact])])
         msg = (
-            f"`{arg}` yields a singular residual covariance (smallest/largest eigenvalue "
-            f"{eig[0]:.3g}/{eig[-1]:.3g}); some series (e.g. {names[j]!r}) is an exact function of "
-            "the lags of the others — drop it"
+            f"`{arg}` has series {names[j]!r} fitted exactly (residual variance {ratio[j]:.3g} "
+            "times its own variance), so the residual covariance is singular: it is an exact "
+            "function of the lagged series (and constant/trend) — drop it or use fewer lags"
+        )
+        raise InvalidInputError(msg)
+    sd = np.sqrt(resid_ss)
+    corr = sse / np.outer(sd, sd)
+    eig, vec = np.linalg.eigh(0.5 * (corr + corr.T))
+    if eig[0] <= SINGULAR_LIMIT * eig[-1]:
+        loading = np.abs(vec[:, 0])
+        involved = [names[int(i)] for i in np.flatnonzero(loading > 0.05 * loading.max())]
+        msg = (
+            f"`{arg}` gives residuals of {involved!r} that are exactly linearly dependent "
+            f"(residual correlation matrix eigenvalues {eig[0]:.3g}..{eig[-1]:.3g}), so the "
+            "residual covariance is singular: one of these series is an exact linear "
+            "combination of the others' current values (and lags) — drop one of them"
         )
         raise InvalidInputError(msg)
 
@@ -242,9 +316,20 @@ class VARProcess:
 
     @property
     def mean(self) -> np.ndarray:
-        """(n,) stationary mean μ = (I − A_1 − ... − A_p)^{-1} c (Lütkepohl 2005, eq. 2.1.10)."""
+        """(n,) stationary mean μ = (I − A_1 − ... − A_p)^{-1} c (Lütkepohl 2005, eq. 2.1.10).
+
+        Raises InvalidInputError when I − A_1 − ... − A_p is singular (a unit root: no mean).
+        """
         c = np.zeros(self.n) if self.intercept is None else self.intercept
-        return np.linalg.solve(np.eye(self.n) - self.coefs.sum(axis=0), c)
+        try:
+            return np.linalg.solve(np.eye(self.n) - self.coefs.sum(axis=0), c)
+        except np.linalg.LinAlgError:
+            msg = (
+                "`coefs` describe a process with no stationary mean: I − A_1 − ... − A_p is "
+                f"singular (a unit root; companion spectral radius {self.spectral_radius:.6g}); "
+                "use stable coefficients, or difference the series they describe"
+            )
+            raise InvalidInputError(msg) from None
 
     def __repr__(self) -> str:
         return (
@@ -357,10 +442,15 @@ def fit_var(y: Any, lags: int, *, trend: str = "c", names: Sequence[str] | None 
     (eq. 3.3.3 generalised to k regressors), Σ̃_u = Û'Û/T_eff, and
     llf = −(T_eff n / 2) log 2π − (T_eff / 2)(log det Σ̃_u + n).
 
+    With a constant ("c", "ct") the least squares are solved in centred coordinates (same
+    estimates, without losing the digits of series far from zero; see `_fit_least_squares`).
+
     Raises
     ------
-    InvalidInputError : NaN/inf, a constant series, too few rows for the coefficients,
-        collinear regressors, singular residual covariance, bad `lags`/`trend`.
+    InvalidInputError : NaN/inf or complex values, a constant series, too few rows for the
+        coefficients, collinear regressors, a singular residual covariance — a series fitted
+        exactly by the regressors, or residuals exactly linearly dependent; both judged
+        without regard to units (`_check_sigma`) — bad `lags`/`trend`/`names`.
 
     Warns
     -----
@@ -381,13 +471,14 @@ def _fit(data: np.ndarray, labels: tuple[str, ...], p: int, trend: str, *, arg: 
     Z = design_matrix(data, p, trend)
     Y = data[p:]
     reg_names = _regressor_names(labels, p, trend)
-    B, gram_inv = _least_squares(Z, Y, reg_names, arg)
-    resid = Y - Z @ B
+    B, gram_inv, resid = _fit_least_squares(
+        Z, Y, reg_names, arg, const="const" in TREND_TERMS[trend]
+    )
     T_eff, k = Z.shape
     sse = resid.T @ resid
     sigma_u = sse / (T_eff - k)
     sigma_ml = sse / T_eff
-    _check_sigma(sigma_ml, labels, arg)
+    _check_sigma(sse, Y, labels, arg)
     stderr = np.sqrt(np.outer(np.diag(gram_inv), np.diag(sigma_u)))  # Var(B_ri) = G_rr σ_ii
     coefs = B[d:].reshape(p, n, n).transpose(0, 2, 1).copy()
     _, logdet = np.linalg.slogdet(sigma_ml)
@@ -486,11 +577,7 @@ def var_process(
 
 
 def _as_array(value: Any, arg: str) -> np.ndarray:
-    try:
-        arr = np.array(value, dtype=np.float64, copy=True)
-    except (TypeError, ValueError) as exc:
-        msg = f"`{arg}` must be numeric: {exc}"
-        raise InvalidInputError(msg) from exc
+    arr = as_real_array(value, arg, "a real numeric array")
     if not np.isfinite(arr).all():
         msg = f"`{arg}` contains NaN or inf; pass finite numbers"
         raise InvalidInputError(msg)
@@ -553,10 +640,11 @@ def select_lags(
     rows = {name: np.empty(P + 1) for name in ("aic", "bic", "hq", "fpe")}
     for p in range(P + 1):
         Z = design_matrix(data, p, trend, start=P)
-        B, _ = _least_squares(Z, Y, _regressor_names(labels, p, trend), "y")
-        U = Y - Z @ B
+        _, _, U = _fit_least_squares(
+            Z, Y, _regressor_names(labels, p, trend), "y", const="const" in TREND_TERMS[trend]
+        )
         sigma_ml = U.T @ U / T_eff
-        _check_sigma(sigma_ml, labels, "y")
+        _check_sigma(U.T @ U, Y, labels, "y")
         _, logdet = np.linalg.slogdet(sigma_ml)
         for name, value in information_criteria(logdet, T_eff, n, Z.shape[1], p).items():
             rows[name][p] = value

@@ -26,6 +26,7 @@ from ._estimate import TREND_TERMS, VARFit, deterministic_terms
 from ._responses import ma_kernel
 from ._validate import (
     InvalidInputError,
+    VARLike,
     as_data,
     check_fraction,
     check_int,
@@ -62,7 +63,7 @@ class Forecast:
 
 
 def forecast(
-    fit: Any,
+    fit: VARLike,
     y: Any = None,
     steps: int = 1,
     *,
@@ -95,7 +96,7 @@ def forecast(
             raise InvalidInputError(msg)
         hist = np.asarray(model.y)
     else:
-        hist, _ = as_data(y, model.names)
+        hist, _ = as_data(y)
     n, p = model.n, model.lags
     if hist.shape[1] != n or hist.shape[0] < p:
         msg = (
@@ -130,14 +131,14 @@ def forecast(
     )  # fmt: skip
 
 
-def _deterministic_coefficients(model: Any, trend: str) -> np.ndarray:
+def _deterministic_coefficients(model: VARLike, trend: str) -> np.ndarray:
     d = len(TREND_TERMS[trend])
     if isinstance(model, VARFit):
         return np.asarray(model.params[:d])
     return np.zeros((0, model.n)) if model.intercept is None else np.asarray(model.intercept)[None]
 
 
-def _omega(model: Any, phi: np.ndarray, trend: str) -> np.ndarray:
+def _omega(model: VARLike, phi: np.ndarray, trend: str) -> np.ndarray:
     """Ω(1..h)/T_eff (h, n, n), eq. 3.5.12 (Ω(1) = k Σ_u since tr(Γ^{-1}Γ) = k)."""
     if not isinstance(model, VARFit):
         msg = (

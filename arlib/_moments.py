@@ -27,7 +27,9 @@ from scipy import linalg, optimize
 
 from ._validate import (
     InvalidInputError,
+    VARLike,
     as_data,
+    as_real_array,
     check_int,
     check_model,
     readonly,
@@ -35,7 +37,7 @@ from ._validate import (
 )
 
 
-def _require_stable(model: Any, what: str) -> None:
+def _require_stable(model: VARLike, what: str) -> None:
     if model.spectral_radius >= 1.0:
         msg = (
             f"{what} needs a stable VAR, but the companion spectral radius is "
@@ -45,7 +47,7 @@ def _require_stable(model: Any, what: str) -> None:
         raise InvalidInputError(msg)
 
 
-def _companion_covariance(model: Any) -> np.ndarray:
+def _companion_covariance(model: VARLike) -> np.ndarray:
     """Γ_Y(0) (n·p, n·p) solving Γ = C Γ C' + Σ_U (discrete Lyapunov)."""
     n, p = model.n, model.lags
     q = np.zeros((n * p, n * p))
@@ -54,7 +56,7 @@ def _companion_covariance(model: Any) -> np.ndarray:
     return 0.5 * (gamma + gamma.T)
 
 
-def stationary_covariance(fit: Any) -> np.ndarray:
+def stationary_covariance(fit: VARLike) -> np.ndarray:
     """Stationary covariance Γ(0) = Var(y_t), shape (n, n).
 
     Solved from the companion form Γ_Y(0) = C Γ_Y(0) C' + Σ_U (Lütkepohl 2005, eq. 2.1.39) with
@@ -67,7 +69,7 @@ def stationary_covariance(fit: Any) -> np.ndarray:
     return out
 
 
-def autocovariance(fit: Any, max_lag: int) -> np.ndarray:
+def autocovariance(fit: VARLike, max_lag: int) -> np.ndarray:
     """Autocovariances Γ(0..L), shape (L+1, n, n); Γ(h)[i, j] = Cov(y_{i,t}, y_{j,t−h}).
 
     Γ_Y(h) = C^h Γ_Y(0) in companion form (Lütkepohl 2005, Sec. 2.1.4); Γ(−h) = Γ(h)'.
@@ -86,7 +88,7 @@ def autocovariance(fit: Any, max_lag: int) -> np.ndarray:
     return out
 
 
-def spectral_density(fit: Any, freqs: Any) -> np.ndarray:
+def spectral_density(fit: VARLike, freqs: Any) -> np.ndarray:
     """Spectral density matrices, shape (F, n, n) complex (Hermitian), for F frequencies.
 
     f(ω) = (1/2π) A(e^{−iω})^{-1} Σ_u A(e^{−iω})^{-H}, A(z) = I − Σ_j A_j z^j
@@ -107,11 +109,7 @@ def spectral_density(fit: Any, freqs: Any) -> np.ndarray:
 
 
 def _frequencies(freqs: Any) -> np.ndarray:
-    try:
-        w = np.atleast_1d(np.asarray(freqs, dtype=np.float64))
-    except (TypeError, ValueError) as exc:
-        msg = f"`freqs` must be numbers in [0, π] (radians per observation): {exc}"
-        raise InvalidInputError(msg) from exc
+    w = np.atleast_1d(as_real_array(freqs, "freqs", "numbers in [0, π] (radians per observation)"))
     if w.ndim != 1 or w.size == 0:
         msg = f"`freqs` must be a non-empty 1-D array, got shape {w.shape}"
         raise InvalidInputError(msg)
@@ -161,7 +159,7 @@ class SpectralPeak:
     series: str
 
 
-def spectral_peak(fit: Any, *, series: int | str = 0, grid: int = 4096) -> SpectralPeak:
+def spectral_peak(fit: VARLike, *, series: int | str = 0, grid: int = 4096) -> SpectralPeak:
     """Dominant cycle of one series: the frequency maximising its auto-spectrum f_ii(ω).
 
     Searches `grid` equally spaced frequencies on [0, π], then refines the best one by bounded
@@ -208,7 +206,7 @@ def spectral_peak(fit: Any, *, series: int | str = 0, grid: int = 4096) -> Spect
 
 
 def simulate_var(
-    process: Any,
+    process: VARLike,
     steps: int,
     rng: np.random.Generator,
     *,
@@ -246,7 +244,7 @@ def simulate_var(
         center = _mean(coefs, c) if model.is_stable else np.zeros(n)
         start = np.tile(center, (p, 1))
     else:
-        start, _ = as_data(initial, model.names, arg="initial")
+        start, _ = as_data(initial, arg="initial")
         if start.shape != (p, n):
             msg = f"`initial` must have shape (p, n) = ({p}, {n}), got {start.shape}"
             raise InvalidInputError(msg)

@@ -20,6 +20,7 @@ import numpy as np
 
 from ._validate import (
     InvalidInputError,
+    VARLike,
     check_int,
     check_model,
     check_option,
@@ -108,7 +109,7 @@ def resolve_order(order: Any, names: tuple[str, ...]) -> tuple[int, ...] | None:
     return idx
 
 
-def ma_coefficients(fit: Any, horizon: int) -> np.ndarray:
+def ma_coefficients(fit: VARLike, horizon: int) -> np.ndarray:
     """Moving-average coefficients Φ_0..Φ_H, shape (H+1, n, n) [horizon, response, innovation].
 
     Φ_0 = I_n, Φ_h = Σ_{j=1}^{min(h,p)} Φ_{h−j} A_j (Lütkepohl 2005, eq. 2.3.9).
@@ -125,7 +126,7 @@ def ma_coefficients(fit: Any, horizon: int) -> np.ndarray:
 
 
 def impulse_responses(
-    fit: Any,
+    fit: VARLike,
     horizon: int,
     *,
     shocks: str = "cholesky",

@@ -23,20 +23,39 @@ residual covariance singular (the checks `fit_var` makes).
 Accuracy
 --------
 Cross-products are formed in shifted coordinates (each series less a shift close to its values
-in the window, see Reproducibility) and summed without differencing running totals over the
-history (`_rolling_kernels.anchored_window_sums`); each window is solved by a Cholesky
-factorisation of its augmented cross-product matrix, which also yields the residual
-cross-products without cancellation. The loss of accuracy is about κ·1e-16 relative, where κ is
-`condition_number` = k'·Σ_i VIF_i over the k' non-constant regressors (centred when the model has
-an intercept): trace(R)·trace(R^{-1}) of their correlation matrix R, an upper bound on its 2-norm
-condition number (at most k'² times it), and a property of the window's rows alone. Windows with
-κ > `FAST_COND_LIMIT` (1e6), whose shifted cross-products are conditioned worse than
-`WORK_COND_LIMIT` (1e7), whose residual cross-products come near singular (`SSE_COND_LIMIT`) or
-whose factorisation fails are refitted directly from their rows by QR — the computation
-`fit_var` performs — and skipped with `fit_var`'s own reason when it would refuse them (collinear
-regressors, a constant series, a singular residual covariance); their κ then comes from the QR
-factor. So no reported number rests on an ill-conditioned cross-product solve, and every fitted
-window agrees with `fit_var` to about 1e-10 relative or better.
+in the window, see Reproducibility; no shift for trend "n", where a shift would change the model)
+and summed without differencing running totals over the history
+(`_rolling_kernels.anchored_window_sums`); each window is solved by a Cholesky factorisation of
+its augmented cross-product matrix, which also yields the residual cross-products. Every
+condition measure below is scale-free (the same in any units). The loss of accuracy is about
+κ·1e-16 relative, where κ is `condition_number` = k'·Σ_i VIF_i over the k' non-constant
+regressors (centred when the model has an intercept): trace(R)·trace(R^{-1}) of their
+correlation matrix R, an upper bound on its 2-norm condition number (at most k'² times it), and
+a property of the window's rows alone. A window is refitted directly from its rows — by the
+computation `fit_var` performs, whose coefficients, intercepts, Σ_u and residuals it then takes
+as they are — when κ > `FAST_COND_LIMIT` (1e6), when its cross-products as factorised are
+conditioned worse than `WORK_COND_LIMIT` (1e7), when its residual correlations come near
+singular (`SSE_COND_LIMIT`), when a residual sum of squares comes out of the factorisation by
+cancelling more than six digits (`FIT_COND_LIMIT`: a near-exact fit, or series far from zero
+under trend "n") or when the factorisation fails; it is skipped with `fit_var`'s own reason when
+`fit_var` would refuse its rows (collinear regressors, a constant series, a series fitted
+exactly, linearly dependent residuals); its κ then comes from the QR factor.
+
+So no reported number rests on an ill-conditioned cross-product solve. Windows solved from
+cross-products agree with `fit_var` to about 1e-10 relative or better (tested to 1e-8, in units
+of each series' residual standard deviation, on unit-scale data, on series at levels up to 1e6
+with nine digits between level and move, and on series whose units differ by up to 1e8).
+Refitted windows carry `fit_var`'s coefficients and Σ_u bit for bit and Granger statistics by
+`granger_test`'s own arithmetic; what else is derived from them (connectedness, responses,
+spectral radius, information criteria) agrees up to the sensitivity of that quantity at the
+window's conditioning — in the near-collinear windows of the
+tests (κ ≈ 1e10) connectedness and Granger F to 1e-8 relative, responses to 1e-7 of their
+largest entry, the spectral radius to 1e-6 relative and the criteria (through log det of a
+near-singular Σ̃_u) to 1e-5 absolute. Under trend "n", series far from zero make the least-squares
+problem itself ill-conditioned (every regressor nearly proportional to the others): those
+windows are refitted, and their numbers are as accurate as `fit_var`'s — which, for the Granger
+Wald form built from (Z'Z)^{-1}, can be a few digits short there (1.7e-4 relative against exact
+rational arithmetic for a series at 1e6 with two lags).
 
 Reproducibility
 ---------------
@@ -83,9 +102,23 @@ import numpy as np
 from scipy import linalg, stats
 
 from . import _rolling_kernels as K
-from ._estimate import TREND_TERMS, _check_sigma, _least_squares, _regressor_names, select_lags
+from ._causality import wald_statistic
+from ._estimate import (
+    TREND_TERMS,
+    _check_sigma,
+    _fit_least_squares,
+    _regressor_names,
+    select_lags,
+)
 from ._sizes import minimum_window
-from ._validate import InvalidInputError, as_names, check_int, check_option, readonly
+from ._validate import (
+    InvalidInputError,
+    as_names,
+    as_real_array,
+    check_int,
+    check_option,
+    readonly,
+)
 
 #: Response identifications that can be stored per window (names as in `impulse_responses`).
 RESPONSE_KINDS = ("cholesky", "generalized", "unit")
@@ -98,10 +131,15 @@ FAST_COND_LIMIT = 1e6
 #: ... or above this bound for the cross-products as factorised (working coordinates: the
 #: window's shift and trend scaling included), what the factorisation's rounding depends on.
 WORK_COND_LIMIT = 1e7
-#: ... or above this bound trace(Û'Û) trace((Û'Û)^{-1}) for the residual cross-products: every
-#: window `fit_var` would refuse as having a singular residual covariance (eigenvalue ratio
-#: below 1e-12) exceeds 1e12 here, so it is refitted and refused as `fit_var` refuses it.
+#: ... or above this bound trace(R) trace(R^{-1}) for the residual correlation matrix R: every
+#: window `fit_var` would refuse for linearly dependent residuals (eigenvalue ratio of R below
+#: 1e-12) exceeds 1e12 here, so it is refitted and refused as `fit_var` refuses it.
 SSE_COND_LIMIT = 1e10
+#: ... or above this bound max_i Σ_t y_ti² / Û'Û_ii (working coordinates): residual
+#: cross-products computed by cancelling more than six digits (a near-exact fit, or a series
+#: far from its working shift, as with trend "n", which is never shifted). Every window
+#: `fit_var` would refuse as fitting a series exactly (ratio above 1e12 about the mean) exceeds it.
+FIT_COND_LIMIT = 1e6
 #: Working-memory budget per chunk of windows (bytes); bounds peak memory beyond the outputs.
 CHUNK_BYTES = 32 * 2**20
 #: Budget (bytes) for the cross-product sums of one unit of windows summed together.
@@ -135,8 +173,9 @@ class RollingVAR:
     condition_number : (W,) κ = k'·Σ_i VIF_i over the window's k' non-constant regressors
         (centred when there is an intercept): trace(R)·trace(R^{-1}) of their correlation matrix
         R, between its 2-norm condition number and k'² times it; a function of the window's rows
-        alone. Windows above `FAST_COND_LIMIT` (1e6) were refitted directly by QR (κ from the QR
-        factor).
+        alone and of no units. Windows above `FAST_COND_LIMIT` (1e6) were refitted directly by
+        `fit_var`'s computation (κ from the QR factor), as were windows failing the other guards
+        of the module docstring's Accuracy section.
     total_connectedness : (W,) percent, Σ_{i≠j} pairwise[i, j] / n.
     to_others, from_others, net : (W, n) percent; sums of off-diagonal pairwise entries over
         rows (to, column j) and columns (from, row i); net = to − from.
@@ -228,8 +267,18 @@ class RollingVAR:
 
         The parts must share data names and every setting; P becomes the largest lag axis.
         """
+        if isinstance(parts, RollingVAR) or not isinstance(parts, Sequence):
+            msg = f"`parts` must be a list of RollingVAR results, got {type(parts).__name__}"
+            raise InvalidInputError(msg)
         if not parts:
             msg = "`parts` is empty; pass at least one RollingVAR"
+            raise InvalidInputError(msg)
+        wrong = [type(part).__name__ for part in parts if not isinstance(part, RollingVAR)]
+        if wrong:
+            msg = (
+                f"`parts` must hold RollingVAR results (from `rolling_var`), got {wrong[0]}; "
+                "pass the results to join"
+            )
             raise InvalidInputError(msg)
         first = parts[0]
         same = ("names", "window", "step", "trend", "horizon", "expanding", "criterion",
@@ -331,7 +380,9 @@ def rolling_var(
 
     Each window's numbers equal those of `fit_var`, `connectedness`, `granger_test`,
     `impulse_responses`, `variance_decomposition` and `portmanteau_test` applied to the same rows
-    (to about 1e-10 relative; tested to 1e-8).
+    (to about 1e-10 relative, tested to 1e-8, whatever the units and levels of the series;
+    windows refitted for ill-conditioning agree to the sensitivity of each quantity, see the
+    module docstring's Accuracy section).
 
     Parameters
     ----------
@@ -457,11 +508,7 @@ def rolling_var(
 
 def _as_data_with_gaps(y: Any, names: Sequence[str] | None) -> tuple[np.ndarray, tuple[str, ...]]:
     """(T, n) float64 copy; NaN allowed (gaps), inf refused with its row and series."""
-    try:
-        arr = np.array(y, dtype=np.float64, copy=True)
-    except (TypeError, ValueError) as exc:
-        msg = f"`y` must be a numeric array of shape (T, n); converting it failed: {exc}"
-        raise InvalidInputError(msg) from exc
+    arr = as_real_array(y, "y", "a numeric array of shape (T, n)")
     if arr.ndim == 1:
         arr = arr[:, None]
     if arr.ndim != 2 or arr.shape[0] == 0 or arr.shape[1] == 0:
@@ -837,6 +884,7 @@ def _fit_chunk(
             | (cond > FAST_COND_LIMIT)
             | (sol["cond_work"] > WORK_COND_LIMIT)
             | (sol["sse_cond"] > SSE_COND_LIMIT)
+            | (sol["fit_cond"] > FIT_COND_LIMIT)
         )
         override: dict[int, dict[str, Any]] = {}
         for j in np.flatnonzero(direct):
@@ -885,6 +933,8 @@ def _fit_chunk(
     if out.granger_f is not None and out.granger_p is not None and out.granger_df is not None:
         with timer("granger"):
             F = K.granger_f(coef_t, inv, np.diagonal(sigma, axis1=1, axis2=2), n, p, d)
+            for jj, res in override.items():  # refitted windows: fit_var's numbers and formula
+                F[jj] = _granger_direct(res, sigma[jj], n, p, d)
             df2 = n * (nobs - k)
             out.granger_f[ws] = F
             out.granger_p[ws] = K.f_survival(F, p, df2[:, None, None])
@@ -944,9 +994,10 @@ def _direct_window(
     try:
         with _WARNINGS_LOCK, warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            B, _ = _least_squares(Z, Y, _regressor_names(names, p, trend), "y")
-            U = Y - Z @ B
-            _check_sigma(U.T @ U / rows.size, names, "y")
+            B, gram_inv, U = _fit_least_squares(
+                Z, Y, _regressor_names(names, p, trend), "y", const="const" in TREND_TERMS[trend]
+            )
+            _check_sigma(U.T @ U, Y, names, "y")
     except InvalidInputError as exc:
         raise _Skip(f"not fitted: {exc}".replace("`y` ", "the window ")) from None
     # the same fit in working coordinates (so the batched steps downstream apply unchanged)
@@ -961,8 +1012,9 @@ def _direct_window(
     Q, R = np.linalg.qr(Zs / col)
     Rinv = np.linalg.solve(R, np.eye(k)) / col[:, None]  # (Z'Z)^{-1} = Rinv Rinv'
     Bs = Rinv @ (Q.T @ Ys)
-    Us = Ys - Zs @ Bs
-    sse = Us.T @ Us
+    d = len(TREND_TERMS[trend])
+    Bs[d:] = B[d:]  # lag coefficients and residuals as `fit_var` computes them (frame-free)
+    sse = U.T @ U
     _, logdet = np.linalg.slogdet(sse)
     c = int("const" in TREND_TERMS[trend])
     X = Zs[:, c:] - Zs[:, c:].mean(axis=0) if c else Zs
@@ -975,8 +1027,21 @@ def _direct_window(
         cond = np.inf
     return {
         "coef_t": Bs.T, "sse": sse, "inv": Rinv.T, "logdet_sse": logdet, "params": B,
+        "gram_inv": gram_inv,
         "cond": cond,
     }  # fmt: skip
+
+
+def _granger_direct(res: dict[str, Any], sigma: np.ndarray, n: int, p: int, d: int) -> np.ndarray:
+    """F statistics (n, n) of one refitted window by `granger_test`'s own arithmetic (from the
+    window's `fit_var` estimates), so they agree with it however ill-conditioned the window."""
+    F = np.full((n, n), np.nan)
+    for i in range(n):
+        for j in range(n):
+            if i != j:
+                wald, J = wald_statistic(res["params"], res["gram_inv"], sigma, n, p, d, [i], [j])
+                F[i, j] = wald / J
+    return F
 
 
 def _deterministic(
@@ -1148,6 +1213,7 @@ def _select_orders(
             & (sol["cond"] <= FAST_COND_LIMIT)
             & (sol["cond_work"] <= WORK_COND_LIMIT)
             & (sol["sse_cond"] <= SSE_COND_LIMIT)
+            & (sol["fit_cond"] <= FIT_COND_LIMIT)
         )
         for j in range(len(chunk)):
             w = chunk[j]

@@ -233,12 +233,19 @@ def solve_grams(G: np.ndarray, k: int, m: int, centred: int) -> dict[str, np.nda
       of (X'X)^{-1} (Golub & Van Loan 2013, Sec. 4.2).
     - "cond_work" the same bound for X'X as factorised (working coordinates, constant included):
       what the rounding of this factorisation depends on.
-    - "sse_cond" trace(Û'Û) trace((Û'Û)^{-1}) >= cond_2(Û'Û).
+    - "sse_cond" trace(R) trace(R^{-1}) >= cond_2(R) for the residual correlation matrix
+      R = D^{-1/2} Û'Û D^{-1/2} (D = diag Û'Û): scale-free, like every other measure here.
+    - "fit_cond" max_i (Y'Y)_ii / (Û'Û)_ii in working coordinates, 1/(1 − R_i²) of the worst
+      equation (R² about the working shift): the residual cross-products come out of the
+      Schur complement Y'Y − Y'X (X'X)^{-1} X'Y with a relative error of about this times 1e-16.
 
     Returns "coef_t" (W, n, k), "sse" (W, n, n), "inv" = L11^{-1} (W, k, k), "logdet_sse",
-    "cond", "cond_work", "sse_cond" (inf where the factorisation failed), "L" and bool "ok".
+    "cond", "cond_work", "sse_cond", "fit_cond" (inf where the factorisation failed), "L" and
+    bool "ok".
     """
     gdiag = np.diagonal(G, axis1=1, axis2=2)[:, :k].copy()
+    ydiag = np.diagonal(G, axis1=1, axis2=2)[:, k:].copy()
+    n = m - k
     L, ok = cholesky_batch(G)
     inv = triangular_inverse(L[:, :k, :k])
     L22 = L[:, k:, k:]
@@ -253,13 +260,17 @@ def solve_grams(G: np.ndarray, k: int, m: int, centred: int) -> dict[str, np.nda
         Lc = L[:, c:k, c:k]
         cdiag = _sum_squares(Lc, axis=2)  # C_ii = Σ_{c'} L̃_ic'²
         cond = (k - c) * (cdiag * inv_diag[:, c:]).sum(axis=-1)
-        sse_cond = _sum_squares(L22, axis=(1, 2)) * _sum_squares(
-            triangular_inverse(L22), axis=(1, 2)
-        )
+        # residual correlation matrix R = D^{-1/2} Û'Û D^{-1/2}: trace(R) trace(R^{-1}) =
+        # n Σ_i (Û'Û)_ii ((Û'Û)^{-1})_ii, from the rows of L22 and the columns of L22^{-1}
+        sse_diag = _sum_squares(L22, axis=2)
+        sse_cond = n * (sse_diag * _sum_squares(triangular_inverse(L22), axis=1)).sum(axis=-1)
+        # Σ_t y_ti² / Û'Û_ii (working coordinates): 1/(1 − R²) of each equation, the factor by
+        # which the Schur complement L22 L22' = Y'Y − Y'X (X'X)^{-1} X'Y cancels digits
+        fit_cond = (ydiag / sse_diag).max(axis=-1)
     ok &= np.isfinite(cond_work) & np.isfinite(logdet) & np.isfinite(coef_t).all(axis=(1, 2))
-    ok &= np.isfinite(sse_cond)
+    ok &= np.isfinite(sse_cond) & np.isfinite(fit_cond)
     bad = ~ok
-    for arr in (cond, cond_work, sse_cond):
+    for arr in (cond, cond_work, sse_cond, fit_cond):
         arr[bad] = np.inf
     return {
         "coef_t": coef_t,
@@ -269,6 +280,7 @@ def solve_grams(G: np.ndarray, k: int, m: int, centred: int) -> dict[str, np.nda
         "cond": cond,
         "cond_work": cond_work,
         "sse_cond": sse_cond,
+        "fit_cond": fit_cond,
         "ok": ok,
         "L": L,
     }

@@ -102,11 +102,7 @@ def as_data(
     A 1-D `y` becomes one column. Rejects other ranks, empty arrays and NaN/inf (naming the
     first offending row and series). Names default to ``y0, y1, ...``.
     """
-    try:
-        arr = np.array(y, dtype=np.float64, copy=True)
-    except (TypeError, ValueError) as exc:
-        msg = f"`{arg}` must be a numeric array of shape (T, n); converting it failed: {exc}"
-        raise InvalidInputError(msg) from exc
+    arr = as_real_array(y, arg, "a numeric array of shape (T, n)")
     if arr.ndim == 1:
         arr = arr[:, None]
     if arr.ndim != 2:
@@ -131,6 +127,33 @@ def as_data(
     return arr, labels
 
 
+def as_real_array(value: Any, arg: str, what: str) -> np.ndarray:
+    """`value` as a new float64 array, refusing what numpy would turn into numbers silently or
+    cryptically: None, complex values (their imaginary parts would be dropped), text.
+
+    `what` describes the expected value in the message, e.g. "a numeric array of shape (T, n)".
+    """
+    if value is None:
+        msg = f"`{arg}` must be {what}, got None"
+        raise InvalidInputError(msg)
+    try:
+        raw = np.asarray(value)
+    except (TypeError, ValueError) as exc:
+        msg = f"`{arg}` must be {what}; converting it failed: {exc}"
+        raise InvalidInputError(msg) from exc
+    if np.iscomplexobj(raw):
+        msg = (
+            f"`{arg}` holds complex numbers (dtype {raw.dtype}); pass real values — e.g. the "
+            "real part (`.real`) or the modulus (`abs(...)`) if that is what you mean"
+        )
+        raise InvalidInputError(msg)
+    try:
+        return np.array(raw, dtype=np.float64, copy=True)
+    except (TypeError, ValueError) as exc:
+        msg = f"`{arg}` must be {what}; converting it failed: {exc}"
+        raise InvalidInputError(msg) from exc
+
+
 def as_names(names: Sequence[str] | None, n: int, *, arg: str = "names") -> tuple[str, ...]:
     """n distinct series names as strings; defaults to ``y0 .. y{n-1}``."""
     if names is None:
@@ -138,7 +161,11 @@ def as_names(names: Sequence[str] | None, n: int, *, arg: str = "names") -> tupl
     if isinstance(names, str):
         msg = f"`{arg}` must be a sequence of {n} strings, got the single string {names!r}"
         raise InvalidInputError(msg)
-    labels = tuple(str(name) for name in names)
+    try:
+        labels = tuple(str(name) for name in names)
+    except TypeError:
+        msg = f"`{arg}` must be a sequence of {n} strings (one per series), got {names!r}"
+        raise InvalidInputError(msg) from None
     if len(labels) != n:
         msg = f"`{arg}` has {len(labels)} entries for {n} series; give exactly one name per column"
         raise InvalidInputError(msg)
@@ -181,7 +208,7 @@ def check_fraction(value: Any, arg: str) -> float:
     return out
 
 
-def check_model(model: Any, arg: str = "fit") -> VARLike:
+def check_model(model: object, arg: str = "fit") -> VARLike:
     """`model` if it quacks like a VAR (a `VARFit` or `VARProcess`), else a clear error."""
     if not isinstance(model, VARLike):
         msg = (
@@ -194,7 +221,18 @@ def check_model(model: Any, arg: str = "fit") -> VARLike:
 
 def series_indices(which: Any, names: tuple[str, ...], arg: str) -> tuple[int, ...]:
     """Column positions from an int, a name, or a sequence of them (distinct, in range)."""
-    items = [which] if isinstance(which, int | np.integer | str) else list(which)
+    if isinstance(which, int | np.integer | str):
+        items = [which]
+    elif isinstance(which, Sequence) and not isinstance(which, bytes):
+        items = list(which)
+    elif isinstance(which, np.ndarray) and which.ndim == 1:
+        items = which.tolist()
+    else:
+        msg = (
+            f"`{arg}` must be a column index (an integer 0..{len(names) - 1}), a series name "
+            f"(one of {list(names)!r}) or a list of them, got {which!r}"
+        )
+        raise InvalidInputError(msg)
     if not items:
         msg = f"`{arg}` is empty; name at least one series (an index 0..{len(names) - 1} or a name)"
         raise InvalidInputError(msg)

@@ -160,3 +160,52 @@ def test_information_criteria_penalty_counts_all_coefficients(var2_data: np.ndar
     assert fit.bic == pytest.approx(ld + np.log(T) * m / T, rel=1e-13)
     assert fit.hq == pytest.approx(ld + 2 * np.log(np.log(T)) * m / T, rel=1e-13)
     assert fit.fpe == pytest.approx(((T + 7) / (T - 7)) ** 3 * np.exp(ld), rel=1e-13)
+
+
+@pytest.mark.parametrize("trend", ["n", "c", "ct"])
+def test_units_do_not_decide_singularity(trend: str) -> None:
+    """Two independent white-noise series, one multiplied by 1e7: the fit is accepted, equals
+    statsmodels' VAR (outside reference library; compared in units of each series' residual
+    s.d.), and equals the unit-scale fit transformed exactly — coefficients D A D^{-1},
+    Σ_u = D Σ D, intercept D c for y → y D (closed form of a change of units)."""
+    sm_var = pytest.importorskip("statsmodels.tsa.api").VAR
+    y = np.random.default_rng(15).standard_normal((300, 2))
+    D = np.array([1e7, 1.0])
+    fit = arlib.fit_var(y * D, 1, trend=trend)
+    unit = arlib.fit_var(y, 1, trend=trend)
+    ratio = D[:, None] / D[None, :]  # [i, j] = d_i / d_j
+    np.testing.assert_allclose(fit.coefs, unit.coefs * ratio, rtol=1e-12, atol=0)
+    np.testing.assert_allclose(fit.sigma_u, unit.sigma_u * np.outer(D, D), rtol=1e-12)
+    if trend != "n":
+        np.testing.assert_allclose(fit.intercept, unit.intercept * D, rtol=1e-11)
+    sm = sm_var(y * D).fit(1, trend=trend)
+    s = np.sqrt(np.diag(sm.sigma_u))
+    rel = s[None, :] / s[:, None]
+    # statsmodels solves the same least squares its own way: agreement to 1e-8 in s.d. units
+    np.testing.assert_allclose(fit.coefs * rel, sm.coefs * rel, rtol=1e-8, atol=1e-10)
+    np.testing.assert_allclose(
+        fit.sigma_u / np.outer(s, s), sm.sigma_u / np.outer(s, s), rtol=1e-8, atol=1e-10
+    )
+
+
+@pytest.mark.parametrize("trend", ["c", "ct"])
+def test_series_far_from_zero_keep_their_digits(trend: str) -> None:
+    """Adding a level to every series changes only the intercept (c → c + (I − Σ A_l) μ):
+    at levels up to 1e6, and with nine digits between level and move, the coefficients and
+    Σ_u equal those of the same series moved to level zero (an exact subtraction) to 1e-9
+    (relative, in s.d. units).
+    Before the fit was solved in centred coordinates it lost about six digits here."""
+    from .conftest import simulate
+
+    base = simulate(np.stack([A1, A2]), SIGMA, 300, seed=16)
+    for level, move in ((np.array([1e6, -3e5, 5e4]), 1.0), (np.array([1e6, 1e6, 1e6]), 1e-3)):
+        y = level + move * base
+        far = arlib.fit_var(y, 2, trend=trend)
+        near = arlib.fit_var(y - level, 2, trend=trend)  # exact subtraction (Sterbenz lemma)
+        assert np.array_equal(y - level + level, y)
+        s = np.sqrt(np.diag(near.sigma_u))
+        np.testing.assert_allclose(far.coefs, near.coefs, rtol=1e-9, atol=1e-11)
+        np.testing.assert_allclose(far.sigma_u / np.outer(s, s), near.sigma_u / np.outer(s, s),
+                                   rtol=1e-9, atol=1e-11)  # fmt: skip
+        shifted = near.intercept + (np.eye(3) - near.coefs.sum(axis=0)) @ level
+        np.testing.assert_allclose(far.intercept / s, shifted / s, rtol=1e-9, atol=1e-7)

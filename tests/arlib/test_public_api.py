@@ -65,3 +65,25 @@ def test_error_hierarchy() -> None:
     assert issubclass(arlib.InvalidInputError, arlib.ArlibError)
     assert issubclass(arlib.InvalidInputError, ValueError)
     assert issubclass(arlib.UnstableProcessWarning, UserWarning)
+
+
+def test_model_arguments_are_typed_with_the_protocol() -> None:
+    """Every public function taking a model types it: `VARLike` where a fit or a given process
+    will do, `VARFit` where the estimate's own numbers are needed — never `Any` (mypy checks
+    callers against these)."""
+    import inspect
+
+    needs_fit = {"granger_test", "portmanteau_test", "normality_test", "irf_bands",
+                 "fevd_bands", "connectedness_bands"}  # fmt: skip
+    seen = 0
+    for name in arlib.__all__:
+        obj = getattr(arlib, name)
+        if not inspect.isfunction(obj):
+            continue
+        params = inspect.signature(obj).parameters
+        for arg in ("fit", "process"):
+            if arg in params:
+                seen += 1
+                want = "VARFit" if name in needs_fit else "VARLike"
+                assert params[arg].annotation == want, (name, params[arg].annotation)
+    assert seen == 18  # frequency_connectedness and joint_connectedness included

@@ -369,7 +369,7 @@ SHAPE_CASES = [
         # EX_B's lag (or EX_B itself) is the only thing moving, named as such
         r"series 'EX_B' is constant in this window; a VAR needs series that vary"
         r"|not fitted: the window gives \(nearly\) perfectly collinear regressors \['EX_B\.L1'\] .*"
-        r"|not fitted: the window yields a singular residual covariance .*some series \(e\.g\. 'EX_B'\) is an exact function of the lags of the others — drop it",
+        r"|not fitted: the window has series 'EX_B' fitted exactly \(residual variance [-+.e\d]+ times its own variance\), so the residual covariance is singular: it is an exact function of the lagged series \(and constant/trend\) — drop it or use fewer lags",
         universe="extra_trio", extra={"min_skipped": 20},
     ),
     Case(
@@ -377,7 +377,8 @@ SHAPE_CASES = [
         r"not fitted: the window gives \(nearly\) perfectly collinear regressors \['EX_A\.L1', 'EX_C\.L1'\] \(reciprocal condition number [-+.e\d]+ < 1e-10 after scaling columns\); "
         r"a series is a linear combination of others, or of the constant/trend — drop one of the series involved or use fewer lags"
         # where the copy starts inside the window's presample row, the lags still differ there
-        r"|not fitted: the window yields a singular residual covariance .*some series \(e\.g\. 'EX_[AC]'\) is an exact function of the lags of the others — drop it",
+        r"|not fitted: the window has series 'EX_[AC]' fitted exactly \(residual variance [-+.e\d]+ times its own variance\), so the residual covariance is singular: it is an exact function of the lagged series \(and constant/trend\) — drop it or use fewer lags"
+        r"|not fitted: the window gives residuals of \['EX_A', 'EX_C'\] that are exactly linearly dependent .* — drop one of them",
         universe="extra_trio", extra={"min_skipped": 20},
     ),
     Case(
