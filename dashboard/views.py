@@ -57,6 +57,8 @@ from .data import (
 __all__ = [
     "VIEWS",
     "View",
+    "band_index_view",
+    "band_net_view",
     "bands_view",
     "compare_pairs_view",
     "compare_paths_view",
@@ -531,9 +533,8 @@ def cycles_view(snap: Snapshot, state: Any) -> ViewResult:
 
 
 
-@guard
-def bands_view(snap: Snapshot, state: Any) -> tuple[ViewResult, ViewResult]:
-    """Connectedness by cycle length over time (stacked bands), and net by band at the window end."""
+def _band_history(snap: Snapshot, state: Any) -> tuple[Universe, Any, dt.date]:
+    """(universe, its band history, the window end the views use); a clear message when none."""
     window = _window(snap, state)
     u = snap.universe(window.universe)
     bh = snap.band_history(u)
@@ -541,32 +542,51 @@ def bands_view(snap: Snapshot, state: Any) -> tuple[ViewResult, ViewResult]:
         msg = (f"Universe '{u.name}' stores no frequency bands; set `frequency_bands = [5, 20]` "
                "(cycle lengths in rows) in its [[universes]] table and run again.")
         raise WindowError(msg)
-    end = snap.fitted_end(window)
+    return u, bh, snap.fitted_end(window)
+
+
+@guard
+def band_index_view(snap: Snapshot, state: Any) -> ViewResult:
+    """Connectedness by cycle length over every window (stacked bands, Baruník–Křehlík 2018)."""
+    u, bh, end = _band_history(snap, state)
     k = bh.at(end)
-    unit = "rows"
     fig = charts.band_index_figure(bh.ends, bh.total, bh.periods, universe=u.name,
-                                   truncation=bh.truncation, within=bh.within, unit=unit)  # fmt: skip
-    net = bh.to_others[k] - bh.from_others[k]
-    bars = charts.band_net_figure(
-        net, bh.periods, u.series, unit=unit,
-        title=f"Net transmitter (+) or receiver (−) by cycle length, window ending {end}",
-    )  # fmt: skip
-    labels = [charts.band_label(lo, hi, unit) for lo, hi in bh.periods]
+                                   truncation=bh.truncation, within=bh.within)  # fmt: skip
+    labels = [charts.band_label(lo, hi) for lo, hi in bh.periods]
     rows = [
         {"window_end": iso(e), "band": labels[b], "period_lo": lo, "period_hi": hi,
          "total_percent": num(bh.total[w, b]), "within_percent": num(bh.within[w, b]),
          "band_share": num(bh.share[w, b])}
         for w, e in enumerate(bh.ends) for b, (lo, hi) in enumerate(bh.periods)
     ]  # fmt: skip
-    net_rows = [
+    shares = ", ".join(f"{lab}: {100 * bh.share[k, b]:.0f}%" for b, lab in enumerate(labels))
+    note = (f"Baruník–Křehlík frequency connectedness; the bands add up to the index at "
+            f"{bh.truncation} steps. Variance by band at {end}: {shares}.")  # fmt: skip
+    return fig, rows, note
+
+
+@guard
+def band_net_view(snap: Snapshot, state: Any) -> ViewResult:
+    """Each series' net role (to − from) by cycle length at the window end."""
+    u, bh, end = _band_history(snap, state)
+    k = bh.at(end)
+    net = bh.to_others[k] - bh.from_others[k]
+    fig = charts.band_net_figure(
+        net, bh.periods, u.series,
+        title=f"Net transmitter (+) or receiver (−) by cycle length, window ending {end}",
+    )  # fmt: skip
+    labels = [charts.band_label(lo, hi) for lo, hi in bh.periods]
+    rows = [
         {"window_end": iso(end), "band": labels[b], "series": s, "to_others": num(bh.to_others[k, b, i]),
          "from_others": num(bh.from_others[k, b, i]), "net": num(net[b, i])}
         for b in range(len(labels)) for i, s in enumerate(u.series)
     ]  # fmt: skip
-    shares = ", ".join(f"{lab}: {100 * bh.share[k, b]:.0f}%" for b, lab in enumerate(labels))
-    note = (f"Baruník–Křehlík frequency connectedness; the bands add up to the index at "
-            f"{bh.truncation} steps. Variance by band at {end}: {shares}.")  # fmt: skip
-    return (fig, rows, note), (bars, net_rows, f"Window ending {end}; percentage points.")
+    return fig, rows, f"Window ending {end}; percentage points."
+
+
+def bands_view(snap: Snapshot, state: Any) -> tuple[ViewResult, ViewResult]:
+    """Both charts of the cycle-length tab."""
+    return band_index_view(snap, state), band_net_view(snap, state)
 
 
 @guard
