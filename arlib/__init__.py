@@ -34,7 +34,7 @@ from ._moments import (
 from ._responses import impulse_responses, ma_coefficients
 from ._rolling import RollingVAR, rolling_var
 from ._sizes import minimum_window
-from ._tvp import TVPVAR, TVPState, tvp_var
+from ._tvp import TimeVaryingVAR, TVPState, tvp_var
 from ._validate import ArlibError, InvalidInputError, UnstableProcessWarning, VARLike
 
 __all__ = [
@@ -53,7 +53,7 @@ __all__ = [
     "RollingVAR",
     "SpectralPeak",
     "TVPState",
-    "TVPVAR",
+    "TimeVaryingVAR",
     "UnstableProcessWarning",
     "VARFit",
     "VARLike",

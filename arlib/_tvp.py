@@ -173,7 +173,7 @@ class TVPState:
 
 
 @dataclass(frozen=True, eq=False, repr=False)
-class TVPVAR:
+class TimeVaryingVAR:
     """Per-date TVP-VAR results. D dates, n series, p lags, d bands. All arrays read-only.
 
     Attributes
@@ -248,7 +248,7 @@ class TVPVAR:
     def __repr__(self) -> str:
         span = f"rows {self.ends[0]}..{self.ends[-1]}" if len(self) else "no rows"
         return (
-            f"TVPVAR({len(self)} dates ({span}), n={self.n}, lags={self.lags}, "
+            f"TimeVaryingVAR({len(self)} dates ({span}), n={self.n}, lags={self.lags}, "
             f"kappa1={self.kappa1}, kappa2={self.kappa2}, covariance={self.covariance!r}, "
             f"horizon={self.horizon})"
         )
@@ -431,7 +431,7 @@ def tvp_var(
     joint: bool = False,
     names: Sequence[str] | None = None,
     state: TVPState | None = None,
-) -> TVPVAR:
+) -> TimeVaryingVAR:
     """Filter a TVP-VAR with forgetting factors and compute connectedness at every date.
 
     See the module docstring for the recursion, the state-covariance choice and the prior.
@@ -457,7 +457,7 @@ def tvp_var(
 
     Returns
     -------
-    TVPVAR (see its docstring for every array's shape), with ``.state`` to continue from.
+    TimeVaryingVAR (see its docstring for every array's shape), with ``.state`` to continue from.
 
     Raises
     ------
@@ -474,7 +474,7 @@ def tvp_var(
         )  # fmt: skip
     if state is not None:
         if not isinstance(state, TVPState):
-            msg = f"`state` must be a TVPState (a TVPVAR's .state), got {type(state).__name__}"
+            msg = f"`state` must be a TVPState (a TimeVaryingVAR's .state), got {type(state).__name__}"
             raise InvalidInputError(msg)
         for arg, given, stored in (
             ("lags", lags, state.lags), ("trend", trend, state.trend),
@@ -483,11 +483,13 @@ def tvp_var(
         ):  # fmt: skip
             _same(arg, given, stored)
         if training is not None or reuse_training:
-            msg = "`training`/`reuse_training` set the prior of a new filter; drop them with `state`"
+            msg = (
+                "`training`/`reuse_training` set the prior of a new filter; drop them with `state`"
+            )
             raise InvalidInputError(msg)
         labels = state.names if names is None else as_names(names, len(state.names))
         _same("names", labels, state.names)
-        data, _ = as_data(y, labels)
+        data, _ = as_data(y)
         if data.shape[1] != len(labels):
             msg = (
                 f"`y` has {data.shape[1]} series but the state has {len(labels)} "
@@ -582,7 +584,7 @@ def tvp_var(
         g["to_others"], g["from_others"], g["net"], m.get("band_pairwise"), *bandm.values(),
         *jm.values(),
     )  # fmt: skip
-    return TVPVAR(
+    return TimeVaryingVAR(
         ends=ends, coefs=coefs, intercept=intercept, sigma_u=S_path, prediction_error=e_path,
         spectral_radius=radius, total_connectedness=g["total"], to_others=g["to_others"],
         from_others=g["from_others"], net=g["net"], pairwise=m["pairwise"], bands=band_parts,

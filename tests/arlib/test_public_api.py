@@ -20,7 +20,7 @@ PINNED = [
     "RollingVAR",
     "SpectralPeak",
     "TVPState",
-    "TVPVAR",
+    "TimeVaryingVAR",
     "UnstableProcessWarning",
     "VARFit",
     "VARLike",
