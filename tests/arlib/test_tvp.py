@@ -19,6 +19,10 @@ import pytest
 
 import arlib
 from arlib import InvalidInputError, TVPState, tvp_var
+from arlib._decompose import fevd_kernel
+from arlib._frequency import band_weights, frequency_kernel
+from arlib._joint import joint_kernel
+from arlib._tvp import _measures
 
 from .conftest import A1, A2, SIGMA, simulate
 
@@ -247,6 +251,28 @@ def test_per_date_measures_equal_single_model_calls(y):
         assert math.isclose(res.joint_total[t], jc.total, abs_tol=1e-10)
         np.testing.assert_allclose(res.joint_to_others[t], jc.to_others, atol=1e-10)
         assert math.isclose(res.spectral_radius[t], proc.spectral_radius, rel_tol=1e-12)
+
+
+@pytest.mark.parametrize(
+    ("horizon", "truncation", "grid"), [(10, 30, 30), (10, 30, 91), (12, 7, 512)]
+)
+def test_per_date_kernels_equal_the_frequency_and_decomposition_kernels(horizon, truncation, grid):
+    # The per-date kernels take the band sums from an rfft of size 2·L and a fixed linear map
+    # (Parseval/Wiener–Khinchin identity in `band_map`'s docstring) instead of an rfft of size N;
+    # they must equal `_frequency.frequency_kernel` on its grid N — also N = L and odd N — and
+    # `_decompose.fevd_kernel`'s generalized last step. Tolerance 1e-12 (rounding of fractions).
+    rng = np.random.default_rng(horizon + truncation + grid)
+    D, n, p = 6, 4, 3
+    coefs = rng.normal(size=(D, p, n, n)) * 0.25 / n
+    a = rng.normal(size=(D, n, n))
+    sigma = a @ a.transpose(0, 2, 1) + 0.2 * np.eye(n)
+    got = _measures(coefs, sigma, horizon, BANDS, truncation, grid, joint=True)
+    weights = band_weights(BANDS, grid)
+    ref_bands = frequency_kernel(coefs, sigma, truncation, grid, weights)
+    ref_gen = fevd_kernel(coefs, sigma, horizon, "generalized", None)[:, -1]
+    np.testing.assert_allclose(got["band_pairwise"] / 100, ref_bands, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(got["pairwise"] / 100, ref_gen, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(got["joint"], joint_kernel(coefs, sigma, horizon), atol=1e-12)
 
 
 def test_result_shapes_and_read_only(y):
