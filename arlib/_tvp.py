@@ -188,7 +188,8 @@ class TimeVaryingVAR:
     sigma_u : (D, n, n) Σ_{t|t}.
     prediction_error : (D, n) e_t = y_t − B_{t−1}' z_t, the one-step prediction error.
     spectral_radius : (D,) largest eigenvalue modulus of the date's companion matrix (>= 1 means
-        the filtered VAR is not stable at that date; its measures are still computed).
+        the filtered VAR is not stable at that date; its measures are still computed), or
+        None with ``stability=False``.
     total_connectedness : (D,) percent; to_others, from_others, net : (D, n) percent;
     pairwise : (D, n, n) percent, [t, i, j] = share of i's H-step forecast-error variance due to
         shocks in j (generalized, row-normalised; Diebold & Yilmaz 2012); rows sum to 100.
@@ -210,7 +211,7 @@ class TimeVaryingVAR:
     intercept: np.ndarray | None
     sigma_u: np.ndarray
     prediction_error: np.ndarray
-    spectral_radius: np.ndarray
+    spectral_radius: np.ndarray | None
     total_connectedness: np.ndarray
     to_others: np.ndarray
     from_others: np.ndarray
@@ -352,12 +353,12 @@ def scaled_ma(coefs: np.ndarray, sigma: np.ndarray, terms: int) -> np.ndarray:
     a_h[i, k]² = σ_kk^{-1} (e_i'Φ_hΣe_k)², the generalized FEVD term (Pesaran–Shin eq. 11).
     """
     D, p, n, _ = coefs.shape
-    A = np.concatenate(list(np.moveaxis(coefs, -3, 0)), axis=-1)  # (D, n, n·p) = [A_1 … A_p]
+    A = np.concatenate(list(np.moveaxis(coefs[:, ::-1], -3, 0)), axis=-1)  # [A_p … A_1]
     buf = np.zeros((D, terms + p - 1, n, n))  # a_h at index h + p − 1; zeros stand for h < 0
     sd = np.sqrt(np.diagonal(sigma, axis1=-2, axis2=-1))
     buf[:, p - 1] = sigma / sd[:, None, :]
     for h in range(1, terms):
-        lagged = buf[:, h - 1 : h + p - 1][:, ::-1].reshape(D, p * n, n)  # [a_{h−1}; …; a_{h−p}]
+        lagged = buf[:, h - 1 : h + p - 1].reshape(D, p * n, n)  # [a_{h−p}; …; a_{h−1}] (view)
         np.matmul(A, lagged, out=buf[:, h + p - 1])
     return buf[:, p - 1 :]
 
@@ -397,10 +398,13 @@ def _measures(
     truncation: int | None,
     grid: int | None,
     joint: bool,
+    stability: bool = True,
 ) -> dict[str, np.ndarray]:
     """Per-date generalized table (percent), band tables (percent), joint shares, radius."""
     D, p, n, _ = coefs.shape
-    out: dict[str, np.ndarray] = {"pairwise": np.empty((D, n, n)), "radius": np.empty(D)}
+    out: dict[str, np.ndarray] = {"pairwise": np.empty((D, n, n))}
+    if stability:
+        out["radius"] = np.empty(D)
     terms, M, U = horizon, 0, None
     if bands is not None and truncation is not None and grid is not None:
         M, U = band_map(band_weights(bands, grid), grid, truncation)
@@ -424,7 +428,8 @@ def _measures(
             out["band_pairwise"][sl] = 100.0 * band / band.sum(axis=(-3, -1), keepdims=True)
         if joint:
             out["joint"][sl] = joint_kernel(c, s, horizon)
-        out["radius"][sl] = spectral_radius(c)
+        if stability:
+            out["radius"][sl] = spectral_radius(c)
     return out
 
 
@@ -477,6 +482,7 @@ def tvp_var(
     truncation: int = DEFAULT_TRUNCATION,
     grid: int | None = None,
     joint: bool = False,
+    stability: bool = True,
     names: Sequence[str] | None = None,
     state: TVPState | None = None,
 ) -> TimeVaryingVAR:
@@ -500,6 +506,9 @@ def tvp_var(
     bands : cycle-length bands for Baruník–Křehlík connectedness per date (see
         `frequency_connectedness`), or None.   truncation, grid : their MA terms and FFT size.
     joint : also compute Lastrapes–Wiesen joint connectedness per date.
+    stability : compute each date's companion spectral radius (an eigenvalue problem of size
+        n·p per date: about two thirds of the generalized-only run's time for n = 12, more for
+        larger n); False leaves `spectral_radius` None.
     names : n series names (default y0, y1, …; with `state`, the state's).
     state : a `TVPState` (``result.state``) to continue from; settings then come from it.
 
@@ -604,9 +613,9 @@ def tvp_var(
     D = Y.shape[0]
     coefs = B_path[:, d:, :].reshape(D, p, n, n).transpose(0, 1, 3, 2).copy()
     intercept = B_path[:, 0, :].copy() if d else None
-    m = _measures(coefs, S_path, H, band_parts, H_f, N_f, bool(joint))
+    m = _measures(coefs, S_path, H, band_parts, H_f, N_f, bool(joint), bool(stability))
     g = spillover_measures(m["pairwise"])
-    radius = m["radius"]
+    radius = m.get("radius")
     new_tail = np.concatenate([tail, Y])[-p:].copy()
     new_state = TVPState(
         params=B_end, cov=C_end, sigma=S_end, tail=new_tail, row=first_row + D, lags=p,

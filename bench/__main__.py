@@ -19,6 +19,7 @@ CASES: dict[str, str] = {
     "dashboard": "bench.dashboard_callbacks:case",
     "pipeline": "bench.pipeline:main",
     "load": "bench.load_dashboard:case",
+    "tvp": "bench.tvp:main",
 }
 
 

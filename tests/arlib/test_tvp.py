@@ -295,6 +295,9 @@ def test_result_shapes_and_read_only(y):
     assert not res.state.params.flags.writeable
     reused = tvp_var(y, 2, 8, reuse_training=True)
     assert reused.ends[0] == 2 and len(reused) == len(y) - 2
+    quick = tvp_var(y, 2, 8, stability=False)
+    assert quick.spectral_radius is None
+    np.testing.assert_array_equal(quick.pairwise, tvp_var(y, 2, 8).pairwise)
     no_const = tvp_var(y, 2, 8, trend="n")
     assert no_const.intercept is None and no_const.state.params.shape == (6, 3)
 
