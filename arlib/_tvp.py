@@ -102,6 +102,7 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
+from scipy.signal import lfilter
 
 from ._decompose import spillover_measures
 from ._estimate import TREND_TERMS, fit_var, spectral_radius
@@ -276,31 +277,46 @@ def filter_kronecker(
     Y: np.ndarray, Z: np.ndarray, B: np.ndarray, V: np.ndarray, S: np.ndarray, k1: float, k2: float
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Forgetting-factor RLS with P = Σ ⊗ V (module docstring). Returns the per-date paths
-    B (T, k, n), Σ (T, n, n), e (T, n) and the final B, V, Σ."""
+    B (T, k, n), Σ (T, n, n), e (T, n) and the final B, V, Σ.
+
+    V is kept exactly symmetric (a symmetric start, and each update subtracts a scaled outer
+    product of one vector with itself). Σ_t = κ₂Σ_{t−1} + (1 − κ₂)ε_tε_t' does not feed back
+    into B or V, so it runs after the loop as one first-order recursion over all dates.
+    """
     T, n = Y.shape
     k = Z.shape[1]
     B_out = np.empty((T, k, n))
-    S_out = np.empty((T, n, n))
     e_out = np.empty((T, n))
+    eps = np.empty((T, n))
     B = B.copy()
-    V = V.copy()
-    S = S.copy()
+    V = 0.5 * (V + V.T)
+    inv_k1 = 1.0 / k1
     for t in range(T):
         z = Z[t]
-        Vp = V / k1  # V_{t|t−1} = V_{t−1} / κ₁
-        Vz = Vp @ z
-        s = 1.0 + z @ Vz  # 1 + z'V_{t|t−1}z
-        g = Vz / s  # gain g_t
+        Vz = V @ z  # κ₁ V_{t|t−1} z_t
+        s = 1.0 + float(z @ Vz) * inv_k1  # 1 + z'V_{t|t−1}z
         e = Y[t] - z @ B  # e_t = y_t − B_{t−1}'z_t
-        B += np.outer(g, e)  # B_t = B_{t−1} + g_t e_t'
-        V = Vp - np.outer(g, Vz)  # V_t = V_{t|t−1} − g_t z_t'V_{t|t−1}
-        V = 0.5 * (V + V.T)
-        eps = e / s  # ε_t = y_t − B_t'z_t = e_t (1 − z'g_t)
-        S = k2 * S + (1.0 - k2) * np.outer(eps, eps)  # Σ_t = κ₂Σ_{t−1} + (1−κ₂)ε_tε_t'
+        B += np.outer(Vz * (inv_k1 / s), e)  # B_t = B_{t−1} + g_t e_t',  g_t = V_{t|t−1}z / s
+        V = (V - np.outer(Vz, Vz) * (inv_k1 / s)) * inv_k1  # V_{t|t−1} − g_t z'V_{t|t−1}
         B_out[t] = B
-        S_out[t] = S
         e_out[t] = e
-    return B_out, S_out, e_out, B, V, S
+        eps[t] = e / s  # ε_t = y_t − B_t'z_t = e_t (1 − z'g_t)
+    S_out = ewma(eps, S, k2)
+    return B_out, S_out, e_out, B, V, S_out[-1].copy()
+
+
+def ewma(eps: np.ndarray, S0: np.ndarray, k2: float) -> np.ndarray:
+    """(T, n, n) Σ_t = κ₂ Σ_{t−1} + (1 − κ₂) ε_t ε_t' from Σ_0 = S0, in blocks of dates."""
+    T, n = eps.shape
+    out = np.empty((T, n, n))
+    prev = S0
+    step = max(1, (4 * 2**20) // (8 * n * n))
+    for lo in range(0, T, step):
+        outer = eps[lo : lo + step, :, None] * eps[lo : lo + step, None, :]
+        block, _ = lfilter([1.0 - k2], [1.0, -k2], outer, axis=0, zi=(k2 * prev)[None])
+        out[lo : lo + step] = block
+        prev = block[-1]
+    return out
 
 
 def filter_full(
@@ -462,6 +478,29 @@ def _same(arg: str, given: Any, stored: Any) -> None:
         raise InvalidInputError(msg)
 
 
+def _check_state(state: TVPState) -> None:
+    """Shapes and finiteness of a (possibly reloaded) state, so a bad one fails before filtering."""
+    n, p = len(state.names), state.lags
+    if state.trend not in TVP_TRENDS or state.covariance not in COVARIANCES:
+        msg = f"`state` has trend={state.trend!r}, covariance={state.covariance!r}; not a TVP state"
+        raise InvalidInputError(msg)
+    k = len(TREND_TERMS[state.trend]) + n * p
+    m = k if state.covariance == "kronecker" else n * k
+    want = {"params": (k, n), "cov": (m, m), "sigma": (n, n), "tail": (p, n)}
+    for field, shape in want.items():
+        arr = np.asarray(getattr(state, field))
+        if arr.shape != shape or not np.isfinite(arr).all():
+            msg = (
+                f"`state`.{field} has shape {arr.shape} (finite: {bool(np.isfinite(arr).all())}) "
+                f"but {n} series, lags={p}, trend={state.trend!r}, covariance="
+                f"{state.covariance!r} need a finite {shape}; pass the state a TimeVaryingVAR "
+                "returned unchanged"
+            )
+            raise InvalidInputError(msg)
+    _check_kappa(state.kappa1, "kappa1", DEFAULT_KAPPA1)
+    _check_kappa(state.kappa2, "kappa2", DEFAULT_KAPPA2)
+
+
 # ---------------------------------------------------------------------------------------------
 # public entry
 # ---------------------------------------------------------------------------------------------
@@ -553,6 +592,7 @@ def tvp_var(
                 f"({list(labels)!r}); pass the new rows of the same series"
             )
             raise InvalidInputError(msg)
+        _check_state(state)
         p, trend_, cov_kind = state.lags, state.trend, state.covariance
         k1, k2 = state.kappa1, state.kappa2
         B0, C0, S0, tail = state.params, state.cov, state.sigma, state.tail

@@ -370,5 +370,8 @@ def test_state_settings_cannot_be_changed(y):
         tvp_var(y[300:, :2], horizon=5, state=res.state)
     with pytest.raises(InvalidInputError, match=r"`training`"):
         tvp_var(y[300:], horizon=5, training=50, state=res.state)
+    broken = TVPState(**{**vars(res.state), "sigma": np.eye(2)})
+    with pytest.raises(InvalidInputError, match=r"`state`.sigma has shape \(2, 2\).*\(3, 3\)"):
+        tvp_var(y[300:], horizon=5, state=broken)
     with pytest.raises(InvalidInputError, match=r"`lags` is required"):
         tvp_var(y, horizon=5)
