@@ -425,6 +425,7 @@ def _measures(
     terms, M, U = horizon, 0, None
     if bands is not None and truncation is not None and grid is not None:
         M, U = band_map(band_weights(bands, grid), grid, truncation)
+        U = np.repeat(U, 2, axis=0)  # rows for (re, im) pairs: |F_k|² = re² + im²
         terms = max(horizon, truncation)
         out["band_pairwise"] = np.empty((D, len(bands), n, n))
     if joint:
@@ -441,7 +442,7 @@ def _measures(
             assert truncation is not None
             x = np.ascontiguousarray(a[:, :truncation].transpose(0, 2, 3, 1))  # (t, n, n, L)
             F = np.fft.rfft(x, n=M, axis=-1)
-            band = np.moveaxis((F.real**2 + F.imag**2) @ U, -1, -3)  # (t, d, n, n)
+            band = np.moveaxis(np.square(F.view(np.float64)) @ U, -1, -3)  # (t, d, n, n)
             out["band_pairwise"][sl] = 100.0 * band / band.sum(axis=(-3, -1), keepdims=True)
         if joint:
             out["joint"][sl] = joint_kernel(c, s, horizon)
