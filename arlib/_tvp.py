@@ -23,7 +23,9 @@ The outputs of date t are B_{t|t} and Σ_{t|t}, and the connectedness measures o
 define. κ₁ = 1 forgets nothing: the filter is then the Bayesian update of constant coefficients.
 With κ₁ < 1 the coefficients' effective memory is about 1/(1 − κ₁) dates (100 for κ₁ = 0.99):
 an observation m dates old carries weight κ₁^m, and after a break the estimate covers a share
-1 − κ₁^m of the jump m dates later (63 % after 1/(1 − κ₁) dates, 95 % after 3/(1 − κ₁)).
+1 − κ₁^m of the jump m dates later (63 % after 1/(1 − κ₁) dates, 95 % after 3/(1 − κ₁);
+measured in the tests over 40 simulated breaks with κ₁ = 0.98: 0.42, 0.63, 0.85, 0.94 of the jump
+after 25, 50, 100, 150 dates against 0.40, 0.64, 0.87, 0.95).
 Σ_t's memory is 1/(1 − κ₂) dates likewise.
 
 State covariance: full or Kronecker
@@ -61,9 +63,9 @@ row `training` (so no row is used twice; dates run from row `training` on), or a
 both the prior and the filter, as is common in applied work. Default ``training`` =
 max(minimum_window(n, p), 4·k) rows (common practice: a few observations per coefficient). A
 prior from the first rows' least squares is the usual choice in this literature (Primiceri 2005;
-Koop & Korobilis 2013 — recalled from memory). Defaults κ₁ = κ₂ = 0.99 are those of
-Antonakakis, Chatziantoniou & Gabauer (2020) (recalled from memory; Koop & Korobilis 2013 report
-results for κ₁ ∈ {0.99, 1}, also from memory).
+Koop & Korobilis 2013 — recalled from memory). Defaults κ₁ = κ₂ = 0.99 are, as we recall them,
+those of Antonakakis, Chatziantoniou & Gabauer (2020) (recalled from memory, not checked against
+the paper here; the training length is ours, see above).
 
 Continuing
 ----------
