@@ -354,6 +354,18 @@ def test_bad_inputs_name_the_argument_and_the_fix(y, kwargs, pattern):
         tvp_var(y, 2, 5, **kwargs)
 
 
+def test_missing_rows_are_refused_with_their_row_and_series(y):
+    gappy = y.copy()
+    gappy[123, 1] = np.nan
+    with pytest.raises(InvalidInputError, match=r"NaN at row 123 of series 'y1'"):
+        tvp_var(gappy, 2, 5)
+    res = tvp_var(y[:300], 2, 5)
+    with pytest.raises(InvalidInputError, match=r"NaN at row 3 of series 'y1'"):
+        tvp_var(gappy[120:130], horizon=5, state=res.state)
+    assert "TimeVaryingVAR(272 dates (rows 28..299)" in repr(res)
+    assert repr(res.state).startswith("TVPState(row=300, n=3, lags=2")
+
+
 def test_too_few_rows_for_the_default_training_sample():
     y = np.random.default_rng(0).standard_normal((28, 3))
     with pytest.raises(InvalidInputError, match=r"`y` has 28 rows.*training=28.*more than 28"):
