@@ -34,6 +34,7 @@ from ._moments import (
 from ._responses import impulse_responses, ma_coefficients
 from ._rolling import RollingVAR, rolling_var
 from ._sizes import minimum_window
+from ._tvp import TimeVaryingVAR, TVPState, tvp_var
 from ._validate import ArlibError, InvalidInputError, UnstableProcessWarning, VARLike
 
 __all__ = [
@@ -51,6 +52,8 @@ __all__ = [
     "PortmanteauResult",
     "RollingVAR",
     "SpectralPeak",
+    "TVPState",
+    "TimeVaryingVAR",
     "UnstableProcessWarning",
     "VARFit",
     "VARLike",
@@ -77,6 +80,7 @@ __all__ = [
     "spectral_density",
     "spectral_peak",
     "stationary_covariance",
+    "tvp_var",
     "var_process",
     "variance_decomposition",
 ]

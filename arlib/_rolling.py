@@ -87,6 +87,7 @@ Pesaran, M. H. and Shin, Y. (1998). Economics Letters 58, 17–29.
 
 from __future__ import annotations
 
+import dataclasses
 import threading
 import time
 import warnings
@@ -110,6 +111,15 @@ from ._estimate import (
     _regressor_names,
     select_lags,
 )
+from ._frequency import (
+    DEFAULT_TRUNCATION,
+    band_weights,
+    check_bands,
+    default_grid,
+    frequency_kernel,
+    frequency_measures,
+)
+from ._joint import joint_kernel
 from ._sizes import minimum_window
 from ._validate import (
     InvalidInputError,
@@ -195,6 +205,13 @@ class RollingVAR:
     skip_reason : (W,) object, "" for fitted windows.   ok : (W,) bool.
     names : n series names.   window, step, trend, horizon, expanding : as passed.
     criterion : lag criterion or None.
+    band_periods : d frequency bands ((shortest, longest] cycle lengths in rows) or None;
+        band_truncation : the MA terms behind them. With bands, each window's
+        `frequency_connectedness` (Baruník & Křehlík 2018): band_tables (W, d, n, n) percent
+        [window, band, variable, shock]; band_total, band_within, band_share (W, d);
+        band_to_others, band_from_others (W, d, n) — None without bands.
+    joint_from_others : (W, n) percent, each window's `joint_connectedness` (Lastrapes & Wiesen
+        2021) at `horizon`, and joint_total (W,) their mean — None unless ``joint=True``.
     """
 
     ends: np.ndarray
@@ -234,6 +251,16 @@ class RollingVAR:
     horizon: int
     expanding: bool
     criterion: str | None
+    band_periods: tuple[tuple[float, float], ...] | None = None
+    band_truncation: int | None = None
+    band_tables: np.ndarray | None = None
+    band_total: np.ndarray | None = None
+    band_within: np.ndarray | None = None
+    band_share: np.ndarray | None = None
+    band_to_others: np.ndarray | None = None
+    band_from_others: np.ndarray | None = None
+    joint_from_others: np.ndarray | None = None
+    joint_total: np.ndarray | None = None
 
     def __len__(self) -> int:
         return int(self.ends.shape[0])
@@ -374,6 +401,9 @@ def rolling_var(
     portmanteau_lags: int | None = None,
     names: Sequence[str] | None = None,
     workers: int = 1,
+    frequency_bands: Sequence[tuple[float, float]] | None = None,
+    band_truncation: int = DEFAULT_TRUNCATION,
+    joint: bool = False,
     _timer: StageTimer | None = None,
 ) -> RollingVAR:
     """Fit a VAR on every rolling (or expanding) window and derive per-window results.
@@ -408,6 +438,10 @@ def rolling_var(
     decomposition : None | "generalized" | "cholesky" — store decompositions (W, H, n, n).
     portmanteau_lags : h > p to store the adjusted portmanteau p-value per window.
     names : n series names (default y0, y1, ...).
+    frequency_bands : None, or a partition of cycle lengths ((P_lo, P_hi], ...) as in
+        `frequency_connectedness` — also store each window's band connectedness, computed from
+        the window's coefficients and Σ̂_u with `band_truncation` MA terms.
+    joint : also store each window's joint connectedness at `horizon` (`joint_connectedness`).
     workers : threads that process chunks of windows side by side (default 1). numpy, BLAS and
         LAPACK release the interpreter lock in their loops, so threads gain when cores are free
         (the Python-level bookkeeping between calls still runs one thread at a time); every
@@ -432,6 +466,9 @@ def rolling_var(
     stp = check_int(step, "step", minimum=1)
     win = check_int(window, "window", minimum=2)
     nw = check_int(workers, "workers", minimum=1)
+    if frequency_bands is not None:  # refuse bad bands before any fitting
+        check_bands(frequency_bands, "frequency_bands")
+        check_int(band_truncation, "band_truncation", minimum=1)
     if lags is None:
         if criterion is None or max_lags is None:
             msg = (
@@ -498,7 +535,54 @@ def rolling_var(
     for p in np.unique(orders[orders > 0]):
         idx = np.flatnonzero(orders == p)
         _fit_group(data, finite, int(p), trend, idx, out, bool(expanding), win, nw, timer)
-    return out.finish(labels, win, stp, trend, H, bool(expanding), criterion)
+    result = out.finish(labels, win, stp, trend, H, bool(expanding), criterion)
+    if frequency_bands is not None or joint:
+        with timer("extras"):
+            result = _with_extras(result, frequency_bands, band_truncation, bool(joint))
+    return result
+
+
+def _with_extras(
+    result: RollingVAR,
+    bands: Sequence[tuple[float, float]] | None,
+    truncation: int,
+    joint: bool,
+) -> RollingVAR:
+    """`result` with band and joint connectedness of every fitted window (NaN where skipped).
+
+    The same kernels as `frequency_connectedness` and `joint_connectedness` on each window's
+    coefficients and Σ̂_u (zero coefficients beyond a window's own lag order change nothing),
+    in chunks of windows that keep the spectral arrays near 32 MiB.
+    """
+    ok = np.asarray(result.ok, dtype=bool)
+    k = np.flatnonzero(ok)
+    W, n = ok.size, result.n
+    coefs, sigma = np.asarray(result.coefs), np.asarray(result.sigma_u)
+    extra: dict[str, Any] = {}
+    if bands is not None:
+        parts = check_bands(bands, "frequency_bands")
+        H = check_int(truncation, "band_truncation", minimum=1)
+        N = default_grid(H)
+        weights = band_weights(parts, N)
+        d = len(parts)
+        tables = np.full((W, d, n, n), np.nan)
+        per = max(1, (32 * 2**20) // ((N // 2 + 1) * n * n * 16 * 3))
+        for lo in range(0, k.size, per):
+            sel = k[lo : lo + per]
+            tables[sel] = 100.0 * frequency_kernel(coefs[sel], sigma[sel], H, N, weights)
+        m = frequency_measures(tables)
+        extra.update(
+            band_periods=parts, band_truncation=H, band_tables=tables, band_total=m["total"],
+            band_within=m["within_total"], band_share=m["band_share"],
+            band_to_others=m["to_others"], band_from_others=m["from_others"],
+        )  # fmt: skip
+    if joint:
+        shares = np.full((W, n), np.nan)
+        if k.size:
+            shares[k] = 100.0 * joint_kernel(coefs[k], sigma[k], result.horizon)
+        extra.update(joint_from_others=shares, joint_total=shares.mean(axis=-1))
+    readonly(*(v for v in extra.values() if isinstance(v, np.ndarray)))
+    return dataclasses.replace(result, **extra)
 
 
 # ---------------------------------------------------------------------------------------------

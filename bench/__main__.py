@@ -20,6 +20,7 @@ CASES: dict[str, str] = {
     "pipeline": "bench.pipeline:main",
     "load": "bench.load_dashboard:case",
     "ingest_memory": "bench.ingest_memory:case",
+    "tvp": "bench.tvp:main",
 }
 
 

@@ -39,10 +39,14 @@ from ._theme import (
 )
 
 __all__ = [
+    "band_index_figure",
+    "band_label",
+    "band_net_figure",
     "cycles_figure",
     "granger_figure",
     "health_figure",
     "index_figure",
+    "joint_index_figure",
     "message_figure",
     "net_figure",
     "network_figure",
@@ -742,5 +746,133 @@ def cycles_figure(
         xaxis=th.axis(title={"text": "frequency (cycles per observation; period = 1 / frequency)"},
                     range=[0, 0.5]),
         yaxis=th.axis(title={"text": "spectral density ÷ variance (log scale)"}, type="log"),
+    )  # fmt: skip
+    return {"data": data, "layout": layout}
+
+
+# ---------------------------------------------------------------------------------------------
+# connectedness by cycle length (frequency bands) and joint connectedness
+# ---------------------------------------------------------------------------------------------
+
+#: One colour per frequency band, shortest cycles first (Okabe–Ito colours, warm = fast).
+BAND_COLOURS = (VERMILLION, ORANGE, GREEN, BLUE, PURPLE, GREY)
+
+
+def band_label(lo: float, hi: float, unit: str = "rows") -> str:
+    """'cycles ≤ 5 rows', '5–20 rows', '> 20 rows' for the band (lo, hi] of cycle lengths."""
+    if lo <= 2:
+        return f"cycles ≤ {hi:g} {unit}"
+    if math.isinf(hi):
+        return f"cycles > {lo:g} {unit}"
+    return f"cycles {lo:g}–{hi:g} {unit}"
+
+
+def band_index_figure(
+    dates: Sequence[dt.date],
+    totals: np.ndarray,
+    periods: Sequence[tuple[float, float]],
+    *,
+    universe: str,
+    truncation: int,
+    within: np.ndarray | None = None,
+    unit: str = "rows",
+    medium: Medium = "screen",
+) -> Figure:
+    """Connectedness split by cycle length over every window (Baruník–Křehlík 2018), stacked.
+
+    totals : (W, d) frequency connectedness per band in percent; stacked, the bands add up to the
+    total index at horizon `truncation`. within : optional (W, d) within-band connectedness,
+    drawn as dotted lines on a second axis.
+    """
+    x = th.dates(dates)
+    arr = np.asarray(totals, dtype=float)
+    data: list[dict[str, Any]] = []
+    for b, (lo, hi) in enumerate(periods):
+        name = band_label(lo, hi, unit)
+        c = BAND_COLOURS[b % len(BAND_COLOURS)]
+        data.append({
+            "type": "scatter", "x": x, "y": th.as_list(arr[:, b]), "mode": "lines", "name": name,
+            "stackgroup": "bands", "line": {"color": c, "width": 1.0}, "fillcolor": c,
+            "hovertemplate": f"{name}: " + "%{y:.1f}%<extra></extra>",
+        })  # fmt: skip
+        if within is not None:
+            data.append({
+                "type": "scatter", "x": x, "y": th.as_list(np.asarray(within, dtype=float)[:, b]),
+                "mode": "lines", "name": f"within {name}", "yaxis": "y2", "visible": "legendonly",
+                "line": {"color": c, "dash": "dot", "width": 1.4},
+                "hovertemplate": f"within {name}: " + "%{y:.1f}%<extra></extra>",
+            })  # fmt: skip
+    layout = th.layout(
+        height=380, medium=medium,
+        title=f"Connectedness by cycle length, {universe}",
+        legend={"orientation": "h", "x": 0.0, "xanchor": "left", "yref": "container", "y": 0.0,
+                "yanchor": "bottom"},
+        margin={"l": 60, "r": 60, "t": 70, "b": 90},
+        xaxis=th.axis(type="date"),
+        yaxis=th.axis(title={"text": f"% of forecast-error variance (stacked; sum = index at {truncation} steps)"}),
+        yaxis2={"overlaying": "y", "side": "right", "showgrid": False,
+                "title": {"text": "within-band, %"}},
+    )  # fmt: skip
+    return {"data": data, "layout": layout}
+
+
+def band_net_figure(
+    net: np.ndarray,
+    periods: Sequence[tuple[float, float]],
+    names: Sequence[str],
+    *,
+    title: str,
+    unit: str = "rows",
+    medium: Medium = "screen",
+) -> Figure:
+    """Net connectedness (to − from, percentage points) per series and band at one window.
+
+    net : (d, n) [band, series]; one group of bars per series, one bar per band.
+    """
+    arr = np.asarray(net, dtype=float)
+    data = [
+        {
+            "type": "bar", "x": list(names), "y": th.as_list(arr[b]), "name": band_label(lo, hi, unit),
+            "marker": {"color": BAND_COLOURS[b % len(BAND_COLOURS)]},
+            "hovertemplate": "%{x}: %{y:.2f} pp<extra>" + band_label(lo, hi, unit) + "</extra>",
+        }
+        for b, (lo, hi) in enumerate(periods)
+    ]  # fmt: skip
+    layout = th.layout(
+        height=360, title=title, medium=medium, barmode="group",
+        legend={"orientation": "h", "x": 0.0, "xanchor": "left", "yref": "container", "y": 0.0,
+                "yanchor": "bottom"},
+        margin={"l": 60, "r": 20, "t": 60, "b": 90},
+        xaxis=th.axis(), yaxis=th.axis(title={"text": "net (to − from), percentage points"}),
+    )  # fmt: skip
+    return {"data": data, "layout": layout}
+
+
+def joint_index_figure(
+    dates: Sequence[dt.date],
+    joint: np.ndarray,
+    generalized: np.ndarray,
+    *,
+    universe: str,
+    horizon: int,
+    medium: Medium = "screen",
+) -> Figure:
+    """Joint (Lastrapes–Wiesen 2021) and generalized (Diebold–Yilmaz 2012) total index over time."""
+    x = th.dates(dates)
+    data = [
+        {"type": "scatter", "x": x, "y": th.as_list(joint), "mode": "lines", "name": "joint",
+         "line": {"color": BLUE, "width": 1.8},
+         "hovertemplate": "joint %{y:.1f}%<extra></extra>"},
+        {"type": "scatter", "x": x, "y": th.as_list(generalized), "mode": "lines",
+         "name": "generalized (row-normalised)", "line": {"color": ORANGE, "width": 1.4, "dash": "dash"},
+         "hovertemplate": "generalized %{y:.1f}%<extra></extra>"},
+    ]  # fmt: skip
+    layout = th.layout(
+        height=340, medium=medium,
+        title=f"Joint vs generalized total connectedness, {universe}, {horizon}-step horizon",
+        legend={"orientation": "h", "x": 0.0, "xanchor": "left", "yref": "container", "y": 0.0,
+                "yanchor": "bottom"},
+        margin={"l": 60, "r": 20, "t": 60, "b": 80},
+        xaxis=th.axis(type="date"), yaxis=th.axis(title={"text": "% of forecast-error variance"}),
     )  # fmt: skip
     return {"data": data, "layout": layout}

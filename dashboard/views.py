@@ -57,6 +57,9 @@ from .data import (
 __all__ = [
     "VIEWS",
     "View",
+    "band_index_view",
+    "band_net_view",
+    "bands_view",
     "compare_pairs_view",
     "compare_paths_view",
     "compare_view",
@@ -64,6 +67,7 @@ __all__ = [
     "empty_note",
     "health_view",
     "index_view",
+    "joint_view",
     "leadlag_view",
     "network_view",
     "paths_view",
@@ -529,6 +533,87 @@ def cycles_view(snap: Snapshot, state: Any) -> ViewResult:
 
 
 
+def _band_history(snap: Snapshot, state: Any) -> tuple[Universe, Any, dt.date]:
+    """(universe, its band history, the window end the views use); a clear message when none."""
+    window = _window(snap, state)
+    u = snap.universe(window.universe)
+    bh = snap.band_history(u)
+    if bh is None:
+        msg = (f"Universe '{u.name}' stores no frequency bands; set `frequency_bands = [5, 20]` "
+               "(cycle lengths in rows) in its [[universes]] table and run again.")
+        raise WindowError(msg)
+    return u, bh, snap.fitted_end(window)
+
+
+@guard
+def band_index_view(snap: Snapshot, state: Any) -> ViewResult:
+    """Connectedness by cycle length over every window (stacked bands, Baruník–Křehlík 2018)."""
+    u, bh, end = _band_history(snap, state)
+    k = bh.at(end)
+    fig = charts.band_index_figure(bh.ends, bh.total, bh.periods, universe=u.name,
+                                   truncation=bh.truncation, within=bh.within)  # fmt: skip
+    labels = [charts.band_label(lo, hi) for lo, hi in bh.periods]
+    rows = [
+        {"window_end": iso(e), "band": labels[b], "period_lo": lo, "period_hi": hi,
+         "total_percent": num(bh.total[w, b]), "within_percent": num(bh.within[w, b]),
+         "band_share": num(bh.share[w, b])}
+        for w, e in enumerate(bh.ends) for b, (lo, hi) in enumerate(bh.periods)
+    ]  # fmt: skip
+    shares = ", ".join(f"{lab}: {100 * bh.share[k, b]:.0f}%" for b, lab in enumerate(labels))
+    note = (f"Baruník–Křehlík frequency connectedness; the bands add up to the index at "
+            f"{bh.truncation} steps. Variance by band at {end}: {shares}.")  # fmt: skip
+    return fig, rows, note
+
+
+@guard
+def band_net_view(snap: Snapshot, state: Any) -> ViewResult:
+    """Each series' net role (to − from) by cycle length at the window end."""
+    u, bh, end = _band_history(snap, state)
+    k = bh.at(end)
+    net = bh.to_others[k] - bh.from_others[k]
+    fig = charts.band_net_figure(
+        net, bh.periods, u.series,
+        title=f"Net transmitter (+) or receiver (−) by cycle length, window ending {end}",
+    )  # fmt: skip
+    labels = [charts.band_label(lo, hi) for lo, hi in bh.periods]
+    rows = [
+        {"window_end": iso(end), "band": labels[b], "series": s, "to_others": num(bh.to_others[k, b, i]),
+         "from_others": num(bh.from_others[k, b, i]), "net": num(net[b, i])}
+        for b in range(len(labels)) for i, s in enumerate(u.series)
+    ]  # fmt: skip
+    return fig, rows, f"Window ending {end}; percentage points."
+
+
+def bands_view(snap: Snapshot, state: Any) -> tuple[ViewResult, ViewResult]:
+    """Both charts of the cycle-length tab."""
+    return band_index_view(snap, state), band_net_view(snap, state)
+
+
+@guard
+def joint_view(snap: Snapshot, state: Any) -> ViewResult:
+    """Joint (all other shocks together) vs generalized total connectedness over time."""
+    window = _window(snap, state)
+    u = snap.universe(window.universe)
+    jh = snap.joint_history(u)
+    if jh is None:
+        msg = (f"Universe '{u.name}' stores no joint connectedness; set `joint = true` in its "
+               "[[universes]] table and run again.")
+        raise WindowError(msg)
+    fig = charts.joint_index_figure(jh.ends, jh.total, jh.generalized_total, universe=u.name,
+                                    horizon=u.horizon)  # fmt: skip
+    rows = [
+        {"window_end": iso(e), "joint_percent": num(jh.total[w]),
+         "generalized_percent": num(jh.generalized_total[w]),
+         **{f"joint_from_{s}": num(jh.from_others[w, i]) for i, s in enumerate(u.series)}}
+        for w, e in enumerate(jh.ends)
+    ]  # fmt: skip
+    gap = jh.total - jh.generalized_total
+    note = (f"Lastrapes–Wiesen joint index: each series' share of variance due to all other shocks "
+            f"together, averaged. Joint − generalized over the history: mean {np.mean(gap):+.1f}, "
+            f"range {np.min(gap):+.1f} to {np.max(gap):+.1f} points.")  # fmt: skip
+    return fig, rows, note
+
+
 # ---------------------------------------------------------------------------------------------
 # the table of views
 # ---------------------------------------------------------------------------------------------
@@ -689,6 +774,13 @@ VIEWS: tuple[View, ...] = (
          charts=(("compare-pairs", 380), ("compare-paths", 520)), controls=_compare_controls),
     View("health", health_view, tab="Model health", inputs=(NEAR_ONE,), charts=(("health", 640),),
          controls=_health_controls, extra=(SKIPPED_TABLE, _skipped)),
+    View("bands", bands_view, tab="By cycle length", charts=(("bands", 400), ("bands-net", 380)),
+         intro=("How much of the connectedness travels in short cycles and how much in long ones "
+                "(Baruník–Křehlík 2018): the stored index split by cycle length, in rows of the "
+                "universe's calendar, and each series' net role by cycle length at the window end.")),
+    View("joint", joint_view, tab="Joint index", charts=(("joint", 360),),
+         intro=("The share of each series' forecast-error variance due to all other shocks together "
+                "(Lastrapes–Wiesen 2021), next to the row-normalised generalized index.")),
     View("cycles", cycles_view, tab="Own cycles", charts=(("cycles", 460),),
          intro=("Each series on its own: a univariate AR (order chosen by AIC) fitted on the prepared "
                 "data of the window the views use; its implied spectral density and, where the "

@@ -239,6 +239,9 @@ def fit_block(prepared: Prepared, universe: UniverseConfig, ends: np.ndarray) ->
             decomposition=universe.identification,
             portmanteau_lags=universe.residual_test_lags,
             names=list(prepared.names),
+            frequency_bands=universe.band_periods,
+            band_truncation=universe.band_truncation,
+            joint=universe.joint,
         )
     except (ValueError, np.linalg.LinAlgError) as exc:
         msg = f"universe {universe.name!r}: the rolling engine refused the data: {' '.join(str(exc).split())}"
@@ -341,6 +344,35 @@ def result_tables(
             "p_value": _none_if_nan(np.asarray(rolling.granger_p)[k][:, gi, gj].reshape(-1)),
         }
     )
+    if getattr(rolling, "band_tables", None) is not None:
+        periods = rolling.band_periods
+        d = len(periods)
+        kb = np.repeat(k, d)
+        band = np.tile(np.arange(d), K)
+        tables["band_connectedness"] = pl.DataFrame(
+            {
+                **head(k, d),
+                "band": pl.Series(band, dtype=pl.Int32),
+                "period_lo": np.tile([p[0] for p in periods], K).astype(np.float64),
+                "period_hi": np.tile([p[1] for p in periods], K).astype(np.float64),
+                "truncation": pl.Series([rolling.band_truncation] * (K * d), dtype=pl.Int32),
+                "total": np.asarray(rolling.band_total)[kb, band],
+                "within_total": _none_if_nan(np.asarray(rolling.band_within)[kb, band]),
+                "band_share": np.asarray(rolling.band_share)[kb, band],
+                "to_others": _flat(np.asarray(rolling.band_to_others)[kb, band]),
+                "from_others": _flat(np.asarray(rolling.band_from_others)[kb, band]),
+                "shares": _flat(np.asarray(rolling.band_tables)[kb, band]),
+            }
+        )
+    if getattr(rolling, "joint_total", None) is not None:
+        tables["joint_connectedness"] = pl.DataFrame(
+            {
+                **head(k),
+                "total": np.asarray(rolling.joint_total)[k],
+                "generalized_total": np.asarray(rolling.total_connectedness)[k],
+                "from_others": _flat(np.asarray(rolling.joint_from_others)[k]),
+            }
+        )
     lags = np.asarray(rolling.lags, dtype=np.int64)
     coefs = np.asarray(rolling.coefs)
     coef_lists = [coefs[w, : lags[w]].reshape(-1).tolist() for w in k]

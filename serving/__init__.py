@@ -39,7 +39,16 @@ from ._errors import (
     UnknownIdentificationError,
     WindowError,
 )
-from ._reader import DateWindow, Fit, Snapshot, SnapshotReader, Universe, parse_date
+from ._reader import (
+    BandHistory,
+    DateWindow,
+    Fit,
+    JointHistory,
+    Snapshot,
+    SnapshotReader,
+    Universe,
+    parse_date,
+)
 from ._schema import (
     RESULT_TABLES,
     SCHEMA,
@@ -66,12 +75,14 @@ __all__ = [
     "STORED",
     "UNIVERSE_TABLES",
     "VIEWS",
+    "BandHistory",
     "BandSet",
     "BandSettings",
     "Column",
     "DateWindow",
     "DecompositionSet",
     "Fit",
+    "JointHistory",
     "RefitMismatchError",
     "ResponseSet",
     "ServingError",

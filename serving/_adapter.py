@@ -133,8 +133,10 @@ class BandSet:
 
     @property
     def note(self) -> str:
-        how = f"residual bootstrap, {self.draws} draws, seed {self.seed}" if self.kind == "bootstrap" else "asymptotic"
-        return f"{100 * self.coverage:.0f}% {self.kind} band ({how}; refitted on the window's {self.rows} prepared rows)"
+        rows = f"refitted on the window's {self.rows} prepared rows"
+        if self.kind == "bootstrap":
+            return f"{100 * self.coverage:.0f}% residual-bootstrap band ({self.draws} draws, seed {self.seed}; {rows})"
+        return f"{100 * self.coverage:.0f}% asymptotic (delta-method) band ({rows})"
 
 
 def normalize_identification(value: Any, *, where: str) -> str:

@@ -43,8 +43,10 @@ from ._errors import SnapshotMissingError, StoredArrayError, WindowError
 from ._schema import SCHEMA, columns, order_by, shape_of
 
 __all__ = [
+    "BandHistory",
     "DateWindow",
     "Fit",
+    "JointHistory",
     "Snapshot",
     "SnapshotReader",
     "Universe",
@@ -431,6 +433,47 @@ class _Block:
 
     rows: dict[dt.date, tuple[Any, ...]]
     nbytes: int
+
+
+@dataclasses.dataclass(frozen=True, eq=False)
+class BandHistory:
+    """Frequency-band connectedness of every stored window (Baruník–Křehlík 2018), in percent.
+
+    ends: W window ends; periods: d bands as (shortest, longest] cycle lengths in rows; total,
+    within, share: (W, d); to_others, from_others: (W, d, n); table: (W, d, n, n) [window, band,
+    variable, shock]; truncation: the MA terms behind them (bands add up to the index at that horizon).
+    """
+
+    ends: list[dt.date]
+    periods: tuple[tuple[float, float], ...]
+    total: np.ndarray
+    within: np.ndarray
+    share: np.ndarray
+    to_others: np.ndarray
+    from_others: np.ndarray
+    table: np.ndarray
+    truncation: int
+
+    def at(self, end: dt.date) -> int:
+        """Position of window `end` (WindowError when it has no band results)."""
+        k = bisect.bisect_left(self.ends, end)
+        if k == len(self.ends) or self.ends[k] != end:
+            msg = f"no frequency-band results stored for the window ending {end}"
+            raise WindowError(msg)
+        return k
+
+
+@dataclasses.dataclass(frozen=True, eq=False)
+class JointHistory:
+    """Joint connectedness of every stored window (Lastrapes & Wiesen 2021), in percent.
+
+    ends: W window ends; total, generalized_total: (W,); from_others: (W, n).
+    """
+
+    ends: list[dt.date]
+    total: np.ndarray
+    generalized_total: np.ndarray
+    from_others: np.ndarray
 
 
 class Snapshot:
@@ -907,6 +950,61 @@ class Snapshot:
         return out[~np.isnan(out).any(axis=1)]
 
     # -- whole histories and lineage (the report and its extracts) ----------------------------------
+    # -- optional results: frequency bands and joint connectedness ---------------------------------
+    def band_history(self, universe: Universe) -> BandHistory | None:
+        """Frequency-band connectedness of every window, or None when the universe stores none."""
+
+        def load() -> BandHistory | None:
+            if not self.has("band_connectedness"):
+                return None
+            t = self.history("band_connectedness", universe.name)
+            if t.num_rows == 0:
+                return None
+            col = {name: t.column(name).to_pylist() for name in t.column_names}
+            d = max(col["band"]) + 1
+            W = t.num_rows // d
+            n = len(universe.series)
+            if W * d != t.num_rows:
+                msg = f"universe {universe.name!r}: band_connectedness rows are not whole windows"
+                raise StoredArrayError(msg)
+
+            def grid(name: str, *shape: int) -> np.ndarray:
+                out = np.asarray([np.nan if v is None else v for v in col[name]] if not shape else
+                                 [_need(v, shape, f"band_connectedness.{name}") for v in col[name]],
+                                 dtype=np.float64).reshape(W, d, *shape)  # fmt: skip
+                out.flags.writeable = False
+                return out
+
+            periods = tuple(zip(col["period_lo"][:d], col["period_hi"][:d], strict=True))
+            return BandHistory(
+                ends=col["window_end"][::d], periods=periods, total=grid("total"),
+                within=grid("within_total"), share=grid("band_share"),
+                to_others=grid("to_others", n), from_others=grid("from_others", n),
+                table=grid("shares", n, n), truncation=int(col["truncation"][0]),
+            )  # fmt: skip
+
+        return self._cached(("bands", universe.name), load)
+
+    def joint_history(self, universe: Universe) -> JointHistory | None:
+        """Joint connectedness of every window, or None when the universe stores none."""
+
+        def load() -> JointHistory | None:
+            if not self.has("joint_connectedness"):
+                return None
+            t = self.history("joint_connectedness", universe.name)
+            if t.num_rows == 0:
+                return None
+            n = len(universe.series)
+            col = {name: t.column(name).to_pylist() for name in t.column_names}
+            from_others = np.asarray([_need(v, (n,), "joint_connectedness.from_others") for v in col["from_others"]])
+            total = np.asarray(col["total"], dtype=np.float64)
+            general = np.asarray(col["generalized_total"], dtype=np.float64)
+            for a in (from_others, total, general):
+                a.flags.writeable = False
+            return JointHistory(col["window_end"], total, general, from_others)
+
+        return self._cached(("joint", universe.name), load)
+
     def universe_names(self) -> list[str]:
         return sorted(self.universes())
 

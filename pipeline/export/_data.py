@@ -22,7 +22,9 @@ from pipeline.errors import ExportError
 from pipeline.export._derive import derive_decompositions, derive_responses
 from pipeline.export._snapshot import Snapshot, UniverseInfo, frame
 from serving import (
+    BandHistory,
     DecompositionSet,
+    JointHistory,
     ResponseSet,
     ServingError,
     stored_decompositions,
@@ -55,6 +57,8 @@ class ReportData:
     batches: pl.DataFrame
     run_id: str | None  # run that produced the latest fitted window
     notes: list[str] = field(default_factory=list)
+    bands: BandHistory | None = None  # frequency-band connectedness of every window (or none stored)
+    joint: JointHistory | None = None  # joint connectedness of every window (or none stored)
 
     @property
     def run(self) -> dict | None:
@@ -162,4 +166,5 @@ def _gather(snap: Snapshot, universe: str, as_of: dt.date | None) -> ReportData:
         from_others=from_o, net=net, total=total, granger_f=gf, granger_p=gp,
         responses=responses, decompositions=decomps, runs=runs,
         batches=frame(snap.source_batches(universe, report_date, before)), run_id=run_id, notes=notes,
+        bands=snap.band_history(info), joint=snap.joint_history(info),
     )

@@ -155,6 +155,52 @@ def _connectedness(d: ReportData, chart: _Charts) -> str:
     return "".join(out)
 
 
+def _cycles(d: ReportData, chart: _Charts) -> str:
+    """Connectedness by cycle length (Baruník–Křehlík) and the joint index, when the universe stores them."""
+    out: list[str] = []
+    cut = d.report_date
+    if d.bands is not None:
+        bh = d.bands
+        keep = [w for w, e in enumerate(bh.ends) if e <= cut]
+        if keep:
+            ends = [bh.ends[w] for w in keep]
+            last = keep[-1]
+            labels = [charts.band_label(lo, hi) for lo, hi in bh.periods]
+            out.append('<section id="cycles" class="major"><h2>Connectedness by cycle length</h2>'
+                       '<p class="note">The total index split by the cycle length at which shocks '
+                       "travel (Baruník–Křehlík 2018), in rows of the universe's calendar; the bands "
+                       f"add up to the index at {bh.truncation} steps.</p>")  # fmt: skip
+            out.append(chart(charts.band_index_figure(
+                ends, bh.total[keep], bh.periods, universe=d.info.name, truncation=bh.truncation,
+                medium="print"), div_id="fig-cycles"))  # fmt: skip
+            net = bh.to_others[last] - bh.from_others[last]
+            out.append(chart(charts.band_net_figure(
+                net, bh.periods, d.info.series, medium="print",
+                title=f"Net transmitter (+) or receiver (−) by cycle length, window ending {bh.ends[last]}"),
+                div_id="fig-cycles-net"))  # fmt: skip
+            rows = "".join(
+                f"<tr><th>{_esc(lab)}</th><td>{_num(bh.total[last, b])}</td>"
+                f"<td>{_num(bh.within[last, b])}</td><td>{_num(100 * bh.share[last, b], 0)}</td></tr>"
+                for b, lab in enumerate(labels)
+            )
+            out.append(f'<table class="plain"><caption>Window ending {bh.ends[last]}</caption>'
+                       "<tr><th>band</th><th>index share, %</th><th>within band, %</th>"
+                       f"<th>variance in band, %</th></tr>{rows}</table></section>")  # fmt: skip
+    if d.joint is not None:
+        jh = d.joint
+        keep = [w for w, e in enumerate(jh.ends) if e <= cut]
+        if keep:
+            out.append('<section id="joint" class="major"><h2>Joint connectedness</h2>'
+                       "<p class=\"note\">Each series' share of forecast-error variance due to all "
+                       "other shocks together (Lastrapes–Wiesen 2021), averaged, next to the "
+                       "row-normalised generalized index.</p>")  # fmt: skip
+            out.append(chart(charts.joint_index_figure(
+                [jh.ends[w] for w in keep], jh.total[keep], jh.generalized_total[keep],
+                universe=d.info.name, horizon=d.info.horizon, medium="print"), div_id="fig-joint"))  # fmt: skip
+            out.append("</section>")
+    return "".join(out)
+
+
 def _spillovers(d: ReportData) -> str:
     names = d.info.series
     head = ['<section id="spillovers" class="major"><div class="keep"><h2>Spillover table</h2>']
@@ -415,7 +461,7 @@ def render_report(d: ReportData, *, generated: dt.datetime, version: str) -> str
     """The complete HTML text of one universe's report."""
     chart = _Charts()
     body = "\n".join([
-        _glance(d), _connectedness(d, chart), _spillovers(d), _responses(d, chart),
+        _glance(d), _connectedness(d, chart), _cycles(d, chart), _spillovers(d), _responses(d, chart),
         _decompositions(d, chart), _granger(d), _health(d, chart), _lineage(d),
     ])
     files = resources.files("pipeline.export") / "templates"

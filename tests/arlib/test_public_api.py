@@ -19,6 +19,8 @@ PINNED = [
     "PortmanteauResult",
     "RollingVAR",
     "SpectralPeak",
+    "TVPState",
+    "TimeVaryingVAR",
     "UnstableProcessWarning",
     "VARFit",
     "VARLike",
@@ -45,6 +47,7 @@ PINNED = [
     "spectral_density",
     "spectral_peak",
     "stationary_covariance",
+    "tvp_var",
     "var_process",
     "variance_decomposition",
 ]

@@ -117,3 +117,24 @@ def test_index_and_significance_mark_agree(snap: Snapshot, made: tuple[Path, str
     assert len(flagged) == significant
     assert all(cell.endswith(charts.SIGNIFICANCE_MARK) for cell in flagged)
     assert "●" not in html
+
+
+def test_cycle_lengths_and_joint_index_same_on_screen_and_in_report(snap: Snapshot, made: tuple[Path, str]) -> None:
+    """The new results (Baruník–Křehlík bands, Lastrapes–Wiesen joint index) reach the report with
+    the numbers the screen shows: the same stacked band values and the same joint series."""
+    html = made[1]
+    assert 'id="cycles"' in html and 'id="joint"' in html
+    (screen, _, _), (bars, _, _) = cb.bands_view(snap, latest_state(snap))
+    printed = plotly_traces(html, "fig-cycles")
+    on_screen = [t for t in screen["data"] if t.get("stackgroup") == "bands"]
+    assert [t["name"] for t in printed] == [t["name"] for t in on_screen]
+    for a, b in zip(printed, on_screen, strict=True):
+        np.testing.assert_allclose(np.asarray(a["y"], dtype=float), np.asarray(b["y"], dtype=float), rtol=1e-12)
+        assert a["line"]["color"] == b["line"]["color"]
+    printed_bars = plotly_traces(html, "fig-cycles-net")
+    for a, b in zip(printed_bars, bars["data"], strict=True):
+        np.testing.assert_allclose(a["y"], b["y"], rtol=1e-12)
+    joint_screen, _, _ = cb.joint_view(snap, latest_state(snap))
+    joint_printed = plotly_traces(html, "fig-joint")
+    for a, b in zip(joint_printed, joint_screen["data"], strict=True):
+        np.testing.assert_allclose(np.asarray(a["y"], dtype=float), np.asarray(b["y"], dtype=float), rtol=1e-12)

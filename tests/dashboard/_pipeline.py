@@ -47,6 +47,8 @@ lags = 1
 horizon = 10
 identification = "generalized"
 granger_level = 0.05
+frequency_bands = [5, 20]
+joint = true
 [universes.bands]
 method = "bootstrap"
 draws = 50

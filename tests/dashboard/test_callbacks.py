@@ -602,3 +602,48 @@ def test_a_new_view_is_one_row_of_the_table(monkeypatch: pytest.MonkeyPatch, sna
     assert answer.status_code == 200, answer.get_data(as_text=True)
     response = json.loads(answer.get_data(as_text=True))["response"]
     assert response["echo-note"]["children"] == "echo of horizon 7"
+
+
+def test_bands_view_splits_the_stored_index_by_cycle_length(snap: Snapshot, state: dict[str, str], universe_name: str) -> None:
+    """The stacked bands add up to the stored index when the truncation equals the horizon, and
+    otherwise to arlib's index at the truncation horizon (Baruník–Křehlík 2018, discrete Parseval);
+    the net bars at the window end are the stored to − from per band."""
+    u = snap.universe(universe_name)
+    (fig, rows, note), (bars, net_rows, _) = vw.bands_view(snap, state)
+    bh = snap.band_history(u)
+    assert bh is not None and "cycles ≤ 5 rows" in {t["name"] for t in fig["data"]}
+    stacked = [t for t in fig["data"] if t.get("stackgroup") == "bands"]
+    assert len(stacked) == len(bh.periods) == 3
+    np.testing.assert_allclose(np.sum([t["y"] for t in stacked], axis=0), bh.total.sum(axis=1), rtol=1e-12)
+    end = _end(snap, state)
+    fit = snap.fit(u, end)
+    proc = arlib.var_process(fit.coefs, fit.sigma_u, names=u.series)
+    index = arlib.connectedness(proc, bh.truncation).total
+    assert bh.total[bh.at(end)].sum() == pytest.approx(index, rel=1e-9)
+    k = bh.at(end)
+    np.testing.assert_allclose([b["y"] for b in bars["data"]], bh.to_others[k] - bh.from_others[k], rtol=1e-12)
+    assert len(rows) == 3 * len(bh.ends) and len(net_rows) == 3 * len(u.series)
+    assert "add up to the index" in note
+
+
+def test_joint_view_shows_joint_and_generalized(snap: Snapshot, state: dict[str, str], universe_name: str) -> None:
+    u = snap.universe(universe_name)
+    fig, rows, _ = vw.joint_view(snap, state)
+    jh = snap.joint_history(u)
+    assert jh is not None
+    np.testing.assert_allclose(fig["data"][0]["y"], jh.total, rtol=1e-12)
+    np.testing.assert_allclose(fig["data"][1]["y"], [v for _, v in snap.index_history(u.name)], rtol=1e-12)
+    end = _end(snap, state)
+    fit = snap.fit(u, end)
+    proc = arlib.var_process(fit.coefs, fit.sigma_u, names=u.series)
+    k = jh.ends.index(end)
+    np.testing.assert_allclose(jh.from_others[k], arlib.joint_connectedness(proc, u.horizon).from_others, rtol=1e-9)
+    assert len(rows) == len(jh.ends)
+
+
+def test_a_universe_without_bands_says_how_to_get_them(snap: Snapshot, bounds: tuple[dt.date, dt.date]) -> None:
+    other = [name for name in snap.universe_names() if snap.band_history(snap.universe(name)) is None]
+    assert other, "the test snapshot has a universe without bands"
+    lo, hi = bounds
+    result = vw.bands_view(snap, {"universe": other[0], "start": lo.isoformat(), "end": hi.isoformat()})
+    assert "frequency_bands = [5, 20]" in str(result)

@@ -40,6 +40,8 @@ step = 4
 lags = 2
 horizon = 8
 identification = "generalized"
+frequency_bands = [4, 12]   # quarters: cycles within a year, one to three years, longer
+joint = true
 
 [export]
 directory = "wh/exports"
@@ -100,6 +102,32 @@ def test_cli_run_check_export_on_us_macro_data(prefect_harness: None, tmp_path: 
         # 1e-8: arlib's agreement with statsmodels (tests/reference), stored as DOUBLE
         assert f_stat == pytest.approx(ref.test_statistic, rel=1e-8)
         assert p_value == pytest.approx(ref.pvalue, rel=1e-8, abs=1e-14)
+
+    # frequency bands and joint connectedness of the newest window, through the whole pipeline,
+    # equal arlib's single-window functions on the same rows (Baruník–Křehlík; Lastrapes–Wiesen)
+    import arlib
+
+    fit = arlib.fit_var(rows, 2)
+    fc = arlib.frequency_connectedness(fit, bands=[(1, 4), (4, 12), (12, float("inf"))], truncation=100)
+    jc = arlib.joint_connectedness(fit, 8)
+    con = duckdb.connect(str(tmp_path / "wh" / "macro-serving.duckdb"), read_only=True)
+    try:
+        bands = con.execute(
+            "SELECT band, period_lo, period_hi, total, within_total, shares FROM band_connectedness "
+            "WHERE window_end = ? ORDER BY band", [fits[-1][0]]).fetchall()  # fmt: skip
+        joint = con.execute("SELECT total, from_others FROM joint_connectedness WHERE window_end = ?",
+                            [fits[-1][0]]).fetchall()  # fmt: skip
+        n_band_windows = con.execute("SELECT count(DISTINCT window_end) FROM band_connectedness").fetchone()
+    finally:
+        con.close()
+    assert n_band_windows == (31,)
+    assert [(b, lo, hi) for b, lo, hi, *_ in bands] == [(0, 1.0, 4.0), (1, 4.0, 12.0), (2, 12.0, float("inf"))]
+    for b, *_, total, within, shares in bands:
+        assert total == pytest.approx(fc.total[b], rel=1e-8)
+        assert within == pytest.approx(fc.within_total[b], rel=1e-8)
+        np.testing.assert_allclose(np.reshape(shares, (3, 3)), fc.tables[b], rtol=1e-8, atol=1e-10)
+    assert joint[0][0] == pytest.approx(jc.total, rel=1e-8)
+    np.testing.assert_allclose(joint[0][1], jc.from_others, rtol=1e-8)
 
     again = runner.invoke(app, ["run", "--config", str(config)])
     assert again.exit_code == 0, again.output
