@@ -77,7 +77,7 @@ def _on_sigterm(signum: int, frame: Any) -> None:
 
 def _usage_exit_code(exc: Exception) -> None:
     if any(c.__name__ == "UsageError" for c in type(exc).__mro__):
-        exc.exit_code = EXIT_USAGE  # type: ignore[attr-defined]  # click's ClickException attribute
+        exc.exit_code = EXIT_USAGE  # type: ignore[attr-defined]  # click's (or typer's vendored) UsageError, found by name
 
 
 class _Group(TyperGroup):
