@@ -10,9 +10,12 @@ import os
 import sys
 import warnings
 from collections.abc import Mapping, Sequence
-from typing import Any, Protocol, runtime_checkable
+from typing import TYPE_CHECKING, Any, Protocol, runtime_checkable
 
 import numpy as np
+
+if TYPE_CHECKING:
+    from types import FrameType
 
 __all__ = [
     "ArlibError",
@@ -73,13 +76,13 @@ _PACKAGE_DIR = os.path.dirname(os.path.abspath(__file__))
 
 def find_stacklevel() -> int:
     """Stack level of the first frame outside arlib, so a warning points at the caller's line."""
-    frame = sys._getframe(1)
+    frame: FrameType | None = sys._getframe(1)
     level = 1
     while frame is not None:
         filename = os.path.abspath(frame.f_code.co_filename)
         if not filename.startswith(_PACKAGE_DIR + os.sep):
             break
-        frame = frame.f_back  # type: ignore[assignment]
+        frame = frame.f_back
         level += 1
     return level
 

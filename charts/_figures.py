@@ -77,7 +77,7 @@ def message_figure(text: str, *, height: int = 300) -> Figure:
 
 
 def stress_runs(
-    dates: Sequence[dt.date], values: Sequence[float], threshold: float
+    dates: Sequence[dt.date], values: Sequence[float] | np.ndarray, threshold: float
 ) -> list[tuple[dt.date, dt.date]]:
     """Maximal runs of consecutive windows with value >= threshold, as (first, last) dates."""
     runs: list[tuple[dt.date, dt.date]] = []
@@ -87,8 +87,8 @@ def stress_runs(
         above = v is not None and math.isfinite(v) and v >= threshold
         if above and start is None:
             start = d
-        if not above and start is not None:
-            runs.append((start, prev))  # type: ignore[arg-type]
+        if not above and start is not None and prev is not None:  # prev is set whenever start is
+            runs.append((start, prev))
             start = None
         prev = d
     if start is not None and prev is not None:
@@ -98,7 +98,7 @@ def stress_runs(
 
 def index_figure(
     dates: Sequence[dt.date],
-    totals: Sequence[float],
+    totals: Sequence[float] | np.ndarray,
     *,
     start: dt.date | None = None,
     end: dt.date | None = None,

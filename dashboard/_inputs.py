@@ -8,11 +8,12 @@ message chart instead of an error. No Dash here; views and callbacks import it.
 from __future__ import annotations
 
 import datetime as dt
+import functools
 import logging
 import math
 import re
 from collections.abc import Callable, Sequence
-from typing import Any
+from typing import Any, cast
 
 import numpy as np
 
@@ -113,7 +114,7 @@ def num(x: Any) -> float | None:
 def nums(values: Any) -> list[float | None]:
     """`_num` of every element of an array, in C order (one `tolist`, a loop only over gaps)."""
     arr = np.asarray(values, dtype=np.float64).ravel()
-    out: list[float | None] = arr.tolist()
+    out = cast("list[float | None]", arr.tolist())  # a list of floats, read as the wider element type
     if not np.isfinite(arr).all():
         out = [v if math.isfinite(v) else None for v in arr.tolist()]
     return out
@@ -142,9 +143,7 @@ def guard(
             text = "This view could not be computed; the server log has the details."
             return charts.message_figure(text, height=height), [], text
 
-    wrapper.__name__ = view.__name__
-    wrapper.__doc__ = view.__doc__
-    wrapper.__wrapped__ = view  # type: ignore[attr-defined]
+    functools.update_wrapper(wrapper, view, assigned=("__name__", "__doc__"), updated=())  # and __wrapped__
     return wrapper
 
 

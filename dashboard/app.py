@@ -79,7 +79,7 @@ def create_app(settings_or_config: Any) -> Any:
     app = dash.Dash(
         __name__,
         title="shockflow — shock propagation explorer",
-        update_title=None,
+        update_title="",  # the tab title stays put while callbacks run (Dash: "" or None)
         assets_folder=str(ASSETS),
         serve_locally=True,
         suppress_callback_exceptions=True,
@@ -238,7 +238,7 @@ def _worker_class() -> Any:
 
     from gunicorn.workers.gthread import ThreadWorker
 
-    class HardenedWorker(ThreadWorker):  # type: ignore[misc]
+    class HardenedWorker(ThreadWorker):
         _quitting = False
 
         def handle_quit(self, sig: Any, frame: Any) -> None:
@@ -477,7 +477,7 @@ def serve(
         "post_worker_init": _ignore_interrupt,
     }
 
-    class _Server(BaseApplication):  # type: ignore[misc]
+    class _Server(BaseApplication):
         def load_config(self) -> None:
             for key, value in options.items():
                 if key in self.cfg.settings:  # older gunicorn releases lack some (control socket)

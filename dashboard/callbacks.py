@@ -213,7 +213,7 @@ def register(app: Any, snap: Snapshot, settings: Any = None) -> None:
     from . import ids
 
     @app.callback(Output(ids.REPORTS, "children"), Input(ids.UNIVERSE, "value"))
-    def _reports(universe):  # type: ignore[no-untyped-def]
+    def _reports(universe: Any) -> list[Any]:
         export_dir = getattr(settings, "export_dir", None)
         return report_links(export_dir, universe if isinstance(universe, str) else None)
 
@@ -223,7 +223,7 @@ def register(app: Any, snap: Snapshot, settings: Any = None) -> None:
         Input(ids.UNIVERSE, "value"), Input(ids.START, "value"), Input(ids.END, "value"),
         Input(ids.INDEX_GRAPH, "relayoutData"), State(ids.WINDOW, "data"),
     )  # fmt: skip
-    def _sync(universe, start, end, relayout, current):  # type: ignore[no-untyped-def]
+    def _sync(universe: Any, start: Any, end: Any, relayout: Any, current: Any) -> tuple[Any, ...]:
         trigger = {ids.UNIVERSE: "universe", ids.INDEX_GRAPH: "relayout"}.get(
             ctx.triggered_id, "dates" if ctx.triggered_id else None
         )
@@ -245,7 +245,7 @@ def register(app: Any, snap: Snapshot, settings: Any = None) -> None:
         [Output(cid, prop) for cid, prop in targets], Input(ids.UNIVERSE, "value"),
         prevent_initial_call=True,
     )  # fmt: skip
-    def _universe_defaults(universe):  # type: ignore[no-untyped-def]
+    def _universe_defaults(universe: Any) -> list[Any]:
         """A new universe brings its own series, horizon and the views' declared defaults."""
         try:
             values = universe_defaults(snap, universe)
@@ -272,7 +272,7 @@ def register(app: Any, snap: Snapshot, settings: Any = None) -> None:
         State(ids.WINDOW, "data"),
         prevent_initial_call=True,
     )  # fmt: skip
-    def _download(clicks, rows, state):  # type: ignore[no-untyped-def]
+    def _download(clicks: Any, rows: Any, state: Any) -> dict[str, Any]:
         if not clicks:
             raise PreventUpdate
         chart = ctx.triggered_id.get("chart") if isinstance(ctx.triggered_id, dict) else "chart"

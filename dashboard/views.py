@@ -277,7 +277,7 @@ def network_view(snap: Snapshot, state: Any, mode: Any, size_by: Any) -> ViewRes
         table = snap.pairwise_at(u, end)
         to_others, from_others, _ = snap.spillover_sums(u, end)  # arlib's sums, as stored
         what = f"at the window ending {end}"
-        span = {"window_end": iso(end)}
+        span: dict[str, str | int] = {"window_end": iso(end)}
     else:
         table, count = snap.pairwise_mean(window, u)
         if count == 0:
@@ -485,7 +485,7 @@ def _own_cycles(snap: Snapshot, u: Universe, end: dt.date) -> list[_OwnCycle]:
             out.append(_OwnCycle(name, p, density, variance, period, float(own.spectral_radius)))
         return out
 
-    return snap.cached(("own-cycles", u.name, end), compute)  # type: ignore[no-any-return]
+    return snap.cached(("own-cycles", u.name, end), compute)
 
 
 @guard

@@ -185,7 +185,7 @@ def start_temporary_server(folder: Path | None = None) -> Any:
     if server.running:
         return server
     real = server_module.subprocess
-    server_module.subprocess = _SubprocessDyingWithParent(os.getpid())  # type: ignore[assignment]  # this module only, while it starts
+    server_module.subprocess = _SubprocessDyingWithParent(os.getpid())  # type: ignore[assignment]  # a stand-in for the subprocess module: this module only, while it starts
     try:
         server.start()
     finally:

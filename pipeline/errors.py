@@ -62,6 +62,9 @@ class PublishError(ShockflowError):
 class ExportError(ShockflowError):
     """A report or extract could not be written."""
 
+    #: universe → paths written before the failure (set by an export of several universes)
+    written: dict[str, list[Path]]
+
 
 class ScheduleError(ShockflowError):
     """The schedule (Prefect server or deployment) could not be started."""

@@ -32,7 +32,11 @@ from pipeline.config import Config, load_config
 from pipeline.errors import ShockflowError
 
 if TYPE_CHECKING:
-    from pipeline.jobs import IngestResult, UniverseResult
+    import polars as pl
+
+    from pipeline.jobs import IngestResult, UniverseJob, UniverseResult
+    from pipeline.publish import PublishResult
+    from pipeline.sources import SourceFrame
 
 __all__ = [
     "NightlySummary",
@@ -175,33 +179,33 @@ def _publish_summary_artifact(summary: NightlySummary) -> None:
 
 
 @task(name="read-source", task_run_name="read {source.name}", **_TASK_OPTIONS)
-def read_source_task(source: Any, today: date) -> Any:
+def read_source_task(source: Any, today: date) -> SourceFrame:
     return jobs.read_source_step(source, today=today)
 
 
 @task(name="store-source", task_run_name="store {source_name}", **_TASK_OPTIONS)
-def store_source_task(warehouse_path: Path, source_name: str, frame: Any, error: str | None, seconds_read: float) -> Any:
+def store_source_task(warehouse_path: Path, source_name: str, frame: Any, error: str | None, seconds_read: float) -> IngestResult:
     exc = ShockflowError(error) if error is not None else None
     return jobs.store_ingest(warehouse_path, source_name, frame, error=exc, seconds_read=seconds_read)
 
 
 @task(name="plan-universe", task_run_name="plan {universe.name}", **_TASK_OPTIONS)
-def plan_universe_task(warehouse_path: Path, universe: Any, run_id: str, full: bool, block_windows: int) -> Any:
+def plan_universe_task(warehouse_path: Path, universe: Any, run_id: str, full: bool, block_windows: int) -> UniverseJob:
     return jobs.plan_universe(warehouse_path, universe, run_id, full=full, block_windows=block_windows)
 
 
 @task(name="fit-block", task_run_name="fit {universe.name} block {block}", **_TASK_OPTIONS)
-def fit_block_task(prepared: Any, universe: Any, ends: Any, run_id: str, with_bands: bool, block: int) -> Any:
+def fit_block_task(prepared: Any, universe: Any, ends: Any, run_id: str, with_bands: bool, block: int) -> dict[str, pl.DataFrame]:
     return jobs.fit_block_step(prepared, universe, ends, run_id=run_id, with_bands=with_bands)
 
 
 @task(name="store-universe", task_run_name="store {job.universe.name}", **_TASK_OPTIONS)
-def store_universe_task(warehouse_path: Path, job: Any, blocks: list[Any], seconds_fit: float) -> Any:
+def store_universe_task(warehouse_path: Path, job: Any, blocks: list[Any], seconds_fit: float) -> UniverseResult:
     return jobs.store_universe(warehouse_path, job, blocks, seconds_fit=seconds_fit)
 
 
 @task(name="publish", **_TASK_OPTIONS)
-def publish_task(config: Config) -> Any:
+def publish_task(config: Config) -> PublishResult:
     return jobs.publish_step(config)
 
 
@@ -211,7 +215,7 @@ def missing_exports_task(config: Config, universes: list[str]) -> list[str]:
 
 
 @task(name="export", **_TASK_OPTIONS)
-def export_task(config: Config, universes: list[str]) -> Any:
+def export_task(config: Config, universes: list[str]) -> dict[str, Any]:
     return jobs.export_step(config, universes)
 
 
@@ -270,9 +274,9 @@ def _nightly_steps(
     with execution.io_task_runner() as io:
         futures = [(s, io.submit(read_source_task, {"source": s, "today": today})) for s in config.sources]
         for i, (source, future) in enumerate(futures):
-            frame, exc = _resolve(future)
+            frame, failure = _resolve(future)
             secs = time.perf_counter() - started[source.name]
-            error = None if exc is None else (str(exc) if isinstance(exc, ShockflowError) else f"{type(exc).__name__}: {exc}")
+            error = None if failure is None else (str(failure) if isinstance(failure, ShockflowError) else f"{type(failure).__name__}: {failure}")
             summary.ingest.append(store_source_task(path, source.name, frame, error, secs))
             _progress("ingest", source.name, i + 1, len(futures))
     summary.seconds["ingest"] = time.perf_counter() - t0

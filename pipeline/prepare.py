@@ -36,6 +36,7 @@ from typing import Protocol
 import numpy as np
 import polars as pl
 
+from pipeline._polars import date_bounds, first_true
 from pipeline.errors import DataError
 
 __all__ = ["CALENDARS", "TRANSFORMS", "Prepared", "Transform", "UniverseLike", "prepare_universe"]
@@ -177,11 +178,11 @@ def prepare_universe(observations: pl.DataFrame, universe: UniverseLike) -> Prep
         msg = f"universe {universe.name!r}: no observation falls on the {universe.frequency} calendar; check the dates"
         raise DataError(msg)
     levels = labelled.pivot(on="series", index="row", values="value").sort("row")
-    rows = calendar(levels["row"].min(), levels["row"].max()).alias("row")  # type: ignore[arg-type]
+    rows = calendar(*date_bounds(levels["row"])).alias("row")
     aligned = pl.DataFrame(rows).join(levels, on="row", how="left").select("row", *names)
 
     # the current week/month is left out until it is complete (its label date is in the data)
-    last_seen = obs["date"].max()
+    last_seen = date_bounds(obs["date"])[1]
     incomplete = aligned.filter(pl.col("row") > last_seen)["row"].to_list()
     aligned = aligned.filter(pl.col("row") <= last_seen)
 
@@ -206,7 +207,7 @@ def prepare_universe(observations: pl.DataFrame, universe: UniverseLike) -> Prep
         bad = (col <= 0) if t.requires == "positive" else (col.shift(-1).is_not_null() & (col == 0))
         bad = bad.fill_null(False)
         if bad.any():
-            i = int(bad.arg_max())  # type: ignore[arg-type]
+            i = first_true(bad)
             msg = (
                 f"universe {universe.name!r}: series {name!r} is {col[i]!r} on {filled['row'][i]}; "
                 f"transform {specs[name]!r} needs {'positive levels' if t.requires == 'positive' else 'non-zero levels'} — {t.hint}"
@@ -234,7 +235,7 @@ def prepare_universe(observations: pl.DataFrame, universe: UniverseLike) -> Prep
     n_rows = raw_ok.shape[0]
     first_obs = np.where(raw_ok.any(axis=0), raw_ok.argmax(axis=0), n_rows)
     last_obs = np.where(raw_ok.any(axis=0), n_rows - 1 - raw_ok[::-1].argmax(axis=0), -1)
-    for i in np.flatnonzero(~complete):
+    for i in np.flatnonzero(~complete).tolist():
         why = []
         for j, name in enumerate(names):
             if not np.isnan(values[i, j]):
@@ -256,12 +257,12 @@ def prepare_universe(observations: pl.DataFrame, universe: UniverseLike) -> Prep
 
     # constant series over the whole sample: no window could use it
     for j, name in enumerate(names):
-        col = y[:, j]
-        col = col[np.isfinite(col)]
-        if col.size > 1 and np.ptp(col) == 0.0:
+        kept = y[:, j]
+        kept = kept[np.isfinite(kept)]
+        if kept.size > 1 and np.ptp(kept) == 0.0:
             msg = (
                 f"universe {universe.name!r}: series {name!r} is constant after transform "
-                f"{specs[name]!r} ({float(col[0])!r} on every date); remove it from the universe or check the source"
+                f"{specs[name]!r} ({float(kept[0])!r} on every date); remove it from the universe or check the source"
             )
             raise DataError(msg)
     dropped = pl.DataFrame(reasons, schema={"date": pl.Date, "reason": pl.String}, orient="row").sort("date")

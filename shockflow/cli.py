@@ -107,7 +107,7 @@ def _terminated() -> bool:
 
 def _usage_exit_code(exc: Exception) -> None:
     if any(c.__name__ == "UsageError" for c in type(exc).__mro__):
-        exc.exit_code = EXIT_USAGE  # type: ignore[attr-defined]  # click's ClickException attribute
+        exc.exit_code = EXIT_USAGE  # type: ignore[attr-defined]  # click's (or typer's vendored) UsageError, found by name
 
 
 class _Group(TyperGroup):

@@ -179,6 +179,6 @@ def export_all(
     if failures:
         msg = f"{len(failures)} of {len(names)} universe export(s) failed: " + "; ".join(failures)
         err = ExportError(msg)
-        err.written = written  # type: ignore[attr-defined]
+        err.written = written
         raise err
     return written

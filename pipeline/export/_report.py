@@ -16,7 +16,7 @@ import html
 import math
 from importlib import resources
 from string import Template
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, cast
 
 import numpy as np
 import plotly.io as pio
@@ -204,7 +204,7 @@ def _cycles(d: ReportData, chart: _Charts) -> str:
 def _spillovers(d: ReportData) -> str:
     names = d.info.series
     head = ['<section id="spillovers" class="major"><div class="keep"><h2>Spillover table</h2>']
-    if d.table is None:
+    if d.table is None or d.from_others is None or d.to_others is None or d.net is None:  # set together
         return head[0] + '<p class="note">No fitted window.</p></div></section>'
     head.append(
         f'<p class="note">Window ending {_esc(d.fitted_date)}. Cell (row, column): percent of the '
@@ -250,7 +250,7 @@ def _response_figures(rs: ResponseSet, names: tuple[str, ...], end: Any) -> list
     n = len(names)
     band = f"{rs.coverage:.0%} band" if rs.coverage else "band"
     title = f"{rs.identification.capitalize()} shocks, window ending {end}"
-    common = {"lower": rs.lower, "upper": rs.upper, "yunit": "change of the responding series "
+    common: dict[str, Any] = {"lower": rs.lower, "upper": rs.upper, "yunit": "change of the responding series "
               "(as prepared) per one-s.d. shock", "band_label": band, "medium": "print"}
     if n <= GRID_MAX:
         return [charts.responses_figure(rs.response, names, title=title, **common)]
@@ -311,7 +311,7 @@ def _granger(d: ReportData) -> str:
     names = d.info.series
     level = d.info.granger_level
     out = ['<section id="granger" class="major"><div class="keep"><h2>Granger causality</h2>']
-    if d.granger_p is None:
+    if d.granger_p is None or d.granger_f is None:  # set together
         out.append('<p class="note">No fitted window.</p></div></section>')
         return "".join(out)
     n = len(names)
@@ -397,8 +397,8 @@ def _health(d: ReportData, chart: _Charts) -> str:
         unstable = fitted.filter(~pl.col("stable"))
         out.append(f'<p class="note">Fitted windows: {fitted.height}; unstable: '
                    f'<span data-value="{unstable.height}">{unstable.height}</span>; spectral '
-                   f"radius from {fitted['spectral_radius'].min():.4f} to "
-                   f"{fitted['spectral_radius'].max():.4f}; lags used: "
+                   f"radius from {cast(float, fitted['spectral_radius'].min()):.4f} to "
+                   f"{cast(float, fitted['spectral_radius'].max()):.4f}; lags used: "
                    f"{', '.join(str(x) for x in sorted(fitted['lags'].unique().to_list()))}.</p>")
     skipped = d.fits.filter(pl.col("skip_reason").is_not_null()).sort("window_end", descending=True)
     out.append(f"<h3>Skipped windows ({skipped.height})</h3>")

@@ -26,6 +26,7 @@ from typing import TYPE_CHECKING
 
 import polars as pl
 
+from pipeline._polars import date_bounds, first_true
 from pipeline.errors import DataError, SourceError
 
 if TYPE_CHECKING:
@@ -77,7 +78,7 @@ def _parse_dates(
             raise DataError(msg)
         bad = (raw.dt.truncate("1d") != raw).fill_null(False)
         if bad.any():
-            i = int(bad.arg_max())  # type: ignore[arg-type]
+            i = first_true(bad)
             msg = (
                 f"{_where(origin, _line(lines, i))}: {column!r} is {raw[i]} with a time of day; "
                 "shockflow stores calendar dates — give one value per date"
@@ -89,7 +90,7 @@ def _parse_dates(
         out = text.str.strptime(pl.Date, date_format, strict=False, exact=True)
         bad = out.is_null() & text.is_not_null()
         if bad.any():
-            i = int(bad.arg_max())  # type: ignore[arg-type]
+            i = first_true(bad)
             value = text[i]
             where = _where(origin, _line(lines, i))
             if value == "":
@@ -120,7 +121,7 @@ def _parse_dates(
         raise DataError(msg)
     missing = out.is_null()
     if missing.any():
-        i = int(missing.arg_max())  # type: ignore[arg-type]
+        i = first_true(missing)
         msg = f"{_where(origin, _line(lines, i))}: the date in column {column!r} is empty; every row needs a date"
         raise DataError(msg)
     return out
@@ -138,7 +139,7 @@ def _parse_values(
         values = text.cast(pl.Float64, strict=False)
         bad = values.is_null() & text.is_not_null()
         if bad.any():
-            i = int(bad.arg_max())  # type: ignore[arg-type]
+            i = first_true(bad)
             name = series if isinstance(series, str) else series[i]
             msg = (
                 f"{_where(origin, _line(lines, i))}: value {text[i]!r} of series {name!r} is not a "
@@ -154,7 +155,7 @@ def _parse_values(
         raise DataError(msg)
     bad = (values.abs() >= MAX_ABS_VALUE).fill_null(False)
     if bad.any():
-        i = int(bad.arg_max())  # type: ignore[arg-type]
+        i = first_true(bad)
         name = series if isinstance(series, str) else series[i]
         v = values[i]
         kind = "infinite" if v in (float("inf"), float("-inf")) else f"at or above ±{MAX_ABS_VALUE:g} in magnitude"
@@ -306,7 +307,7 @@ class LongRows:
         series = df[src.series_column].cast(pl.String).str.strip_chars()
         empty = series.is_null() | (series == "")
         if empty.any():
-            i = int(empty.arg_max())  # type: ignore[arg-type]
+            i = first_true(empty)
             msg = f"{_where(origin, _line(lines, i))}: the series name in column {src.series_column!r} is empty; name every row's series"
             raise DataError(msg)
         dates = _parse_dates(
@@ -368,7 +369,7 @@ def _series_major(parts: list[pl.DataFrame]) -> pl.DataFrame:
     parts = [p for p in parts if p.height]
     if not parts:
         return pl.DataFrame(schema=LONG_SCHEMA)
-    spans = sorted((p["date"].min(), p["date"].max(), i) for i, p in enumerate(parts))  # type: ignore[type-var]
+    spans = sorted((*date_bounds(p["date"]), i) for i, p in enumerate(parts))
     disjoint = all(a[1] < b[0] for a, b in itertools.pairwise(spans))
     if not disjoint:
         return pl.concat(parts).sort("series", "date")
