@@ -568,9 +568,11 @@ def plan_tvp(
         if rows.size <= train:
             msg = (
                 f"universe {universe.name!r}: {rows.size} prepared row(s) with a value in every series, but the "
-                f"TVP filter's training sample takes {train}; add history to its sources or lower "
-                f"[universes.tvp] training (at least p + k + n)"
+                f"TVP filter's training sample takes {train}, so no date can be filtered; lower "
+                f"[universes.tvp] training (at least p + k + n) or add history to its sources"
             )
+            if stored is not None and stored.windows.height:
+                msg += "; its previous results stay served"
             raise FitError(msg)
         ends = rows[train:]
         plan = WindowPlan(ends=ends, delete_ends=None, prepared_changed=True, reason=reason, candidates=int(ends.size))

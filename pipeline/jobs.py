@@ -34,6 +34,7 @@ from pipeline.fit import (
     result_tables,
     tvp_filter,
     tvp_tables,
+    tvp_training,
     window_grid,
 )
 from pipeline.prepare import prepare_universe
@@ -228,8 +229,21 @@ def plan_universe(
 
 
 def window_problem(prepared: Prepared, universe: UniverseConfig) -> str | None:
-    """Why `universe` has no window to fit in `prepared` (its window exceeds the rows), or None."""
+    """Why `universe` has no window to fit in `prepared` (its window exceeds the rows), or None.
+
+    For a tvp universe: why the filter has no date (its training sample takes every complete row).
+    """
     rows = len(prepared.dates)
+    if universe.model == "tvp":
+        complete = int((~np.isnan(np.asarray(prepared.y)).any(axis=1)).sum()) if rows else 0
+        train = tvp_training(universe)
+        if complete > train:
+            return None
+        return (
+            f"universe {universe.name!r}: {complete} prepared row(s) with a value in every series, but the TVP "
+            f"filter's training sample takes {train}, so no date can be filtered; lower [universes.tvp] "
+            f"training (at least p + k + n) or add history to its sources"
+        )
     if window_grid(rows, universe)[0].size:
         return None
     return (

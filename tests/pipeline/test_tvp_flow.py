@@ -243,3 +243,55 @@ def test_revised_past_value_refilters_from_scratch(tmp_path: Path) -> None:
     (result,) = night(changed)
     assert result.reason == "config changed: re-filtering every date"
     assert stored(changed)["tvp_state"]["kappa1"].to_list() == [0.95]
+
+
+def test_gap_rows_get_no_date_and_the_nightly_filter_steps_over_them(tmp_path: Path) -> None:
+    """A series missing longer than max_fill_gap leaves gap rows: the filter skips them, and a night
+    that adds a gap row and then complete rows still equals one full pass."""
+    def prices(T: int) -> pl.DataFrame:
+        df = simulate_prices(T)
+        gap = pl.int_range(pl.len()).is_between(90, 94) | pl.int_range(pl.len()).is_between(121, 124)
+        return df.with_columns(pl.when(gap).then(None).otherwise(pl.col("S1")).alias("S1"))
+
+    cfg = setup(tmp_path / "a", 120)
+    prices(120).write_csv(tmp_path / "a" / "prices.csv")
+    night(cfg, full=True)
+    prices(130).write_csv(tmp_path / "a" / "prices.csv")
+    (result,) = night(cfg)
+    got = stored(cfg)
+    con = wh.connect(cfg.warehouse.path)
+    try:
+        prepared = wh.query(con, "SELECT date, bool_and(value IS NOT NULL) AS complete FROM prepared "
+                                 "WHERE universe = 'trio_tvp' GROUP BY date ORDER BY date")
+    finally:
+        con.close()
+    complete = prepared.filter(pl.col("complete"))["date"].to_list()
+    gaps = prepared.filter(~pl.col("complete"))["date"].to_list()
+    first_night = simulate_prices(120)["date"][-1]
+    new = [d for d in complete if d > first_night]
+    assert any(d > first_night for d in gaps) and any(d < first_night for d in gaps)
+    assert result.reason == f"{len(new)} new date(s) filtered from the stored state"
+    assert got["connectedness"]["window_end"].to_list() == complete[40:]
+    fresh = setup(tmp_path / "b", 130)
+    prices(130).write_csv(tmp_path / "b" / "prices.csv")
+    night(fresh)
+    assert_same(got, stored(fresh), atol=1e-10)
+
+
+def test_too_few_rows_for_the_training_sample_is_a_clear_failure(tmp_path: Path) -> None:
+    cfg = setup(tmp_path, 35)
+    (universe,) = cfg.universes
+    for s in cfg.sources:
+        jobs.ingest_source(cfg.warehouse.path, s)
+    result = jobs.run_universe(cfg.warehouse.path, universe)
+    assert result.status == "failed"
+    assert "training sample takes 40, so no date can be filtered; lower [universes.tvp] training" in (result.message or "")
+    con = wh.connect(cfg.warehouse.path)
+    try:
+        obs = wh.read_observations(con, universe.names)
+    finally:
+        con.close()
+    from pipeline.prepare import prepare_universe
+
+    problem = jobs.window_problem(prepare_universe(obs, universe), universe)
+    assert problem is not None and "34 prepared row(s) with a value in every series" in problem
