@@ -889,8 +889,8 @@ MODEL_LABELS = {"rolling": "rolling-window VAR", "tvp": "time-varying-parameter 
 
 
 def model_compare_figure(
-    rolling: tuple[Sequence[dt.date], Sequence[float]],
-    tvp: tuple[Sequence[dt.date], Sequence[float]],
+    rolling: tuple[Sequence[dt.date], Sequence[float] | np.ndarray],
+    tvp: tuple[Sequence[dt.date], Sequence[float] | np.ndarray],
     *,
     names: tuple[str, str],
     horizon: int | None = None,
