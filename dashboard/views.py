@@ -250,6 +250,12 @@ def leadlag_view(snap: Snapshot, state: Any, level: Any) -> ViewResult:
     """Granger p-values at the window end, and the share of windows significant in the date window."""
     window = _window(snap, state)
     u = snap.universe(window.universe)
+    if u.model == "tvp":
+        other = snap.counterpart(u)
+        msg = (f"Universe '{u.name}' is a time-varying-parameter VAR: Granger tests belong to a least-squares "
+               "fit per window, so none are stored for its dates"
+               + (f"; see its rolling counterpart '{other.name}'." if other is not None else "."))  # fmt: skip
+        raise WindowError(msg)
     alpha = parse_fraction(level, "significance level", 0.0, 0.5)
     end = snap.fitted_end(window)
     pvals = snap.granger_at(u, end)

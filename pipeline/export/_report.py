@@ -338,6 +338,10 @@ def _granger(d: ReportData) -> str:
     names = d.info.series
     level = d.info.granger_level
     out = ['<section id="granger" class="major"><div class="keep"><h2>Granger causality</h2>']
+    if d.info.model == "tvp":
+        out.append('<p class="note">A time-varying-parameter VAR: Granger tests belong to a least-squares '
+                   "fit per window, so none are stored for its dates.</p></div></section>")  # fmt: skip
+        return "".join(out)
     if d.granger_p is None:
         out.append('<p class="note">No fitted window.</p></div></section>')
         return "".join(out)

@@ -156,5 +156,29 @@ def test_report_has_the_rolling_vs_tvp_section(built: tuple[Path, Path], snap: S
     assert 'id="models"' in text and "Rolling windows vs time-varying parameters" in text
     assert "time-varying-parameter VAR (filtered per date)" in text  # the model, at a glance
     assert "one point per date of the time-varying-parameter VAR filter" in text
+    assert "Granger tests belong to a least-squares fit per window" in text
     (page,) = Path(exports).glob("*/rates/rates-*.html")
     assert 'id="models"' in page.read_text(encoding="utf-8")
+
+
+def test_every_tab_answers_for_a_tvp_universe(snap: Snapshot) -> None:
+    """No view fails on a filtered date: each shows numbers, or says what a tvp universe lacks."""
+    state = _state(snap, "rates_tvp")
+    results = {
+        "shares": vw.shares_view(snap, state, None, "8"),
+        "leadlag": vw.leadlag_view(snap, state, 0.05),
+        "network": vw.network_view(snap, state, "mean", "from"),
+        "health": vw.health_view(snap, state, 0.98),
+        "cycles": vw.cycles_view(snap, state),
+        "joint": vw.joint_view(snap, state),
+    }
+    for (a, b) in [vw.compare_view(snap, state, "", "", "", "", "generalized", None, "8"), vw.bands_view(snap, state)]:
+        results[f"pair {a[2][:20]}"] = a
+        results[f"pair {b[2][:20]}"] = b
+    for name, (fig, _, note) in results.items():
+        assert "could not be computed" not in note, (name, note)
+        assert fig["data"] or note, name
+    for name in ("shares", "network", "health", "cycles"):
+        assert results[name][0]["data"], (name, results[name][2])
+    assert "Granger tests belong to a least-squares fit per window" in results["leadlag"][2]
+    assert "rolling counterpart 'rates'" in results["leadlag"][2]
