@@ -21,6 +21,7 @@ CASES: dict[str, str] = {
     "load": "bench.load_dashboard:case",
     "ingest_memory": "bench.ingest_memory:case",
     "tvp": "bench.tvp:main",
+    "tvp_nightly": "bench.tvp_nightly:main",
 }
 
 

@@ -10,6 +10,7 @@ series the same colour, dash and marker wherever it appears.
 from __future__ import annotations
 
 from ._figures import (
+    MODEL_LABELS,
     band_index_figure,
     band_label,
     band_net_figure,
@@ -19,6 +20,7 @@ from ._figures import (
     index_figure,
     joint_index_figure,
     message_figure,
+    model_compare_figure,
     net_figure,
     network_figure,
     node_positions,
@@ -45,6 +47,7 @@ __all__ = [
     "DIVERGING",
     "FONT",
     "FONT_FAMILY",
+    "MODEL_LABELS",
     "OKABE_ITO",
     "SEQUENTIAL",
     "SIGNIFICANCE_MARK",
@@ -60,6 +63,7 @@ __all__ = [
     "index_figure",
     "joint_index_figure",
     "message_figure",
+    "model_compare_figure",
     "net_figure",
     "network_figure",
     "node_positions",

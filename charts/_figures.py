@@ -39,6 +39,7 @@ from ._theme import (
 )
 
 __all__ = [
+    "MODEL_LABELS",
     "band_index_figure",
     "band_label",
     "band_net_figure",
@@ -48,6 +49,7 @@ __all__ = [
     "index_figure",
     "joint_index_figure",
     "message_figure",
+    "model_compare_figure",
     "net_figure",
     "network_figure",
     "node_positions",
@@ -106,9 +108,13 @@ def index_figure(
     threshold: float | None = None,
     universe: str,
     horizon: int | None = None,
+    model: str | None = None,
     medium: Medium = "screen",
 ) -> Figure:
     """The total connectedness index (percent) over every stored window.
+
+    `model` ("rolling" or "tvp"), when given, is said in the title: a TVP universe's index is one
+    value per filtered date, not per window.
 
     On screen the x-range shows the chosen date window (`start`..`end`) and a range slider below
     shows the whole history. Windows whose index is at or above `threshold` (a high quantile of
@@ -154,7 +160,7 @@ def index_figure(
             "name": "window the views use", "line": {"color": VERMILLION, "dash": "dash"},
         })  # fmt: skip
     at = f", {horizon}-step horizon" if horizon is not None else ""
-    title = f"Total connectedness, {universe}{at}"
+    title = f"Total connectedness, {universe}{at}" + (f" · {MODEL_LABELS.get(model, model)}" if model else "")
     subtitle = "% of forecast-error variance from other series" + (
         f" · stored at the universe's {horizon}-step horizon; the horizon setting below does not "
         "change it" if horizon is not None and screen else ""
@@ -870,6 +876,43 @@ def joint_index_figure(
     layout = th.layout(
         height=340, medium=medium,
         title=f"Joint vs generalized total connectedness, {universe}, {horizon}-step horizon",
+        legend={"orientation": "h", "x": 0.0, "xanchor": "left", "yref": "container", "y": 0.0,
+                "yanchor": "bottom"},
+        margin={"l": 60, "r": 20, "t": 60, "b": 80},
+        xaxis=th.axis(type="date"), yaxis=th.axis(title={"text": "% of forecast-error variance"}),
+    )  # fmt: skip
+    return {"data": data, "layout": layout}
+
+
+#: How each universe model reads in titles and notes.
+MODEL_LABELS = {"rolling": "rolling-window VAR", "tvp": "time-varying-parameter VAR (filtered per date)"}
+
+
+def model_compare_figure(
+    rolling: tuple[Sequence[dt.date], Sequence[float] | np.ndarray],
+    tvp: tuple[Sequence[dt.date], Sequence[float] | np.ndarray],
+    *,
+    names: tuple[str, str],
+    horizon: int | None = None,
+    medium: Medium = "screen",
+) -> Figure:
+    """Total connectedness of the same series from a rolling-window VAR and a TVP-VAR, side by side.
+
+    `rolling` and `tvp` are (dates, totals in percent) of the two universes; `names` their names
+    (rolling first). The TVP line has a value for every filtered date, the rolling one per window end.
+    """
+    data = [
+        {"type": "scatter", "x": th.dates(rolling[0]), "y": th.as_list(rolling[1]), "mode": "lines",
+         "name": f"rolling windows ({names[0]})", "line": {"color": BLUE, "width": 1.6},
+         "hovertemplate": "rolling %{y:.1f}%<extra></extra>"},
+        {"type": "scatter", "x": th.dates(tvp[0]), "y": th.as_list(tvp[1]), "mode": "lines",
+         "name": f"TVP filter ({names[1]})", "line": {"color": ORANGE, "width": 1.4, "dash": "dash"},
+         "hovertemplate": "TVP %{y:.1f}%<extra></extra>"},
+    ]  # fmt: skip
+    at = f", {horizon}-step horizon" if horizon is not None else ""
+    layout = th.layout(
+        height=340, medium=medium,
+        title=f"Total connectedness: rolling-window vs time-varying-parameter VAR{at}",
         legend={"orientation": "h", "x": 0.0, "xanchor": "left", "yref": "container", "y": 0.0,
                 "yanchor": "bottom"},
         margin={"l": 60, "r": 20, "t": 60, "b": 80},

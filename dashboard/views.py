@@ -69,6 +69,7 @@ __all__ = [
     "index_view",
     "joint_view",
     "leadlag_view",
+    "models_view",
     "network_view",
     "paths_view",
     "shares_view",
@@ -131,7 +132,7 @@ def index_view(snap: Snapshot, state: Any, quantile: Any = 0.9) -> ViewResult:
         used = None
     fig = charts.index_figure(
         dates, totals, start=window.start, end=window.end, reference_end=used,
-        threshold=threshold, universe=window.universe, horizon=u.horizon,
+        threshold=threshold, universe=window.universe, horizon=u.horizon, model=u.model,
     )  # fmt: skip
     rows = [
         {"window_end": iso(d), "total_percent": num(v),
@@ -146,6 +147,8 @@ def index_view(snap: Snapshot, state: Any, quantile: Any = 0.9) -> ViewResult:
         if inside and threshold is not None
         else "No index values in this window."
     )
+    if u.model == "tvp":
+        note += " Model: time-varying-parameter VAR, one value per filtered date (no window)."
     return fig, rows, note
 
 
@@ -247,6 +250,12 @@ def leadlag_view(snap: Snapshot, state: Any, level: Any) -> ViewResult:
     """Granger p-values at the window end, and the share of windows significant in the date window."""
     window = _window(snap, state)
     u = snap.universe(window.universe)
+    if u.model == "tvp":
+        other = snap.counterpart(u)
+        msg = (f"Universe '{u.name}' is a time-varying-parameter VAR: Granger tests belong to a least-squares "
+               "fit per window, so none are stored for its dates"
+               + (f"; see its rolling counterpart '{other.name}'." if other is not None else "."))  # fmt: skip
+        raise WindowError(msg)
     alpha = parse_fraction(level, "significance level", 0.0, 0.5)
     end = snap.fitted_end(window)
     pvals = snap.granger_at(u, end)
@@ -614,6 +623,43 @@ def joint_view(snap: Snapshot, state: Any) -> ViewResult:
     return fig, rows, note
 
 
+@guard
+def models_view(snap: Snapshot, state: Any) -> ViewResult:
+    """Total connectedness of the universe and its counterpart of the other model, side by side.
+
+    The counterpart is the universe with the same series in the same order and the other `model`
+    (`Snapshot.counterpart`): a rolling universe and a tvp one configured on the same series.
+    """
+    window = _window(snap, state)
+    u = snap.universe(window.universe)
+    other = snap.counterpart(u)
+    if other is None:
+        want = "tvp" if u.model == "rolling" else "rolling"
+        msg = (f"Universe '{u.name}' ({u.model}) has no counterpart: add a universe with the same series "
+               f"in the same order and model = \"{want}\" to compare the two, and run again.")
+        raise WindowError(msg)
+    rolling, tvp = (u, other) if u.model == "rolling" else (other, u)
+    hist = {x.name: snap.index_history(x.name) for x in (rolling, tvp)}
+    if not hist[tvp.name] or not hist[rolling.name]:
+        raise WindowError(empty_note(tvp.name if not hist[tvp.name] else rolling.name))
+    series = {k: ([d for d, _ in h], np.asarray([float(v) for _, v in h])) for k, h in hist.items()}
+    fig = charts.model_compare_figure(series[rolling.name], series[tvp.name], names=(rolling.name, tvp.name),
+                                      horizon=u.horizon if rolling.horizon == tvp.horizon else None)  # fmt: skip
+    tvp_at = dict(hist[tvp.name])
+    rows = [{"date": iso(d), "model": m, "universe": x.name, "total_percent": num(v)}
+            for m, x in (("rolling", rolling), ("tvp", tvp)) for d, v in hist[x.name]]  # fmt: skip
+    common = [(v, tvp_at[d]) for d, v in hist[rolling.name] if d in tvp_at]
+    if common:
+        a, b = np.asarray(common).T
+        corr = float(np.corrcoef(a, b)[0, 1]) if a.size > 2 and a.std() > 0 and b.std() > 0 else float("nan")
+        note = (f"On the {a.size} dates both store: TVP − rolling mean {np.mean(b - a):+.1f} points, "
+                f"correlation {corr:.2f}. The rolling index weighs every row of a window alike; the "
+                f"filter forgets old rows gradually, so it moves sooner after a break.")  # fmt: skip
+    else:
+        note = "The two universes store no common date."
+    return fig, rows, note
+
+
 # ---------------------------------------------------------------------------------------------
 # the table of views
 # ---------------------------------------------------------------------------------------------
@@ -781,6 +827,10 @@ VIEWS: tuple[View, ...] = (
     View("joint", joint_view, tab="Joint index", charts=(("joint", 360),),
          intro=("The share of each series' forecast-error variance due to all other shocks together "
                 "(Lastrapes–Wiesen 2021), next to the row-normalised generalized index.")),
+    View("models", models_view, tab="Rolling vs TVP", charts=(("models", 360),),
+         intro=("The same series estimated both ways: total connectedness from rolling windows of "
+                "least squares next to the time-varying-parameter VAR filtered per date, for a "
+                "universe configured with a counterpart (same series, the other `model`).")),
     View("cycles", cycles_view, tab="Own cycles", charts=(("cycles", 460),),
          intro=("Each series on its own: a univariate AR (order chosen by AIC) fitted on the prepared "
                 "data of the window the views use; its implied spectral density and, where the "

@@ -37,14 +37,20 @@ if TYPE_CHECKING:
     from pipeline.prepare import Prepared
 
 __all__ = [
+    "StoredFilter",
     "StoredState",
+    "TVPBlock",
     "WindowPlan",
     "code_version",
     "data_fingerprint",
     "fit_block",
     "latest_window_bands",
+    "plan_tvp",
     "plan_windows",
     "result_tables",
+    "tvp_filter",
+    "tvp_tables",
+    "tvp_training",
     "window_grid",
 ]
 
@@ -85,9 +91,19 @@ def data_fingerprint(prepared: Prepared) -> str:
 
 def window_grid(T: int, universe: UniverseConfig) -> tuple[np.ndarray, np.ndarray]:
     """Window (ends, starts) as row indexes, shape (W,) each, for T prepared rows."""
-    ends = np.arange(universe.window - 1, T, universe.step, dtype=np.int64)
-    starts = np.zeros_like(ends) if universe.expanding else ends - universe.window + 1
+    window = universe.window_rows
+    ends = np.arange(window - 1, T, universe.step, dtype=np.int64)
+    starts = np.zeros_like(ends) if universe.expanding else ends - window + 1
     return ends, starts
+
+
+@dataclass(frozen=True)
+class StoredFilter:
+    """A tvp universe's stored filter: the arlib TVPState after its last date, and its dates."""
+
+    state: Any  # arlib.TVPState
+    last: date  # the date of the state's last row (the newest stored result)
+    first: date  # the first filtered date (every stored date's window_start)
 
 
 @dataclass(frozen=True)
@@ -97,6 +113,7 @@ class StoredState:
     config_hash: str | None
     windows: pl.DataFrame  # window_end: Date, window_start: Date
     prepared: pl.DataFrame  # date: Date, series: str, value: f64 (null for gap rows)
+    tvp: StoredFilter | None = None  # the filter state of a tvp universe
 
 
 @dataclass(frozen=True)
@@ -225,7 +242,7 @@ def fit_block(prepared: Prepared, universe: UniverseConfig, ends: np.ndarray) ->
     try:
         return arlib.rolling_var(
             prepared.y,
-            universe.window,
+            universe.window_rows,
             None if sel is not None else universe.lags,
             universe.horizon,
             step=universe.step,
@@ -333,17 +350,18 @@ def result_tables(
         }
     )
     # granger[w, i, j] tests "j does not Granger-cause i": caused = i, causing = j; i != j only
-    off = ~np.eye(n, dtype=bool)
-    gi, gj = np.nonzero(off)
-    tables["granger"] = pl.DataFrame(
-        {
-            **head(k, gi.size),
-            "caused": [names[i] for i in gi] * K,
-            "causing": [names[j] for j in gj] * K,
-            "f_stat": _none_if_nan(np.asarray(rolling.granger_f)[k][:, gi, gj].reshape(-1)),
-            "p_value": _none_if_nan(np.asarray(rolling.granger_p)[k][:, gi, gj].reshape(-1)),
-        }
-    )
+    if rolling.granger_f is not None:  # none from the TVP filter
+        off = ~np.eye(n, dtype=bool)
+        gi, gj = np.nonzero(off)
+        tables["granger"] = pl.DataFrame(
+            {
+                **head(k, gi.size),
+                "caused": [names[i] for i in gi] * K,
+                "causing": [names[j] for j in gj] * K,
+                "f_stat": _none_if_nan(np.asarray(rolling.granger_f)[k][:, gi, gj].reshape(-1)),
+                "p_value": _none_if_nan(np.asarray(rolling.granger_p)[k][:, gi, gj].reshape(-1)),
+            }
+        )
     if getattr(rolling, "band_tables", None) is not None:
         periods = rolling.band_periods
         d = len(periods)
@@ -393,8 +411,10 @@ def result_tables(
             "sigma_u": _flat(np.asarray(rolling.sigma_u)[k]),
         }
     )
+    if rolling.responses is None and rolling.decomposition is None:
+        return tables
     # arrays for windows on the sub-grid (grid index divisible by arrays_every) and the newest one
-    grid_index = (ends - (universe.window - 1)) // universe.step
+    grid_index = (ends - (universe.window_rows - 1)) // universe.step
     keep = grid_index[k] % universe.arrays_every == 0
     if last_block and K:
         keep[-1] = True
@@ -469,3 +489,199 @@ def latest_window_bands(
         rng=b.seed,
     )
     return np.asarray(res.lower), np.asarray(res.upper), float(b.coverage)
+
+
+# ------------------------------------------------------------------------------------------
+# model = "tvp": the TVP-VAR filter (arlib.tvp_var), one result per date
+# ------------------------------------------------------------------------------------------
+#
+# Dates: the filter runs over the prepared rows with a value in every series (gap rows get no
+# result and the filter treats the rows around them as consecutive). The first `training` such
+# rows give the prior (arlib.tvp_var); every later row is a date, stored like a window ending on
+# that date, with window_start = the first filtered date. The filter state after the newest date
+# is stored too (table `tvp_state`).
+#
+# Incremental rule (:func:`plan_tvp`): the stored state is continued with the new rows after its
+# last date when the config hash is unchanged and no prepared value on or before that date
+# changed, appeared or disappeared; anything else (a revision, a config change, ``full=True``,
+# no stored state) re-filters every row from the training sample on. arlib continues a state with
+# the same operations in the same order as one pass, so both give the same numbers
+# (tests/pipeline/test_tvp_flow.py holds them to 1e-10).
+
+
+@dataclass(frozen=True)
+class TVPBlock:
+    """The one fit block of a tvp universe: prepared rows to filter and the filter to continue.
+
+    rows: prepared row indexes (complete rows only, ascending); state: the stored arlib TVPState
+    the rows continue, or None for a new filter whose first `training` rows are the prior;
+    first: the first filtered date of the continued filter (None for a new one).
+    """
+
+    rows: np.ndarray
+    state: Any = None
+    first: date | None = None
+
+    @property
+    def size(self) -> int:
+        return int(self.rows.size)
+
+
+def tvp_training(universe: UniverseConfig) -> int:
+    """Rows of the training sample: `[universes.tvp] training`, or arlib's default max(p + k + n, 4·k)."""
+    if universe.tvp.training is not None:
+        return universe.tvp.training
+    from arlib import minimum_window
+
+    n, p = len(universe.series), universe.max_lag
+    k = (1 if universe.trend == "c" else 0) + n * p
+    return max(minimum_window(n, p, universe.trend), 4 * k)
+
+
+def plan_tvp(
+    prepared: Prepared, universe: UniverseConfig, *, stored: StoredState | None, full: bool = False
+) -> tuple[WindowPlan, TVPBlock]:
+    """Decide whether the stored filter continues or every row is re-filtered (module comment)."""
+    y = np.asarray(prepared.y)
+    rows = np.flatnonzero(~np.isnan(y).any(axis=1)) if y.size else np.zeros(0, np.int64)
+    dates = np.asarray(prepared.dates, dtype="datetime64[D]")
+    reason = None
+    if full:
+        reason = "full re-filter requested"
+    elif stored is None or stored.config_hash is None:
+        reason = "first run"
+    elif stored.config_hash != universe.config_hash:
+        reason = "config changed: re-filtering every date"
+    elif stored.tvp is None:
+        reason = "no stored filter state: re-filtering every date"
+    changed: set[date] = set()
+    removed: set[date] = set()
+    if reason is None:
+        assert stored is not None and stored.tvp is not None
+        changed, removed = _changed_dates(prepared.frame, stored.prepared)
+        last = stored.tvp.last
+        early = sorted(d for d in changed | removed if d <= last)
+        if early:
+            reason = f"data changed on or before the filter's last date {last} (first: {early[0]}): re-filtering every date"
+    if reason is not None:
+        train = tvp_training(universe)
+        if rows.size <= train:
+            msg = (
+                f"universe {universe.name!r}: {rows.size} prepared row(s) with a value in every series, but the "
+                f"TVP filter's training sample takes {train}, so no date can be filtered; lower "
+                f"[universes.tvp] training (at least p + k + n) or add history to its sources"
+            )
+            if stored is not None and stored.windows.height:
+                msg += "; its previous results stay served"
+            raise FitError(msg)
+        ends = rows[train:]
+        plan = WindowPlan(ends=ends, delete_ends=None, prepared_changed=True, reason=reason, candidates=int(ends.size))
+        return plan, TVPBlock(rows)
+    assert stored is not None and stored.tvp is not None
+    new = rows[dates[rows] > np.datetime64(stored.tvp.last, "D")]
+    parts = [f"{new.size} new date(s) filtered from the stored state"] if new.size else []
+    plan = WindowPlan(
+        ends=new,
+        delete_ends=[],
+        prepared_changed=bool(changed or removed),
+        prepared_dates=sorted(changed | removed),
+        reason=", ".join(parts) if parts else "nothing changed",
+        candidates=int(stored.windows.height + new.size),
+        reused=int(stored.windows.height),
+    )
+    return plan, TVPBlock(new, stored.tvp.state, stored.tvp.first)
+
+
+def tvp_filter(prepared: Prepared, universe: UniverseConfig, block: TVPBlock) -> Any:
+    """Run (or continue) arlib's TVP filter over the block's rows; a refusal is a FitError."""
+    import arlib
+
+    y = np.asarray(prepared.y)[block.rows]
+    common: dict[str, Any] = {
+        "bands": universe.band_periods,
+        "truncation": universe.band_truncation,
+        "joint": universe.joint,
+    }
+    try:
+        if block.state is not None:
+            return arlib.tvp_var(y, horizon=universe.horizon, state=block.state, **common)
+        t = universe.tvp
+        return arlib.tvp_var(
+            y, universe.lags, universe.horizon, kappa1=t.kappa1, kappa2=t.kappa2, training=tvp_training(universe),
+            trend=universe.trend, covariance=t.covariance, names=list(prepared.names), **common,
+        )  # fmt: skip
+    except (ValueError, np.linalg.LinAlgError) as exc:
+        msg = f"universe {universe.name!r}: the TVP filter refused the data: {' '.join(str(exc).split())}"
+        raise FitError(msg) from exc
+
+
+def tvp_tables(
+    result: Any, prepared: Prepared, universe: UniverseConfig, block: TVPBlock, *, run_id: str
+) -> dict[str, pl.DataFrame]:
+    """The filter's dates as the warehouse's per-window tables, plus the `tvp_state` row.
+
+    A date is stored like a window ending on it (window_start = the first filtered date): the
+    tables a rolling universe writes where they have a meaning — window_fits (nobs = rows the
+    filter has consumed, spectral radius of the date's VAR, no criteria or tests), connectedness,
+    directional, pairwise, window_params (B_t and Σ_t), band and joint connectedness — and no
+    Granger tests, stored responses or decompositions (the screen and the report derive those from
+    window_params).
+    """
+    from types import SimpleNamespace
+
+    D = len(result)
+    base = 0 if block.state is None else int(block.state.row)
+    idx = block.rows[np.asarray(result.ends, dtype=np.int64) - base]
+    first_row = int(idx[0]) if block.first is None and D else None
+    first = block.first if block.first is not None else (prepared.dates[first_row] if first_row is not None else None)
+    start = int(np.searchsorted(np.asarray(prepared.dates, dtype="datetime64[D]"), np.datetime64(first, "D"))) if first else 0
+    nan = np.full(D, np.nan)
+    radius = result.spectral_radius if result.spectral_radius is not None else nan
+    view = SimpleNamespace(
+        ends=idx, starts=np.full(D, start, dtype=np.int64), ok=np.ones(D, dtype=bool), spectral_radius=radius,
+        skip_reason=[None] * D, portmanteau_p=None, nobs=np.asarray(result.ends) + 1, lags=np.full(D, result.lags),
+        aic=nan, bic=nan, hq=nan, fpe=nan, condition_number=nan,
+        total_connectedness=result.total_connectedness, to_others=result.to_others,
+        from_others=result.from_others, net=result.net, pairwise=result.pairwise, granger_f=None,
+        band_tables=result.band_pairwise, band_periods=result.bands, band_truncation=result.truncation,
+        band_total=result.band_total, band_within=result.band_within_total, band_share=result.band_share,
+        band_to_others=result.band_to_others, band_from_others=result.band_from_others,
+        joint_total=result.joint_total, joint_from_others=result.joint_from_others,
+        coefs=result.coefs, intercept=result.intercept, trend_coef=None, sigma_u=result.sigma_u,
+        responses=None, decomposition=None,
+    )  # fmt: skip
+    tables = result_tables(view, prepared, universe, run_id=run_id)
+    st = result.state
+    last = prepared.dates[int(idx[-1])] if D else None
+    if last is not None and first is not None:
+        tables["tvp_state"] = pl.DataFrame(
+            {
+                "run_id": [run_id], "universe": [universe.name],
+                "window_end": pl.Series([last], dtype=pl.Date), "window_start": pl.Series([first], dtype=pl.Date),
+                "row": pl.Series([int(st.row)], dtype=pl.Int64), "lags": pl.Series([int(st.lags)], dtype=pl.Int32),
+                "trend": [st.trend], "kappa1": [float(st.kappa1)], "kappa2": [float(st.kappa2)],
+                "covariance": [st.covariance], "names": pl.Series([list(st.names)], dtype=pl.List(pl.String)),
+                "params": _flat(np.asarray(st.params)[None]), "cov": _flat(np.asarray(st.cov)[None]),
+                "sigma": _flat(np.asarray(st.sigma)[None]), "tail": _flat(np.asarray(st.tail)[None]),
+            }
+        )  # fmt: skip
+    return tables
+
+
+def stored_filter(row: dict[str, Any]) -> StoredFilter:
+    """A `tvp_state` row (column → value, arrays as lists) back to the arlib TVPState it stored."""
+    import arlib
+
+    names = tuple(row["names"])
+    n, p = len(names), int(row["lags"])
+    k = (1 if row["trend"] == "c" else 0) + n * p
+    size = k if row["covariance"] == "kronecker" else n * k
+    state = arlib.TVPState(
+        params=np.asarray(row["params"], dtype=np.float64).reshape(k, n),
+        cov=np.asarray(row["cov"], dtype=np.float64).reshape(size, size),
+        sigma=np.asarray(row["sigma"], dtype=np.float64).reshape(n, n),
+        tail=np.asarray(row["tail"], dtype=np.float64).reshape(p, n),
+        row=int(row["row"]), lags=p, trend=str(row["trend"]), kappa1=float(row["kappa1"]),
+        kappa2=float(row["kappa2"]), covariance=str(row["covariance"]), names=names,
+    )  # fmt: skip
+    return StoredFilter(state=state, last=row["window_end"], first=row["window_start"])

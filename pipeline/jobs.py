@@ -24,12 +24,17 @@ import polars as pl
 from pipeline import warehouse as wh
 from pipeline.errors import FitError, ShockflowError
 from pipeline.fit import (
+    TVPBlock,
     code_version,
     data_fingerprint,
     fit_block,
     latest_window_bands,
+    plan_tvp,
     plan_windows,
     result_tables,
+    tvp_filter,
+    tvp_tables,
+    tvp_training,
     window_grid,
 )
 from pipeline.prepare import prepare_universe
@@ -150,13 +155,16 @@ def ingest_source(warehouse_path: str | Path, source: SourceConfig, *, today: da
 
 @dataclass(frozen=True)
 class UniverseJob:
-    """A planned universe run: its prepared data, the windows to fit, split into blocks."""
+    """A planned universe run: its prepared data, the windows to fit, split into blocks.
+
+    A tvp universe has at most one block, a `TVPBlock` (the filter is sequential over dates).
+    """
 
     universe: UniverseConfig
     run_id: str
     prepared: Prepared
     plan: WindowPlan
-    blocks: tuple[np.ndarray, ...]
+    blocks: tuple[np.ndarray | TVPBlock, ...]
     fingerprint: str
     seconds_prepare: float
 
@@ -207,6 +215,11 @@ def plan_universe(
     finally:
         con.close()
     prepared = prepare_universe(obs, universe)
+    if universe.model == "tvp":
+        plan, block = plan_tvp(prepared, universe, stored=stored, full=full)
+        tvp_blocks: tuple[TVPBlock, ...] = (block,) if block.size else ()
+        log.info("universe %s: %d prepared rows; %s", universe.name, len(prepared.dates), plan.reason)
+        return UniverseJob(universe, run_id, prepared, plan, tvp_blocks, data_fingerprint(prepared), time.perf_counter() - t0)
     plan = plan_windows(prepared, universe, stored=stored, full=full)
     if plan.candidates == 0:  # no window fits in the data: never wipe stored results unasked
         plan = _empty_grid(warehouse_path, universe, prepared, plan, stored=stored, full=full)
@@ -216,8 +229,21 @@ def plan_universe(
 
 
 def window_problem(prepared: Prepared, universe: UniverseConfig) -> str | None:
-    """Why `universe` has no window to fit in `prepared` (its window exceeds the rows), or None."""
+    """Why `universe` has no window to fit in `prepared` (its window exceeds the rows), or None.
+
+    For a tvp universe: why the filter has no date (its training sample takes every complete row).
+    """
     rows = len(prepared.dates)
+    if universe.model == "tvp":
+        complete = int((~np.isnan(np.asarray(prepared.y)).any(axis=1)).sum()) if rows else 0
+        train = tvp_training(universe)
+        if complete > train:
+            return None
+        return (
+            f"universe {universe.name!r}: {complete} prepared row(s) with a value in every series, but the TVP "
+            f"filter's training sample takes {train}, so no date can be filtered; lower [universes.tvp] "
+            f"training (at least p + k + n) or add history to its sources"
+        )
     if window_grid(rows, universe)[0].size:
         return None
     return (
@@ -262,12 +288,15 @@ def _empty_grid(
 
 
 def fit_block_step(
-    prepared: Prepared, universe: UniverseConfig, ends: np.ndarray, *, run_id: str, with_bands: bool
+    prepared: Prepared, universe: UniverseConfig, ends: np.ndarray | TVPBlock, *, run_id: str, with_bands: bool
 ) -> dict[str, pl.DataFrame]:
     """Fit one block of window ends and return its result tables (pure compute, no I/O).
 
     with_bands: this is the universe's last block (its newest window gets bands and arrays).
+    A `TVPBlock` runs (or continues) the TVP filter instead.
     """
+    if isinstance(ends, TVPBlock):
+        return tvp_tables(tvp_filter(prepared, universe, ends), prepared, universe, ends, run_id=run_id)
     rolling = fit_block(prepared, universe, ends)
     bands = latest_window_bands(prepared, universe, rolling) if with_bands else None
     return result_tables(rolling, prepared, universe, run_id=run_id, bands=bands, last_block=with_bands)
@@ -283,7 +312,7 @@ def store_universe(
     """Write the fitted blocks in one transaction and mark the run succeeded."""
     t0 = time.perf_counter()
     tables: dict[str, pl.DataFrame] = {}
-    for name in wh.RESULT_TABLES:
+    for name in (*wh.RESULT_TABLES, *wh.STATE_TABLES):
         parts = [b[name] for b in blocks if name in b and b[name].height]
         if parts:
             tables[name] = pl.concat(parts, how="vertical_relaxed")

@@ -31,7 +31,13 @@ import pyarrow as pa
 
 from pipeline.errors import WarehouseError, from_duckdb
 from serving import _schema as schema
-from serving._schema import RESULT_TABLES, SCHEMA_VERSION, SNAPSHOT_TABLES, UNIVERSE_TABLES
+from serving._schema import (
+    RESULT_TABLES,
+    SCHEMA_VERSION,
+    SNAPSHOT_TABLES,
+    STATE_TABLES,
+    UNIVERSE_TABLES,
+)
 from serving._views import create_views
 
 if TYPE_CHECKING:
@@ -41,6 +47,7 @@ __all__ = [
     "RESULT_TABLES",
     "SCHEMA_VERSION",
     "SNAPSHOT_TABLES",
+    "STATE_TABLES",
     "TABLES",
     "IngestCounts",
     "begin_run",
@@ -417,6 +424,11 @@ def store_universe_results(
         for t in RESULT_TABLES:
             if t in tables:
                 _insert(con, t, tables[t])
+        for t in STATE_TABLES:  # one row per universe: a new one replaces it, a full refit drops it
+            if t in tables or replace_ends is None:
+                con.execute(f"DELETE FROM {t} WHERE universe = ?", [name])
+            if t in tables:
+                _insert(con, t, tables[t])
         if prepared is not None:
             for t in UNIVERSE_TABLES:
                 if t == "prepared" and prepared_dates is not None:
@@ -488,4 +500,8 @@ def stored_state(con: duckdb.DuckDBPyConnection, universe: str) -> Any:
     prepared = query(
         con, "SELECT date, series, value FROM prepared WHERE universe = ? ORDER BY date, series", [universe]
     )
-    return StoredState(config_hash=row[0][0], windows=windows, prepared=prepared)
+    from pipeline.fit import stored_filter
+
+    tvp = query(con, "SELECT * FROM tvp_state WHERE universe = ?", [universe])
+    state = stored_filter(tvp.row(0, named=True)) if tvp.height else None
+    return StoredState(config_hash=row[0][0], windows=windows, prepared=prepared, tvp=state)

@@ -161,6 +161,11 @@ class Universe:
     def n(self) -> int:
         return len(self.series)
 
+    @property
+    def model(self) -> str:
+        """"rolling" (windows of least squares) or "tvp" (the TVP-VAR filter: one result per date)."""
+        return str(self.config.get("model", "rolling"))
+
 
 @dataclasses.dataclass(frozen=True)
 class Fit:
@@ -645,6 +650,15 @@ class Snapshot:
             msg = f"unknown universe {shown!r}; pick one of {sorted(universes)}"
             raise WindowError(msg)
         return universes[name]
+
+    def counterpart(self, universe: Universe) -> Universe | None:
+        """The universe of the other model (rolling ↔ tvp) on the same series in the same order,
+        or None; with several, the first by name. This is how "configured both ways" is found."""
+        for name in sorted(self.universes()):
+            other = self.universes()[name]
+            if other.model != universe.model and other.series == universe.series:
+                return other
+        return None
 
     # -- per-universe tables kept in memory --------------------------------------------------------
     def _rows_of(self, table: str, universe: str) -> _Rows:

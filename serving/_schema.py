@@ -25,6 +25,7 @@ __all__ = [
     "SCHEMA",
     "SCHEMA_VERSION",
     "SNAPSHOT_TABLES",
+    "STATE_TABLES",
     "UNIVERSE_TABLES",
     "Column",
     "Table",
@@ -45,6 +46,7 @@ KINDS = {
     "run": "one row per run, updated as it finishes",
     "universe": "replaced whole by each run that changes the universe",
     "window": "one row set per (universe, window_end), replaced when that window is refitted",
+    "state": "one row per universe, replaced by each run that writes one (and deleted by a full refit)",
 }
 
 
@@ -230,6 +232,16 @@ SCHEMA: tuple[Table, ...] = (
         _c("generalized_total", "DOUBLE", nn=True, note="(the Diebold–Yilmaz index at the same horizon)"),
         _arr("from_others", ("n",), nn=True, note="(share of each series' variance due to all others jointly, percent)"),
     ), note="Lastrapes & Wiesen (2021); only universes with `joint = true`"),
+    Table("tvp_state", "universe (model `tvp`)", "state", (
+        *_window_key(), _c("window_start", "DATE", nn=True, note="(the first filtered date)"),
+        _c("row", "BIGINT", nn=True, note="(complete prepared rows the filter has consumed)"),
+        _c("lags", "INTEGER", nn=True), _c("trend", "VARCHAR", nn=True), _c("kappa1", "DOUBLE", nn=True),
+        _c("kappa2", "DOUBLE", nn=True), _c("covariance", "VARCHAR", nn=True), _c("names", "VARCHAR[]", nn=True),
+        _arr("params", ("k", "n"), nn=True, note="B_t, k = 1 + n·p with an intercept"),
+        _arr("cov", ("m", "m"), nn=True, note="V_t (m = k, `kronecker`) or P_t (m = n·k, `full`)"),
+        _arr("sigma", ("n", "n"), nn=True, note="Σ_t"),
+        _arr("tail", ("p", "n"), nn=True, note="the last p rows"),
+    ), served=False, note="the TVP filter after `window_end` (arlib.TVPState), which the next run continues"),
 )
 
 _BY_NAME = {t.name: t for t in SCHEMA}
@@ -238,6 +250,8 @@ _BY_NAME = {t.name: t for t in SCHEMA}
 RESULT_TABLES: tuple[str, ...] = tuple(t.name for t in SCHEMA if t.kind == "window")
 #: Per-universe tables replaced whole by each successful run that changes anything.
 UNIVERSE_TABLES: tuple[str, ...] = tuple(t.name for t in SCHEMA if t.kind == "universe")
+#: Per-universe state of an incremental model (one row per universe), replaced by each run that writes it.
+STATE_TABLES: tuple[str, ...] = tuple(t.name for t in SCHEMA if t.kind == "state")
 #: What the serving snapshot holds (observations and revisions stay in the working warehouse).
 SNAPSHOT_TABLES: tuple[str, ...] = tuple(t.name for t in SCHEMA if t.served)
 

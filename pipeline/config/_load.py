@@ -24,6 +24,7 @@ from pipeline.config._sections import (
     ExportConfig,
     ScheduleConfig,
     SeriesSpec,
+    TVPSettings,
     UniverseConfig,
     WarehouseConfig,
 )
@@ -246,7 +247,7 @@ def _load_universe(raw: Any, i: int, problems: Problems, base: Path) -> Universe
             return BAD
         return tuple(series)
 
-    v, _ = read_table(UniverseConfig, raw, where, problems, base=base, parsers={"series": parse_series})
+    v, given = read_table(UniverseConfig, raw, where, problems, base=base, parsers={"series": parse_series})
     if not isinstance(raw, dict):
         return None
 
@@ -277,11 +278,53 @@ def _load_universe(raw: Any, i: int, problems: Problems, base: Path) -> Universe
     bands = v.get("bands", NO_BANDS)
     if bands.method == "asymptotic" and not _bad(v, "identification") and v["identification"] != "cholesky":
         problems.add(f"{where}.bands.method", "is 'asymptotic', defined for Cholesky responses only", "use 'bootstrap' or identification = 'cholesky'")
-    if lags_ok and not _bad(v, "series", "window", "trend"):
+    if v.get("model") == "tvp":
+        lags_ok = _tvp_rules(v, given, where, problems) and lags_ok
+    else:
+        if "tvp" in given:
+            problems.add(key("tvp"), "is set but model is not 'tvp'", 'remove the [universes.tvp] table or set model = "tvp"')
+        typo = difflib.get_close_matches("window", [k for k in raw if k not in given], n=1, cutoff=0.6)
+        if "window" in v and v["window"] is None and not typo:  # a misspelt window is reported as such
+            problems.add(key("window"), "is required but missing", f"add `window = 250` (rows per window) to {where}, or set model = \"tvp\"")
+    if lags_ok and v.get("model") != "tvp" and not _bad(v, "series", "window", "trend") and v["window"] is not None:
         _window_rules(v, where, problems)
     if len(problems) > before:
         return None
     return UniverseConfig(**v)
+
+
+def _tvp_rules(v: dict[str, Any], given: set[str], where: str, problems: Problems) -> bool:
+    """The rules of a `model = "tvp"` universe; False when `lags` cannot be used for the row rule."""
+    unused = [k for k in ("window", "step", "expanding", "arrays_every") if k in given]
+    for k in unused:
+        problems.add(
+            f"{where}.{k}", 'is not used by a model = "tvp" universe (the filter gives one result per date, no window)',
+            f"remove `{k}`; the filter's first rows are set by [universes.tvp] training",
+        )
+    ok = True
+    if v.get("lag_selection") is not None:
+        problems.add(f"{where}.lag_selection", 'cannot choose p per date in a model = "tvp" universe', "set a fixed `lags = 2` instead")
+        ok = False
+    if v.get("trend") == "ct":
+        problems.add(f"{where}.trend", 'is "ct": a linear trend has no meaning with drifting coefficients', 'use trend = "c" or "n" with model = "tvp"')
+        ok = False
+    bands = v.get("bands", NO_BANDS)
+    if bands.method != "none":
+        problems.add(
+            f"{where}.bands.method", f"is {bands.method!r}: response bands refit a window, and a filtered date has none",
+            'remove the [universes.bands] table of a model = "tvp" universe',
+        )
+    training = v["tvp"].training if isinstance(v.get("tvp"), TVPSettings) else None
+    if ok and training is not None and not _bad(v, "series", "lags", "trend") and v.get("lags") is not None:
+        n, p, trend = len(v["series"]), v["lags"], v["trend"]
+        need = minimum_window(n, p, trend)
+        if training < need:
+            problems.add(
+                f"{where}.tvp.training",
+                f"= {training} rows cannot give a least-squares prior for {n} series × {p} lags{' + intercept' if trend != 'n' else ''}",
+                f"use training >= {need} (p + k + n), or leave it out for the default max(p + k + n, 4·k)",
+            )
+    return ok
 
 
 def _window_rules(v: dict[str, Any], where: str, problems: Problems) -> None:

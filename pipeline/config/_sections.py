@@ -34,6 +34,7 @@ __all__ = [
     "LagSelection",
     "ScheduleConfig",
     "SeriesSpec",
+    "TVPSettings",
     "UniverseConfig",
     "WarehouseConfig",
     "is_loopback",
@@ -51,6 +52,10 @@ CRITERIA = ("aic", "bic", "hq", "fpe")
 BAND_METHODS = ("none", "bootstrap", "asymptotic")
 EXPORT_FORMATS = ("html", "csv", "parquet", "pdf")
 RUNNERS = ("local", "dask")
+#: how a universe is estimated: windows of least squares, or the TVP-VAR filter (arlib.tvp_var)
+MODELS = ("rolling", "tvp")
+#: the TVP filter's state covariance (arlib's COVARIANCES)
+TVP_COVARIANCES = ("kronecker", "full")
 #: the most worker processes the dashboard starts (dashboard.settings.MAX_WORKERS)
 MAX_WORKERS = 64
 
@@ -104,6 +109,10 @@ def _band_edges(edges: tuple[float, ...]) -> tuple[str, str] | None:
     if not edges or list(edges) != sorted(set(edges)) or any(e == float("inf") for e in edges):
         return (f"is {list(edges)}", "list finite cycle lengths in rows, increasing, e.g. [5, 20]")
     return None
+
+
+def _kappa(value: float) -> tuple[str, str] | None:
+    return None if 0 < value <= 1 else (f"is {value}", "use a factor in (0, 1], e.g. 0.99 (memory about 1/(1 − κ) rows)")
 
 
 def _cron(cron: str) -> tuple[str, str] | None:
@@ -186,6 +195,30 @@ NO_BANDS = Bands(method="none")
 
 
 @dataclass(frozen=True)
+class TVPSettings:
+    """The TVP-VAR filter of a `model = "tvp"` universe (arlib.tvp_var; defaults: arlib's)."""
+
+    kappa1: float = setting(
+        0.99, check=_kappa, doc="κ₁, forgetting factor of the coefficients, in (0, 1]: memory about 1/(1 − κ₁) rows"
+    )
+    kappa2: float = setting(
+        0.99, check=_kappa, doc="κ₂, decay of the error covariance Σ_t, in (0, 1]: memory about 1/(1 − κ₂) rows"
+    )
+    training: int | None = setting(
+        None, minimum=3, default_doc="max(p + k + n, 4·k)",
+        doc="first rows whose least-squares fit is the prior; dates start after them (k coefficients per equation)",
+    )  # fmt: skip
+    covariance: str = setting(
+        "kronecker", choices=TVP_COVARIANCES,
+        doc="`kronecker` (P = Σ ⊗ V: fast, per-equation forgetting) or `full` (the papers' n·k × n·k P)",
+    )  # fmt: skip
+
+
+#: a universe without a `[universes.tvp]` table
+DEFAULT_TVP = TVPSettings()
+
+
+@dataclass(frozen=True)
 class UniverseConfig:
     """One `[[universes]]` entry: a named set of series and how to fit them."""
 
@@ -194,11 +227,12 @@ class UniverseConfig:
         doc='list of series names, each either `"NAME"` or `{ name = "NAME", transform = "diff" }`',
         fit_value=lambda u: [[s.name, s.transform] for s in u.series],
     )
-    window: int = setting(
-        minimum=3,
+    window: int | None = setting(
+        None, minimum=3, default_doc="required (rolling)",
         doc="rows per window (rolling), or rows of the first window (expanding); must leave at least "
-        "k + n observations (k coefficients per equation) — the error suggests a window",
-    )
+        "k + n observations (k coefficients per equation) — the error suggests a window. Not used "
+        "by a `tvp` universe (nor `step`, `expanding`, `arrays_every`)",
+    )  # fmt: skip
     transform: str = setting(
         "log_return", fit_via="series", choices=tuple(TRANSFORMS),  # each series carries its own
         doc="default transform: `log_return` (ln x_t − ln x_{t−1}, needs x > 0), `pct_change` "
@@ -252,6 +286,15 @@ class UniverseConfig:
         doc="also joint connectedness (Lastrapes–Wiesen 2021): each series' share due to all "
         "other shocks together",
     )  # fmt: skip
+    model: str = setting(
+        "rolling", choices=MODELS, fit_if_set=True,
+        doc="`rolling` (least squares per window) or `tvp` (a time-varying-parameter VAR filtered "
+        "with forgetting factors, one result per date, no window; needs fixed `lags`, trend `n`/`c`)",
+    )  # fmt: skip
+    tvp: TVPSettings = setting(
+        DEFAULT_TVP, fit_if_set=True, default_doc="arlib's defaults",
+        doc="a table: the TVP filter's settings (`model = \"tvp\"` only)",
+    )  # fmt: skip
 
     @property
     def names(self) -> tuple[str, ...]:
@@ -265,6 +308,14 @@ class UniverseConfig:
             return None
         edges = (1.0, *(float(e) for e in self.frequency_bands), float("inf"))
         return tuple(itertools.pairwise(edges))
+
+    @property
+    def window_rows(self) -> int:
+        """`window` of a rolling universe (the loader requires it there)."""
+        if self.window is None:
+            msg = f"universe {self.name!r} has no `window` (model = {self.model!r})"
+            raise ValueError(msg)
+        return self.window
 
     @property
     def max_lag(self) -> int:

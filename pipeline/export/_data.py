@@ -59,6 +59,9 @@ class ReportData:
     notes: list[str] = field(default_factory=list)
     bands: BandHistory | None = None  # frequency-band connectedness of every window (or none stored)
     joint: JointHistory | None = None  # joint connectedness of every window (or none stored)
+    #: the universe of the other model on the same series (Snapshot.counterpart): its name, model
+    #: and (date, total) index history up to the report date; None when there is none
+    counterpart: tuple[str, str, list[tuple[dt.date, float]]] | None = None
 
     @property
     def run(self) -> dict | None:
@@ -166,5 +169,12 @@ def _gather(snap: Snapshot, universe: str, as_of: dt.date | None) -> ReportData:
         from_others=from_o, net=net, total=total, granger_f=gf, granger_p=gp,
         responses=responses, decompositions=decomps, runs=runs,
         batches=frame(snap.source_batches(universe, report_date, before)), run_id=run_id, notes=notes,
-        bands=snap.band_history(info), joint=snap.joint_history(info),
+        bands=snap.band_history(info), joint=snap.joint_history(info), counterpart=_counterpart(snap, info, report_date),
     )
+
+
+def _counterpart(snap: Snapshot, info: UniverseInfo, cut: dt.date) -> tuple[str, str, list[tuple[dt.date, float]]] | None:
+    other = snap.counterpart(info)
+    if other is None:
+        return None
+    return other.name, other.model, [(e, float(v)) for e, v in snap.index_history(other.name) if e <= cut]

@@ -111,6 +111,7 @@ def _glance(d: ReportData) -> str:
     total = "–" if d.total is None else f'<span data-value="{d.total!r}">{d.total:.2f}%</span>'
     rows = [
         ("Universe", _esc(info.name)),
+        ("Model", _esc(charts.MODEL_LABELS.get(info.model, info.model))),
         ("Series (transform)", _esc(series)),
         ("Latest window end", _esc(d.fitted_date or "none fitted")),
         ("Windows up to this date", f"{fits.height} ({fits.height - n_skipped} fitted, "
@@ -140,13 +141,15 @@ def _connectedness(d: ReportData, chart: _Charts) -> str:
     out = ['<section id="connectedness" class="major"><h2>Connectedness over time</h2>',
            '<p class="note">Share of all series\' forecast-error variance that comes from shocks to '
            f"other series (Diebold–Yilmaz total index), {d.info.horizon}-step horizon, generalized "
-           "decomposition; one point per window, named by its last date.</p>"]
+           "decomposition; " + ("one point per date of the time-varying-parameter VAR filter "
+           "(no window).</p>" if d.info.model == "tvp" else "one point per window, named by its last date.</p>")]
     if d.connectedness.height == 0:
         out.append('<p class="note">No fitted windows yet.</p></section>')
         return "".join(out)
     out.append(chart(charts.index_figure(
         d.connectedness["window_end"].to_list(), d.connectedness["total"].to_numpy(),
-        universe=d.info.name, horizon=d.info.horizon, medium="print"), div_id="fig-connectedness"))
+        universe=d.info.name, horizon=d.info.horizon, model=d.info.model, medium="print"),
+        div_id="fig-connectedness"))
     if d.directional.height:
         ends, net = _net_history(d)
         out.append(chart(charts.net_figure(ends, net, d.info.series, medium="print"),
@@ -199,6 +202,30 @@ def _cycles(d: ReportData, chart: _Charts) -> str:
                 universe=d.info.name, horizon=d.info.horizon, medium="print"), div_id="fig-joint"))  # fmt: skip
             out.append("</section>")
     return "".join(out)
+
+
+def _models(d: ReportData, chart: _Charts) -> str:
+    """Rolling vs TVP total connectedness, when the universe has a counterpart of the other model."""
+    if d.counterpart is None or d.connectedness.height == 0:
+        return ""
+    name, _, history = d.counterpart
+    if not history:
+        return ""
+    own = (d.connectedness["window_end"].to_list(), d.connectedness["total"].to_numpy())
+    other = ([e for e, _ in history], np.asarray([v for _, v in history]))
+    rolling, tvp = (own, other) if d.info.model == "rolling" else (other, own)
+    names = (d.info.name, name) if d.info.model == "rolling" else (name, d.info.name)
+    at = dict(zip(*tvp, strict=True))
+    pairs = np.asarray([(v, at[e]) for e, v in zip(*rolling, strict=True) if e in at])
+    gap = (f"On the {len(pairs)} dates both store, TVP − rolling: mean {np.mean(pairs[:, 1] - pairs[:, 0]):+.1f} "
+           "points." if pairs.size else "The two store no common date.")  # fmt: skip
+    return ('<section id="models" class="major"><h2>Rolling windows vs time-varying parameters</h2>'
+            f'<p class="note">The same series estimated both ways: {_esc(names[0])} (rolling windows '
+            f"of least squares) and {_esc(names[1])} (a time-varying-parameter VAR filtered per date "
+            f"with forgetting factors). {gap}</p>"
+            + chart(charts.model_compare_figure(rolling, tvp, names=names, horizon=d.info.horizon, medium="print"),
+                    div_id="fig-models")
+            + "</section>")  # fmt: skip
 
 
 def _spillovers(d: ReportData) -> str:
@@ -311,6 +338,10 @@ def _granger(d: ReportData) -> str:
     names = d.info.series
     level = d.info.granger_level
     out = ['<section id="granger" class="major"><div class="keep"><h2>Granger causality</h2>']
+    if d.info.model == "tvp":
+        out.append('<p class="note">A time-varying-parameter VAR: Granger tests belong to a least-squares '
+                   "fit per window, so none are stored for its dates.</p></div></section>")  # fmt: skip
+        return "".join(out)
     if d.granger_p is None or d.granger_f is None:  # set together
         out.append('<p class="note">No fitted window.</p></div></section>')
         return "".join(out)
@@ -461,7 +492,7 @@ def render_report(d: ReportData, *, generated: dt.datetime, version: str) -> str
     """The complete HTML text of one universe's report."""
     chart = _Charts()
     body = "\n".join([
-        _glance(d), _connectedness(d, chart), _cycles(d, chart), _spillovers(d), _responses(d, chart),
+        _glance(d), _connectedness(d, chart), _cycles(d, chart), _models(d, chart), _spillovers(d), _responses(d, chart),
         _decompositions(d, chart), _granger(d), _health(d, chart), _lineage(d),
     ])
     files = resources.files("pipeline.export") / "templates"
