@@ -263,11 +263,9 @@ def read_table(
             values[d.name] = value
     for extra in unknown:
         if extra not in renamed:
-            problems.add(
-                f"{where}.{extra}" if where else extra,
-                f"is not a known key{suggest(extra, known)}",
-                f"known keys here: {', '.join(sorted(known))}",
-            )
+            close = difflib.get_close_matches(extra, [k for k in known if k not in data], n=1, cutoff=0.6)
+            fix = f"rename it to `{close[0]}`" if close else f"known keys here: {', '.join(sorted(known))}"
+            problems.add(f"{where}.{extra}" if where else extra, f"is not a known key{suggest(extra, known)}", fix)
     return values, given
 
 

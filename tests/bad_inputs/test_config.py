@@ -52,7 +52,7 @@ FATAL = [
     ),
     ConfigCase(
         "unknown-optional-key-did-you-mean", _replace('formats = ["csv"]', 'formts = ["csv"]'),
-        r"`export\.formts` is not a known key \(did you mean 'formats'\?\); known keys here: directory, formats",
+        r"`export\.formts` is not a known key \(did you mean 'formats'\?\); rename it to `formats`",
     ),
     ConfigCase(
         "unknown-section-did-you-mean", _append('[schedul]\ncron = "0 22 * * 1-5"\n'),

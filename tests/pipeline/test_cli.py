@@ -7,6 +7,7 @@ rows (statsmodels as a reference library, tests only).
 
 from __future__ import annotations
 
+import tomllib
 from datetime import date
 from pathlib import Path
 
@@ -322,4 +323,6 @@ def test_the_demo_config_reads_the_packaged_data_and_writes_into_its_folder(tmp_
     assert [s.path for s in cfg.sources] == [
         str(data_samples.folder() / "markets_wide.csv"), str(data_samples.folder() / "rates_long.csv"),
     ]
-    assert [u.name for u in cfg.universes] == ["all_markets", "rates_fx", "equities_weekly"]
+    demo_toml = tomllib.loads((data_samples.folder() / "demo.toml").read_text(encoding="utf-8"))
+    assert [u.name for u in cfg.universes] == [u["name"] for u in demo_toml["universes"]]
+    assert {"all_markets", "rates_fx", "equities_weekly"} <= {u.name for u in cfg.universes}

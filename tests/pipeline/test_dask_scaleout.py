@@ -59,12 +59,12 @@ def reduced_demo_config(folder: Path, execution_toml: str) -> Path:
     replacements = [
         (r'"\.\./demo_output/', '"./out/', 3),  # warehouse, snapshot, exports
         (r'path = "(markets_wide|rates_long)\.csv"', lambda m: f'path = "{(DEMO / m.group(1)).as_posix()}.csv"', 2),
-        (r"\nstep = 5\n", "\nstep = 25\n", 2),  # the two daily universes: every 25th window end
+        (r"\nstep = 5\n", "\nstep = 25\n", 2),  # the daily universes: every 25th window end
         (r"\nstep = 1\n", "\nstep = 4\n", 1),  # the weekly one: every 4th
     ]
-    for pattern, repl, count in replacements:
+    for pattern, repl, count in replacements:  # `count` or more: demo universes get added
         text, n = re.subn(pattern, repl, text)
-        assert n == count, f"demo.toml changed: {pattern!r} matched {n} times, expected {count}"
+        assert n >= count, f"demo.toml changed: {pattern!r} matched {n} times, expected {count}+"
     folder.mkdir(parents=True, exist_ok=True)
     path = folder / "demo.toml"
     path.write_text(text + "\n[execution]\n" + execution_toml + f"block_windows = {BLOCK_WINDOWS}\n", encoding="utf-8")
@@ -88,8 +88,9 @@ def stored_tables(warehouse: Path) -> dict[str, list[tuple[Any, ...]]]:
 def run_nightly(config_path: Path) -> Any:
     from pipeline import flows
 
-    summary = flows.nightly(load_config(config_path), export=False)
-    assert [r.status for r in summary.universes] == ["succeeded"] * 3, summary.failures
+    config = load_config(config_path)
+    summary = flows.nightly(config, export=False)
+    assert [r.status for r in summary.universes] == ["succeeded"] * len(config.universes), summary.failures
     assert summary.published and summary.exit_code == 0, summary.failures
     return summary
 

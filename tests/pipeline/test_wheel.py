@@ -115,6 +115,8 @@ def test_the_demo_runs_from_a_plain_install_of_the_wheel(wheel: Path, prefect_ap
     assert demo.returncode == 0, demo.stdout + demo.stderr
     out = elsewhere / "demo_output"
     assert (out / "shockflow.duckdb").is_file() and (out / "shockflow-serving.duckdb").is_file()
-    assert sorted(p.parent.name for p in out.glob("exports/*/*/*.html")) == ["all_markets", "equities_weekly", "rates_fx"]
+    demo_toml = tomllib.loads((Path(__file__).parents[2] / "data_samples" / "demo.toml").read_text(encoding="utf-8"))
+    demo_universes = [u["name"] for u in demo_toml["universes"]]
+    assert sorted(p.parent.name for p in out.glob("exports/*/*/*.html")) == sorted(demo_universes)
     assert "invented market" in demo.stdout
     assert not any(p.name == "demo_output" for p in own.parent.rglob("demo_output"))  # nothing written into the install
