@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import dataclasses
 from datetime import date, timedelta
+from pathlib import Path
 
 import numpy as np
 import polars as pl
@@ -258,3 +259,36 @@ def test_quarterly_series_alone_in_a_monthly_universe_still_drop_empty_months() 
     a = [(date(2020 + i // 4, *ends[i % 4]), 100.0 + i * i) for i in range(8)]
     p = prepare_universe(obs({"A": a}), universe(series=(SeriesSpec("A", "diff"),), frequency="monthly"))
     assert len(p.dates) == 7 and p.dates[0] == date(2020, 6, 30)
+
+
+def test_the_readme_macro_universe_prepares_quarterly_rows_from_quarterly_and_daily_sources(tmp_path: Path) -> None:
+    """The README's macro example, as written there: US quarterly macro data (statsmodels'
+    macrodata, public domain, dated on each quarter's FIRST day as statistics offices publish
+    them) with an invented daily policy rate averaged per quarter."""
+    import re
+
+    from statsmodels.datasets import macrodata
+
+    from pipeline.config import load_config_text
+
+    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8")
+    (block,) = [b for b in re.findall(r"```toml\n(.*?)```", readme, flags=re.S) if 'name = "us_macro"' in b]
+    u = load_config_text(block, tmp_path / "macro.toml").universe("us_macro")
+    assert u.frequency == "quarterly" and [s.aggregate for s in u.series] == ["last", "last", "last", "mean"]
+
+    raw = macrodata.load_pandas().data
+    starts = [date(int(y), 3 * int(q) - 2, 1) for y, q in zip(raw["year"], raw["quarter"], strict=True)]
+    table = {s: list(zip(starts, raw[s].to_numpy(dtype=float).tolist(), strict=True)) for s in ("realgdp", "realcons", "realinv")}
+    # the invented daily rate: business days from 1959-01-01 to 2009-09-30
+    days = _business_days(date(1959, 1, 1), date(2009, 9, 30))
+    rate = 4.0 + np.cumsum(np.random.default_rng(9).normal(0.0, 0.02, len(days)))
+    table["policy_rate"] = list(zip(days, rate.tolist(), strict=True))
+    p = prepare_universe(obs(table), u)
+
+    ends = {1: (3, 31), 2: (6, 30), 3: (9, 30), 4: (12, 31)}
+    assert p.dates == tuple(date(y, *ends[q]) for y in range(1959, 2010) for q in (1, 2, 3, 4))[1:-1]
+    assert p.y.shape == (202, 4)
+    growth = np.diff(np.log(raw[["realgdp", "realcons", "realinv"]].to_numpy(dtype=float)), axis=0)
+    np.testing.assert_array_equal(p.y[:, :3], growth)  # the same floating-point operations
+    quarterly_mean = _direct(table["policy_rate"], "mean", "quarter")["value"].to_numpy()
+    np.testing.assert_allclose(p.y[:, 3], np.diff(quarterly_mean), rtol=1e-12, atol=1e-14)  # ~63 doubles summed in another order
