@@ -117,9 +117,9 @@ def test_cli_run_check_export_on_us_macro_data(prefect_harness: None, tmp_path: 
     returns = np.diff(logs, axis=0)
     assert len(params) == len(totals) == 31
     for w, (end, start, nobs) in enumerate(fits):
-        last = 79 + 4 * w
-        assert (start, end) == (prepared_dates[last - 79], prepared_dates[last])
-        rows = returns[last - 79 : last + 1]
+        end_row = 79 + 4 * w
+        assert (start, end) == (prepared_dates[end_row - 79], prepared_dates[end_row])
+        rows = returns[end_row - 79 : end_row + 1]
         res = VAR(rows).fit(2, trend="c")
         assert nobs == res.nobs == 78
         lags, coefs, intercept, sigma_u = params[end]
