@@ -13,7 +13,8 @@ Steps and rules (documented in the README):
    Jul–Sep, Oct–Dec) or calendar year, labelled by its last calendar day (period-end labels: 31 Mar,
    30 Jun, 30 Sep, 31 Dec); an observation dated anywhere in the period belongs to it. A period whose
    label date lies after the last observation is not complete yet and is left out (it appears once
-   data reach its end).
+   data reach its end) — unless every series observed in it is sampled once per period (no two of
+   its observations ever share a row, e.g. quarterly values dated on the quarter's first day).
    **Aggregation** (``AGGREGATIONS``, per series, default ``last``): when a series has several
    observations in one row (a daily series in a monthly universe), the row holds their ``last``,
    ``first``, ``mean`` or ``sum`` (in date order). A series observed less often than the universe's
@@ -303,7 +304,7 @@ def prepare_universe(observations: pl.DataFrame, universe: UniverseLike) -> Prep
             on_rows.filter(pl.col("series").is_in(members))
             .sort("series", "date")
             .group_by("series", "row", maintain_order=True)
-            .agg(AGGREGATIONS[how].expr(pl.col("value")).alias("value"))
+            .agg(AGGREGATIONS[how].expr(pl.col("value")).alias("value"), pl.len().alias("count"))
             for how, members in by_aggregation.items()
         ]
     )
@@ -314,10 +315,15 @@ def prepare_universe(observations: pl.DataFrame, universe: UniverseLike) -> Prep
     rows = cal.rows(*date_bounds(levels["row"])).alias("row")
     aligned = pl.DataFrame(rows).join(levels, on="row", how="left").select("row", *names)
 
-    # the current week/month is left out until it is complete (its label date is in the data)
+    # the current period is left out until it is complete (its label date is in the data) — unless
+    # every series observed in it is sampled once per period (its observations never share a row),
+    # like quarterly data dated on the quarter's first day: its one value is the period's
     last_seen = date_bounds(obs["date"])[1]
-    incomplete = aligned.filter(pl.col("row") > last_seen)["row"].to_list()
-    aligned = aligned.filter(pl.col("row") <= last_seen)
+    once = labelled.group_by("series").agg(pl.col("count").max()).filter(pl.col("count") <= 1)["series"]
+    waiting = labelled.filter((pl.col("row") > last_seen) & ~pl.col("series").is_in(once.implode()))["row"]
+    wait = (pl.col("row") > last_seen) & (pl.col("row").is_in(waiting.implode()) | ~pl.col("row").is_in(labelled["row"].implode()))
+    incomplete = aligned.filter(wait)["row"].to_list()
+    aligned = aligned.filter(~wait)
 
     # 2. holidays: no series observed
     observed_any = aligned.select(pl.any_horizontal(pl.col(names).is_not_null())).to_series()

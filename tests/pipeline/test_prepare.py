@@ -190,9 +190,17 @@ def test_quarterly_series_dated_anywhere_in_the_quarter_take_its_end_label() -> 
     starts = [date(2020, m, 1) for m in (1, 4, 7, 10)] + [date(2021, m, 15) for m in (2, 5, 8, 11)]
     a = [(d, 100.0 + i * i) for i, d in enumerate(starts)] + [(date(2022, 1, 1), 200.0)]
     p = prepare_universe(obs({"A": a}), universe(series=(SeriesSpec("A", "diff"),), frequency="quarterly"))
-    assert p.dates[0] == date(2020, 6, 30) and p.dates[-1] == date(2021, 12, 31)
+    # a series sampled once per quarter has its newest quarter complete with its one value, though
+    # the data end on 1 Jan 2022, before the label 31 Mar 2022 (it waited a quarter before)
+    assert p.dates[0] == date(2020, 6, 30) and p.dates[-1] == date(2022, 3, 31)
     assert all((d.month, d.day) in {(3, 31), (6, 30), (9, 30), (12, 31)} for d in p.dates)
-    np.testing.assert_array_equal(p.y[:, 0], np.diff([v for _, v in a[:-1]]))
+    np.testing.assert_array_equal(p.y[:, 0], np.diff([v for _, v in a]))
+    assert p.dropped["date"].to_list() == [date(2020, 3, 31)]  # the first row, used up by `diff`
+    # a daily series observed in that quarter makes it wait: its aggregate is not final yet
+    b = _daily(date(2020, 1, 1), date(2022, 1, 3), seed=8)
+    mixed = prepare_universe(obs({"A": a, "B": b}), universe(frequency="quarterly", series=(SeriesSpec("A", "diff"), SeriesSpec("B", "log_return"))))
+    assert mixed.dates[-1] == date(2021, 12, 31)
+    assert dict(mixed.dropped.rows())[date(2022, 3, 31)] == "period not complete yet: the data end on 2022-01-03"
 
 
 @pytest.mark.parametrize("how", ["last", "first", "mean", "sum"])
