@@ -292,7 +292,8 @@ class UniverseConfig:
     frequency_bands: tuple[float, ...] | None = setting(
         None, minimum=2, check=_band_edges, fit_if_set=True, default_doc="none",
         doc="connectedness by cycle length (Baruník–Křehlík 2018): the periods in rows where bands "
-        "split, e.g. `[5, 20]` for daily data (cycles up to a week, a week to a month, longer)",
+        "split, e.g. `[5, 20]` for daily data (cycles up to a week, a week to a month, longer), "
+        "`[4, 12]` for quarterly data (within a year, one to three years, longer)",
     )  # fmt: skip
     band_truncation: int = setting(
         100, minimum=10, fit_if_set=True,
