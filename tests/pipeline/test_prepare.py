@@ -258,6 +258,11 @@ def test_a_series_sampled_less_often_than_its_universe_is_one_line_naming_the_fr
     q = [(date(2024, m, 1), 5.0 + m) for m in (1, 4)] + [(date(2023, m, 1), 3.0 + m) for m in (1, 4, 7, 10)]
     with pytest.raises(DataError, match=r"series 'B' is observed in about 1 of every 3 monthly rows \(median step; its dates look quarterly\).*`frequency = 'quarterly'`"):
         prepare_universe(obs({"A": _daily(date(2023, 1, 2), date(2024, 6, 28), seed=6), "B": q}), universe(frequency="monthly"))
+    # every other business day: no coarser calendar fits its dates, so the fix says to look at them
+    sparse = a[::2]
+    with pytest.raises(DataError, match=r"series 'B' is observed in about 1 of every 2 business_day rows \(median step; its dates look business_day\), "
+                       r".*; set the universe's `frequency` to a coarser calendar, or check the series' source for missing dates$"):  # fmt: skip
+        prepare_universe(obs({"A": a, "B": sparse}), universe())
 
 
 def test_quarterly_series_alone_in_a_monthly_universe_still_drop_empty_months() -> None:
