@@ -364,8 +364,11 @@ def _json(value: Any) -> Any:
 
 
 def iter_rows(cls: type, prefix: str = "") -> Iterator[tuple[str, Declared]]:
-    """(key path, declaration) of every key of `cls`, sub-tables' keys after the table's own row."""
+    """(key path, declaration) of every key of `cls`, sub-tables' keys after the table's own row
+    (the keys of a list of tables as ``key[].sub``)."""
     for d in declared(cls):
         yield prefix + d.name, d
         if isinstance(d.base, type) and dataclasses.is_dataclass(d.base):
             yield from iter_rows(d.base, f"{prefix}{d.name}.")
+        elif isinstance(d.element, type) and dataclasses.is_dataclass(d.element):
+            yield from iter_rows(d.element, f"{prefix}{d.name}[].")

@@ -7,11 +7,20 @@ as gaps, each with its reason.
 
 Steps and rules (documented in the README):
 
-1. **Calendar.** ``business_day``: every Monday–Friday between the first and last observation
-   (weekend observations are ignored). ``weekly``: one row per week, labelled by its Friday, holding
-   each series' last observation of that week. ``monthly``: one row per month, labelled by its last
-   calendar day, holding the month's last observation. A week or month whose label date lies after
-   the last observation is not complete yet and is left out (it appears once data reach its end).
+1. **Calendar** (``CALENDARS``). ``business_day``: every Monday–Friday between the first and last
+   observation (weekend observations are ignored). ``weekly``: one row per week, labelled by its
+   Friday. ``monthly``, ``quarterly``, ``annual``: one row per month, quarter (Jan–Mar, Apr–Jun,
+   Jul–Sep, Oct–Dec) or calendar year, labelled by its last calendar day (period-end labels: 31 Mar,
+   30 Jun, 30 Sep, 31 Dec); an observation dated anywhere in the period belongs to it. A period whose
+   label date lies after the last observation is not complete yet and is left out (it appears once
+   data reach its end) — unless every series observed in it is sampled once per period (no two of
+   its observations ever share a row, e.g. quarterly values dated on the quarter's first day).
+   **Aggregation** (``AGGREGATIONS``, per series, default ``last``): when a series has several
+   observations in one row (a daily series in a monthly universe), the row holds their ``last``,
+   ``first``, ``mean`` or ``sum`` (in date order). A series observed less often than the universe's
+   rows (a quarterly series in a monthly universe that also holds daily or monthly series: its
+   median step between observed rows is 2 or more) is an error naming the frequency to use —
+   it is never forward-filled into rows it was not observed in.
 2. **Holidays.** A calendar date on which no series of the universe has an observation is removed.
 3. **Fill.** Within each series, a missing value is forward-filled from the previous row for at most
    ``max_fill_gap`` consecutive rows; longer gaps stay missing.
@@ -39,7 +48,18 @@ import polars as pl
 from pipeline._polars import date_bounds, first_true
 from pipeline.errors import DataError
 
-__all__ = ["CALENDARS", "TRANSFORMS", "Prepared", "Transform", "UniverseLike", "prepare_universe"]
+__all__ = [
+    "AGGREGATIONS",
+    "CALENDARS",
+    "DEFAULT_AGGREGATION",
+    "TRANSFORMS",
+    "Aggregation",
+    "Calendar",
+    "Prepared",
+    "Transform",
+    "UniverseLike",
+    "prepare_universe",
+]
 
 
 class _SeriesLike(Protocol):
@@ -47,6 +67,8 @@ class _SeriesLike(Protocol):
     def name(self) -> str: ...
     @property
     def transform(self) -> str: ...
+    @property
+    def aggregate(self) -> str: ...
 
 
 class UniverseLike(Protocol):
@@ -112,6 +134,16 @@ def _label_monthly(d: pl.Expr) -> pl.Expr:
     return d.dt.month_end()
 
 
+def _label_quarterly(d: pl.Expr) -> pl.Expr:
+    # last day of the quarter's third month: month_end(first day of the quarter + 2 months)
+    return d.dt.truncate("1q").dt.offset_by("2mo").dt.month_end()
+
+
+def _label_annual(d: pl.Expr) -> pl.Expr:
+    # 31 December of the year: month_end(1 January + 11 months)
+    return d.dt.truncate("1y").dt.offset_by("11mo").dt.month_end()
+
+
 def _weekly_range(first: date, last: date) -> pl.Series:
     return pl.date_range(first, last, "1w", eager=True)
 
@@ -120,13 +152,75 @@ def _monthly_range(first: date, last: date) -> pl.Series:
     return pl.date_range(first, last, "1mo", eager=True).dt.month_end()
 
 
-#: frequency → (label each observation date with its calendar row or null, all rows first..last).
-#: The one place to add a frequency; the config's `frequency` choices are these names.
-CALENDARS: dict[str, tuple[Callable[[pl.Expr], pl.Expr], Callable[[date, date], pl.Series]]] = {
-    "business_day": (_label_business_day, _business_days),
-    "weekly": (_label_weekly, _weekly_range),
-    "monthly": (_label_monthly, _monthly_range),
+def _quarterly_range(first: date, last: date) -> pl.Series:
+    return pl.date_range(first, last, "3mo", eager=True).dt.month_end()
+
+
+def _annual_range(first: date, last: date) -> pl.Series:
+    return pl.date_range(first, last, "1y", eager=True).dt.month_end()
+
+
+@dataclass(frozen=True)
+class Calendar:
+    """A universe frequency: how observation dates map to rows, and the rows themselves.
+
+    label: date expression → the label date of its row (null: not on this calendar, e.g. a weekend).
+    rows: (first label, last label) → every label date in between, oldest first.
+    days: the typical length of one row in calendar days (to name the frequency a series is
+    sampled at in an error). doc: the README's description.
+    """
+
+    label: Callable[[pl.Expr], pl.Expr]
+    rows: Callable[[date, date], pl.Series]
+    days: float
+    doc: str
+
+
+#: frequency → calendar, finest first. The one place to add a frequency; the config's `frequency`
+#: choices and their documentation are these entries.
+CALENDARS: dict[str, Calendar] = {
+    "business_day": Calendar(_label_business_day, _business_days, 1.4, "Mon–Fri"),
+    "weekly": Calendar(_label_weekly, _weekly_range, 7.0, "labelled by the week's Friday"),
+    "monthly": Calendar(_label_monthly, _monthly_range, 30.44, "labelled by the month's last day"),
+    "quarterly": Calendar(
+        _label_quarterly, _quarterly_range, 91.31, "labelled by the quarter's last day: 31 Mar, 30 Jun, 30 Sep, 31 Dec"
+    ),
+    "annual": Calendar(_label_annual, _annual_range, 365.25, "labelled by 31 Dec"),
 }
+
+
+@dataclass(frozen=True)
+class Aggregation:
+    """How the observations of one series falling in one calendar row become that row's value.
+
+    expr: maps the value column (in date order within the row) to one value; doc: the README's text.
+    """
+
+    expr: Callable[[pl.Expr], pl.Expr]
+    doc: str
+
+
+#: name → aggregation. The one place to add one; the config's per-series `aggregate` choices.
+AGGREGATIONS: dict[str, Aggregation] = {
+    "last": Aggregation(lambda x: x.last(), "the period's last observation (a price, an index, a stock)"),
+    "first": Aggregation(lambda x: x.first(), "the period's first observation"),
+    "mean": Aggregation(lambda x: x.mean(), "the average of the period's observations (an average rate)"),
+    "sum": Aggregation(lambda x: x.sum(), "the sum of the period's observations (a flow: volumes, issuance)"),
+}
+
+#: every transform's default aggregation. Each transform reads levels x_t, and `last` keeps them
+#: point-in-time: under `log_return`/`pct_change`/`diff` the period's change is then exactly the
+#: sum (log_return, diff) or product (pct_change) of the finer changes inside it, while `mean`
+#: would smooth the levels and put spurious autocorrelation into their changes (Working 1960,
+#: Econometrica 28, 916–918: about 0.25 for averaged random-walk levels — recalled from memory).
+#: Under `level` the value is used as is, and `last` is the same point-in-time rule; a flow
+#: should be set to `sum`, an average rate or spread to `mean`.
+DEFAULT_AGGREGATION = "last"
+
+
+def _sampled_as(days: float) -> str:
+    """The frequency whose row length is nearest (in ratio) to `days` between observations."""
+    return min(CALENDARS, key=lambda f: abs(np.log(days / CALENDARS[f].days)))
 
 
 @dataclass(frozen=True)
@@ -154,6 +248,40 @@ class Prepared:
         )
 
 
+def _check_sampling(aligned: pl.DataFrame, obs: pl.DataFrame, universe: UniverseLike) -> None:
+    """A series observed on fewer than every other row of the universe is an error (never filled).
+
+    `aligned`: the calendar rows left after removing holidays (row, one column per series, null
+    where the series has no observation). A series whose median step between its observed rows is
+    2 or more is sampled less often than the universe; the message names the frequency its own
+    dates suggest (median days between observations, nearest calendar in ratio).
+    """
+    for name in universe.names:
+        where = np.flatnonzero(aligned[name].is_not_null().to_numpy())
+        if where.size < 3:
+            continue
+        step = float(np.median(np.diff(where)))
+        if step < 2:
+            continue
+        own = obs.filter(pl.col("series") == name)["date"].unique().sort()
+        days = float(np.median(np.diff(own.to_physical().to_numpy()))) if own.len() > 1 else step
+        sampled = _sampled_as(days)
+        coarser = list(CALENDARS).index(sampled) > list(CALENDARS).index(universe.frequency)
+        fix = (
+            f"set the universe's `frequency = {sampled!r}` (finer series are aggregated per their "
+            f"`aggregate`), or move {name!r} to a universe of that frequency"
+            if coarser
+            else "set the universe's `frequency` to a coarser calendar, or check the series' source for missing dates"
+        )
+        msg = (
+            f"universe {universe.name!r}: series {name!r} is observed in about 1 of every {step:g} "
+            f"{universe.frequency} rows (median step; its dates look {sampled}), less often than "
+            f"the universe's `frequency = {universe.frequency!r}` — a coarser series is never "
+            f"filled into finer rows; {fix}"
+        )
+        raise DataError(msg)
+
+
 def prepare_universe(observations: pl.DataFrame, universe: UniverseLike) -> Prepared:
     """Align, fill, transform and trim `observations` (series, date, value) for `universe`."""
     names = list(universe.names)
@@ -166,30 +294,42 @@ def prepare_universe(observations: pl.DataFrame, universe: UniverseLike) -> Prep
             "check its name or add a source that provides it"
         )
         raise DataError(msg)
-    label, calendar = CALENDARS[universe.frequency]
-    labelled = (
-        obs.with_columns(label(pl.col("date")).alias("row"))
-        .drop_nulls("row")
-        .sort("series", "date")
-        .group_by("series", "row", maintain_order=True)
-        .agg(pl.col("value").last())
+    cal = CALENDARS[universe.frequency]
+    on_rows = obs.with_columns(cal.label(pl.col("date")).alias("row")).drop_nulls("row")
+    by_aggregation: dict[str, list[str]] = {}
+    for s in universe.series:
+        by_aggregation.setdefault(s.aggregate, []).append(s.name)
+    labelled = pl.concat(
+        [
+            on_rows.filter(pl.col("series").is_in(members))
+            .sort("series", "date")
+            .group_by("series", "row", maintain_order=True)
+            .agg(AGGREGATIONS[how].expr(pl.col("value")).alias("value"), pl.len().alias("count"))
+            for how, members in by_aggregation.items()
+        ]
     )
     if labelled.height == 0:
         msg = f"universe {universe.name!r}: no observation falls on the {universe.frequency} calendar; check the dates"
         raise DataError(msg)
     levels = labelled.pivot(on="series", index="row", values="value").sort("row")
-    rows = calendar(*date_bounds(levels["row"])).alias("row")
+    rows = cal.rows(*date_bounds(levels["row"])).alias("row")
     aligned = pl.DataFrame(rows).join(levels, on="row", how="left").select("row", *names)
 
-    # the current week/month is left out until it is complete (its label date is in the data)
+    # the current period is left out until it is complete (its label date is in the data) — unless
+    # every series observed in it is sampled once per period (its observations never share a row),
+    # like quarterly data dated on the quarter's first day: its one value is the period's
     last_seen = date_bounds(obs["date"])[1]
-    incomplete = aligned.filter(pl.col("row") > last_seen)["row"].to_list()
-    aligned = aligned.filter(pl.col("row") <= last_seen)
+    once = labelled.group_by("series").agg(pl.col("count").max()).filter(pl.col("count") <= 1)["series"]
+    waiting = labelled.filter((pl.col("row") > last_seen) & ~pl.col("series").is_in(once.implode()))["row"]
+    wait = (pl.col("row") > last_seen) & (pl.col("row").is_in(waiting.implode()) | ~pl.col("row").is_in(labelled["row"].implode()))
+    incomplete = aligned.filter(wait)["row"].to_list()
+    aligned = aligned.filter(~wait)
 
     # 2. holidays: no series observed
     observed_any = aligned.select(pl.any_horizontal(pl.col(names).is_not_null())).to_series()
     holidays = aligned.filter(~observed_any)["row"]
     aligned = aligned.filter(observed_any)
+    _check_sampling(aligned, obs, universe)
 
     # 3. fill within the allowed gap (limit counts consecutive filled rows)
     raw = aligned

@@ -227,13 +227,15 @@ def _load_universe(raw: Any, i: int, problems: Problems, base: Path) -> Universe
                 series.append(SeriesSpec(item, transform))
             elif isinstance(item, dict):
                 n_before = len(problems)
-                sv, _ = read_table(SeriesSpec, {"transform": transform, **item}, f"{key}[{j}]", problems, base=base)
+                named = item.get("name")
+                at = f"{key}[{named!r}]" if isinstance(named, str) and named else f"{key}[{j}]"
+                sv, _ = read_table(SeriesSpec, {"transform": transform, **item}, at, problems, base=base)
                 if len(problems) == n_before:
                     series.append(SeriesSpec(**sv))
                 else:
                     ok = False
             else:
-                problems.add(f"{key}[{j}]", f"is {item!r}", "use a series name or {name = ..., transform = ...}")
+                problems.add(f"{key}[{j}]", f"is {item!r}", "use a series name or {name = ..., transform = ..., aggregate = ...}")
                 ok = False
         if not ok:
             return BAD

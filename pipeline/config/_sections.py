@@ -18,7 +18,7 @@ from typing import Any
 
 from pipeline._declare import fit_document, setting, suggest
 from pipeline.errors import ConfigError
-from pipeline.prepare import CALENDARS, TRANSFORMS
+from pipeline.prepare import AGGREGATIONS, CALENDARS, DEFAULT_AGGREGATION, TRANSFORMS
 from pipeline.sources import SourceConfig
 from pipeline.sources._config import check_name
 
@@ -46,6 +46,8 @@ FIT_FORMAT_VERSION = 2
 
 #: the calendars `pipeline.prepare` implements (the one place to add one)
 FREQUENCIES = tuple(CALENDARS)
+#: how a series sampled more often than its universe becomes one value per row (pipeline.prepare)
+AGGREGATION_NAMES = tuple(AGGREGATIONS)
 TRENDS = ("n", "c", "ct")
 IDENTIFICATIONS = ("generalized", "cholesky")
 CRITERIA = ("aic", "bic", "hq", "fpe")
@@ -167,7 +169,21 @@ class SeriesSpec:
     """One series of a universe with its resolved transform."""
 
     name: str = setting(doc="the series name")
-    transform: str = setting(choices=tuple(TRANSFORMS), doc="its transform")
+    transform: str = setting(
+        choices=tuple(TRANSFORMS), default_doc="the universe's `transform`", doc="its transform"
+    )
+    aggregate: str = setting(
+        DEFAULT_AGGREGATION, choices=AGGREGATION_NAMES, fit_if_set=True,
+        doc="when the series has several observations in one row of the universe (daily data in a "
+        "monthly universe): " + "; ".join(f"`{k}` {a.doc}" for k, a in AGGREGATIONS.items())
+        + f". Default `{DEFAULT_AGGREGATION}` for every transform (docs/pipeline.md says why)",
+    )  # fmt: skip
+
+    def fit_entry(self) -> list[Any]:
+        """[name, transform] plus, only when set, {key: value} of the later keys (`aggregate`):
+        so a series without them keeps the fit hash it had before they existed."""
+        extra = {k: v for k, v in fit_document(self).items() if k not in ("name", "transform")}
+        return [self.name, self.transform, extra] if extra else [self.name, self.transform]
 
 
 @dataclass(frozen=True)
@@ -224,8 +240,9 @@ class UniverseConfig:
 
     name: str = setting(doc="unique name", fit=False, check=check_name)
     series: tuple[SeriesSpec, ...] = setting(
-        doc='list of series names, each either `"NAME"` or `{ name = "NAME", transform = "diff" }`',
-        fit_value=lambda u: [[s.name, s.transform] for s in u.series],
+        doc='list of series names, each either `"NAME"` or a table `{ name = "NAME", transform = "diff", '
+        'aggregate = "sum" }` (its keys: `series[].…` below)',
+        fit_value=lambda u: [s.fit_entry() for s in u.series],
     )
     window: int | None = setting(
         None, minimum=3, default_doc="required (rolling)",
@@ -240,8 +257,8 @@ class UniverseConfig:
     )  # fmt: skip
     frequency: str = setting(
         "business_day", choices=FREQUENCIES,
-        doc="calendar: `business_day` (Mon–Fri), `weekly` (labelled by Friday, last observation of "
-        "the week), `monthly` (labelled by the month's last day, last observation of the month)",
+        doc="calendar: " + ", ".join(f"`{k}` ({c.doc})" for k, c in CALENDARS.items())
+        + "; a row holds each series' observations in it, aggregated by the series' `aggregate`",
     )  # fmt: skip
     max_fill_gap: int = setting(
         3, minimum=0, doc="longest run of missing rows forward-filled per series; longer gaps stay missing"
@@ -275,7 +292,8 @@ class UniverseConfig:
     frequency_bands: tuple[float, ...] | None = setting(
         None, minimum=2, check=_band_edges, fit_if_set=True, default_doc="none",
         doc="connectedness by cycle length (Baruník–Křehlík 2018): the periods in rows where bands "
-        "split, e.g. `[5, 20]` for daily data (cycles up to a week, a week to a month, longer)",
+        "split, e.g. `[5, 20]` for daily data (cycles up to a week, a week to a month, longer), "
+        "`[4, 12]` for quarterly data (within a year, one to three years, longer)",
     )  # fmt: skip
     band_truncation: int = setting(
         100, minimum=10, fit_if_set=True,

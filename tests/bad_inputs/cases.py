@@ -345,6 +345,15 @@ def too_few_rows(night: Night) -> dict[str, Any]:
     return _extra(night, df, max_fill_gap=0, lags=2)
 
 
+def monthly_series(night: Night) -> dict[str, Any]:
+    # EX_B quoted only on each month's last row, in a business-day universe: it was forward-filled
+    # for max_fill_gap rows, then left as gaps (and reported as a constant series); now one line
+    df = _extra_frame()
+    month_end = pl.col("date").dt.month() != pl.col("date").shift(-1).dt.month()
+    df = df.with_columns(pl.when(month_end).then(pl.col("EX_B")).otherwise(None).alias("EX_B"))
+    return _extra(night, df)
+
+
 def check_long_gap(night: Night, values: dict[str, Any]) -> None:
     """The dates of the gap are recorded in dropped_dates with their reason."""
     dropped = night.tables()["dropped_dates"].filter(pl.col("universe") == "extra_trio")
@@ -357,6 +366,14 @@ def check_long_gap(night: Night, values: dict[str, Any]) -> None:
 
 
 SHAPE_CASES = [
+    Case(
+        "monthly-series-in-a-daily-universe", monthly_series, "universe",
+        r"universe 'extra_trio': series 'EX_B' is observed in about 1 of every 2\d(\.5)? business_day rows \(median step; "
+        r"its dates look monthly\), less often than the universe's `frequency = 'business_day'` — a coarser series "
+        r"is never filled into finer rows; set the universe's `frequency = 'monthly'` \(finer series are aggregated "
+        r"per their `aggregate`\), or move 'EX_B' to a universe of that frequency",
+        universe="extra_trio",
+    ),
     Case(
         "constant-series", constant_series, "universe",
         r"universe 'extra_trio': series 'EX_B' is constant after transform 'log_return' \(0\.0 on every date\); "

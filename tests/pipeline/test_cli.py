@@ -1,8 +1,12 @@
 """`shockflow` end to end on a real open data set: the quarterly US macro data statsmodels ships
 (statsmodels.datasets.macrodata, 1959Q1–2009Q3), written to CSV by the test.
 
-The stored Granger tests of the newest window are checked against statsmodels' VAR on the same
-rows (statsmodels as a reference library, tests only).
+The universe is `quarterly`. Every stored window's coefficients, Σ_u, Granger F tests and
+connectedness are checked against statsmodels' VAR on the same rows (statsmodels as a reference
+library, tests only; the connectedness from statsmodels' MA coefficients and Σ_u by the
+Pesaran–Shin 1998 eq. 11 / Diebold–Yilmaz 2012 Sec. 2 formulas written out below). Tolerance 1e-8
+relative: arlib's agreement with statsmodels (justified in tests/reference/test_statsmodels_macrodata.py);
+the warehouse stores DOUBLEs, so storing adds nothing.
 """
 
 from __future__ import annotations
@@ -19,6 +23,7 @@ from typer.testing import CliRunner
 
 from shockflow.cli import app
 from tests.pipeline.helpers import write_config
+from tests.reference.test_statsmodels_macrodata import agree
 
 CONFIG = """
 [warehouse]
@@ -34,7 +39,7 @@ path = "macrodata.csv"
 name = "us_real"
 series = ["realgdp", "realcons", "realinv"]
 transform = "log_return"
-frequency = "monthly"   # quarter-end dates; the two months without data drop as holidays
+frequency = "quarterly"   # rows labelled 31 Mar, 30 Jun, 30 Sep, 31 Dec
 max_fill_gap = 0
 window = 80
 step = 4
@@ -48,6 +53,16 @@ joint = true
 directory = "wh/exports"
 formats = ["csv"]
 """
+
+
+def generalized_connectedness(ma: np.ndarray, sigma: np.ndarray) -> np.ndarray:
+    """100 × the row-normalised generalized decomposition over Φ_0..Φ_{H−1} (`ma`, (H, n, n)):
+    θ_ij = σ_jj⁻¹ Σ_h (Φ_h Σ)_ij² / Σ_h (Φ_h Σ Φ_h')_ii (Pesaran & Shin 1998, eq. 11), rows divided
+    by their sums (Diebold & Yilmaz 2012, Sec. 2); [variable, shock] in percent."""
+    num = ((ma @ sigma) ** 2).sum(axis=0) / np.diag(sigma)[None, :]
+    den = np.einsum("hij,jk,hik->i", ma, sigma, ma)
+    theta = num / den[:, None]
+    return 100.0 * theta / theta.sum(axis=1, keepdims=True)
 
 
 def macro_csv(path: Path) -> pl.DataFrame:
@@ -81,33 +96,58 @@ def test_cli_run_check_export_on_us_macro_data(prefect_harness: None, tmp_path: 
     con = duckdb.connect(str(tmp_path / "wh" / "macro-serving.duckdb"), read_only=True)
     try:
         fits = con.execute("SELECT window_end, window_start, nobs FROM window_fits ORDER BY window_end").fetchall()
-        granger = con.execute(
-            "SELECT caused, causing, f_stat, p_value FROM granger WHERE window_end = ? ORDER BY ALL", [fits[-1][0]]
-        ).fetchall()
+        params = {r[0]: r[1:] for r in con.execute("SELECT window_end, lags, coefs, intercept, sigma_u FROM window_params").fetchall()}
+        granger = con.execute("SELECT window_end, caused, causing, f_stat, p_value FROM granger").fetchall()
+        totals = dict(con.execute("SELECT window_end, total FROM connectedness").fetchall())
+        shares = con.execute("SELECT window_end, source, target, share FROM pairwise").fetchall()
+        prepared_dates = [r[0] for r in con.execute("SELECT DISTINCT date FROM prepared ORDER BY date").fetchall()]
     finally:
         con.close()
-    # 203 quarters → 202 log returns; windows of 80 ending at rows 79, 83, ..., 199
+    # 203 quarters → 202 log returns, dated at quarter ends; windows of 80 ending at rows 79, 83, ..., 199
+    ends = {1: (3, 31), 2: (6, 30), 3: (9, 30), 4: (12, 31)}
+    assert prepared_dates == [date(y, *ends[q]) for y in range(1959, 2010) for q in (1, 2, 3, 4)][1:-1]
     assert len(fits) == 31
     assert fits[-1][0] == date(2009, 3, 31) and fits[-1][2] == 78
 
-    # statsmodels' VAR(2) on the same 80 rows, F-form Granger test per pair
+    # statsmodels' VAR(2) on the same 80 rows of every window: coefficients, Σ_u, the F-form
+    # Granger test per pair and the connectedness table
     from statsmodels.tsa.api import VAR
 
     names = ["realgdp", "realcons", "realinv"]
     logs = np.log(df.select(names).to_numpy())
     returns = np.diff(logs, axis=0)
-    rows = returns[199 - 79 : 199 + 1]
-    res = VAR(rows).fit(2, trend="c")
-    for caused, causing, f_stat, p_value in granger:
-        ref = res.test_causality(names.index(caused), names.index(causing), kind="f")
-        # 1e-8: arlib's agreement with statsmodels (tests/reference), stored as DOUBLE
-        assert f_stat == pytest.approx(ref.test_statistic, rel=1e-8)
-        assert p_value == pytest.approx(ref.pvalue, rel=1e-8, abs=1e-14)
+    assert len(params) == len(totals) == 31
+    for w, (end, start, nobs) in enumerate(fits):
+        end_row = 79 + 4 * w
+        assert (start, end) == (prepared_dates[end_row - 79], prepared_dates[end_row])
+        rows = returns[end_row - 79 : end_row + 1]
+        res = VAR(rows).fit(2, trend="c")
+        assert nobs == res.nobs == 78
+        lags, coefs, intercept, sigma_u = params[end]
+        assert lags == 2
+        agree(np.reshape(coefs, (2, 3, 3)), res.coefs)
+        agree(np.asarray(intercept), res.intercept)
+        agree(np.reshape(sigma_u, (3, 3)), res.sigma_u)
+        table = generalized_connectedness(res.ma_rep(7), res.sigma_u)  # horizon 8: Φ_0..Φ_7
+        assert totals[end] == pytest.approx((table.sum() - np.trace(table)) / 3, rel=1e-8)
+        stored = np.full((3, 3), np.nan)
+        for e, source, target, share in shares:
+            if e == end:
+                stored[names.index(target), names.index(source)] = share
+        agree(stored, table)
+        for e, caused, causing, f_stat, p_value in granger:
+            if e != end:
+                continue
+            ref = res.test_causality(names.index(caused), names.index(causing), kind="f")
+            assert f_stat == pytest.approx(ref.test_statistic, rel=1e-8)
+            assert p_value == pytest.approx(ref.pvalue, rel=1e-8, abs=1e-14)
+    assert len(granger) == 31 * 6
 
     # frequency bands and joint connectedness of the newest window, through the whole pipeline,
     # equal arlib's single-window functions on the same rows (Baruník–Křehlík; Lastrapes–Wiesen)
     import arlib
 
+    rows = returns[199 - 79 : 199 + 1]
     fit = arlib.fit_var(rows, 2)
     fc = arlib.frequency_connectedness(fit, bands=[(1, 4), (4, 12), (12, float("inf"))], truncation=100)
     jc = arlib.joint_connectedness(fit, 8)

@@ -381,3 +381,32 @@ def test_new_connectedness_keys_refit_only_when_set(tmp_path: Path) -> None:
 def test_bad_frequency_bands_name_the_key_and_fix(tmp_path: Path, edges: str) -> None:
     with pytest.raises(ConfigError, match=r"universes\['pair'\]\.frequency_bands.*(increasing|>= 2)"):
         load_config(write_config(tmp_path, MINIMAL + f"frequency_bands = {edges}\n"))
+
+
+def test_series_aggregate_is_read_and_refits_only_when_set(tmp_path: Path) -> None:
+    """Issue 14: a per-series `aggregate`; absent (or `last`, its default) keeps a universe's hash
+    (no refit of a warehouse made before the key existed), set it changes the hash."""
+    base = minimal_config(tmp_path).universes[0]
+    assert [s.aggregate for s in base.series] == ["last", "last"]
+    text = MINIMAL.replace('series = ["A", "B"]', 'series = ["A", {name = "B", aggregate = "sum"}]\nfrequency = "quarterly"')
+    u = load_config(write_config(tmp_path, text)).universes[0]
+    assert [(s.name, s.transform, s.aggregate) for s in u.series] == [("A", "log_return", "last"), ("B", "log_return", "sum")]
+    assert u.frequency == "quarterly"
+    same = dataclasses.replace(u, series=tuple(dataclasses.replace(s, aggregate="last") for s in u.series), frequency=base.frequency)
+    assert same.config_hash == base.config_hash
+    assert dataclasses.replace(u, frequency=base.frequency).config_hash != base.config_hash
+    explicit = MINIMAL.replace('series = ["A", "B"]', 'series = ["A", {name = "B", aggregate = "last"}]')
+    assert load_config(write_config(tmp_path, explicit)).universes[0].config_hash == base.config_hash
+
+
+def test_unknown_aggregate_or_frequency_is_one_line_naming_universe_series_and_fix(tmp_path: Path) -> None:
+    text = MINIMAL.replace('series = ["A", "B"]', 'series = ["A", {name = "B", aggregate = "median"}]')
+    with pytest.raises(ConfigError) as err:
+        load_config(write_config(tmp_path, text))
+    (line,) = str(err.value).splitlines()
+    assert line.endswith(
+        "`universes['pair'].series['B'].aggregate` is 'median' (did you mean 'mean'?); use one of: last, first, mean, sum"
+    ), line
+    with pytest.raises(ConfigError, match=r"`universes\['pair'\].frequency` is 'quartely' \(did you mean 'quarterly'\?\); "
+                       r"use one of: business_day, weekly, monthly, quarterly, annual"):  # fmt: skip
+        load_config(write_config(tmp_path, MINIMAL + 'frequency = "quartely"\n'))

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import dataclasses
 from datetime import date, timedelta
+from pathlib import Path
 
 import numpy as np
 import polars as pl
@@ -141,3 +142,166 @@ def test_long_gap_everywhere_means_no_overlap() -> None:
     b = [(D[14], 1.0), (D[15], 2.0)]
     with pytest.raises(DataError, match="the series do not overlap"):
         prepare_universe(obs({"A": a, "B": b}), dataclasses.replace(universe(), max_fill_gap=0))
+
+
+# -- quarterly and annual calendars; aggregation of finer series; mixed frequencies (issue 14) ----
+
+
+def _business_days(first: date, last: date) -> list[date]:
+    return [first + timedelta(days=i) for i in range((last - first).days + 1) if (first + timedelta(days=i)).weekday() < 5]
+
+
+def _daily(first: date, last: date, seed: int) -> list[tuple[date, float]]:
+    """Positive business-day levels (a random walk in logs), one per weekday."""
+    days = _business_days(first, last)
+    rng = np.random.default_rng(seed)
+    levels = 100.0 * np.exp(np.cumsum(rng.normal(0.0, 0.01, len(days))))
+    return list(zip(days, levels.tolist(), strict=True))
+
+
+def _direct(rows: list[tuple[date, float]], how: str, every: str) -> pl.DataFrame:
+    """The reference: a plain polars group-by of the observations by calendar period (year and
+    month / quarter), in date order, independent of the calendar code under test."""
+    df = pl.DataFrame(rows, schema={"date": pl.Date, "value": pl.Float64}, orient="row").sort("date")
+    period = pl.col("date").dt.month() if every == "month" else pl.col("date").dt.quarter()
+    agg = {"last": pl.col("value").last(), "first": pl.col("value").first(),
+           "mean": pl.col("value").mean(), "sum": pl.col("value").sum()}[how]  # fmt: skip
+    return df.group_by(pl.col("date").dt.year().alias("y"), period.alias("p"), maintain_order=True).agg(agg).sort("y", "p")
+
+
+def test_quarterly_and_annual_calendars_take_period_end_labels() -> None:
+    # business days 2021-01-01 .. 2023-12-29: the data end on Friday 29 Dec 2023, so 2023Q4 and
+    # the year 2023 (labelled 31 Dec) are not complete yet and wait
+    a = _daily(date(2021, 1, 1), date(2023, 12, 29), seed=1)
+    level = (SeriesSpec("A", "level"),)
+    q = prepare_universe(obs({"A": a}), universe(series=level, frequency="quarterly"))
+    ends = [(3, 31), (6, 30), (9, 30), (12, 31)]
+    assert q.dates == tuple(date(y, *ends[k]) for y in (2021, 2022, 2023) for k in range(4))[:-1]
+    assert dict(q.dropped.rows())[date(2023, 12, 31)] == "period not complete yet: the data end on 2023-12-29"
+    ref = _direct(a, "last", "quarter")
+    np.testing.assert_array_equal(q.y[:, 0], ref["value"].to_numpy()[:-1])
+    yr = prepare_universe(obs({"A": a}), universe(series=level, frequency="annual"))
+    assert yr.dates == (date(2021, 12, 31), date(2022, 12, 31))
+    assert yr.y[:, 0].tolist() == [v for d, v in a if d in (date(2021, 12, 31), date(2022, 12, 30))]
+
+
+def test_quarterly_series_dated_anywhere_in_the_quarter_take_its_end_label() -> None:
+    # the statistics offices' first-day-of-quarter dates (1 Jan for Q1) and mid-quarter dates
+    starts = [date(2020, m, 1) for m in (1, 4, 7, 10)] + [date(2021, m, 15) for m in (2, 5, 8, 11)]
+    a = [(d, 100.0 + i * i) for i, d in enumerate(starts)] + [(date(2022, 1, 1), 200.0)]
+    p = prepare_universe(obs({"A": a}), universe(series=(SeriesSpec("A", "diff"),), frequency="quarterly"))
+    # a series sampled once per quarter has its newest quarter complete with its one value, though
+    # the data end on 1 Jan 2022, before the label 31 Mar 2022 (it waited a quarter before)
+    assert p.dates[0] == date(2020, 6, 30) and p.dates[-1] == date(2022, 3, 31)
+    assert all((d.month, d.day) in {(3, 31), (6, 30), (9, 30), (12, 31)} for d in p.dates)
+    np.testing.assert_array_equal(p.y[:, 0], np.diff([v for _, v in a]))
+    assert p.dropped["date"].to_list() == [date(2020, 3, 31)]  # the first row, used up by `diff`
+    # a daily series observed in that quarter makes it wait: its aggregate is not final yet
+    b = _daily(date(2020, 1, 1), date(2022, 1, 3), seed=8)
+    mixed = prepare_universe(obs({"A": a, "B": b}), universe(frequency="quarterly", series=(SeriesSpec("A", "diff"), SeriesSpec("B", "log_return"))))
+    assert mixed.dates[-1] == date(2021, 12, 31)
+    assert dict(mixed.dropped.rows())[date(2022, 3, 31)] == "period not complete yet: the data end on 2022-01-03"
+
+
+@pytest.mark.parametrize("how", ["last", "first", "mean", "sum"])
+def test_daily_series_aggregated_to_monthly_equals_a_direct_group_by(how: str) -> None:
+    # 2024-01-01 .. 2024-05-31 (a Friday): five complete months of business days
+    a = _daily(date(2024, 1, 1), date(2024, 5, 31), seed=2)
+    u = universe(series=(SeriesSpec("A", "level", aggregate=how),), frequency="monthly")
+    p = prepare_universe(obs({"A": a}), u)
+    ref = _direct(a, how, "month")
+    assert p.dates == (date(2024, 1, 31), date(2024, 2, 29), date(2024, 3, 31), date(2024, 4, 30), date(2024, 5, 31))
+    # last/first pick a stored value: exact. mean/sum: polars adds the same ~21 doubles in both,
+    # possibly in another order; 1e-14 relative is that rounding, any wrong row moves it by > 1e-3
+    np.testing.assert_allclose(p.y[:, 0], ref["value"].to_numpy(), rtol=0 if how in ("last", "first") else 1e-14)
+
+
+def test_a_universe_mixes_daily_monthly_and_quarterly_series() -> None:
+    # D: daily price (last, log_return), F: daily flow (sum, level), M: monthly index dated the
+    # 1st (log_return), Q: quarterly series dated at quarter end (diff); quarterly universe
+    d_price = _daily(date(2022, 1, 3), date(2023, 12, 29), seed=3)
+    d_flow = [(d, 1.0 + (i % 7)) for i, (d, _) in enumerate(_daily(date(2022, 1, 3), date(2023, 12, 29), seed=4))]
+    monthly = [(date(y, m, 1), 50.0 + 3 * (y - 2022) * 12 + m + (m % 4) ** 2) for y in (2022, 2023) for m in range(1, 13)]
+    ends = [(3, 31), (6, 30), (9, 30), (12, 31)]
+    quarterly = [(date(y, *ends[k]), float(k * k + y - 2000)) for y in (2022, 2023) for k in range(4)]
+    u = universe(
+        series=(SeriesSpec("D", "log_return"), SeriesSpec("F", "level", aggregate="sum"),
+                SeriesSpec("M", "log_return", aggregate="mean"), SeriesSpec("Q", "diff")),
+        frequency="quarterly", max_fill_gap=0,
+    )  # fmt: skip
+    p = prepare_universe(obs({"D": d_price, "F": d_flow, "M": monthly, "Q": quarterly}), u)
+    # Q is observed at 2023-12-31 (a Sunday), so 2023Q4 is complete; the first quarter is eaten
+    assert p.dates == tuple(date(y, *ends[k]) for y in (2022, 2023) for k in range(4))[1:]
+    last_d = _direct(d_price, "last", "quarter")["value"].to_numpy()
+    sum_f = _direct(d_flow, "sum", "quarter")["value"].to_numpy()
+    mean_m = _direct(monthly, "mean", "quarter")["value"].to_numpy()
+    q = np.array([v for _, v in quarterly])
+    np.testing.assert_allclose(p.y[:, 0], np.diff(np.log(last_d)), rtol=1e-14)
+    np.testing.assert_allclose(p.y[:, 1], sum_f[1:], rtol=1e-14)
+    np.testing.assert_allclose(p.y[:, 2], np.diff(np.log(mean_m)), rtol=1e-14)
+    np.testing.assert_array_equal(p.y[:, 3], np.diff(q))
+
+
+def test_a_series_sampled_less_often_than_its_universe_is_one_line_naming_the_frequency() -> None:
+    # a monthly series in a business-day universe was forward-filled for max_fill_gap rows and
+    # then left as gap rows (or "no overlap"); now one line names universe, series, key and fix
+    a = _daily(date(2024, 1, 1), date(2024, 6, 28), seed=5)
+    b = [(date(2024, m, 28), 10.0 + m * m) for m in range(1, 7)]
+    with pytest.raises(DataError) as err:
+        prepare_universe(obs({"A": a, "B": b}), universe())
+    msg = str(err.value)
+    assert "\n" not in msg
+    assert msg.startswith("universe 'u': series 'B' is observed in about 1 of every ")
+    assert "business_day rows (median step; its dates look monthly), less often than the universe's `frequency = 'business_day'`" in msg
+    assert "set the universe's `frequency = 'monthly'`" in msg
+    # a quarterly series among daily ones in a monthly universe
+    q = [(date(2024, m, 1), 5.0 + m) for m in (1, 4)] + [(date(2023, m, 1), 3.0 + m) for m in (1, 4, 7, 10)]
+    with pytest.raises(DataError, match=r"series 'B' is observed in about 1 of every 3 monthly rows \(median step; its dates look quarterly\).*`frequency = 'quarterly'`"):
+        prepare_universe(obs({"A": _daily(date(2023, 1, 2), date(2024, 6, 28), seed=6), "B": q}), universe(frequency="monthly"))
+    # every other business day: no coarser calendar fits its dates, so the fix says to look at them
+    sparse = a[::2]
+    with pytest.raises(DataError, match=r"series 'B' is observed in about 1 of every 2 business_day rows \(median step; its dates look business_day\), "
+                       r".*; set the universe's `frequency` to a coarser calendar, or check the series' source for missing dates$"):  # fmt: skip
+        prepare_universe(obs({"A": a, "B": sparse}), universe())
+
+
+def test_quarterly_series_alone_in_a_monthly_universe_still_drop_empty_months() -> None:
+    # the rule for a calendar row no series is observed in (a holiday) comes first: a universe of
+    # quarterly series on a monthly calendar keeps working as before (rows = the quarter ends)
+    ends = [(3, 31), (6, 30), (9, 30), (12, 31)]
+    a = [(date(2020 + i // 4, *ends[i % 4]), 100.0 + i * i) for i in range(8)]
+    p = prepare_universe(obs({"A": a}), universe(series=(SeriesSpec("A", "diff"),), frequency="monthly"))
+    assert len(p.dates) == 7 and p.dates[0] == date(2020, 6, 30)
+
+
+def test_the_readme_macro_universe_prepares_quarterly_rows_from_quarterly_and_daily_sources(tmp_path: Path) -> None:
+    """The README's macro example, as written there: US quarterly macro data (statsmodels'
+    macrodata, public domain, dated on each quarter's FIRST day as statistics offices publish
+    them) with an invented daily policy rate averaged per quarter."""
+    import re
+
+    from statsmodels.datasets import macrodata
+
+    from pipeline.config import load_config_text
+
+    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8")
+    (block,) = [b for b in re.findall(r"```toml\n(.*?)```", readme, flags=re.S) if 'name = "us_macro"' in b]
+    u = load_config_text(block, tmp_path / "macro.toml").universe("us_macro")
+    assert u.frequency == "quarterly" and [s.aggregate for s in u.series] == ["last", "last", "last", "mean"]
+
+    raw = macrodata.load_pandas().data
+    starts = [date(int(y), 3 * int(q) - 2, 1) for y, q in zip(raw["year"], raw["quarter"], strict=True)]
+    table = {s: list(zip(starts, raw[s].to_numpy(dtype=float).tolist(), strict=True)) for s in ("realgdp", "realcons", "realinv")}
+    # the invented daily rate: business days from 1959-01-01 to 2009-09-30
+    days = _business_days(date(1959, 1, 1), date(2009, 9, 30))
+    rate = 4.0 + np.cumsum(np.random.default_rng(9).normal(0.0, 0.02, len(days)))
+    table["policy_rate"] = list(zip(days, rate.tolist(), strict=True))
+    p = prepare_universe(obs(table), u)
+
+    ends = {1: (3, 31), 2: (6, 30), 3: (9, 30), 4: (12, 31)}
+    assert p.dates == tuple(date(y, *ends[q]) for y in range(1959, 2010) for q in (1, 2, 3, 4))[1:-1]
+    assert p.y.shape == (202, 4)
+    growth = np.diff(np.log(raw[["realgdp", "realcons", "realinv"]].to_numpy(dtype=float)), axis=0)
+    np.testing.assert_array_equal(p.y[:, :3], growth)  # the same floating-point operations
+    quarterly_mean = _direct(table["policy_rate"], "mean", "quarter")["value"].to_numpy()
+    np.testing.assert_allclose(p.y[:, 3], np.diff(quarterly_mean), rtol=1e-12, atol=1e-14)  # ~63 doubles summed in another order
