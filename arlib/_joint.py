@@ -52,8 +52,8 @@ from ._validate import VARLike, check_int, check_model, readonly
 def joint_kernel(coefs: np.ndarray, sigma: np.ndarray, horizon: int) -> np.ndarray:
     """(..., n) joint shares J_i(H) = 1 − Σ_{h<H} (Φ_h)_ii² / ((Σ^{-1})_ii · MSE_i(H))."""
     phi = ma_kernel(coefs, horizon - 1)  # (..., H, n, n)
-    mse = np.einsum("...hij,...jk,...hik->...i", phi, sigma, phi)
-    own = np.einsum("...hii->...i", phi * phi)
+    mse = np.einsum("...hij,...hij->...i", phi @ sigma[..., None, :, :], phi)  # Σ_h (Φ_h Σ Φ_h')_ii
+    own = np.einsum("...hii,...hii->...i", phi, phi)
     precision = np.diagonal(np.linalg.inv(sigma), axis1=-2, axis2=-1)
     return 1.0 - own / (precision * mse)
 

@@ -113,10 +113,10 @@ from ._estimate import (
 )
 from ._frequency import (
     DEFAULT_TRUNCATION,
+    band_kernel,
     band_weights,
     check_bands,
     default_grid,
-    frequency_kernel,
     frequency_measures,
 )
 from ._joint import joint_kernel
@@ -552,7 +552,8 @@ def _with_extras(
 
     The same kernels as `frequency_connectedness` and `joint_connectedness` on each window's
     coefficients and Σ̂_u (zero coefficients beyond a window's own lag order change nothing),
-    in chunks of windows that keep the spectral arrays near 32 MiB.
+    in chunks of windows that keep the spectral arrays near 32 MiB (`band_kernel`: the small-rfft form
+    of `frequency_kernel`, the same numbers to rounding).
     """
     ok = np.asarray(result.ok, dtype=bool)
     k = np.flatnonzero(ok)
@@ -566,10 +567,11 @@ def _with_extras(
         weights = band_weights(parts, N)
         d = len(parts)
         tables = np.full((W, d, n, n), np.nan)
-        per = max(1, (32 * 2**20) // ((N // 2 + 1) * n * n * 16 * 3))
+        # per window: a_h and its transposed copy (2H n² floats), the size-2H rfft and its square
+        per = max(1, (32 * 2**20) // (8 * n * n * (2 * H + 3 * (H + 1) + d)))
         for lo in range(0, k.size, per):
             sel = k[lo : lo + per]
-            tables[sel] = 100.0 * frequency_kernel(coefs[sel], sigma[sel], H, N, weights)
+            tables[sel] = 100.0 * band_kernel(coefs[sel], sigma[sel], H, N, weights)
         m = frequency_measures(tables)
         extra.update(
             band_periods=parts, band_truncation=H, band_tables=tables, band_total=m["total"],

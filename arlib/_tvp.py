@@ -111,10 +111,12 @@ from ._decompose import spillover_measures
 from ._estimate import TREND_TERMS, fit_var, spectral_radius
 from ._frequency import (
     DEFAULT_TRUNCATION,
+    band_map,
     band_weights,
     check_bands,
     default_grid,
     frequency_measures,
+    scaled_ma,
 )
 from ._joint import joint_kernel, joint_table
 from ._sizes import minimum_window
@@ -362,46 +364,6 @@ FILTERS = {"kronecker": filter_kronecker, "full": filter_full}
 # ---------------------------------------------------------------------------------------------
 # connectedness per date, in chunks
 # ---------------------------------------------------------------------------------------------
-
-
-def scaled_ma(coefs: np.ndarray, sigma: np.ndarray, terms: int) -> np.ndarray:
-    """(D, terms, n, n) a_h = Φ_h Σ D_σ^{-1/2}, h < terms, from coefs (D, p, n, n), Σ (D, n, n).
-
-    a_0 = Σ D_σ^{-1/2},  a_h = Σ_{j=1}^{min(h,p)} A_j a_{h−j}   (Φ_h = Σ_j A_j Φ_{h−j}, Lütkepohl
-    2005 eq. 2.3.9, the A_j commuting form), one batched (n × np)(np × n) product per step.
-    a_h[i, k]² = σ_kk^{-1} (e_i'Φ_hΣe_k)², the generalized FEVD term (Pesaran–Shin eq. 11).
-    """
-    D, p, n, _ = coefs.shape
-    A = np.concatenate(list(np.moveaxis(coefs[:, ::-1], -3, 0)), axis=-1)  # [A_p … A_1]
-    buf = np.zeros((D, terms + p - 1, n, n))  # a_h at index h + p − 1; zeros stand for h < 0
-    sd = np.sqrt(np.diagonal(sigma, axis1=-2, axis2=-1))
-    buf[:, p - 1] = sigma / sd[:, None, :]
-    for h in range(1, terms):
-        lagged = buf[:, h - 1 : h + p - 1].reshape(D, p * n, n)  # [a_{h−p}; …; a_{h−1}] (view)
-        np.matmul(A, lagged, out=buf[:, h + p - 1])
-    return buf[:, p - 1 :]
-
-
-def band_map(weights: np.ndarray, grid: int, terms: int) -> tuple[int, np.ndarray]:
-    """(M, U): U (M//2 + 1, d) maps the power |F_k|² of an rfft of size M >= 2·terms − 1 to the
-    band sums Σ_j w_d(j) |F(2πj/N)|² of `frequency_kernel` on its grid of size N = `grid`.
-
-    With a_h (h < L = terms) and F(ω) = Σ_h a_h e^{−iωh}: |F(ω)|² = r_0 + 2 Σ_{m≥1} r_m cos(ωm),
-    r_m = Σ_h a_h a_{h+m}, so band_d = Σ_m r_m c_d(m) with c_d(0) = Σ_j w_d(j),
-    c_d(m) = 2 Σ_j w_d(j) cos(2πjm/N). An rfft of size M >= 2L − 1 gives r without wrap-around:
-    r_m = (1/M) Σ_k ε_k |F_k|² cos(2πkm/M) (ε = 1 at k = 0 and k = M/2, else 2), hence
-    U[k, d] = (ε_k / M) Σ_{m<L} cos(2πkm/M) c_d(m). Exact for any N >= L; the small rfft (M ≈ 2L
-    instead of N = 8L) is what makes per-date bands affordable.
-    """
-    M = 2 * terms
-    m = np.arange(terms)
-    c = weights @ np.cos(2 * np.pi * np.outer(np.arange(weights.shape[1]), m) / grid)  # (d, L)
-    c[:, 1:] *= 2.0
-    k = np.arange(M // 2 + 1)
-    eps = np.full(k.size, 2.0)
-    eps[0] = eps[-1] = 1.0  # M even: k = 0 and k = M/2 appear once
-    U = (eps[:, None] / M) * (np.cos(2 * np.pi * np.outer(k, m) / M) @ c.T)
-    return M, U
 
 
 def _chunk(n: int, p: int, terms: int, rfft_bins: int) -> int:

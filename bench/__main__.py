@@ -16,6 +16,7 @@ import time
 #: Benchmark cases: name -> "module:function" (the function takes no arguments).
 CASES: dict[str, str] = {
     "rolling": "bench.rolling:main",
+    "rolling_extras": "bench.rolling_extras:main",
     "dashboard": "bench.dashboard_callbacks:case",
     "pipeline": "bench.pipeline:main",
     "load": "bench.load_dashboard:case",

@@ -15,8 +15,10 @@ import pytest
 import arlib
 from arlib import InvalidInputError
 from arlib._frequency import (
+    band_kernel,
     band_weights,
     frequency_connectedness,
+    frequency_kernel,
     frequency_response_kernel,
 )
 
@@ -151,6 +153,23 @@ def test_grid_error_against_the_exact_band_integrals():
     err_fine = np.abs(fine.tables - exact).max()
     assert err_coarse < 1e-2, err_coarse
     assert err_fine < 1e-3, err_fine
+
+
+@pytest.mark.parametrize(("truncation", "grid"), [(100, 800), (30, 30), (25, 77), (1, 8)])
+def test_small_rfft_band_kernel_equals_the_grid_definition(truncation, grid):
+    # band_kernel takes r_m = Σ_h a_h a_{h+m} from an rfft of size 2H and maps it to the grid-N
+    # band sums (Wiener–Khinchin: |F(ω)|² = r_0 + 2 Σ_m r_m cos ωm); frequency_kernel evaluates the
+    # definition, BK 2018 eqs. 10–12, on the size-N grid. Same numbers to rounding, for any N >= H
+    # (also N = H and odd N), on a batch of processes with unequal variances and correlated errors.
+    rng = np.random.default_rng(truncation + grid)
+    procs = [random_process(rng, n=5, p=3, radius=0.95) for _ in range(4)]
+    coefs = np.stack([np.asarray(q.coefs) for q in procs])
+    sigma = np.stack([np.asarray(q.sigma_u) for q in procs])
+    weights = band_weights(BANDS, grid)
+    want = frequency_kernel(coefs, sigma, truncation, grid, weights)
+    got = band_kernel(coefs, sigma, truncation, grid, weights)
+    assert got.shape == want.shape == (4, len(BANDS), 5, 5)
+    np.testing.assert_allclose(got, want, rtol=0, atol=1e-12)
 
 
 def test_band_weights_cover_the_circle_once():
