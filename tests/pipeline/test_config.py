@@ -256,11 +256,11 @@ def test_every_problem_of_a_file_is_reported_at_once(tmp_path: Path) -> None:
         r"`sources\['prices'\]\.kind` is 'cvs' \(did you mean 'csv'\?\); use one of: csv, parquet, http_csv, duckdb_sql, demo",
         r"`universes\['pair'\]\.trend` is 'linear'; use one of: n, c, ct",
         # `window` is optional (a tvp universe has none), so a misspelling reads as an unknown key
-        r"`universes\['pair'\]\.windw` is not a known key \(did you mean 'window'\?\); known keys here: .*",
+        r"`universes\['pair'\]\.windw` is not a known key \(did you mean 'window'\?\); rename it to `window`",
         r"`universes\['short'\]\.window` = 6 leaves 5 observations for 4 coefficients per equation .*use window >= 8 .*",
         r"`schedule\.cron` is '0 25 \* \* \*': .*; fix the field, .*",
         r"`dashboard\.port` is 70000; use a port in 0\.\.65535",
-        r"`dashboard\.workrs` is not a known key \(did you mean 'workers'\?\); known keys here: .*",
+        r"`dashboard\.workrs` is not a known key \(did you mean 'workers'\?\); rename it to `workers`",
     ]
     problems = info.value.problems
     assert len(problems) == len(expected), problems
