@@ -47,6 +47,7 @@ from ._estimate import TREND_TERMS, VARFit, companion_matrix, deterministic_term
 from ._responses import SHOCKS, cholesky_impact, ma_kernel, resolve_order, response_kernel
 from ._validate import (
     InvalidInputError,
+    as_rng,
     check_fraction,
     check_int,
     check_option,
@@ -112,15 +113,6 @@ class ConnectednessBands:
 # ---------------------------------------------------------------------------------------------
 # bootstrap engine
 # ---------------------------------------------------------------------------------------------
-
-
-def _as_rng(rng: Any) -> np.random.Generator:
-    if isinstance(rng, np.random.Generator):
-        return rng
-    if rng is None or (isinstance(rng, int | np.integer) and not isinstance(rng, bool)):
-        return np.random.default_rng(rng)
-    msg = f"`rng` must be a numpy Generator, an integer seed or None, got {rng!r}"
-    raise InvalidInputError(msg)
 
 
 def _stabilise(coefs: np.ndarray, bias: np.ndarray) -> np.ndarray:
@@ -289,7 +281,7 @@ def irf_bands(
             msg = "`bias_correction` applies to kind='bootstrap' only; drop it for asymptotic bands"
             raise InvalidInputError(msg)
         return _asymptotic_irf_bands(model, point, H, shocks, perm, cumulative, level)
-    gen = _as_rng(rng)
+    gen = as_rng(rng)
     coefs, sigma = bootstrap_models(model, B, gen, bias_correction=bias_correction)
     samples = response_kernel(coefs, sigma, H, shocks, perm)
     if cumulative:
@@ -320,7 +312,7 @@ def fevd_bands(
         msg = f"`order` only applies to method='cholesky', not method={method!r}; drop `order`"
         raise InvalidInputError(msg)
     point = fevd_kernel(np.asarray(model.coefs), np.asarray(model.sigma_u), H, method, perm)
-    coefs, sigma = bootstrap_models(model, B, _as_rng(rng), bias_correction=bias_correction)
+    coefs, sigma = bootstrap_models(model, B, as_rng(rng), bias_correction=bias_correction)
     samples = fevd_kernel(coefs, sigma, H, method, perm)
     return _percentile_bands(point, samples, level, bias_correction)
 
@@ -346,7 +338,7 @@ def connectedness_bands(
         100 * fevd_kernel(np.asarray(model.coefs), np.asarray(model.sigma_u), H, method, None)[-1]
     )
     point = {"table": table, **spillover_measures(table)}
-    coefs, sigma = bootstrap_models(model, B, _as_rng(rng), bias_correction=bias_correction)
+    coefs, sigma = bootstrap_models(model, B, as_rng(rng), bias_correction=bias_correction)
     tables = 100 * fevd_kernel(coefs, sigma, H, method, None)[:, -1]
     drawn = {"table": tables, **spillover_measures(tables)}
     parts = {
