@@ -24,6 +24,7 @@ from scipy import stats
 
 from ._estimate import TREND_TERMS, VARFit, deterministic_terms
 from ._frames import Columns, FrameMixin, last_date, long_columns
+from ._labels import is_frame
 from ._responses import ma_kernel
 from ._validate import (
     InvalidInputError,
@@ -158,7 +159,7 @@ def _in_model_order(
 ) -> np.ndarray:
     """The columns of a history DataFrame put in the model's series order (arrays pass as
     they are: their columns are taken to be in the model's order)."""
-    if not hasattr(y, "columns") and not hasattr(y, "name"):
+    if not is_frame(y):
         return hist
     missing = [name for name in names if name not in given]
     if missing or len(given) != len(names):

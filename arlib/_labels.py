@@ -5,7 +5,8 @@ pandas or polars DataFrame (or Series):
 
 - numeric columns (integers, floats) become the series, their column names the series names;
 - a date column (pandas datetime64 / Python dates, polars Date / Datetime) or a pandas
-  DatetimeIndex becomes the dates of the rows — never a series;
+  DatetimeIndex becomes the dates of the rows — never a series; a pandas PeriodIndex (e.g.
+  quarters) dates each row by the last day of its period;
 - any other column (text, booleans, categories, lists, time-zone-aware timestamps) is refused
   with an error naming it.
 
@@ -63,6 +64,15 @@ def _module_of(obj: Any, package: str) -> Any:
     if mod is None or not type(obj).__module__.startswith(package):
         return None
     return mod
+
+
+def is_frame(y: Any) -> bool:
+    """True for a pandas or polars DataFrame or Series (whose columns name the series)."""
+    pd = _module_of(y, "pandas")
+    pl = _module_of(y, "polars")
+    return (pd is not None and isinstance(y, pd.DataFrame | pd.Series)) or (
+        pl is not None and isinstance(y, pl.DataFrame | pl.Series)
+    )
 
 
 def as_labelled(y: Any, names: Sequence[str] | None, *, arg: str = "y") -> LabelledData:
@@ -131,13 +141,16 @@ def _from_pandas(pd: Any, y: Any, arg: str) -> LabelledData:
             values.append(col.to_numpy(dtype=np.float64, na_value=np.nan))
             continue
         _refuse_column(arg, label, dtype, "")
-    index_dates = isinstance(frame.index, pd.DatetimeIndex)
+    index = frame.index
+    if isinstance(index, pd.PeriodIndex):  # a period is labelled by its last day
+        index = index.to_timestamp(how="end").normalize()
+    index_dates = isinstance(index, pd.DatetimeIndex)
     _one_date_source(arg, date_cols, index_dates)
     dates = None
     if date_cols:
         dates = _pandas_dates(pd, date_values, arg, f"date column {date_cols[0]!r}")
     elif index_dates:
-        dates = _pandas_dates(pd, frame.index.to_series(), arg, "DatetimeIndex")
+        dates = _pandas_dates(pd, index.to_series(), arg, "DatetimeIndex")
     return LabelledData(_stack(values, len(frame)), tuple(series), dates)
 
 

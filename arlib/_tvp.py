@@ -117,6 +117,7 @@ from ._frequency import (
     frequency_measures,
 )
 from ._joint import joint_kernel, joint_table
+from ._labels import is_frame
 from ._sizes import minimum_window
 from ._validate import (
     InvalidInputError,
@@ -589,7 +590,13 @@ def tvp_var(
             raise InvalidInputError(msg)
         labels = state.names if names is None else as_names(names, len(state.names))
         _same("names", labels, state.names)
-        data, _ = as_data(y)
+        data, columns = as_data(y)
+        if is_frame(y) and columns != labels:
+            msg = (
+                f"`y` has series {list(columns)!r} but the state was filtered on {list(labels)!r}; "
+                "pass the new rows of the same series, in the same order"
+            )
+            raise InvalidInputError(msg)
         if data.shape[1] != len(labels):
             msg = (
                 f"`y` has {data.shape[1]} series but the state has {len(labels)} "

@@ -11,6 +11,8 @@ from __future__ import annotations
 import copy
 import datetime as dt
 import pickle
+import re
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -499,3 +501,51 @@ def test_to_frame_without_pandas_says_what_to_install(
     with pytest.raises(ImportError, match=r"needs pandas, which is not installed.*to_polars\(\)"):
         irf.to_frame()
     assert irf.to_polars().height == irf.size
+
+
+def test_readme_python_api_example_runs(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """The README's data-frame example, run as written on a prices.csv of business days."""
+    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8")
+    section = readme.split("### The Python API with your own data frames", 1)[1]
+    code = re.search(r"```python\n(.*?)```", section, re.S)
+    assert code is not None
+    days = pl.date_range(dt.date(2023, 1, 2), dt.date(2024, 12, 31), eager=True)
+    days = days.filter(days.dt.weekday() <= 5)
+    y = simulate(np.stack([A1, A2]), SIGMA, days.len(), seed=3)
+    prices = pl.DataFrame({"date": days, "equity": y[:, 0], "rates": y[:, 1], "oil": y[:, 2]})
+    prices.write_csv(tmp_path / "prices.csv")
+    monkeypatch.chdir(tmp_path)
+    scope: dict[str, object] = {}
+    exec(compile(code.group(1), "README.md", "exec"), scope)
+    roll = scope["roll"]
+    assert isinstance(roll, arlib.RollingVAR)
+    assert [str(d) for d in roll.dates] == ["2024-06-28", "2024-12-31"]  # type: ignore[union-attr]  # dates are known here
+    assert scope["fit"].names == ("equity", "rates", "oil")  # type: ignore[attr-defined]  # a VARFit
+
+
+def test_a_period_index_dates_rows_by_the_period_end(data: np.ndarray) -> None:
+    quarters = pd.period_range("1990Q1", periods=T, freq="Q")
+    fit = arlib.fit_var(pd.DataFrame(data, columns=list(NAMES), index=quarters), 1)
+    assert fit.dates is not None
+    assert str(fit.dates[0]) == "1990-03-31" and str(fit.dates[1]) == "1990-06-30"
+    assert fit.date == np.datetime64(quarters[-1].end_time.date(), "D")
+
+
+def test_tvp_takes_frames_and_checks_their_series_against_the_state(
+    data: np.ndarray, polars_frame: pl.DataFrame
+) -> None:
+    first = arlib.tvp_var(polars_frame.head(100), 1, 4, training=40)
+    assert first.names == NAMES
+    more = arlib.tvp_var(polars_frame.slice(100), horizon=4, state=first.state)
+    np.testing.assert_array_equal(
+        more.pairwise,
+        arlib.tvp_var(data[100:], horizon=4, state=first.state).pairwise,
+    )
+    with pytest.raises(
+        arlib.InvalidInputError, match=r"series \['oil', 'spx', 'ust10y'\] but the state"
+    ):
+        arlib.tvp_var(
+            polars_frame.slice(100).select("date", "oil", "spx", "ust10y"),
+            horizon=4,
+            state=first.state,
+        )
