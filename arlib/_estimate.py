@@ -26,7 +26,7 @@ from typing import Any
 import numpy as np
 from scipy import linalg
 
-from ._frames import Columns, FrameMixin, date_lead, last_date
+from ._frames import Columns, FrameMixin, coded, date_lead, last_date
 from ._validate import (
     InvalidInputError,
     as_data,
@@ -409,8 +409,8 @@ class VARFit(FrameMixin):
         k, n = self.params.shape
         return {
             **{key: np.repeat(value, k * n) for key, value in date_lead(self.date).items()},
-            "equation": np.tile(np.array(self.names, dtype=object), k),
-            "regressor": np.repeat(np.array(self.regressor_names, dtype=object), n),
+            "equation": coded(self.names, np.tile(np.arange(n), k)),
+            "regressor": coded(self.regressor_names, np.repeat(np.arange(k), n)),
             "estimate": self.params.reshape(-1),
             "stderr": self.stderr.reshape(-1),
         }

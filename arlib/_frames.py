@@ -9,14 +9,36 @@ are imported only when a frame is asked for; arlib itself needs numpy and scipy 
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
 from ._errors import InvalidInputError
 
-#: Long columns: one numpy array per column name, all of the same length.
-Columns = dict[str, np.ndarray]
+
+@dataclass(frozen=True)
+class Coded:
+    """A text column of a long frame kept as positions into its few distinct labels (series
+    names, regressor names): a long frame repeats each name many times, and building the
+    column from positions costs one gather instead of one Python string per row."""
+
+    codes: np.ndarray
+    labels: tuple[str, ...]
+
+    def __len__(self) -> int:
+        return int(self.codes.shape[0])
+
+
+#: Long columns: one numpy array (or coded text column) per column name, all of one length.
+Columns = dict[str, "np.ndarray | Coded"]
+
+
+def coded(labels: Sequence[Any], idx: np.ndarray) -> np.ndarray | Coded:
+    """The column `labels[idx]`: coded when the labels are text, else a numpy array."""
+    if len(labels) and all(isinstance(x, str) for x in labels):
+        return Coded(np.asarray(idx, dtype=np.int64), tuple(labels))
+    return np.asarray(labels)[idx]
 
 
 # ---------------------------------------------------------------------------------------------
@@ -52,13 +74,9 @@ def long_columns(
     for name, constant in (lead or {}).items():
         out[name] = np.repeat(np.asarray([constant]), rows)
     for (name, labels), idx in zip(axes, grid, strict=True):
-        out[name] = np.asarray(labels)[idx]
+        out[name] = coded(list(labels), idx)
     out[value] = arr.reshape(-1)
     return out
-
-
-def _text(col: np.ndarray) -> bool:
-    return col.dtype.kind in "UO"
 
 
 def to_pandas(columns: Columns, what: str) -> Any:
@@ -71,7 +89,13 @@ def to_pandas(columns: Columns, what: str) -> Any:
             "(`pip install pandas`) or use to_polars()"
         )
         raise ImportError(msg) from None
-    return pd.DataFrame({k: (v.tolist() if v.dtype.kind == "O" else v) for k, v in columns.items()})
+
+    def column(v: np.ndarray | Coded) -> Any:
+        if isinstance(v, Coded):  # text as pandas infers it from a list of str, gathered
+            return pd.Series(list(v.labels)).iloc[v.codes].reset_index(drop=True)
+        return v.tolist() if v.dtype.kind == "O" else v
+
+    return pd.DataFrame({k: column(v) for k, v in columns.items()})
 
 
 def to_polars(columns: Columns, what: str) -> Any:
@@ -84,7 +108,13 @@ def to_polars(columns: Columns, what: str) -> Any:
             "(`pip install polars`) or use to_frame()"
         )
         raise ImportError(msg) from None
-    return pl.DataFrame({k: (v.tolist() if _text(v) else v) for k, v in columns.items()})
+
+    def column(name: str, v: np.ndarray | Coded) -> Any:
+        if isinstance(v, Coded):
+            return pl.Series(name, list(v.labels), dtype=pl.String).gather(v.codes)
+        return pl.Series(name, v.tolist() if v.dtype.kind in "UO" else v)
+
+    return pl.DataFrame([column(k, v) for k, v in columns.items()])
 
 
 class FrameMixin:
@@ -162,7 +192,7 @@ def _axis_labels(result: Any, axis: str, size: int) -> np.ndarray:
 
 def rolling_columns(result: Any, field: str | None) -> Columns:
     """The long columns of a `RollingVAR` (see `RollingVAR.to_frame`)."""
-    lead: Columns = {}
+    lead: dict[str, np.ndarray] = {}
     if result.dates is not None:
         lead["date"] = np.asarray(result.dates)
     lead["end"] = np.asarray(result.ends)
@@ -172,7 +202,8 @@ def rolling_columns(result: Any, field: str | None) -> Columns:
             value = getattr(result, name)
             if value is not None:
                 lead[name] = np.asarray(value)
-        return lead
+        summary: Columns = dict(lead)
+        return summary
     if field not in ROLLING_AXES:
         msg = (
             f"`field` must be one of {sorted(ROLLING_AXES)!r} (or None for one row per window), "
@@ -195,7 +226,7 @@ def rolling_columns(result: Any, field: str | None) -> Columns:
     out: Columns = {k: np.repeat(v, per) for k, v in lead.items()}
     grid = np.indices(values.shape[1:]).reshape(len(axes), -1)
     for (name, labels), idx in zip(axes, grid, strict=True):
-        out[name] = np.tile(labels[idx], W)
+        out[name] = coded(list(labels), np.tile(idx, W))
     out["value"] = values.reshape(-1)
     return out
 

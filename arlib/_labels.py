@@ -58,18 +58,16 @@ class LabelledData:
     dates: np.ndarray | None
 
 
-def _module_of(obj: Any, package: str) -> Any:
-    """The package module if it is already imported and `obj` belongs to it, else None."""
-    mod = sys.modules.get(package)
-    if mod is None or not type(obj).__module__.startswith(package):
-        return None
-    return mod
+def _loaded(package: str) -> Any:
+    """The package's module if something already imported it, else None. A frame can only
+    come from an imported package, so arlib never imports pandas or polars to look."""
+    return sys.modules.get(package)
 
 
 def is_frame(y: Any) -> bool:
     """True for a pandas or polars DataFrame or Series (whose columns name the series)."""
-    pd = _module_of(y, "pandas")
-    pl = _module_of(y, "polars")
+    pd = _loaded("pandas")
+    pl = _loaded("polars")
     return (pd is not None and isinstance(y, pd.DataFrame | pd.Series)) or (
         pl is not None and isinstance(y, pl.DataFrame | pl.Series)
     )
@@ -82,8 +80,8 @@ def as_labelled(y: Any, names: Sequence[str] | None, *, arg: str = "y") -> Label
     dates. Giving `names` together with a DataFrame is refused (the columns already name the
     series); rename the columns instead.
     """
-    pd = _module_of(y, "pandas")
-    pl = _module_of(y, "polars")
+    pd = _loaded("pandas")
+    pl = _loaded("polars")
     if pd is not None and isinstance(y, pd.DataFrame | pd.Series):
         data = _from_pandas(pd, y, arg)
     elif pl is not None and isinstance(y, pl.DataFrame | pl.Series):
