@@ -3,7 +3,8 @@
 Inputs. Every public function taking data `y` accepts, besides a numpy array (unchanged), a
 pandas or polars DataFrame (or Series):
 
-- numeric columns (integers, floats) become the series, their column names the series names;
+- numeric columns (integers, floats, decimals — as float64) become the series, their column
+  names the series names;
 - a date column (pandas datetime64 / Python dates, polars Date / Datetime) or a pandas
   DatetimeIndex becomes the dates of the rows — never a series; a pandas PeriodIndex (e.g.
   quarters) dates each row by the last day of its period;
@@ -134,9 +135,11 @@ def _from_pandas(pd: Any, y: Any, arg: str) -> LabelledData:
             date_cols.append(label)
             date_values = col
             continue
-        if api.is_numeric_dtype(dtype) and not api.is_complex_dtype(dtype):
+        if (api.is_numeric_dtype(dtype) and not api.is_complex_dtype(dtype)) or (
+            api.is_object_dtype(dtype) and api.infer_dtype(col, skipna=True) == "decimal"
+        ):  # integers, floats, and Decimal objects (as float64)
             series.append(label)
-            values.append(col.to_numpy(dtype=np.float64, na_value=np.nan))
+            values.append(col.astype(np.float64).to_numpy(dtype=np.float64, na_value=np.nan))
             continue
         _refuse_column(arg, label, dtype, "")
     index = frame.index
@@ -186,13 +189,11 @@ def _from_polars(pl: Any, y: Any, arg: str) -> LabelledData:
                 raise InvalidInputError(msg)
             date_cols.append(name)
             continue
-        if dtype.is_numeric() and not dtype.is_decimal():
+        if dtype.is_numeric():  # integers, floats and decimals (as float64)
             series.append(name)
             values.append(frame[name].cast(pl.Float64).fill_null(float("nan")).to_numpy())
             continue
         hint = "; a yes/no column is not a series (cast it to float)" if dtype == pl.Boolean else ""
-        if dtype.is_decimal():
-            hint = f" (e.g. `pl.col({name!r}).cast(pl.Float64)`)"
         _refuse_column(arg, name, dtype, hint)
     _one_date_source(arg, date_cols, False)
     dates = None

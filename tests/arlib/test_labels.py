@@ -77,6 +77,14 @@ def test_a_polars_date_column_is_never_fitted(
     np.testing.assert_array_equal(fit.dates, np.array(days, dtype="datetime64[D]"))
     assert fit.date == _day(days[-1])
     np.testing.assert_array_equal(fit.resid_dates, fit.dates[2:])
+    # consecutive calendar days: the old code fitted them as a trend-like series and refused
+    # the data with a misleading collinearity error naming 'y0.L1' (measured before the fix)
+    daily = polars_frame.with_columns(
+        pl.date_range(
+            dt.date(2024, 1, 1), dt.date(2024, 1, 1) + dt.timedelta(days=T - 1), eager=True
+        ).alias("date")
+    )
+    assert arlib.fit_var(daily, 2).names == NAMES
 
 
 def test_a_date_column_anywhere_and_a_datetime_column_date_the_rows(
@@ -549,3 +557,19 @@ def test_tvp_takes_frames_and_checks_their_series_against_the_state(
             horizon=4,
             state=first.state,
         )
+
+
+def test_decimal_and_nullable_columns_are_series(data: np.ndarray) -> None:
+    """Prices read from a database often arrive as decimals; they are numbers like any other."""
+    from decimal import Decimal
+
+    text = [f"{v:.6f}" for v in data[:, 0]]
+    expect = np.column_stack([np.array(text, dtype=float), data[:, 1]])
+    frame = pl.DataFrame({"px": [Decimal(t) for t in text], "ust10y": data[:, 1]})
+    assert frame.schema["px"].is_decimal()
+    fit = arlib.fit_var(frame, 1)
+    np.testing.assert_array_equal(fit.y, expect)
+    pdf = pd.DataFrame(
+        {"px": [Decimal(t) for t in text], "ust10y": pd.array(data[:, 1], dtype="Float64")}
+    )
+    np.testing.assert_array_equal(arlib.fit_var(pdf, 1).y, expect)
