@@ -68,7 +68,7 @@ def long_columns(
             "result itself"
         )
         raise InvalidInputError(msg)
-    grid = np.indices(arr.shape).reshape(arr.ndim, -1)
+    grid = np.indices(arr.shape).reshape(arr.ndim, arr.size)
     rows = arr.size
     out: Columns = {}
     for name, constant in (lead or {}).items():
@@ -224,7 +224,7 @@ def rolling_columns(result: Any, field: str | None) -> Columns:
             for name, size in zip(ROLLING_AXES[field], values.shape[1:], strict=True)]  # fmt: skip
     per = int(np.prod(values.shape[1:], dtype=np.int64))
     out: Columns = {k: np.repeat(v, per) for k, v in lead.items()}
-    grid = np.indices(values.shape[1:]).reshape(len(axes), -1)
+    grid = np.indices(values.shape[1:]).reshape(len(axes), per)
     for (name, labels), idx in zip(axes, grid, strict=True):
         out[name] = coded(list(labels), np.tile(idx, W))
     out["value"] = values.reshape(-1)

@@ -573,3 +573,37 @@ def test_decimal_and_nullable_columns_are_series(data: np.ndarray) -> None:
         {"px": [Decimal(t) for t in text], "ust10y": pd.array(data[:, 1], dtype="Float64")}
     )
     np.testing.assert_array_equal(arlib.fit_var(pdf, 1).y, expect)
+
+
+def test_bands_carry_labels_and_frames(days: list[dt.date], polars_frame: pl.DataFrame) -> None:
+    fit = arlib.fit_var(polars_frame, 1)
+    irf = arlib.irf_bands(fit, 4, draws=20, rng=1)
+    assert irf.names == NAMES and irf.date == _day(days[-1])
+    assert irf.axes == ("horizon", "response", "shock")
+    frame = irf.to_frame()
+    assert list(frame.columns) == [
+        "date",
+        "horizon",
+        "response",
+        "shock",
+        "point",
+        "lower",
+        "upper",
+        "median",
+        "std",
+    ]
+    row = frame[(frame.horizon == 2) & (frame.response == "oil") & (frame.shock == "spx")]
+    assert row["lower"].item() == irf.lower[2, 2, 0] and row["point"].item() == irf.point[2, 2, 0]
+    asym = arlib.irf_bands(fit, 4, kind="asymptotic")
+    assert asym.to_polars().height == 5 * 9
+    fevd = arlib.fevd_bands(fit, 3, draws=20, rng=1)
+    assert fevd.axes == ("step", "variable", "shock") and fevd.to_frame()["step"].min() == 1
+    conn = arlib.connectedness_bands(fit, 5, draws=20, rng=1)
+    assert conn.date == _day(days[-1])
+    total = conn.total.to_frame()
+    assert (
+        list(total.columns) == ["date", "point", "lower", "upper", "median", "std"]
+        and len(total) == 1
+    )
+    assert conn.to_others.to_polars()["series"].to_list() == list(NAMES)
+    assert conn.table.axes == ("variable", "shock")
