@@ -540,11 +540,15 @@ def test_a_period_index_dates_rows_by_the_period_end(data: np.ndarray) -> None:
 
 
 def test_tvp_takes_frames_and_checks_their_series_against_the_state(
-    data: np.ndarray, polars_frame: pl.DataFrame
+    data: np.ndarray, days: list[dt.date], polars_frame: pl.DataFrame
 ) -> None:
     first = arlib.tvp_var(polars_frame.head(100), 1, 4, training=40)
     assert first.names == NAMES
+    all_days = np.array(days, dtype="datetime64[D]")
+    np.testing.assert_array_equal(first.dates, all_days[first.ends])  # ends count rows of y
     more = arlib.tvp_var(polars_frame.slice(100), horizon=4, state=first.state)
+    np.testing.assert_array_equal(more.dates, all_days[100:])
+    np.testing.assert_array_equal(more.ends, np.arange(100, T))
     np.testing.assert_array_equal(
         more.pairwise,
         arlib.tvp_var(data[100:], horizon=4, state=first.state).pairwise,
