@@ -99,11 +99,14 @@ def as_labelled(y: Any, names: Sequence[str] | None, *, arg: str = "y") -> Label
     return data
 
 
-def _refuse_column(arg: str, column: str, dtype: Any, date_hint: str) -> None:
+_YES_NO = "; a yes/no column is not a series (cast it to float if it is one)"
+
+
+def _refuse_column(arg: str, column: str, dtype: Any, hint: str, *, pandas: bool) -> None:
+    drop = f"{arg}.drop(columns={column!r})" if pandas else f"{arg}.drop({column!r})"
     msg = (
         f"`{arg}` column {column!r} has type {dtype}, which is neither a numeric series nor a "
-        f"date column; drop it (e.g. `{arg}.drop({column!r})`) or convert it to numbers"
-        f"{date_hint}"
+        f"date column; drop it (e.g. `{drop}`) or convert it to numbers{hint}"
     )
     raise InvalidInputError(msg)
 
@@ -125,9 +128,7 @@ def _from_pandas(pd: Any, y: Any, arg: str) -> LabelledData:
             raise InvalidInputError(msg)
         dtype = col.dtype
         if api.is_bool_dtype(dtype):
-            _refuse_column(
-                arg, label, dtype, "; a yes/no column is not a series (cast it to float)"
-            )
+            _refuse_column(arg, label, dtype, _YES_NO, pandas=True)
         if api.is_datetime64_any_dtype(dtype) or (
             api.is_object_dtype(dtype)
             and api.infer_dtype(col, skipna=False) in ("date", "datetime")
@@ -141,7 +142,7 @@ def _from_pandas(pd: Any, y: Any, arg: str) -> LabelledData:
             series.append(label)
             values.append(col.astype(np.float64).to_numpy(dtype=np.float64, na_value=np.nan))
             continue
-        _refuse_column(arg, label, dtype, "")
+        _refuse_column(arg, label, dtype, "", pandas=True)
     index = frame.index
     if isinstance(index, pd.PeriodIndex):  # a period is labelled by its last day
         index = index.to_timestamp(how="end").normalize()
@@ -167,10 +168,8 @@ def _pandas_dates(pd: Any, col: Any, arg: str, where: str) -> np.ndarray:
         row = int(np.flatnonzero(col.isna().to_numpy())[0])
         msg = f"`{arg}` {where} is missing at row {row}; every row needs a date — drop or fill that row"
         raise InvalidInputError(msg)
-    return as_dates(
-        list(col) if pd.api.types.is_object_dtype(col.dtype) else col.to_numpy(),
-        arg=f"{arg}` {where}`",
-    )
+    values = list(col) if pd.api.types.is_object_dtype(col.dtype) else col.to_numpy()
+    return as_dates(values, what=f"`{arg}` {where}")
 
 
 def _from_polars(pl: Any, y: Any, arg: str) -> LabelledData:
@@ -193,8 +192,7 @@ def _from_polars(pl: Any, y: Any, arg: str) -> LabelledData:
             series.append(name)
             values.append(frame[name].cast(pl.Float64).fill_null(float("nan")).to_numpy())
             continue
-        hint = "; a yes/no column is not a series (cast it to float)" if dtype == pl.Boolean else ""
-        _refuse_column(arg, name, dtype, hint)
+        _refuse_column(arg, name, dtype, _YES_NO if dtype == pl.Boolean else "", pandas=False)
     _one_date_source(arg, date_cols, False)
     dates = None
     if date_cols:
@@ -206,7 +204,7 @@ def _from_polars(pl: Any, y: Any, arg: str) -> LabelledData:
                 "date — drop or fill that row"
             )
             raise InvalidInputError(msg)
-        dates = as_dates(col.to_numpy(), arg=f"{arg}` date column `{date_cols[0]}")
+        dates = as_dates(col.to_numpy(), what=f"`{arg}` date column {date_cols[0]!r}")
     return LabelledData(_stack(values, frame.height), tuple(series), dates)
 
 
@@ -224,30 +222,34 @@ def _stack(values: list[np.ndarray], rows: int) -> np.ndarray:
     return np.column_stack(values) if values else np.empty((rows, 0))
 
 
-def as_dates(dates: Any, *, arg: str = "dates", rows: int | None = None) -> np.ndarray:
+def as_dates(
+    dates: Any, *, arg: str = "dates", rows: int | None = None, what: str | None = None
+) -> np.ndarray:
     """(T,) read-only datetime64 dates, strictly increasing; day precision when all are midnight.
 
     Accepts numpy datetime64 arrays, Python dates/datetimes, ISO strings ("2024-01-31") and
-    pandas/polars date columns (through numpy). `rows` checks the length against the data.
+    pandas/polars date columns (through numpy). `rows` checks the length against the data;
+    `what` names the dates in messages (default: the argument, `dates`).
     """
+    label = what if what is not None else f"`{arg}`"
     try:
         raw = np.asarray(dates)
         arr = raw if np.issubdtype(raw.dtype, np.datetime64) else raw.astype("datetime64")
     except (TypeError, ValueError) as exc:
         msg = (
-            f"`{arg}` must be dates (numpy datetime64, datetime.date or 'YYYY-MM-DD' strings); "
+            f"{label} must be dates (numpy datetime64, datetime.date or 'YYYY-MM-DD' strings); "
             f"converting failed: {exc}"
         )
         raise InvalidInputError(msg) from exc
     if arr.ndim != 1:
-        msg = f"`{arg}` must be 1-D (one date per row), got shape {arr.shape}"
+        msg = f"{label} must be 1-D (one date per row), got shape {arr.shape}"
         raise InvalidInputError(msg)
     if rows is not None and arr.shape[0] != rows:
-        msg = f"`{arg}` has {arr.shape[0]} dates for {rows} rows of data; give one date per row"
+        msg = f"{label} has {arr.shape[0]} dates for {rows} rows of data; give one date per row"
         raise InvalidInputError(msg)
     if np.isnat(arr).any():
         row = int(np.flatnonzero(np.isnat(arr))[0])
-        msg = f"`{arg}` is missing at row {row}; every row needs a date — drop or fill that row"
+        msg = f"{label} is missing at row {row}; every row needs a date — drop or fill that row"
         raise InvalidInputError(msg)
     day = arr.astype("datetime64[D]")
     if arr.size and np.all(day == arr):
@@ -257,7 +259,7 @@ def as_dates(dates: Any, *, arg: str = "dates", rows: int | None = None) -> np.n
         if back.size:
             r = int(back[0]) + 1
             msg = (
-                f"`{arg}` must be strictly increasing (rows oldest first): row {r} "
+                f"{label} must be strictly increasing (rows oldest first): row {r} "
                 f"({arr[r]}) does not come after row {r - 1} ({arr[r - 1]}); sort the rows by "
                 "date and drop duplicate dates"
             )

@@ -132,7 +132,14 @@ def test_series_and_integer_columns(data: np.ndarray) -> None:
             pl.DataFrame({"x": [1.0, 2.0], "flag": [True, False]}),
             r"column 'flag' has type Boolean.*yes/no",
         ),
-        (pd.DataFrame({"x": [1.0, 2.0], "ticker": ["a", "b"]}), r"column 'ticker' has type"),
+        (
+            pd.DataFrame({"x": [1.0, 2.0], "ticker": ["a", "b"]}),
+            r"column 'ticker' has type .*`y.drop\(columns='ticker'\)`",
+        ),
+        (
+            pd.DataFrame({"x": [1.0, 2.0]}, index=pd.to_datetime(["2024-01-02", "2024-01-01"])),
+            r"^`y` DatetimeIndex must be strictly increasing .*row 1 \(2024-01-01\)",
+        ),
         (pd.DataFrame({"x": [1.0, 2.0], "flag": [True, False]}), r"column 'flag' has type bool"),
         (
             pl.DataFrame(
@@ -153,7 +160,7 @@ def test_series_and_integer_columns(data: np.ndarray) -> None:
         ),
         (
             pl.DataFrame({"d": [dt.date(2024, 1, 2), dt.date(2024, 1, 1)], "x": [1.0, 2.0]}),
-            r"date column `d` must be strictly increasing.*row 1 \(2024-01-01\).*row 0 \(2024-01-02\); sort",
+            r"date column 'd' must be strictly increasing.*row 1 \(2024-01-01\).*row 0 \(2024-01-02\); sort",
         ),
         (
             pl.DataFrame({"d": [dt.date(2024, 1, 1), None], "x": [1.0, 2.0]}),
