@@ -618,3 +618,20 @@ def test_bands_carry_labels_and_frames(days: list[dt.date], polars_frame: pl.Dat
     )
     assert conn.to_others.to_polars()["series"].to_list() == list(NAMES)
     assert conn.table.axes == ("variable", "shock")
+
+
+def test_readme_lists_every_rolling_field_layout() -> None:
+    """README's list of `RollingVAR.to_frame(field)` axes is the code's (`_frames.ROLLING_AXES`)."""
+    from arlib._frames import ROLLING_AXES
+
+    left = dict(ROLLING_AXES)  # a copy: the module's table stays whole
+    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8")
+    text = readme.split("The axes of `RollingVAR.to_frame(field)`:", 1)[1].split("\n\n", 1)[0]
+    text = " ".join(text.split())
+    for clause in text.rstrip(".").split(";"):
+        fields, axes = clause.split("→")
+        names = re.findall(r"`(\w+)`", fields)
+        listed = tuple(re.findall(r"`(\w+)`", axes))
+        for name in names:
+            assert left.pop(name) == listed, name
+    assert not left, f"README does not list {sorted(left)}"
