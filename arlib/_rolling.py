@@ -658,8 +658,8 @@ def _window_ends(T: int, window: int, step: int, ends: Any, after: Any) -> np.nd
         raw = np.asarray(ends)
         if raw.ndim != 1 or not (np.issubdtype(raw.dtype, np.integer) or raw.size == 0):
             msg = (
-                f"`ends` must be a 1-D array of integer row indices, got dtype {raw.dtype} and "
-                f"shape {raw.shape}"
+                f"`ends` must be a 1-D array of integer row indices (or of dates, when the rows "
+                f"have dates), got dtype {raw.dtype} and shape {raw.shape}"
             )
             raise InvalidInputError(msg)
         rows = raw.astype(np.int64)
@@ -675,7 +675,10 @@ def _window_ends(T: int, window: int, step: int, ends: Any, after: Any) -> np.nd
             raise InvalidInputError(msg)
     if after is not None:
         if isinstance(after, bool) or not isinstance(after, int | np.integer):
-            msg = f"`after` must be an integer row index, got {after!r}"
+            msg = (
+                f"`after` must be an integer row index (or a date, when the rows have dates), "
+                f"got {after!r}"
+            )
             raise InvalidInputError(msg)
         rows = rows[rows > after]
     return rows

@@ -263,6 +263,7 @@ def test_names_and_dates_survive_every_result(
         np.testing.assert_array_equal(roll.dates, np.array(days, dtype="datetime64[D]")[roll.ends])
         np.testing.assert_array_equal(roll.total_connectedness, plain_roll.total_connectedness)
         assert plain_roll.dates is None
+        assert arlib.select_lags(frame, 4).best == arlib.select_lags(data, 4).best
 
 
 def test_forecast_history_frame_sets_origin_and_column_order(
@@ -468,6 +469,10 @@ def test_rolling_dates_errors(
         arlib.InvalidInputError, match=r"`after`=.* is a date, but the data has none"
     ):
         arlib.rolling_var(data, 60, 2, 5, after=days[100])
+    with pytest.raises(
+        arlib.InvalidInputError, match=r"`after` must be an integer row index \(or a date"
+    ):
+        arlib.rolling_var(polars_frame, 60, 2, 5, after="next week")
     with pytest.raises(arlib.InvalidInputError, match=r"`ends` contains row 10, outside"):
         arlib.rolling_var(polars_frame, 60, 2, 5, ends=[days[10]])
 
