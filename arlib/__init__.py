@@ -1,6 +1,9 @@
 """arlib: vector autoregressions, their responses, decompositions, causality tests and connectedness.
 
-Pure computation over numpy arrays; no I/O. Conventions: data `y` is (T, n), rows oldest first;
+Pure computation over numpy arrays; no I/O. Data may also be a pandas or polars DataFrame
+(numeric columns are the series, a date column or DatetimeIndex dates the rows); results then
+carry the names and dates, and offer ``to_frame()`` / ``to_polars()`` in a long layout.
+Conventions: data `y` is (T, n), rows oldest first;
 coefficients (p, n, n) with ``coefs[i]`` = A_{i+1}; responses (H+1, n, n) [horizon, response,
 shock]; decompositions (H, n, n) [step, variable, shock].
 """
@@ -23,6 +26,7 @@ from ._estimate import (
 from ._forecast import Forecast, forecast
 from ._frequency import FrequencyConnectedness, frequency_connectedness
 from ._joint import JointConnectedness, joint_connectedness
+from ._labels import LabelledArray
 from ._moments import (
     SpectralPeak,
     autocovariance,
@@ -47,6 +51,7 @@ __all__ = [
     "GrangerResult",
     "InvalidInputError",
     "JointConnectedness",
+    "LabelledArray",
     "LagSelection",
     "NormalityResult",
     "PortmanteauResult",

@@ -35,6 +35,7 @@ Efron, B. and Tibshirani, R. J. (1993). An Introduction to the Bootstrap. Chapma
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -44,9 +45,11 @@ from scipy import stats
 
 from ._decompose import METHODS, fevd_kernel, spillover_measures
 from ._estimate import TREND_TERMS, VARFit, companion_matrix, deterministic_terms
+from ._frames import Columns, FrameMixin, date_lead, long_columns
 from ._responses import SHOCKS, cholesky_impact, ma_kernel, resolve_order, response_kernel
 from ._validate import (
     InvalidInputError,
+    as_rng,
     check_fraction,
     check_int,
     check_option,
@@ -58,7 +61,7 @@ KINDS = ("bootstrap", "asymptotic")
 
 
 @dataclass(frozen=True, eq=False, repr=False)
-class Bands:
+class Bands(FrameMixin):
     """Pointwise confidence bands around an array statistic (arrays read-only).
 
     Attributes
@@ -70,6 +73,14 @@ class Bands:
     coverage : nominal pointwise coverage.   kind : "bootstrap" or "asymptotic".
     draws : bootstrap replications used (0 for asymptotic bands).
     bias_corrected : whether Kilian's (1998) correction was applied.
+    names : series names.   date : the fit's last date (datetime64) or None without dates.
+    axes : the statistic's axis names, e.g. ("horizon", "response", "shock").
+
+    ``to_frame()`` / ``to_polars()``: one row per entry of the statistic — ``date`` (when
+    known), one column per axis (responses: ``horizon``, ``response``, ``shock``;
+    decompositions: ``step``, ``variable``, ``shock``; connectedness tables: ``variable``,
+    ``shock``; directional measures: ``series``; the total: none), then ``point``, ``lower``,
+    ``upper``, ``median``, ``std``.
     """
 
     point: np.ndarray
@@ -81,6 +92,21 @@ class Bands:
     kind: str
     draws: int
     bias_corrected: bool
+    names: tuple[str, ...] = ()
+    date: np.datetime64 | None = None
+    labels: tuple[tuple[str, tuple[Any, ...]], ...] = ()
+
+    @property
+    def axes(self) -> tuple[str, ...]:
+        """Axis names of the statistic, e.g. ("horizon", "response", "shock")."""
+        return tuple(a for a, _ in self.labels)
+
+    def _columns(self) -> Columns:
+        axes = [(a, np.asarray(lab, dtype=object)) for a, lab in self.labels]
+        out = long_columns(self.point, axes, value="point", lead=date_lead(self.date))
+        for name in ("lower", "upper", "median", "std"):
+            out[name] = np.asarray(getattr(self, name)).reshape(-1)
+        return out
 
     def __repr__(self) -> str:
         return (
@@ -100,6 +126,7 @@ class ConnectednessBands:
     net: Bands
     horizon: int
     names: tuple[str, ...]
+    date: np.datetime64 | None = None
 
     def __repr__(self) -> str:
         return (
@@ -112,15 +139,6 @@ class ConnectednessBands:
 # ---------------------------------------------------------------------------------------------
 # bootstrap engine
 # ---------------------------------------------------------------------------------------------
-
-
-def _as_rng(rng: Any) -> np.random.Generator:
-    if isinstance(rng, np.random.Generator):
-        return rng
-    if rng is None or (isinstance(rng, int | np.integer) and not isinstance(rng, bool)):
-        return np.random.default_rng(rng)
-    msg = f"`rng` must be a numpy Generator, an integer seed or None, got {rng!r}"
-    raise InvalidInputError(msg)
 
 
 def _stabilise(coefs: np.ndarray, bias: np.ndarray) -> np.ndarray:
@@ -284,17 +302,20 @@ def irf_bands(
     point = response_kernel(np.asarray(model.coefs), np.asarray(model.sigma_u), H, shocks, perm)
     if cumulative:
         point = np.cumsum(point, axis=0)
+    axes = [("horizon", range(H + 1)), ("response", model.names), ("shock", model.names)]
     if kind == "asymptotic":
         if bias_correction:
             msg = "`bias_correction` applies to kind='bootstrap' only; drop it for asymptotic bands"
             raise InvalidInputError(msg)
-        return _asymptotic_irf_bands(model, point, H, shocks, perm, cumulative, level)
-    gen = _as_rng(rng)
+        return _labelled(
+            _asymptotic_irf_bands(model, point, H, shocks, perm, cumulative, level), axes, model
+        )
+    gen = as_rng(rng)
     coefs, sigma = bootstrap_models(model, B, gen, bias_correction=bias_correction)
     samples = response_kernel(coefs, sigma, H, shocks, perm)
     if cumulative:
         samples = np.cumsum(samples, axis=1)
-    return _percentile_bands(point, samples, level, bias_correction)
+    return _labelled(_percentile_bands(point, samples, level, bias_correction), axes, model)
 
 
 def fevd_bands(
@@ -320,9 +341,13 @@ def fevd_bands(
         msg = f"`order` only applies to method='cholesky', not method={method!r}; drop `order`"
         raise InvalidInputError(msg)
     point = fevd_kernel(np.asarray(model.coefs), np.asarray(model.sigma_u), H, method, perm)
-    coefs, sigma = bootstrap_models(model, B, _as_rng(rng), bias_correction=bias_correction)
+    coefs, sigma = bootstrap_models(model, B, as_rng(rng), bias_correction=bias_correction)
     samples = fevd_kernel(coefs, sigma, H, method, perm)
-    return _percentile_bands(point, samples, level, bias_correction)
+    names = model.names
+    return _labelled(
+        _percentile_bands(point, samples, level, bias_correction),
+        [("step", range(1, H + 1)), ("variable", names), ("shock", names)], model,
+    )  # fmt: skip
 
 
 def connectedness_bands(
@@ -346,14 +371,29 @@ def connectedness_bands(
         100 * fevd_kernel(np.asarray(model.coefs), np.asarray(model.sigma_u), H, method, None)[-1]
     )
     point = {"table": table, **spillover_measures(table)}
-    coefs, sigma = bootstrap_models(model, B, _as_rng(rng), bias_correction=bias_correction)
+    coefs, sigma = bootstrap_models(model, B, as_rng(rng), bias_correction=bias_correction)
     tables = 100 * fevd_kernel(coefs, sigma, H, method, None)[:, -1]
     drawn = {"table": tables, **spillover_measures(tables)}
     parts = {
         name: _percentile_bands(point[name], drawn[name], level, bias_correction)
         for name in ("table", "total", "to_others", "from_others", "net")
     }
-    return ConnectednessBands(horizon=H, names=model.names, **parts)
+    names = model.names
+    axes: dict[str, list[tuple[str, Sequence[Any]]]] = {
+        "table": [("variable", names), ("shock", names)], "total": [],
+        "to_others": [("series", names)], "from_others": [("series", names)],
+        "net": [("series", names)],
+    }  # fmt: skip
+    labelled = {name: _labelled(part, axes[name], model) for name, part in parts.items()}
+    return ConnectednessBands(horizon=H, names=names, date=model.date, **labelled)
+
+
+def _labelled(bands: Bands, axes: Sequence[tuple[str, Sequence[Any]]], model: VARFit) -> Bands:
+    """`bands` with the statistic's axis labels, the series names and the fit's last date."""
+    return dataclasses.replace(
+        bands, names=model.names, date=model.date,
+        labels=tuple((a, tuple(lab)) for a, lab in axes),
+    )  # fmt: skip
 
 
 # ---------------------------------------------------------------------------------------------

@@ -20,16 +20,18 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from scipy import stats
 
 from ._estimate import TREND_TERMS, VARFit
+from ._frames import Columns, FrameMixin, date_lead
 from ._validate import InvalidInputError, series_indices
 
 
 @dataclass(frozen=True)
-class GrangerResult:
+class GrangerResult(FrameMixin):
     """A Granger-causality test (read-only).
 
     Attributes
@@ -37,6 +39,11 @@ class GrangerResult:
     f_stat, df, p_value : λ_F, its (numerator, denominator) degrees of freedom, upper-tail p.
     wald_stat, wald_df, wald_p_value : λ_W, J, upper-tail χ²(J) p-value.
     caused, causing : series names.   null_hypothesis : H0 in words.
+    date : the last date of the fit (datetime64), or None when it had no dates.
+
+    ``to_frame()`` / ``to_polars()``: one row — ``date`` (when known), ``caused`` and
+    ``causing`` (lists of series names), ``f_stat``, ``df_num``, ``df_den``, ``p_value``,
+    ``wald_stat``, ``wald_df``, ``wald_p_value``, ``null_hypothesis``.
     """
 
     f_stat: float
@@ -48,6 +55,18 @@ class GrangerResult:
     caused: tuple[str, ...]
     causing: tuple[str, ...]
     null_hypothesis: str
+    date: np.datetime64 | None = None
+
+    def _columns(self) -> Columns:
+        lists = np.empty(2, dtype=object)
+        lists[0], lists[1] = list(self.caused), list(self.causing)
+        row: dict[str, Any] = {
+            **date_lead(self.date), "caused": lists[:1], "causing": lists[1:],
+            "f_stat": self.f_stat, "df_num": self.df[0], "df_den": self.df[1],
+            "p_value": self.p_value, "wald_stat": self.wald_stat, "wald_df": self.wald_df,
+            "wald_p_value": self.wald_p_value, "null_hypothesis": self.null_hypothesis,
+        }  # fmt: skip
+        return {k: v if isinstance(v, np.ndarray) else np.array([v]) for k, v in row.items()}
 
     def rejects(self, level: float = 0.05) -> bool:
         """True when the F test rejects H0 at `level`."""
@@ -119,5 +138,5 @@ def granger_test(
         f_stat=f_stat, df=(J, df_den), p_value=float(stats.f.sf(f_stat, J, df_den)),
         wald_stat=wald, wald_df=J, wald_p_value=float(stats.chi2.sf(wald, J)),
         caused=tuple(fit.names[i] for i in eqs), causing=tuple(fit.names[i] for i in src),
-        null_hypothesis=null,
+        null_hypothesis=null, date=fit.date,
     )  # fmt: skip

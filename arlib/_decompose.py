@@ -22,6 +22,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ._frames import Columns, FrameMixin, date_lead, long_columns, model_date
+from ._labels import LabelledArray
 from ._responses import ma_kernel, resolve_order, response_kernel
 from ._validate import (
     InvalidInputError,
@@ -93,8 +95,12 @@ def variance_decomposition(
     *,
     method: str = "cholesky",
     order: Sequence[int | str] | None = None,
-) -> np.ndarray:
+) -> LabelledArray:
     """Forecast-error variance decomposition, shape (H, n, n) indexed [step, variable, shock].
+
+    Returned as a read-only `LabelledArray` (series names, the fit's last date, the method);
+    ``to_frame()`` columns: ``date`` (when known), ``step`` (1..H), ``variable``, ``shock``,
+    ``value``.
 
     Entry [s−1, i, j] is the share of series i's s-step forecast-error variance due to shock j,
     using responses 0..s−1; each row sums to one.
@@ -115,12 +121,15 @@ def variance_decomposition(
         msg = f"`order` only applies to method='cholesky', not method={method!r}; drop `order`"
         raise InvalidInputError(msg)
     out = fevd_kernel(np.asarray(model.coefs), np.asarray(model.sigma_u), H, method, perm)
-    out.flags.writeable = False
-    return out
+    names = model.names
+    return LabelledArray.wrap(
+        out, [("step", range(1, H + 1)), ("variable", names), ("shock", names)], names=names,
+        date=model_date(model), kind=method,
+    )  # fmt: skip
 
 
 @dataclass(frozen=True, eq=False, repr=False)
-class Connectedness:
+class Connectedness(FrameMixin):
     """Diebold–Yilmaz connectedness at one horizon, in percent. Arrays are read-only.
 
     Attributes
@@ -133,6 +142,12 @@ class Connectedness:
     pairwise_net : (n, n) [i, j] = table[j, i] − table[i, j], what i transmits to j net.
     total : Σ_{i≠j} table[i, j] / n = mean(from_others), in [0, 100].
     horizon, method, names : as passed.
+    date : the last date of the fit (datetime64), or None when it had no dates.
+
+    ``to_frame()`` / ``to_polars()``: the table in long form, one row per pair — ``date``
+    (when known), ``variable`` (i, who receives), ``shock`` (j, who transmits), ``value``
+    (table[i, j], percent). `from_others` is the sum of ``value`` over rows with
+    variable = i and shock ≠ i; `to_others` over shock = j and variable ≠ j.
     """
 
     table: np.ndarray
@@ -144,6 +159,13 @@ class Connectedness:
     horizon: int
     method: str
     names: tuple[str, ...]
+    date: np.datetime64 | None = None
+
+    def _columns(self) -> Columns:
+        names = np.array(self.names, dtype=object)
+        return long_columns(
+            self.table, [("variable", names), ("shock", names)], lead=date_lead(self.date)
+        )
 
     def __repr__(self) -> str:
         return (
@@ -171,16 +193,23 @@ def connectedness(fit: VARLike, horizon: int, *, method: str = "generalized") ->
     H = check_int(horizon, "horizon", minimum=1)
     check_option(method, "method", METHODS)
     decomposition = fevd_kernel(np.asarray(model.coefs), np.asarray(model.sigma_u), H, method, None)
-    return _connectedness_from_table(100.0 * decomposition[-1], H, method, model.names)
+    return _connectedness_from_table(
+        100.0 * decomposition[-1], H, method, model.names, date=model_date(model)
+    )
 
 
 def _connectedness_from_table(
-    table: np.ndarray, horizon: int, method: str, names: tuple[str, ...]
+    table: np.ndarray,
+    horizon: int,
+    method: str,
+    names: tuple[str, ...],
+    *,
+    date: np.datetime64 | None = None,
 ) -> Connectedness:
     m = spillover_measures(table)
     readonly(table, m["to_others"], m["from_others"], m["net"], m["pairwise_net"])
     return Connectedness(
         table=table, total=float(m["total"]), to_others=m["to_others"],
         from_others=m["from_others"], net=m["net"], pairwise_net=m["pairwise_net"],
-        horizon=horizon, method=method, names=names,
+        horizon=horizon, method=method, names=names, date=date,
     )  # fmt: skip

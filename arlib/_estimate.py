@@ -26,9 +26,11 @@ from typing import Any
 import numpy as np
 from scipy import linalg
 
+from ._frames import Columns, FrameMixin, coded, date_lead, last_date
 from ._validate import (
     InvalidInputError,
     as_data,
+    as_dated_data,
     as_names,
     as_real_array,
     check_int,
@@ -339,7 +341,7 @@ class VARProcess:
 
 
 @dataclass(frozen=True, eq=False, repr=False)
-class VARFit:
+class VARFit(FrameMixin):
     """A least-squares VAR fit. All arrays are read-only.
 
     Attributes
@@ -356,6 +358,11 @@ class VARFit:
     gram_inv : (k, k) (Z'Z)^{-1}.
     llf : Gaussian log-likelihood at Σ̃_u (ML).   aic, bic, hq, fpe : see `information_criteria`.
     companion, spectral_radius, is_stable : as in `VARProcess`.
+    dates : (T,) datetime64 dates of the rows of `y`, or None (data without dates).
+
+    ``to_frame()`` / ``to_polars()``: the coefficient table in long form, one row per
+    coefficient — ``date`` (the last date fitted, when known), ``equation`` (series name),
+    ``regressor`` ("const", "trend", "<series>.L<lag>"), ``estimate``, ``stderr``.
     """
 
     y: np.ndarray
@@ -381,11 +388,32 @@ class VARFit:
     companion: np.ndarray
     spectral_radius: float
     is_stable: bool
+    dates: np.ndarray | None = None
 
     @property
     def n(self) -> int:
         """Number of series."""
         return int(self.y.shape[1])
+
+    @property
+    def date(self) -> np.datetime64 | None:
+        """The date of the last row fitted (what names the fit), or None without dates."""
+        return last_date(self.dates)
+
+    @property
+    def resid_dates(self) -> np.ndarray | None:
+        """(T_eff,) dates of the rows of `resid` and `fitted` (rows p..T−1), or None."""
+        return None if self.dates is None else self.dates[self.lags :]
+
+    def _columns(self) -> Columns:
+        k, n = self.params.shape
+        return {
+            **{key: np.repeat(value, k * n) for key, value in date_lead(self.date).items()},
+            "equation": coded(self.names, np.tile(np.arange(n), k)),
+            "regressor": coded(self.regressor_names, np.repeat(np.arange(k), n)),
+            "estimate": self.params.reshape(-1),
+            "stderr": self.stderr.reshape(-1),
+        }
 
     @property
     def df_resid(self) -> int:
@@ -425,16 +453,28 @@ class VARFit:
 # ---------------------------------------------------------------------------------------------
 
 
-def fit_var(y: Any, lags: int, *, trend: str = "c", names: Sequence[str] | None = None) -> VARFit:
+def fit_var(
+    y: Any,
+    lags: int,
+    *,
+    trend: str = "c",
+    names: Sequence[str] | None = None,
+    dates: Any = None,
+) -> VARFit:
     """Fit a VAR(p) by least squares.
 
     Parameters
     ----------
     y : (T, n) array, rows are dates (oldest first), columns are series; 1-D means one series
-        (a univariate AR(p)).
+        (a univariate AR(p)). Or a pandas/polars DataFrame: its numeric columns are the series
+        (named by their columns), its date column or DatetimeIndex dates the rows and is never
+        fitted; any other column is refused by name.
     lags : p >= 1.
     trend : "n" (none), "c" (intercept), "ct" (intercept and linear trend t + 1 at row t).
-    names : optional n series names, used in messages and results (default y0, y1, ...).
+    names : optional n series names, used in messages and results (default y0, y1, ...); not
+        with a DataFrame (its columns name the series).
+    dates : optional (T,) dates of the rows of an array `y` (datetime64, dates or ISO strings,
+        strictly increasing); results derived from the fit carry its last date.
 
     Returns
     -------
@@ -456,13 +496,21 @@ def fit_var(y: Any, lags: int, *, trend: str = "c", names: Sequence[str] | None 
     -----
     UnstableProcessWarning : the companion matrix has spectral radius >= 1.
     """
-    data, labels = as_data(y, names)
+    data, labels, when = as_dated_data(y, names, dates)
     p = check_int(lags, "lags", minimum=1, hint="a VAR needs at least one lag")
     check_option(trend, "trend", TREND_TERMS)
-    return _fit(data, labels, p, trend, arg="y")
+    return _fit(data, labels, p, trend, arg="y", dates=when)
 
 
-def _fit(data: np.ndarray, labels: tuple[str, ...], p: int, trend: str, *, arg: str) -> VARFit:
+def _fit(
+    data: np.ndarray,
+    labels: tuple[str, ...],
+    p: int,
+    trend: str,
+    *,
+    arg: str,
+    dates: np.ndarray | None = None,
+) -> VARFit:
     """fit_var after validation of the simple arguments (also used by the bootstrap)."""
     T, n = data.shape
     d = len(TREND_TERMS[trend])
@@ -495,7 +543,7 @@ def _fit(data: np.ndarray, labels: tuple[str, ...], p: int, trend: str, *, arg: 
         stderr=stderr, coefs=coefs, intercept=intercept, trend_coef=trend_coef, sigma_u=sigma_u,
         sigma_u_ml=sigma_ml, resid=resid, gram_inv=gram_inv, llf=float(llf), aic=ic["aic"],
         bic=ic["bic"], hq=ic["hq"], fpe=ic["fpe"], companion=comp, spectral_radius=radius,
-        is_stable=radius < 1.0,
+        is_stable=radius < 1.0, dates=dates,
     )  # fmt: skip
     readonly(
         data, B, stderr, coefs, intercept, trend_coef, sigma_u, sigma_ml, resid, gram_inv, comp

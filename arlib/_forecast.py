@@ -23,11 +23,13 @@ import numpy as np
 from scipy import stats
 
 from ._estimate import TREND_TERMS, VARFit, deterministic_terms
+from ._frames import Columns, FrameMixin, last_date, long_columns
+from ._labels import is_frame
 from ._responses import ma_kernel
 from ._validate import (
     InvalidInputError,
     VARLike,
-    as_data,
+    as_dated_data,
     check_fraction,
     check_int,
     check_model,
@@ -36,7 +38,7 @@ from ._validate import (
 
 
 @dataclass(frozen=True, eq=False, repr=False)
-class Forecast:
+class Forecast(FrameMixin):
     """Forecasts for steps 1..h ahead (arrays read-only).
 
     Attributes
@@ -45,6 +47,12 @@ class Forecast:
     mse : (steps, n, n) forecast-error covariance Σ(s) used for the interval.
     coverage : nominal interval coverage.   estimation_uncertainty : whether Ω(h)/T was added.
     names : series names.
+    origin : the date of the last row of history the forecasts start from (datetime64), or
+        None without dates. Step s is s rows after it; arlib does not guess calendar dates for
+        future rows (business days, holidays and missing months belong to the data's owner).
+
+    ``to_frame()`` / ``to_polars()``: one row per step and series — ``origin`` (when known),
+    ``step`` (1..steps), ``series``, ``mean``, ``lower``, ``upper``.
     """
 
     mean: np.ndarray
@@ -54,6 +62,16 @@ class Forecast:
     coverage: float
     estimation_uncertainty: bool
     names: tuple[str, ...]
+    origin: np.datetime64 | None = None
+
+    def _columns(self) -> Columns:
+        steps = np.arange(1, self.mean.shape[0] + 1)
+        axes = [("step", steps), ("series", np.array(self.names, dtype=object))]
+        lead = {} if self.origin is None else {"origin": self.origin}
+        out = long_columns(self.mean, axes, value="mean", lead=lead)
+        out["lower"] = self.lower.reshape(-1)
+        out["upper"] = self.upper.reshape(-1)
+        return out
 
     def __repr__(self) -> str:
         return (
@@ -76,6 +94,8 @@ def forecast(
     ----------
     fit : `VARFit` or `VARProcess`.
     y : (T, n) history, oldest first; only its last p rows are used. None = the fit's own data.
+        A DataFrame is accepted as in `fit_var`: its columns must be the model's series (by
+        name, in any order), and its last date becomes the forecast's `origin`.
         With trend "ct" the forecasts continue the fitted sample: step s gets the trend value
         T_fit + s, where T_fit is the number of rows the model was fitted on.
     steps : h >= 1.
@@ -95,8 +115,11 @@ def forecast(
             msg = "`y` is required when forecasting a VARProcess; pass at least its last p rows"
             raise InvalidInputError(msg)
         hist = np.asarray(model.y)
+        origin = last_date(getattr(model, "dates", None))
     else:
-        hist, _ = as_data(y)
+        hist, given, dates = as_dated_data(y)
+        hist = _in_model_order(hist, given, model.names, y)
+        origin = last_date(dates)
     n, p = model.n, model.lags
     if hist.shape[1] != n or hist.shape[0] < p:
         msg = (
@@ -127,8 +150,25 @@ def forecast(
     readonly(mean, lower, upper, mse)
     return Forecast(
         mean=mean, lower=lower, upper=upper, mse=mse, coverage=level,
-        estimation_uncertainty=bool(estimation_uncertainty), names=model.names,
+        estimation_uncertainty=bool(estimation_uncertainty), names=model.names, origin=origin,
     )  # fmt: skip
+
+
+def _in_model_order(
+    hist: np.ndarray, given: tuple[str, ...], names: tuple[str, ...], y: Any
+) -> np.ndarray:
+    """The columns of a history DataFrame put in the model's series order (arrays pass as
+    they are: their columns are taken to be in the model's order)."""
+    if not is_frame(y):
+        return hist
+    missing = [name for name in names if name not in given]
+    if missing or len(given) != len(names):
+        msg = (
+            f"`y` has series {list(given)!r}, but the model was fitted on {list(names)!r}; pass "
+            f"the history of the same series (missing: {missing!r})"
+        )
+        raise InvalidInputError(msg)
+    return hist[:, [given.index(name) for name in names]]
 
 
 def _deterministic_coefficients(model: VARLike, trend: str) -> np.ndarray:

@@ -30,6 +30,7 @@ from ._validate import (
     VARLike,
     as_data,
     as_real_array,
+    as_rng,
     check_int,
     check_model,
     readonly,
@@ -208,7 +209,7 @@ def spectral_peak(fit: VARLike, *, series: int | str = 0, grid: int = 4096) -> S
 def simulate_var(
     process: VARLike,
     steps: int,
-    rng: np.random.Generator,
+    rng: np.random.Generator | int | None = None,
     *,
     burn: int | None = None,
     initial: Any = None,
@@ -222,19 +223,16 @@ def simulate_var(
     ----------
     process : `VARProcess` or `VARFit`.
     steps : rows returned (>= 1).
-    rng : a numpy Generator (``np.random.default_rng(seed)``) — the only source of randomness.
+    rng : the only source of randomness, as everywhere in arlib: a numpy Generator (used as
+        it is), an integer seed (``np.random.default_rng(seed)``: the same seed, the same
+        path) or None (fresh entropy, not reproducible).
     burn : rows simulated and dropped first; default 100 when `initial` is None, else 0.
     initial : (p, n) presample rows y_{−p}..y_{−1} (before the burn-in); default: the stationary
         mean when the process is stable, else zeros.
     """
     model = check_model(process, "process")
     T = check_int(steps, "steps", minimum=1)
-    if not isinstance(rng, np.random.Generator):
-        msg = (
-            f"`rng` must be a numpy Generator, got {type(rng).__name__}; pass "
-            "np.random.default_rng(seed)"
-        )
-        raise InvalidInputError(msg)
+    gen = as_rng(rng)
     n, p = model.n, model.lags
     b = check_int(100 if initial is None and burn is None else (burn or 0), "burn", minimum=0)
     coefs = np.asarray(model.coefs)
@@ -249,7 +247,7 @@ def simulate_var(
             msg = f"`initial` must have shape (p, n) = ({p}, {n}), got {start.shape}"
             raise InvalidInputError(msg)
     chol = np.linalg.cholesky(np.asarray(model.sigma_u))
-    shocks = rng.standard_normal((b + T, n)) @ chol.T
+    shocks = gen.standard_normal((b + T, n)) @ chol.T
     path = np.vstack([start, np.zeros((b + T, n))])
     for t in range(b + T):
         row = c + shocks[t]

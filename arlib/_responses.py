@@ -18,6 +18,8 @@ from typing import Any
 
 import numpy as np
 
+from ._frames import model_date
+from ._labels import LabelledArray
 from ._validate import (
     InvalidInputError,
     VARLike,
@@ -109,8 +111,12 @@ def resolve_order(order: Any, names: tuple[str, ...]) -> tuple[int, ...] | None:
     return idx
 
 
-def ma_coefficients(fit: VARLike, horizon: int) -> np.ndarray:
+def ma_coefficients(fit: VARLike, horizon: int) -> LabelledArray:
     """Moving-average coefficients Φ_0..Φ_H, shape (H+1, n, n) [horizon, response, innovation].
+
+    Returned as a read-only `LabelledArray` (a numpy array carrying the series names and the
+    fit's last date; ``to_frame()`` columns: ``date``, ``horizon``, ``response``,
+    ``innovation``, ``value``).
 
     Φ_0 = I_n, Φ_h = Σ_{j=1}^{min(h,p)} Φ_{h−j} A_j (Lütkepohl 2005, eq. 2.3.9).
 
@@ -121,8 +127,18 @@ def ma_coefficients(fit: VARLike, horizon: int) -> np.ndarray:
     model = check_model(fit)
     H = check_int(horizon, "horizon", minimum=1)
     out = ma_kernel(np.asarray(model.coefs), H)
-    out.flags.writeable = False
-    return out
+    return LabelledArray.wrap(
+        out, _axes(("horizon", "response", "innovation"), H + 1, model.names),
+        names=model.names, date=model_date(model), kind="unit",
+    )  # fmt: skip
+
+
+def _axes(
+    axes: tuple[str, str, str], first: int | Sequence[int], names: tuple[str, ...]
+) -> list[tuple[str, Sequence[Any]]]:
+    """Labels of a (first, n, n) array: 0..first−1 (or the given values), then names twice."""
+    lead = range(first) if isinstance(first, int) else first
+    return [(axes[0], list(lead)), (axes[1], names), (axes[2], names)]
 
 
 def impulse_responses(
@@ -132,8 +148,13 @@ def impulse_responses(
     shocks: str = "cholesky",
     cumulative: bool = False,
     order: Sequence[int | str] | None = None,
-) -> np.ndarray:
+) -> LabelledArray:
     """Impulse responses, shape (H+1, n, n) indexed [horizon, response, shock].
+
+    Returned as a read-only `LabelledArray`: a numpy array that also carries the series
+    names, the fit's last date (``.date``, None without dates) and the identification
+    (``.kind``); ``to_frame()`` / ``to_polars()`` columns: ``date`` (when known),
+    ``horizon`` (0..H), ``response``, ``shock``, ``value``.
 
     ``shocks``:
 
@@ -164,5 +185,7 @@ def impulse_responses(
     out = response_kernel(np.asarray(model.coefs), np.asarray(model.sigma_u), H, shocks, perm)
     if cumulative:
         out = np.cumsum(out, axis=0)
-    out.flags.writeable = False
-    return out
+    return LabelledArray.wrap(
+        out, _axes(("horizon", "response", "shock"), H + 1, model.names), names=model.names,
+        date=model_date(model), kind=shocks + (" cumulative" if cumulative else ""),
+    )  # fmt: skip

@@ -102,6 +102,7 @@ from typing import Any
 import numpy as np
 from scipy import linalg, stats
 
+from . import _frames
 from . import _rolling_kernels as K
 from ._causality import wald_statistic
 from ._estimate import (
@@ -120,11 +121,11 @@ from ._frequency import (
     frequency_measures,
 )
 from ._joint import joint_kernel
+from ._labels import date_rows
 from ._sizes import minimum_window
 from ._validate import (
     InvalidInputError,
-    as_names,
-    as_real_array,
+    as_dated_data,
     check_int,
     check_option,
     readonly,
@@ -212,6 +213,11 @@ class RollingVAR:
         band_to_others, band_from_others (W, d, n) — None without bands.
     joint_from_others : (W, n) percent, each window's `joint_connectedness` (Lastrapes & Wiesen
         2021) at `horizon`, and joint_total (W,) their mean — None unless ``joint=True``.
+    dates : (W,) datetime64, the date of each window's last row (a window is named by it), or
+        None when the data had no dates (a DataFrame's date column or `dates=`).
+
+    ``to_frame()`` / ``to_polars()`` give one row per window (see `to_frame`);
+    ``to_frame("pairwise")`` and the like give one array attribute in long form.
     """
 
     ends: np.ndarray
@@ -261,6 +267,21 @@ class RollingVAR:
     band_from_others: np.ndarray | None = None
     joint_from_others: np.ndarray | None = None
     joint_total: np.ndarray | None = None
+    dates: np.ndarray | None = None
+
+    def to_frame(self, field: str | None = None) -> Any:
+        """Long pandas DataFrame. Without `field`: one row per window with ``date`` (when
+        known), ``end``, ``start`` (rows), ``nobs``, ``lags``, ``ok``, ``skip_reason`` and every
+        per-window number (``spectral_radius``, ``aic`` .. ``fpe``, ``condition_number``,
+        ``total_connectedness``, and ``portmanteau_p`` / ``joint_total`` when stored). With
+        `field` (e.g. "pairwise", "responses", "granger_p"): ``date`` (when known), ``end``, one
+        column per further axis of that array (`_frames.ROLLING_AXES`), then ``value``.
+        """
+        return _frames.to_pandas(_frames.rolling_columns(self, field), "RollingVAR")
+
+    def to_polars(self, field: str | None = None) -> Any:
+        """Long polars DataFrame, the layout of `to_frame`."""
+        return _frames.to_polars(_frames.rolling_columns(self, field), "RollingVAR")
 
     def __len__(self) -> int:
         return int(self.ends.shape[0])
@@ -318,7 +339,7 @@ class RollingVAR:
                         f"{getattr(first, attr)!r} vs {getattr(other, attr)!r}"
                     )
                     raise InvalidInputError(msg)
-            for attr in ("granger_f", "portmanteau_p"):
+            for attr in ("granger_f", "portmanteau_p", "dates"):
                 if (getattr(other, attr) is None) != (getattr(first, attr) is None):
                     msg = f"cannot join RollingVAR results where only some have `{attr}`"
                     raise InvalidInputError(msg)
@@ -400,6 +421,7 @@ def rolling_var(
     decomposition: str | None = None,
     portmanteau_lags: int | None = None,
     names: Sequence[str] | None = None,
+    dates: Any = None,
     workers: int = 1,
     frequency_bands: Sequence[tuple[float, float]] | None = None,
     band_truncation: int = DEFAULT_TRUNCATION,
@@ -417,7 +439,9 @@ def rolling_var(
     Parameters
     ----------
     y : (T, n) float array, rows oldest first (a 1-D array is one series); NaN marks missing rows
-        (see the module docstring for how gaps are handled); inf is refused.
+        (see the module docstring for how gaps are handled); inf is refused. Or a pandas/polars
+        DataFrame: numeric columns are the series (named by their columns), a date column or
+        DatetimeIndex dates the rows (never fitted), nulls are gaps.
     window : rows per window (rolling), or rows of the first window (expanding).
     lags : p >= 1, or None to choose p per window with `criterion` up to `max_lags`.
     horizon : H >= 1; connectedness uses the H-step decomposition (responses 0..H−1).
@@ -426,9 +450,11 @@ def rolling_var(
         window's first row, as `fit_var` on the window's rows).
     expanding : windows grow from row 0 instead of rolling.
     ends : explicit window ends (row indices, strictly increasing), e.g. one block of a
-        universe for one worker; overrides the grid.
+        universe for one worker; overrides the grid. When the rows have dates, the ends may be
+        given as dates instead (each must be a date of the data).
     after : keep only ends > after (the nightly update: cost is proportional to the new
-        windows, not to the history — except expanding windows, whose sums run from row 0).
+        windows, not to the history — except expanding windows, whose sums run from row 0);
+        a row index, or a date when the rows have dates (ends dated after it are kept).
     criterion : "aic" | "bic" | "hq" | "fpe" when lags is None. Orders 1..max_lags are compared
         on each window's common sample (its rows after the first max_lags), as `select_lags`
         does; order 0 is not a candidate (a VAR needs a lag).
@@ -437,7 +463,9 @@ def rolling_var(
     responses : None | "generalized" | "cholesky" | "unit" — store responses (W, H+1, n, n).
     decomposition : None | "generalized" | "cholesky" — store decompositions (W, H, n, n).
     portmanteau_lags : h > p to store the adjusted portmanteau p-value per window.
-    names : n series names (default y0, y1, ...).
+    names : n series names (default y0, y1, ...); not with a DataFrame (its columns name them).
+    dates : (T,) dates of the rows of an array `y` (not with a DataFrame that has its own);
+        the result's `dates` are then the window ends' dates.
     frequency_bands : None, or a partition of cycle lengths ((P_lo, P_hi], ...) as in
         `frequency_connectedness` — also store each window's band connectedness, computed from
         the window's coefficients and Σ̂_u with `band_truncation` MA terms.
@@ -458,7 +486,7 @@ def rolling_var(
         ends outside the data. Individual windows that cannot be fitted are skipped, not raised.
     """
     timer: Any = _timer if _timer is not None else _NoTimer()
-    data, labels = _as_data_with_gaps(y, names)
+    data, labels, row_dates = _as_data_with_gaps(y, names, dates)
     T, n = data.shape
     check_option(trend, "trend", TREND_TERMS)
     d = len(TREND_TERMS[trend])
@@ -514,7 +542,7 @@ def rolling_var(
                 "use a smaller value"
             )
             raise InvalidInputError(msg)
-    end_rows = _window_ends(T, win, stp, ends, after)
+    end_rows = _window_ends(T, win, stp, *_dated_rows(ends, after, row_dates))
     starts = np.zeros_like(end_rows) if expanding else end_rows - win + 1
     W = end_rows.shape[0]
 
@@ -539,6 +567,10 @@ def rolling_var(
     if frequency_bands is not None or joint:
         with timer("extras"):
             result = _with_extras(result, frequency_bands, band_truncation, bool(joint))
+    if row_dates is not None:
+        end_dates = row_dates[result.ends]
+        end_dates.flags.writeable = False
+        result = dataclasses.replace(result, dates=end_dates)
     return result
 
 
@@ -592,27 +624,33 @@ def _with_extras(
 # ---------------------------------------------------------------------------------------------
 
 
-def _as_data_with_gaps(y: Any, names: Sequence[str] | None) -> tuple[np.ndarray, tuple[str, ...]]:
-    """(T, n) float64 copy; NaN allowed (gaps), inf refused with its row and series."""
-    arr = as_real_array(y, "y", "a numeric array of shape (T, n)")
-    if arr.ndim == 1:
-        arr = arr[:, None]
-    if arr.ndim != 2 or arr.shape[0] == 0 or arr.shape[1] == 0:
-        msg = (
-            f"`y` must be 1-D (one series) or 2-D (T rows, n series) and non-empty; got shape "
-            f"{arr.shape}; stack the series as columns"
-        )
-        raise InvalidInputError(msg)
-    labels = as_names(names, arr.shape[1])
-    inf = np.isinf(arr)
-    if inf.any():
-        r, c = np.argwhere(inf)[0]
-        msg = (
-            f"`y` has {int(inf.sum())} infinite value(s); the first is at row {r} of series "
-            f"{labels[c]!r}; replace them with NaN (a gap) or a finite value"
-        )
-        raise InvalidInputError(msg)
-    return arr, labels
+def _as_data_with_gaps(
+    y: Any, names: Sequence[str] | None, dates: Any = None
+) -> tuple[np.ndarray, tuple[str, ...], np.ndarray | None]:
+    """(T, n) float64 copy, names and dates (None if unknown); NaN allowed (gaps), inf refused
+    with its row and series. DataFrames are unwrapped as in `fit_var`."""
+    return as_dated_data(y, names, dates, gaps=True)
+
+
+def _dated_rows(ends: Any, after: Any, dates: np.ndarray | None) -> tuple[Any, Any]:
+    """`ends` and `after` as row positions: dates are looked up in the rows' dates (every end
+    must be one of them; `after` becomes the last row dated on or before it)."""
+    rows = None if ends is None else date_rows(ends, dates, "ends")
+    if rows is not None:
+        ends = rows
+    if after is not None and not isinstance(after, int | np.integer):
+        try:
+            when = np.datetime64(after)
+        except (TypeError, ValueError):
+            return ends, after  # refused with its message by `_window_ends`
+        if dates is None:
+            msg = (
+                f"`after`={after!r} is a date, but the data has none; pass a DataFrame with a "
+                "date column (or DatetimeIndex), or `dates=`, or give a row index"
+            )
+            raise InvalidInputError(msg)
+        after = int(np.searchsorted(dates, when.astype(dates.dtype), side="right")) - 1
+    return ends, after
 
 
 def _window_ends(T: int, window: int, step: int, ends: Any, after: Any) -> np.ndarray:
@@ -622,8 +660,8 @@ def _window_ends(T: int, window: int, step: int, ends: Any, after: Any) -> np.nd
         raw = np.asarray(ends)
         if raw.ndim != 1 or not (np.issubdtype(raw.dtype, np.integer) or raw.size == 0):
             msg = (
-                f"`ends` must be a 1-D array of integer row indices, got dtype {raw.dtype} and "
-                f"shape {raw.shape}"
+                f"`ends` must be a 1-D array of integer row indices (or of dates, when the rows "
+                f"have dates), got dtype {raw.dtype} and shape {raw.shape}"
             )
             raise InvalidInputError(msg)
         rows = raw.astype(np.int64)
@@ -639,7 +677,10 @@ def _window_ends(T: int, window: int, step: int, ends: Any, after: Any) -> np.nd
             raise InvalidInputError(msg)
     if after is not None:
         if isinstance(after, bool) or not isinstance(after, int | np.integer):
-            msg = f"`after` must be an integer row index, got {after!r}"
+            msg = (
+                f"`after` must be an integer row index (or a date, when the rows have dates), "
+                f"got {after!r}"
+            )
             raise InvalidInputError(msg)
         rows = rows[rows > after]
     return rows

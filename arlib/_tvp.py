@@ -119,11 +119,12 @@ from ._frequency import (
     scaled_ma,
 )
 from ._joint import joint_kernel, joint_table
+from ._labels import is_frame
 from ._sizes import minimum_window
 from ._validate import (
     InvalidInputError,
     UnstableProcessWarning,
-    as_data,
+    as_dated_data,
     as_names,
     check_int,
     check_option,
@@ -210,6 +211,8 @@ class TimeVaryingVAR:
     state : `TVPState` after the last date.
     names, lags, trend, horizon, kappa1, kappa2, covariance : as used.
     training : rows of the training sample (None when continued from a state).
+    dates : (D,) datetime64 date of each result row (the row of `y` whose update gave it), or
+        None when `y` had no dates (a DataFrame's date column or DatetimeIndex).
     """
 
     ends: np.ndarray
@@ -246,6 +249,7 @@ class TimeVaryingVAR:
     kappa2: float
     covariance: str
     training: int | None
+    dates: np.ndarray | None = None
 
     def __len__(self) -> int:
         return int(self.ends.shape[0])
@@ -551,7 +555,13 @@ def tvp_var(
             raise InvalidInputError(msg)
         labels = state.names if names is None else as_names(names, len(state.names))
         _same("names", labels, state.names)
-        data, _ = as_data(y)
+        data, columns, row_dates = as_dated_data(y)
+        if is_frame(y) and columns != labels:
+            msg = (
+                f"`y` has series {list(columns)!r} but the state was filtered on {list(labels)!r}; "
+                "pass the new rows of the same series, in the same order"
+            )
+            raise InvalidInputError(msg)
         if data.shape[1] != len(labels):
             msg = (
                 f"`y` has {data.shape[1]} series but the state has {len(labels)} "
@@ -565,7 +575,7 @@ def tvp_var(
         first_row, Y = state.row, data
         train = None
     else:
-        data, labels = as_data(y, names)
+        data, labels, row_dates = as_dated_data(y, names)
         T, n = data.shape
         if lags is None:
             msg = "`lags` is required for a new filter (e.g. lags=2); only `state=` supplies it"
@@ -658,4 +668,5 @@ def tvp_var(
         joint_from_others=jm["from"], joint_total=jm["total"], joint_to_others=jm["to"],
         joint_net=jm["net"], state=new_state, names=labels, lags=p, trend=trend_, horizon=H,
         kappa1=k1, kappa2=k2, covariance=cov_kind, training=train,
+        dates=None if row_dates is None else row_dates[row_dates.shape[0] - D :],
     )  # fmt: skip

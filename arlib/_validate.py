@@ -14,6 +14,9 @@ from typing import TYPE_CHECKING, Any, Protocol, runtime_checkable
 
 import numpy as np
 
+from ._errors import ArlibError, InvalidInputError, UnstableProcessWarning
+from ._labels import as_dates, as_labelled
+
 if TYPE_CHECKING:
     from types import FrameType
 
@@ -23,18 +26,6 @@ __all__ = [
     "UnstableProcessWarning",
     "VARLike",
 ]
-
-
-class ArlibError(Exception):
-    """Root of every error arlib raises on purpose."""
-
-
-class InvalidInputError(ArlibError, ValueError):
-    """An argument is unusable: wrong shape, non-finite, too short, collinear, unknown option."""
-
-
-class UnstableProcessWarning(UserWarning):
-    """A fitted or given VAR has a companion spectral radius >= 1 (not stationary)."""
 
 
 @runtime_checkable
@@ -102,10 +93,31 @@ def as_data(
 ) -> tuple[np.ndarray, tuple[str, ...]]:
     """Wrap `y` once into a (T, n) float64 array plus n series names.
 
-    A 1-D `y` becomes one column. Rejects other ranks, empty arrays and NaN/inf (naming the
-    first offending row and series). Names default to ``y0, y1, ...``.
+    A 1-D `y` becomes one column; a pandas/polars DataFrame gives its numeric columns and their
+    names (its date column or DatetimeIndex is set aside, never fitted; see `as_dated_data`).
+    Rejects other ranks, empty arrays and NaN/inf (naming the first offending row and series).
+    Names default to ``y0, y1, ...``.
     """
-    arr = as_real_array(y, arg, "a numeric array of shape (T, n)")
+    arr, labels, _ = as_dated_data(y, names, arg=arg)
+    return arr, labels
+
+
+def as_dated_data(
+    y: Any,
+    names: Sequence[str] | None = None,
+    dates: Any = None,
+    *,
+    arg: str = "y",
+    gaps: bool = False,
+) -> tuple[np.ndarray, tuple[str, ...], np.ndarray | None]:
+    """`as_data` plus the (T,) dates of the rows, or None when neither `y` nor `dates` has any.
+
+    Dates come from a DataFrame's date column or DatetimeIndex, or from `dates` for arrays
+    (a frame with dates and `dates=` together is refused). With ``gaps=True`` NaN rows are kept
+    (inf is still refused) for the callers that handle gaps themselves.
+    """
+    data = as_labelled(y, names, arg=arg)
+    arr = as_real_array(data.values, arg, "a numeric array of shape (T, n)")
     if arr.ndim == 1:
         arr = arr[:, None]
     if arr.ndim != 2:
@@ -116,18 +128,38 @@ def as_data(
         raise InvalidInputError(msg)
     if arr.shape[0] == 0 or arr.shape[1] == 0:
         msg = f"`{arg}` is empty (shape {arr.shape}); pass at least one series with data rows"
+        if data.dates is not None and arr.shape[1] == 0:
+            msg += " (a DataFrame's date column is not a series: it needs numeric columns too)"
         raise InvalidInputError(msg)
-    labels = as_names(names, arr.shape[1])
-    bad = ~np.isfinite(arr)
+    labels = as_names(data.names, arr.shape[1])
+    when = data.dates
+    if dates is not None:
+        if when is not None:
+            msg = (
+                f"`dates` was given together with a `{arg}` that carries its own dates (a date "
+                "column or DatetimeIndex); drop one of them"
+            )
+            raise InvalidInputError(msg)
+        when = as_dates(dates, arg="dates", rows=arr.shape[0])
+    bad = np.isinf(arr) if gaps else ~np.isfinite(arr)
     if bad.any():
         rows, cols = np.nonzero(bad)
-        kind = "NaN" if np.isnan(arr[rows[0], cols[0]]) else "inf"
-        msg = (
-            f"`{arg}` has {bad.sum()} non-finite value(s); the first is {kind} at row {rows[0]} "
-            f"of series {labels[cols[0]]!r}; drop or fill missing rows before fitting"
-        )
+        at = f" ({when[rows[0]]})" if when is not None else ""
+        if gaps:
+            msg = (
+                f"`{arg}` has {int(bad.sum())} infinite value(s); the first is at row {rows[0]}"
+                f"{at} of series {labels[cols[0]]!r}; replace them with NaN (a gap) or a finite "
+                "value"
+            )
+        else:
+            kind = "NaN" if np.isnan(arr[rows[0], cols[0]]) else "inf"
+            msg = (
+                f"`{arg}` has {bad.sum()} non-finite value(s); the first is {kind} at row "
+                f"{rows[0]}{at} of series {labels[cols[0]]!r}; drop or fill missing rows before "
+                "fitting"
+            )
         raise InvalidInputError(msg)
-    return arr, labels
+    return arr, labels, when
 
 
 def as_real_array(value: Any, arg: str, what: str) -> np.ndarray:
@@ -177,6 +209,25 @@ def as_names(names: Sequence[str] | None, n: int, *, arg: str = "names") -> tupl
         msg = f"`{arg}` repeats {dup!r}; series names must be distinct"
         raise InvalidInputError(msg)
     return labels
+
+
+def as_rng(rng: Any, arg: str = "rng") -> np.random.Generator:
+    """The one rule for randomness everywhere in arlib: a numpy Generator is used as it is
+    (its state advances), an integer seeds a new ``np.random.default_rng(seed)`` (the same
+    seed gives the same draws), None draws fresh entropy from the operating system (not
+    reproducible). Anything else — bools, floats, legacy ``RandomState`` — is refused."""
+    if isinstance(rng, np.random.Generator):
+        return rng
+    if rng is None or (isinstance(rng, int | np.integer) and not isinstance(rng, bool)):
+        if rng is not None and rng < 0:
+            msg = f"`{arg}` as an integer seed must be >= 0, got {rng!r}"
+            raise InvalidInputError(msg)
+        return np.random.default_rng(None if rng is None else int(rng))
+    msg = (
+        f"`{arg}` must be a numpy Generator, an integer seed or None, got {rng!r} "
+        f"({type(rng).__name__}); pass e.g. {arg}=42 or {arg}=np.random.default_rng(42)"
+    )
+    raise InvalidInputError(msg)
 
 
 def check_int(value: Any, arg: str, *, minimum: int, hint: str = "") -> int:

@@ -80,7 +80,7 @@ def test_simulation_initial_rows_and_errors() -> None:
     ):
         arlib.simulate_var(proc, 3, np.random.default_rng(0), initial=np.ones((1, 3)))
     with pytest.raises(arlib.InvalidInputError, match="`rng` must be a numpy Generator"):
-        arlib.simulate_var(proc, 3, 42)  # type: ignore[arg-type]
+        arlib.simulate_var(proc, 3, 4.2)  # type: ignore[arg-type]  # a float seed, refused on purpose
 
 
 def test_unstable_process_has_no_moments() -> None:

@@ -14,6 +14,7 @@ PINNED = [
     "GrangerResult",
     "InvalidInputError",
     "JointConnectedness",
+    "LabelledArray",
     "LagSelection",
     "NormalityResult",
     "PortmanteauResult",
