@@ -30,8 +30,8 @@ from pipeline.config._sections import (
 )
 from pipeline.errors import ConfigError
 from pipeline.sources import DEMO_FILES, KINDS, SourceConfig, check_keys
-from pipeline.sources._locate import has_scheme
 from pipeline.sources._config import check_name
+from pipeline.sources._locate import has_scheme
 
 __all__ = ["SECTIONS", "Section", "check_series_coverage", "load_config", "load_config_text"]
 

@@ -158,6 +158,11 @@ def _validate(
     step = max(CHUNK_CELLS // max(len(raw_names), 1), 1)
     # columns without a name: dropped when empty in every row, an error otherwise
     chunk = buffer + list(_take(data, step - 1))
+    try:
+        rows.check_header([n for n in raw_names if n != ""])
+    except SourceError as exc:
+        msg = f"{exc} (or set `header_row`/`range` to the row holding the column names)"
+        raise SourceError(msg) from None
     while chunk:
         unnamed = [i for i in keep if raw_names[i] == "" and any(i < len(r) and r[i] is not None for _, r in chunk)]
         if unnamed:
@@ -168,8 +173,6 @@ def _validate(
             )
             raise SourceError(msg)
         named = [i for i in keep if raw_names[i] != ""]
-        if rows.columns is None:
-            rows.check_header([raw_names[i] for i in named])
         frame = pl.DataFrame([_column([r[i] if i < len(r) else None for _, r in chunk]).alias(raw_names[i]) for i in named])
         rows.add(frame, lines=pl.Series("line", [ln for ln, _ in chunk], dtype=pl.Int64))
         chunk = list(_take(data, step))

@@ -68,7 +68,6 @@ def _filesystem(source: SourceConfig) -> tuple[Any, str]:
         # the connection timeout and attempts follow the source's `timeout` and `retries`
         options = {
             "skip_instance_cache": True,
-            "retries": max(source.retries, 1),
             "config_kwargs": {
                 "connect_timeout": source.timeout,
                 "read_timeout": source.timeout,

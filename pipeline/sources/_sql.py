@@ -26,6 +26,7 @@ MySQL is not supported yet.
 from __future__ import annotations
 
 import contextlib
+import re
 import sqlite3
 from collections.abc import Iterator
 from datetime import date
@@ -110,6 +111,9 @@ def _refused(origin: str, text: str) -> SourceError:
 # --------------------------------------------------------------------------------------------
 
 
+_COMMENTS = re.compile(r"^(?:\s+|--[^\n]*(?:\n|$)|/\*.*?\*/)+", re.DOTALL)
+
+
 def _shown(connection: str) -> str:
     parts = urlsplit(connection)
     return f"{parts.hostname or 'localhost'}:{parts.port or 5432}/{parts.path.lstrip('/')}"
@@ -122,6 +126,10 @@ def _read_postgres(source: SourceConfig, *, today: date) -> SourceFrame:
     shown = _shown(source.connection)
     origin = f"query of source {source.name!r} on postgresql {shown}"
     user = urlsplit(source.connection).username or "(the login user)"
+    stripped = _COMMENTS.sub("", source.query).lstrip("( \t\r\n")
+    first = stripped.split(None, 1)[0].upper() if stripped.strip() else ""
+    if first not in ("SELECT", "WITH", "VALUES", "TABLE"):
+        raise _refused(origin, f"it starts with {first or 'nothing'!r}")
     try:
         conn = psycopg.connect(
             source.connection, connect_timeout=max(int(source.timeout), 1), autocommit=False,
@@ -146,13 +154,14 @@ def _read_postgres(source: SourceConfig, *, today: date) -> SourceFrame:
             with conn.cursor(name="shockflow_source") as cur:
                 try:
                     cur.execute(source.query)
-                except psycopg.errors.SyntaxError as exc:
+                except psycopg.Error as exc:
                     text = _one_line(exc)
-                    if ";" in source.query.strip().rstrip(";") or "cursor" in text.lower():
-                        raise _refused(origin, f"{text}") from None
+                    # DECLARE … CURSOR accepts one SELECT/VALUES only; the transaction is read-only
+                    writes = isinstance(exc, psycopg.errors.ReadOnlySqlTransaction | psycopg.errors.InvalidCursorDefinition)
+                    primary = (exc.diag.message_primary or "").lower()
+                    if writes or any(w in primary for w in ("cursor", "read-only", "multiple commands")):
+                        raise _refused(origin, text) from None
                     raise
-                except (psycopg.errors.InvalidCursorDefinition, psycopg.errors.ReadOnlySqlTransaction) as exc:
-                    raise _refused(origin, _one_line(exc)) from None
                 if cur.description is None:
                     raise _refused(origin, "it returns no rows")
                 names = [d.name for d in cur.description]
