@@ -11,6 +11,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from pipeline._declare import setting
+from pipeline.sources._fetch import check_header
 
 __all__ = ["SourceConfig", "check_name"]
 
@@ -59,8 +60,6 @@ def _cells(value: str) -> tuple[str, str] | None:
 
 
 def _headers(value: tuple[str, ...]) -> tuple[str, str] | None:
-    from pipeline.sources._http import check_header
-
     for entry in value:
         if (problem := check_header(entry)) is not None:
             return problem

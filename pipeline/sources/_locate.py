@@ -31,6 +31,7 @@ from typing import TYPE_CHECKING, Any, BinaryIO
 from urllib.parse import unquote
 
 from pipeline.errors import SourceError
+from pipeline.sources._fetch import fetch_with_retries, request_headers
 
 if TYPE_CHECKING:
     from pipeline.sources._config import SourceConfig
@@ -171,11 +172,9 @@ def files_of(source: SourceConfig, *, suffix: str = "") -> tuple[list[str], str]
 def open_file(source: SourceConfig, file: str) -> Iterator[BinaryIO]:
     """A binary stream over one file of the source (local, object store or HTTP download)."""
     if _is_http(file):
-        from pipeline.sources._http import fetch_with_retries, request_headers
-
         data = fetch_with_retries(
             file, timeout=source.timeout, retries=source.retries, backoff=source.backoff,
-            headers=request_headers(source),
+            headers=request_headers(source.headers, source=source.name),
         )  # fmt: skip
         yield io.BytesIO(data)
         return

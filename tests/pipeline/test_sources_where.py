@@ -492,7 +492,7 @@ def test_retry_after_longer_than_a_run_waits_fails_at_once(web: str) -> None:
 def test_retry_after_as_http_date() -> None:
     from datetime import UTC, datetime
 
-    from pipeline.sources._http import retry_after
+    from pipeline.sources._fetch import retry_after
 
     now = datetime(2024, 6, 28, 12, 0, 0, tzinfo=UTC)
     assert retry_after("Fri, 28 Jun 2024 12:00:30 GMT", now=now) == 30.0
