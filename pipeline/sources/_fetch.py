@@ -23,6 +23,7 @@ import ssl
 import time
 from collections.abc import Callable, Mapping
 from datetime import UTC, datetime
+
 import httpx
 
 from pipeline.errors import SourceError
@@ -115,6 +116,7 @@ def fetch_with_retries(
     headers: Mapping[str, str] | None = None,
     sleep: Callable[[float], None] = time.sleep,
     jitter: Callable[[], float] = random.random,
+    source: str | None = None,
 ) -> bytes:
     """GET `url`; on a timeout, a dropped or truncated body, or a 5xx/429, wait and retry.
 
@@ -123,8 +125,9 @@ def fetch_with_retries(
     carries ``Retry-After``, the wait is at least that (a request for more than
     ``MAX_RETRY_AFTER`` seconds fails at once). At most ``retries + 1`` attempts; each has
     `timeout` seconds for connect, each read, and write. Proxies and certificates follow the
-    environment (module docstring).
+    environment (module docstring). `source` (its name) starts every error message.
     """
+    at = f"source {source!r}: {url}" if source else url
     last = ""
     for attempt in range(retries + 1):
         asked: float | None = None
@@ -137,7 +140,7 @@ def fetch_with_retries(
                 last = f"HTTP {status} {response.reason_phrase}"
                 if status not in RETRY_STATUS:
                     fix = "check the credentials in the environment variables its `headers` name" if status in (401, 403) else "check the address and access rights"
-                    msg = f"{url}: {last}; {fix} (not retried)"
+                    msg = f"{at}: {last}; {fix} (not retried)"
                     raise SourceError(msg)
                 asked = retry_after(response.headers.get("Retry-After"))
         except httpx.TimeoutException:
@@ -149,12 +152,12 @@ def fetch_with_retries(
             if asked is not None:
                 if asked > MAX_RETRY_AFTER:
                     msg = (
-                        f"{url}: {last} with Retry-After {asked:g} s, longer than the {MAX_RETRY_AFTER:g} s a "
+                        f"{at}: {last} with Retry-After {asked:g} s, longer than the {MAX_RETRY_AFTER:g} s a "
                         "run waits; run again later"
                     )
                     raise SourceError(msg)
                 wait = max(wait, asked)
             log.warning("%s: attempt %d of %d failed (%s); retrying in %.2f s", url, attempt + 1, retries + 1, last, wait)
             sleep(wait)
-    msg = f"{url}: failed after {retries + 1} attempts, last: {last}; check the server or raise `retries`/`timeout`"
+    msg = f"{at}: failed after {retries + 1} attempts, last: {last}; check the server or raise `retries`/`timeout`"
     raise SourceError(msg)

@@ -613,3 +613,78 @@ def test_same_universe_from_every_kind_of_source_prepares_bit_identically(
         assert p.names == base.names and p.dates == base.dates, kind
         assert p.y.tobytes() == base.y.tobytes(), kind  # bit-identical
         assert p.dropped.equals(base.dropped), kind
+
+
+def test_unreachable_http_server_names_the_source() -> None:
+    src = SourceConfig(name="vendor", kind="http_csv", url=f"http://127.0.0.1:{free_port()}/a.csv", retries=1, backoff=0.0, timeout=2.0)
+    with pytest.raises(SourceError) as info:
+        read_source(src, today=TODAY)
+    text = one_line(info)
+    assert text.startswith("source 'vendor': http://127.0.0.1:") and "failed after 2 attempts, last: ConnectError" in text
+    assert "check the server or raise `retries`/`timeout`" in text
+
+
+@pytest.fixture(scope="module")
+def https_server(tmp_path_factory: pytest.TempPathFactory) -> Iterator[tuple[str, Path]]:
+    """An HTTPS server on 127.0.0.1 whose certificate is signed by a private CA (made here with openssl)."""
+    import shutil
+    import ssl
+    import subprocess
+
+    from tests.pipeline.helpers import serve_locally
+
+    openssl = shutil.which("openssl")
+    if openssl is None:
+        pytest.fail("the certificate test needs the openssl command (Debian package openssl)")
+    d = tmp_path_factory.mktemp("tls")
+
+    def run(*args: str) -> None:
+        subprocess.run([openssl, *args], cwd=d, check=True, capture_output=True, timeout=60)
+
+    run("req", "-x509", "-newkey", "rsa:2048", "-nodes", "-keyout", "ca.key", "-out", "ca.pem", "-days", "2", "-subj", "/CN=shockflow test CA")
+    run("req", "-newkey", "rsa:2048", "-nodes", "-keyout", "srv.key", "-out", "srv.csr", "-subj", "/CN=127.0.0.1")
+    (d / "ext.cnf").write_text("subjectAltName = IP:127.0.0.1\n")
+    run("x509", "-req", "-in", "srv.csr", "-CA", "ca.pem", "-CAkey", "ca.key", "-CAcreateserial", "-out", "srv.pem", "-days", "2", "-extfile", "ext.cnf")
+    context = ssl.SSLContext(ssl.PROTOCOL_TLS_SERVER)
+    context.load_cert_chain(d / "srv.pem", d / "srv.key")
+    with serve_locally(_Handler, tls=context) as url:
+        yield url, d / "ca.pem"
+
+
+def test_certificate_authority_from_the_environment(https_server: tuple[str, Path], monkeypatch: pytest.MonkeyPatch) -> None:
+    url, ca = https_server
+    assert url.startswith("https://127.0.0.1:")
+    src = SourceConfig(name="tls", kind="http_csv", url=url + "/ok.csv", retries=0, timeout=5.0)
+    for name in ("SSL_CERT_FILE", "SSL_CERT_DIR", "REQUESTS_CA_BUNDLE", "CURL_CA_BUNDLE"):
+        monkeypatch.delenv(name, raising=False)
+    with pytest.raises(SourceError) as info:
+        read_source(src, today=TODAY)
+    assert "certificate is not trusted: set SSL_CERT_FILE" in one_line(info)
+    monkeypatch.setenv("SSL_CERT_FILE", str(ca))
+    assert read_source(src, today=TODAY).frame.equals(EXPECTED)
+    monkeypatch.delenv("SSL_CERT_FILE")
+    monkeypatch.setenv("REQUESTS_CA_BUNDLE", str(ca))
+    assert read_source(src, today=TODAY).frame.equals(EXPECTED)
+
+
+def test_excel_workbook_on_the_object_store(s3: ObjectServer, tmp_path: Path) -> None:
+    book = _workbook(tmp_path / "prices.xlsx")
+    s3.client().put_object(Bucket="markets", Key="books/prices.xlsx", Body=book.read_bytes())
+    got = read_source(SourceConfig(name="book", kind="excel", path="s3://markets/books/prices.xlsx", table="PriceTable"), today=TODAY)
+    assert got.frame.equals(EXPECTED)
+
+
+def test_readme_source_examples_load(tmp_path: Path) -> None:
+    import re
+
+    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8")
+    block = re.search(r"Sources read local files.*?```toml\n(.*?)```", readme, re.DOTALL)
+    assert block is not None, "README lost its sources example"
+    config = tmp_path / "c.toml"
+    config.write_text(
+        '[warehouse]\npath = "wh.duckdb"\nsnapshot = "serving.duckdb"\n\n' + block.group(1)
+        + '\n[[universes]]\nname = "u"\nseries = ["A", "B"]\nwindow = 30\nlags = 1\nhorizon = 2\n',
+        encoding="utf-8",
+    )
+    kinds = [s.kind for s in load_config(config).sources]
+    assert kinds == ["parquet", "sql", "excel", "http_csv"]
