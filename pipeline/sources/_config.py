@@ -117,7 +117,7 @@ class SourceConfig:
         3, minimum=0,
         doc="`http_csv` and addresses in `path`: extra attempts after a timeout, a dropped or truncated body, or HTTP 408/425/429/5xx",
     )  # fmt: skip
-    backoff: float = setting(1.0, doc="`http_csv` and http(s) paths: attempt k (0-based) that fails waits `backoff · 2^k` seconds × a random factor in [0.5, 1.5), at least what `Retry-After` asks", check=_seconds)
+    backoff: float = setting(1.0, doc="`http_csv` and http(s) paths: attempt k (0-based) that fails waits `backoff · 2^k` seconds × a random factor in [1, 1.5), at least what `Retry-After` asks", check=_seconds)
     external_access: bool = setting(
         False,
         doc="`duckdb_sql`/`sql`: let the query read files or URLs besides `database` (the database stays "

@@ -116,18 +116,18 @@ def fetch_with_retries(
     headers: Mapping[str, str] | None = None,
     sleep: Callable[[float], None] = time.sleep,
     jitter: Callable[[], float] = random.random,
-    source: str | None = None,
 ) -> bytes:
     """GET `url`; on a timeout, a dropped or truncated body, or a 5xx/429, wait and retry.
 
-    Attempt k (0-based) that fails waits ``backoff · 2**k · (0.5 + u)`` seconds, u uniform on
-    [0, 1) (`jitter`), so many clients failing together do not retry in step; when the answer
+    Attempt k (0-based) that fails waits ``backoff · 2**k · (1 + u/2)`` seconds, u uniform on
+    [0, 1) (`jitter`): never less than the plain back-off, and many clients failing together do
+    not retry in step; when the answer
     carries ``Retry-After``, the wait is at least that (a request for more than
     ``MAX_RETRY_AFTER`` seconds fails at once). At most ``retries + 1`` attempts; each has
     `timeout` seconds for connect, each read, and write. Proxies and certificates follow the
-    environment (module docstring). `source` (its name) starts every error message.
+    environment (module docstring).
     """
-    at = f"source {source!r}: {url}" if source else url
+    at = url
     last = ""
     for attempt in range(retries + 1):
         asked: float | None = None
@@ -148,7 +148,7 @@ def fetch_with_retries(
         except httpx.TransportError as exc:
             last = f"{type(exc).__name__}: {' '.join(str(exc).split())[:200]}{_hint(exc)}"
         if attempt < retries:
-            wait = backoff * 2**attempt * (0.5 + jitter())
+            wait = backoff * 2**attempt * (1 + jitter() / 2)
             if asked is not None:
                 if asked > MAX_RETRY_AFTER:
                     msg = (

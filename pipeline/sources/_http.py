@@ -23,7 +23,7 @@ def read_http_csv(source: SourceConfig, *, today: date, sleep: Callable[[float],
     assert source.url is not None
     data = fetch_with_retries(
         source.url, timeout=source.timeout, retries=source.retries, backoff=source.backoff,
-        headers=request_headers(source.headers, source=source.name), source=source.name, sleep=sleep,
+        headers=request_headers(source.headers, source=source.name), sleep=sleep,
     )  # fmt: skip
     frame = parse_csv_bytes(data, origin=source.url, source=source, today=today)
     return SourceFrame(source=source.name, frame=frame, origins=(source.url,))

@@ -174,7 +174,7 @@ def open_file(source: SourceConfig, file: str) -> Iterator[BinaryIO]:
     if _is_http(file):
         data = fetch_with_retries(
             file, timeout=source.timeout, retries=source.retries, backoff=source.backoff,
-            headers=request_headers(source.headers, source=source.name), source=source.name,
+            headers=request_headers(source.headers, source=source.name),
         )  # fmt: skip
         yield io.BytesIO(data)
         return

@@ -471,13 +471,13 @@ def test_retry_after_is_honoured_and_back_off_is_jittered(web: str) -> None:
     waits: list[float] = []
     data = fetch_with_retries(web + "/busy.csv", timeout=5, retries=2, backoff=0.1, sleep=waits.append, jitter=lambda: 0.0)
     assert data == WIDE.encode()
-    assert waits == [2.0]  # the server's Retry-After (2 s) beats the back-off 0.1 · 2^0 · 0.5
-    # jitter: attempt k waits backoff · 2^k · (0.5 + u), u in [0, 1)
+    assert waits == [2.0]  # the server's Retry-After (2 s) beats the back-off 0.1 · 2^0 · 1
+    # jitter: attempt k waits backoff · 2^k · (1 + u/2), u in [0, 1): never below the plain back-off
     spread: list[float] = []
     with pytest.raises(SourceError):
         fetch_with_retries(f"http://127.0.0.1:{free_port()}/x.csv", timeout=1, retries=2, backoff=1.0,
                            sleep=spread.append, jitter=iter([0.0, 0.99]).__next__)  # fmt: skip
-    assert spread == [0.5, 2 * 1.49]
+    assert spread == [1.0, 2 * 1.495]
 
 
 def test_retry_after_longer_than_a_run_waits_fails_at_once(web: str) -> None:
@@ -615,12 +615,13 @@ def test_same_universe_from_every_kind_of_source_prepares_bit_identically(
         assert p.dropped.equals(base.dropped), kind
 
 
-def test_unreachable_http_server_names_the_source() -> None:
+def test_unreachable_http_server_is_one_line() -> None:
     src = SourceConfig(name="vendor", kind="http_csv", url=f"http://127.0.0.1:{free_port()}/a.csv", retries=1, backoff=0.0, timeout=2.0)
     with pytest.raises(SourceError) as info:
         read_source(src, today=TODAY)
     text = one_line(info)
-    assert text.startswith("source 'vendor': http://127.0.0.1:") and "failed after 2 attempts, last: ConnectError" in text
+    # the CLI and the ingest record put the source's name in front ("failed: source 'vendor': …")
+    assert text.startswith("http://127.0.0.1:") and "failed after 2 attempts, last: ConnectError" in text
     assert "check the server or raise `retries`/`timeout`" in text
 
 
