@@ -24,7 +24,7 @@ __all__ = ["CHUNK_BYTES", "parse_csv_bytes", "parse_csv_stream", "read_csv", "re
 
 def resolve_glob(source: SourceConfig) -> list[str]:
     """Files matching the source's `path` (local glob, object store or HTTPS), sorted; SourceError when none match."""
-    return files_of(source)[0]
+    return files_of(source, suffix=".csv")[0]
 
 
 #: Bytes of a CSV file parsed at a time: peak memory is the file's validated long rows plus a

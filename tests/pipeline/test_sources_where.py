@@ -689,3 +689,13 @@ def test_readme_source_examples_load(tmp_path: Path) -> None:
     )
     kinds = [s.kind for s in load_config(config).sources]
     assert kinds == ["parquet", "sql", "excel", "http_csv"]
+
+
+def test_a_folder_stands_for_its_csv_files(tmp_path: Path) -> None:
+    (tmp_path / "2024").mkdir()
+    (tmp_path / "2024" / "part1.csv").write_text("date,A\n2024-01-03,101.5\n2024-01-02,100\n")
+    (tmp_path / "part2.csv").write_text("date,A,B\n2024-01-04,102,51\n2024-01-02,100,50\n")
+    (tmp_path / "notes.txt").write_text("not data")
+    got = read_source(SourceConfig(name="f", kind="csv", path=str(tmp_path)), today=TODAY)
+    assert got.frame.equals(EXPECTED)
+    assert got.origins == (str(tmp_path / "2024" / "part1.csv"), str(tmp_path / "part2.csv"))
