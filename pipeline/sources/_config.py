@@ -104,7 +104,7 @@ class SourceConfig:
     )  # fmt: skip
     dataset: str | None = setting(None, doc="`demo`: {choices} (the files in `data_samples/`)")
     layout: str = setting(
-        "wide", choices=("wide", "long"), default_doc="`wide` (`long` for `duckdb_sql`)",
+        "wide", choices=("wide", "long"), default_doc="`wide` (`long` for `duckdb_sql` and `sql`)",
         doc="`wide`: a date column and one column per series; `long`: date, series, value columns",
     )  # fmt: skip
     date_column: str = setting("date", doc="the date column")
