@@ -699,3 +699,19 @@ def test_a_folder_stands_for_its_csv_files(tmp_path: Path) -> None:
     got = read_source(SourceConfig(name="f", kind="csv", path=str(tmp_path)), today=TODAY)
     assert got.frame.equals(EXPECTED)
     assert got.origins == (str(tmp_path / "2024" / "part1.csv"), str(tmp_path / "part2.csv"))
+
+
+def test_sql_database_kind_is_told_by_its_first_bytes(tmp_path: Path) -> None:
+    import duckdb
+
+    con = duckdb.connect(str(tmp_path / "m.db"))
+    con.execute("CREATE TABLE px (d DATE, name VARCHAR, v DOUBLE)")
+    con.executemany("INSERT INTO px VALUES (?, ?, ?)", [list(r) for r in LONG_ROWS])
+    con.close()
+    _sqlite(tmp_path / "lite.db")  # same ending, other engine
+    for name in ("m.db", "lite.db"):
+        src = SourceConfig(name="db", kind="sql", database=tmp_path / name, query=QUERY, layout="long")
+        assert read_source(src, today=TODAY).frame.equals(EXPECTED), name
+    (tmp_path / "other.db").write_bytes(b"not a database at all")
+    with pytest.raises(SourceError, match=r"^source 'db': database .*other\.db' is neither a SQLite nor a DuckDB file; point `database` at one"):
+        read_source(SourceConfig(name="db", kind="sql", database=tmp_path / "other.db", query=QUERY), today=TODAY)
