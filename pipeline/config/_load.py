@@ -29,8 +29,9 @@ from pipeline.config._sections import (
     WarehouseConfig,
 )
 from pipeline.errors import ConfigError
-from pipeline.sources import DEMO_FILES, KINDS, SourceConfig
+from pipeline.sources import DEMO_FILES, KINDS, SourceConfig, check_keys
 from pipeline.sources._config import check_name
+from pipeline.sources._locate import has_scheme
 
 __all__ = ["SECTIONS", "Section", "check_series_coverage", "load_config", "load_config_text"]
 
@@ -186,25 +187,13 @@ def _load_source(raw: Any, i: int, problems: Problems, base: Path) -> SourceConf
     if len(problems) > before or "kind" not in v:
         return None
     kind = v["kind"]
-    needs = KINDS[kind].reads
-    located = {key: v.get(key) for key in {k.reads for k in KINDS.values()}}
-    if located[needs] is None:
-        problems.add(f"{where}.{needs}", f"is required for kind = {kind!r}", f"add `{needs} = ...` to this source")
-    for other, value in located.items():
-        if other != needs and value is not None and not (kind == "duckdb_sql" and other == "path"):
-            problems.add(f"{where}.{other}", f"is not used by kind = {kind!r}", f"remove it (this kind reads `{needs}`)")
-    if kind == "duckdb_sql" and v["database"] is None:
-        problems.add(f"{where}.database", "is required for kind = 'duckdb_sql'", "set it to the DuckDB file the query reads")
-    if kind != "duckdb_sql" and v["database"] is not None:
-        problems.add(f"{where}.database", f"is not used by kind = {kind!r}", "remove it")
-    url = v["url"]
-    if kind == "http_csv" and url is not None and not url.startswith(("http://", "https://")):
-        problems.add(f"{where}.url", f"is {url!r}", "use an http:// or https:// address")
+    for key, problem, fix in check_keys(kind, v):
+        problems.add(f"{where}.{key}", problem, fix)
     if len(problems) > before:
         return None
-    if v["path"] is not None:
+    if v["path"] is not None and not has_scheme(v["path"]):  # an address (s3://, https://) stays as written
         v["path"] = str((base / Path(v["path"]).expanduser()).resolve())
-    if kind == "duckdb_sql" and "layout" not in given:
+    if kind in ("duckdb_sql", "sql") and "layout" not in given:
         v["layout"] = "long"
     if kind == "demo":
         v["layout"] = DEMO_FILES[v["dataset"]][1]

@@ -3,11 +3,9 @@
 from __future__ import annotations
 
 import csv
-import glob
 import io
 from collections.abc import Iterator
 from datetime import date
-from pathlib import Path
 from typing import TYPE_CHECKING, Any, BinaryIO
 
 import numpy as np
@@ -15,6 +13,7 @@ import polars as pl
 
 from pipeline.errors import DataError, SourceError
 from pipeline.sources._frame import SourceFrame
+from pipeline.sources._locate import files_of, open_file
 from pipeline.sources._rows import MISSING_MARKERS, LongRows
 
 if TYPE_CHECKING:
@@ -24,16 +23,8 @@ __all__ = ["CHUNK_BYTES", "parse_csv_bytes", "parse_csv_stream", "read_csv", "re
 
 
 def resolve_glob(source: SourceConfig) -> list[str]:
-    """Files matching the source's `path` glob, sorted; SourceError when none match."""
-    assert source.path is not None
-    files = sorted(f for f in glob.glob(source.path, recursive=True) if Path(f).is_file())
-    if not files:
-        msg = (
-            f"source {source.name!r}: no file matches path {source.path!r}; check the path "
-            "(relative paths start at the config file's folder)"
-        )
-        raise SourceError(msg)
-    return files
+    """Files matching the source's `path` (local glob, object store or HTTPS), sorted; SourceError when none match."""
+    return files_of(source, suffix=".csv")[0]
 
 
 #: Bytes of a CSV file parsed at a time: peak memory is the file's validated long rows plus a
@@ -239,16 +230,11 @@ def _parse_chunk(body: bytes, names: list[str], *, source: SourceConfig, origin:
 
 
 def read_csv(source: SourceConfig, *, today: date) -> SourceFrame:
-    """Read every file matching the glob; rows of all files are validated and combined."""
+    """Read every file matching the path (local, object store or HTTPS); rows of all files are validated and combined."""
     frames = []
     files = resolve_glob(source)
     for file in files:
-        try:
-            stream = Path(file).open("rb")  # closed by the with below
-        except OSError as exc:
-            msg = f"{file}: cannot be read ({exc.strerror}); check permissions"
-            raise SourceError(msg) from None
-        with stream:
+        with open_file(source, file) as stream:
             frames.append(parse_csv_stream(stream, origin=file, source=source, today=today))
     return SourceFrame(source=source.name, frame=combine(frames, origins=files), origins=tuple(files))
 

@@ -67,6 +67,16 @@ FATAL = [
         r"`sources\['rates'\]\.kind` is required but missing; add `kind = \.\.\.` to sources\['rates'\]",
     ),
     ConfigCase(
+        "password-in-sql-connection",
+        _replace('kind = "csv"\npath = "rates.csv"', 'kind = "sql"\nconnection = "postgresql://u:hunter2@db/m"\nquery = "SELECT 1"'),
+        r"`sources\['rates'\]\.connection` holds a password \('postgresql://u:\*\*\*@db/m'\); remove it; set PGPASSWORD or ~/\.pgpass in the environment instead",
+    ),
+    ConfigCase(
+        "literal-secret-in-http-header",
+        _replace('kind = "csv"\npath = "rates.csv"', 'kind = "http_csv"\nurl = "https://example.org/r.csv"\nheaders = ["X-Api-Key: abc123"]'),
+        r"`sources\['rates'\]\.headers` gives header 'X-Api-Key' a literal value; name the environment variable that holds it, .* never the secret itself",
+    ),
+    ConfigCase(
         "no-sources-table", _drop_sources,
         r"`sources` is required but missing; add at least one \[\[sources\]\] table",
     ),

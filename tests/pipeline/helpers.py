@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import contextlib
+import ssl
 import textwrap
 import threading
 from collections.abc import Iterator
@@ -109,13 +110,15 @@ class CsvHandler(BaseHTTPRequestHandler):
 
 
 @contextlib.contextmanager
-def serve_locally(handler: type[BaseHTTPRequestHandler]) -> Iterator[str]:
-    """Serve `handler` on 127.0.0.1 (a free port) in a daemon thread; yields the base URL."""
+def serve_locally(handler: type[BaseHTTPRequestHandler], *, tls: ssl.SSLContext | None = None) -> Iterator[str]:
+    """Serve `handler` on 127.0.0.1 (a free port) in a daemon thread; yields the base URL (https with `tls`)."""
     httpd = ThreadingHTTPServer(("127.0.0.1", 0), handler)
     httpd.daemon_threads = True
+    if tls is not None:
+        httpd.socket = tls.wrap_socket(httpd.socket, server_side=True)
     threading.Thread(target=httpd.serve_forever, daemon=True).start()
     try:
-        yield f"http://127.0.0.1:{httpd.server_address[1]}"
+        yield f"{'https' if tls else 'http'}://127.0.0.1:{httpd.server_address[1]}"
     finally:
         httpd.shutdown()
         httpd.server_close()

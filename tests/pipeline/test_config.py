@@ -233,7 +233,7 @@ def test_readme_configuration_tables_match_the_declarations() -> None:
     # every declared key has its row, and a README that lost or changed a row is caught
     block = render()
     for row in ("| `window` | required (rolling) | yes |", "| `transform` | `log_return` | yes (via `series`) |",
-                "| `name` | required | no |", "| `kind` | required | `csv`, `parquet`, `http_csv`, `duckdb_sql`, `demo` |",
+                "| `name` | required | no |", "| `kind` | required | `csv`, `parquet`, `excel`, `http_csv`, `sql`, `duckdb_sql`, `demo` |",
                 "| `workers` | 2 |", "| `bands.draws` | 200 | yes |"):  # fmt: skip
         assert row in block, row
     stale = text.replace("| `step` | 1 | yes | rows between window ends |\n", "")
@@ -253,7 +253,7 @@ def test_every_problem_of_a_file_is_reported_at_once(tmp_path: Path) -> None:
         load_config(path)
     expected = [
         r"`exprt` is not a known section \(did you mean 'export'\?\); known sections: .*",
-        r"`sources\['prices'\]\.kind` is 'cvs' \(did you mean 'csv'\?\); use one of: csv, parquet, http_csv, duckdb_sql, demo",
+        r"`sources\['prices'\]\.kind` is 'cvs' \(did you mean 'csv'\?\); use one of: csv, parquet, excel, http_csv, sql, duckdb_sql, demo",
         r"`universes\['pair'\]\.trend` is 'linear'; use one of: n, c, ct",
         # `window` is optional (a tvp universe has none), so a misspelling reads as an unknown key
         r"`universes\['pair'\]\.windw` is not a known key \(did you mean 'window'\?\); rename it to `window`",

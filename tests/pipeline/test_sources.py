@@ -219,17 +219,17 @@ def test_http_ok(server: str) -> None:
 
 def test_http_500_then_success_is_retried_with_backoff(server: str) -> None:
     waits: list[float] = []
-    data = fetch_with_retries(server + "/flaky.csv", timeout=5, retries=3, backoff=0.25, sleep=waits.append)
+    data = fetch_with_retries(server + "/flaky.csv", timeout=5, retries=3, backoff=0.25, sleep=waits.append, jitter=lambda: 0.0)
     assert data == WIDE.encode()
-    assert waits == [0.25]
+    assert waits == [0.25]  # jitter factor 1 + 0/2 = 1
     assert _Handler.hits["/flaky.csv"] == 2
 
 
 def test_http_persistent_500_fails_after_all_attempts(server: str) -> None:
     waits: list[float] = []
     with pytest.raises(SourceError, match=r"/down.csv: failed after 4 attempts, last: HTTP 503"):
-        fetch_with_retries(server + "/down.csv", timeout=5, retries=3, backoff=0.5, sleep=waits.append)
-    assert waits == [0.5, 1.0, 2.0]  # exponential back-off
+        fetch_with_retries(server + "/down.csv", timeout=5, retries=3, backoff=0.5, sleep=waits.append, jitter=lambda: 0.0)
+    assert waits == [0.5, 1.0, 2.0]  # exponential back-off (jitter factor 1 + 0/2 = 1)
 
 
 def test_http_404_is_not_retried(server: str) -> None:
