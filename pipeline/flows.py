@@ -30,6 +30,7 @@ from pipeline import warehouse as wh
 from pipeline._logs import pipeline_logs_to_prefect
 from pipeline.config import Config, load_config
 from pipeline.errors import ShockflowError
+from pipeline.schedule import schedule_today
 
 if TYPE_CHECKING:
     import polars as pl
@@ -85,6 +86,12 @@ class NightlySummary:
     seconds: dict[str, float] = field(default_factory=dict)
     #: Prefect flow run ids: the nightly flow's, then its work subflow's (where the logs are)
     flow_run_ids: list[str] = field(default_factory=list)
+    #: False when a check before starting Prefect found nothing to do (pipeline.quiet): no flow ran
+    orchestrated: bool = True
+    #: what that check looked at, one line each (empty when the flow ran)
+    checked: list[str] = field(default_factory=list)
+    #: the run's "today" (the date in [schedule] timezone): sources reject rows dated after it
+    today: date | None = None
 
     @property
     def failures(self) -> list[str]:
@@ -258,7 +265,7 @@ def _nightly_steps(
     export: bool,
     today: date,
 ) -> NightlySummary:
-    summary = NightlySummary()
+    summary = NightlySummary(today=today)
     path = config.warehouse.path
     summary.interrupted_marked = wh.mark_interrupted(con, path=path)
     if config.export.formats:  # what an export killed mid-write left (temporary files, profiles)
@@ -405,8 +412,10 @@ def nightly_flow(
     (threads, or Dask), so a deployment of this flow honours the config too.
     """
     config = load_config(config_path)
-    run = nightly_run_flow.with_options(task_runner=task_runner(config))
-    summary = run(config, universes=universes, full=full, export=export, today=today or date.today())
+    # Dask workers get this run's Prefect API with every task (not a temporary server of their own)
+    with execution.reporting_api(config):
+        run = nightly_run_flow.with_options(task_runner=task_runner(config))
+        summary = run(config, universes=universes, full=full, export=export, today=today or schedule_today(config))
     summary.flow_run_ids.insert(0, str(prefect_runtime.flow_run.id))
     _publish_summary_artifact(summary)
     return final_state(summary)

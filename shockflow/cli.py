@@ -47,9 +47,11 @@ __all__ = [
     "EXIT_TERMINATED",
     "EXIT_USAGE",
     "app",
+    "config_path",
     "demo_config",
     "main",
     "prefect_environment",
+    "version_text",
 ]
 
 EXIT_OK = 0
@@ -139,6 +141,47 @@ app = typer.Typer(
     rich_markup_mode=None,  # plain help: brackets print as written, flags show no value, fits 80 columns
 )
 
+def version_text() -> str:
+    """``shockflow <version>``: the installed package's version, plus the git commit when run from
+    a checkout (the same stamp the warehouse records as a run's ``code_version``)."""
+    from importlib.metadata import PackageNotFoundError, version
+
+    try:
+        text = version("shockflow")
+    except PackageNotFoundError:
+        text = "unknown (not installed)"
+    root = Path(__file__).resolve().parents[1]
+    if (root / ".git").exists():
+        import subprocess
+
+        try:
+            done = subprocess.run(
+                ["git", "-C", str(root), "rev-parse", "--short", "HEAD"],
+                capture_output=True, text=True, timeout=5, check=False,
+            )
+            if done.returncode == 0 and done.stdout.strip():
+                text += "+g" + done.stdout.strip()
+        except (OSError, subprocess.SubprocessError):
+            pass
+    return f"shockflow {text}"
+
+
+def _print_version(value: bool) -> None:
+    if value:
+        out.print(version_text(), markup=False, highlight=False)
+        raise typer.Exit(EXIT_OK)
+
+
+@app.callback()
+def _root(
+    show_version: Annotated[
+        bool,
+        typer.Option("--version", is_eager=True, callback=_print_version, help="Print shockflow's version and exit."),
+    ] = False,
+) -> None:
+    del show_version
+
+
 #: the demo's configuration, shipped as package data with the demo files (data_samples/)
 DEMO_CONFIG = data_samples.folder() / "demo.toml"
 
@@ -161,7 +204,17 @@ def prefect_environment(environ: dict[str, str] | os._Environ[str] = os.environ,
         environ.setdefault(key, value)
 
 
-ConfigOpt = Annotated[Path, typer.Option("--config", "-c", metavar="FILE", help="The TOML configuration file.")]
+ConfigOpt = Annotated[
+    Path | None,
+    typer.Option(
+        "--config", "-c", metavar="FILE",
+        help="The TOML configuration file (default: $SHOCKFLOW_CONFIG, else ./shockflow.toml).",
+    ),
+]
+#: the environment variable naming the configuration file when --config is not given
+CONFIG_ENV = "SHOCKFLOW_CONFIG"
+#: the file looked for in the current folder when neither --config nor SHOCKFLOW_CONFIG is given
+DEFAULT_CONFIG = "shockflow.toml"
 DebugOpt = Annotated[bool, typer.Option("--debug", help="Show full tracebacks on errors.")]
 HostOpt = Annotated[
     str | None,
@@ -211,10 +264,31 @@ def _guard(debug: bool, fn: Callable[[], int]) -> None:
     raise typer.Exit(code)
 
 
-def _load(config: Path) -> Config:
+def config_path(given: Path | None, environ: dict[str, str] | os._Environ[str] = os.environ) -> Path:
+    """The configuration file: `--config`, else ``$SHOCKFLOW_CONFIG``, else ``./shockflow.toml``.
+
+    The first that is given wins (an empty SHOCKFLOW_CONFIG counts as not given); a file named by
+    --config or SHOCKFLOW_CONFIG that does not exist is reported by the loader, naming it.
+    """
+    if given is not None:
+        return given
+    named = environ.get(CONFIG_ENV, "").strip()
+    if named:
+        return Path(named).expanduser()
+    local = Path.cwd() / DEFAULT_CONFIG
+    if local.is_file():
+        return local
+    msg = (
+        f"no configuration file: pass --config FILE, set {CONFIG_ENV}=FILE, or put {DEFAULT_CONFIG} "
+        f"in the current folder ({Path.cwd()})"
+    )
+    raise ShockflowError(msg)
+
+
+def _load(config: Path | None) -> Config:
     from pipeline.config import load_config
 
-    return load_config(config)
+    return load_config(config_path(config))
 
 
 # ------------------------------------------------------------------------------------------
@@ -387,7 +461,7 @@ def _report(summary: NightlySummary, wall: float, config: Config) -> None:
 
 @app.command()
 def run(
-    config: ConfigOpt,
+    config: ConfigOpt = None,
     universe: UniverseOpt = None,
     full: Annotated[
         bool,
@@ -473,7 +547,7 @@ def _window_problems(cfg: Config, frames: list[Any]) -> list[str]:
 
 
 @app.command()
-def check(config: ConfigOpt, debug: DebugOpt = False) -> None:
+def check(config: ConfigOpt = None, debug: DebugOpt = False) -> None:
     """Validate the config, read every source, check each universe's window fits its data; writes nothing."""
 
     def body() -> int:
@@ -544,7 +618,7 @@ def check(config: ConfigOpt, debug: DebugOpt = False) -> None:
 
 @app.command()
 def export(
-    config: ConfigOpt,
+    config: ConfigOpt = None,
     universe: UniverseOpt = None,
     out_dir: Annotated[
         Path | None, typer.Option("--out", metavar="DIR", help="Export folder (default: the config's [export] directory).")
@@ -571,7 +645,7 @@ def export(
 
 
 @app.command()
-def schedule(config: ConfigOpt, debug: DebugOpt = False) -> None:
+def schedule(config: ConfigOpt = None, debug: DebugOpt = False) -> None:
     """Serve the nightly flow as a Prefect deployment on the configured cron (Ctrl+C stops it)."""
 
     def body() -> int:
@@ -587,7 +661,7 @@ def schedule(config: ConfigOpt, debug: DebugOpt = False) -> None:
 
 @app.command()
 def dashboard(
-    config: ConfigOpt,
+    config: ConfigOpt = None,
     host: HostOpt = None,
     port: PortOpt = None,
     workers: Annotated[
