@@ -56,9 +56,9 @@ __all__ = [
     "check_prefect_api",
     "check_scheduler",
     "io_task_runner",
+    "local_cluster_kwargs",
     "reporting_api",
     "reporting_api_url",
-    "local_cluster_kwargs",
     "scratch_folder",
     "task_runner",
 ]

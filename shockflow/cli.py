@@ -32,7 +32,6 @@ from rich.table import Table
 from typer.core import TyperGroup
 
 import data_samples
-from dashboard import DashboardError  # the package import is light (no Dash, DuckDB)
 from pipeline.errors import ShockflowError
 
 if TYPE_CHECKING:
@@ -51,6 +50,7 @@ __all__ = [
     "demo_config",
     "main",
     "prefect_environment",
+    "summary_json",
     "version_text",
 ]
 
@@ -63,6 +63,9 @@ EXIT_PARTIAL = 2
 EXIT_USAGE = 64
 EXIT_INTERRUPTED = 130
 EXIT_TERMINATED = 143
+
+#: the caution every output meant for people carries
+CAUTION = "A research tool, not financial advice; estimated relations between markets change."
 
 console = Console(stderr=True, highlight=False)
 out = Console(highlight=False)
@@ -237,7 +240,12 @@ UniverseOpt = Annotated[
 def _fail(exc: BaseException, debug: bool) -> typer.Exit:
     if debug:
         console.print_exception()
-    text = str(exc) if isinstance(exc, (ShockflowError, DashboardError)) else f"{type(exc).__name__}: {exc}"
+    # the dashboard's errors exist only once it was imported (not at start: a quiet `run` never does)
+    dash_pkg = sys.modules.get("dashboard")
+    ours: tuple[type[BaseException], ...] = (ShockflowError,)
+    if dash_pkg is not None and hasattr(dash_pkg, "DashboardError"):
+        ours += (dash_pkg.DashboardError,)
+    text = str(exc) if isinstance(exc, ours) else f"{type(exc).__name__}: {exc}"
     console.print(f"[bold red]error:[/] {escape(text)}", soft_wrap=True)
     return typer.Exit(1)
 
@@ -301,7 +309,7 @@ def _summary_table(summary: NightlySummary) -> Table:
     for col in ("universe", "status", "fitted", "skipped", "failed", "reused", "prepare s", "fit s", "store s", "note"):
         table.add_column(col, justify="right" if col not in ("universe", "status", "note") else "left")
     for r in summary.universes:
-        style = "green" if r.status == "succeeded" else "red"
+        style = "green" if r.status in ("succeeded", "unchanged") else "red"
         s = r.seconds
         table.add_row(
             escape(r.universe), f"[{style}]{r.status}[/]", str(r.fitted), str(r.skipped), str(r.failed), str(r.reused),
@@ -330,7 +338,7 @@ def _sources_table(summary: NightlySummary) -> Table:
     for col in ("source", "status", "rows read", "new", "revised", "seconds", "rows/s", "note"):
         table.add_column(col, justify="left" if col in ("source", "status", "note") else "right")
     for r in summary.ingest:
-        style = "green" if r.status == "succeeded" else "red"
+        style = "green" if r.status in ("succeeded", "unchanged") else "red"
         table.add_row(
             escape(r.source), f"[{style}]{r.status}[/]", f"{r.rows_read:,}", f"{r.rows_new:,}", f"{r.rows_revised:,}",
             f"{r.seconds:.2f}", _rate(r), escape(r.message or ""),
@@ -380,6 +388,8 @@ def _stages_line(summary: NightlySummary, wall: float) -> str:
     s = summary.seconds
     work = sum(s.values())
     parts = [f"{k} {v:.2f} s" for k, v in s.items()]
+    if not summary.orchestrated:
+        return f"nothing to do: checked in {work:.2f} s, no Prefect flow started; total {wall:.2f} s"
     return (
         f"stages: {', '.join(parts)}; Prefect start-up and orchestration {max(wall - work, 0):.2f} s; "
         f"total {wall:.2f} s; revisions {summary.revisions}"
@@ -393,7 +403,29 @@ def _run(
     full: bool,
     export: bool,
     debug: bool,
+    quick_check: bool = True,
 ) -> tuple[NightlySummary, float]:
+    from pipeline._tempserver import reap_orphans  # (no Prefect import)
+    from pipeline.quiet import quiet_night
+    from pipeline.schedule import schedule_today
+
+    t0 = time.perf_counter()
+    today = schedule_today(config)
+    if universes:
+        for name in universes:
+            config.universe(name)  # did-you-mean before anything starts
+    reaped = reap_orphans()
+    if reaped:
+        console.print(f"[yellow]note:[/] stopped {len(reaped)} temporary Prefect server(s) left running by a killed run")
+    # nothing new to ingest or fit: say what was checked, without starting Prefect (pipeline.quiet)
+    quiet, why = (
+        quiet_night(config, universes=universes, full=full, export=export, today=today)
+        if quick_check else (None, "--always-flow")
+    )  # fmt: skip
+    if quiet is not None:
+        return quiet, time.perf_counter() - t0
+    if debug:
+        console.print(f"[dim]starting the flow: {escape(why)}[/]")
     prefect_environment(debug=debug)
     from rich.progress import (
         BarColumn,
@@ -406,17 +438,10 @@ def _run(
 
     from pipeline import flows
     from pipeline._logs import quiet_tracebacks
-    from pipeline._tempserver import reap_orphans, start_temporary_server
+    from pipeline._tempserver import start_temporary_server
 
     quiet_tracebacks(debug)  # Prefect's console logs: one line per failure unless --debug
 
-    if universes:
-        for name in universes:
-            config.universe(name)  # did-you-mean before anything starts
-    reaped = reap_orphans()
-    if reaped:
-        console.print(f"[yellow]note:[/] stopped {len(reaped)} temporary Prefect server(s) left running by a killed run")
-    t0 = time.perf_counter()
     with Progress(
         SpinnerColumn(), TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), TimeElapsedColumn(),
         console=console, transient=False,
@@ -434,13 +459,72 @@ def _run(
         flows.set_progress_hook(hook)
         try:
             start_temporary_server()  # from this (main) thread, so it dies with this process
-            summary = flows.nightly(config, universes=universes, full=full, export=export)
+            summary = flows.nightly(config, universes=universes, full=full, export=export, today=today)
         finally:
             flows.set_progress_hook(None)
     return summary, time.perf_counter() - t0
 
 
-def _report(summary: NightlySummary, wall: float, config: Config) -> None:
+def summary_json(summary: NightlySummary, wall: float, config: Config) -> dict[str, Any]:
+    """`shockflow run --json`'s document (its fields are listed in the README, "Monitoring")."""
+    n_files = sum(len(v) for v in summary.exported.values())
+    publish = "succeeded" if summary.published else ("failed" if summary.publish_failed else "skipped")
+    export = "failed" if summary.export_message else ("succeeded" if n_files else "skipped")
+    status = {EXIT_OK: "succeeded", EXIT_PARTIAL: "partial", EXIT_NOTHING_RAN: "failed"}[summary.exit_code]
+    return {
+        "shockflow": version_text().removeprefix("shockflow "),
+        "config": str(config.path),
+        "status": status,
+        "exit_code": summary.exit_code,
+        "today": summary.today.isoformat() if summary.today else None,
+        "orchestrated": summary.orchestrated,
+        "flow_run_ids": list(summary.flow_run_ids),
+        "checked": list(summary.checked),
+        "seconds": {
+            "total": round(wall, 3),
+            "stages": {k: round(v, 3) for k, v in summary.seconds.items()},
+            "orchestration": round(max(wall - sum(summary.seconds.values()), 0.0), 3) if summary.orchestrated else 0.0,
+        },
+        "sources": [
+            {
+                "name": r.source, "status": r.status, "rows_read": r.rows_read, "rows_new": r.rows_new,
+                "rows_revised": r.rows_revised, "seconds": round(r.seconds, 3), "message": r.message,
+            }
+            for r in summary.ingest
+        ],
+        "universes": [
+            {
+                "name": r.universe, "status": r.status, "run_id": r.run_id, "fitted": r.fitted,
+                "skipped": r.skipped, "failed": r.failed, "reused": r.reused, "changed": r.changed,
+                "reason": r.reason, "message": r.message,
+                "seconds": {k: round(v, 3) for k, v in r.seconds.items()},
+            }
+            for r in summary.universes
+        ],
+        "publish": {
+            "status": publish, "snapshot": str(config.warehouse.snapshot), "message": summary.publish_message,
+        },
+        "export": {
+            "status": export, "directory": str(config.export.directory), "files": n_files,
+            "universes": sorted(summary.exported), "message": summary.export_message,
+        },
+        "revisions": summary.revisions,
+        "interrupted_marked": summary.interrupted_marked,
+        "failures": summary.failures,
+        "caution": CAUTION,
+    }
+
+
+def _report(summary: NightlySummary, wall: float, config: Config, *, as_json: bool = False) -> None:
+    if as_json:
+        out.print(json.dumps(summary_json(summary, wall, config), indent=2), markup=False, highlight=False, soft_wrap=True)
+        for failure in summary.failures:
+            console.print(f"[bold red]failed:[/] {escape(failure)}", soft_wrap=True)
+        return
+    if not summary.orchestrated:
+        out.print("nothing new to ingest or fit (checked before starting Prefect):", markup=False, soft_wrap=True)
+        for line in summary.checked:
+            out.print(f"  {line}", markup=False, highlight=False, soft_wrap=True)
     _emit(_sources_table(summary), _sources_lines(summary), "ingest")
     _emit(_summary_table(summary), _summary_lines(summary), "shockflow run")
     out.print(_stages_line(summary, wall), soft_wrap=True)
@@ -473,14 +557,31 @@ def run(
         ),
     ] = False,
     no_export: Annotated[bool, typer.Option("--no-export", help="Skip the report exports.")] = False,
+    as_json: Annotated[
+        bool,
+        typer.Option("--json", help="Print the run's summary as one JSON document (fields: README, Monitoring)."),
+    ] = False,
+    always_flow: Annotated[
+        bool,
+        typer.Option(
+            "--always-flow",
+            help="Start the Prefect flow (and record its run) even when a check finds nothing new.",
+        ),
+    ] = False,
     debug: DebugOpt = False,
 ) -> None:
-    """Ingest every source, refit new/changed windows, publish the snapshot and export reports."""
+    """Ingest every source, refit new/changed windows, publish the snapshot and export reports.
+
+    When a check before starting Prefect finds nothing new to ingest or fit, the run ends there
+    and says what it checked (no flow run is recorded; --full always runs the flow).
+    """
 
     def body() -> int:
         cfg = _load(config)
-        summary, wall = _run(cfg, universes=universe, full=full, export=not no_export, debug=debug)
-        _report(summary, wall, cfg)
+        summary, wall = _run(
+            cfg, universes=universe, full=full, export=not no_export, debug=debug, quick_check=not always_flow
+        )
+        _report(summary, wall, cfg, as_json=as_json)
         return summary.exit_code
 
     _guard(debug, body)
