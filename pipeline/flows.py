@@ -28,14 +28,15 @@ from pipeline import execution, jobs, quiet
 from pipeline import warehouse as wh
 from pipeline._logs import pipeline_logs_to_prefect
 from pipeline._summary import NightlySummary, summary_rows
+from pipeline._today import schedule_today
 from pipeline.config import Config, load_config
 from pipeline.errors import ShockflowError
-from pipeline.schedule import schedule_today
+from pipeline.jobs import IngestResult
 
 if TYPE_CHECKING:
     import polars as pl
 
-    from pipeline.jobs import IngestResult, UniverseJob, UniverseResult
+    from pipeline.jobs import UniverseJob, UniverseResult
     from pipeline.publish import PublishResult
     from pipeline.sources import SourceFrame
 
@@ -197,18 +198,27 @@ def _nightly_steps(
     t0 = time.perf_counter()
     # each source's fingerprint before its read, recorded once stored (a later quiet night's check)
     taken = {s.name: quiet.source_fingerprint(s, today=today) for s in config.sources}
-    started = {s.name: time.perf_counter() for s in config.sources}
+    # a source whose files are unchanged since its last stored read is not read again (--full reads all)
+    unchanged = {} if full else quiet.unchanged_sources(config, con, taken)
+    to_read = [s for s in config.sources if s.name not in unchanged]
+    ingested: dict[str, IngestResult] = {
+        name: IngestResult(name, "unchanged", message=f"files unchanged since ingest {batch}; not read again")
+        for name, batch in unchanged.items()
+    }
+    started = {s.name: time.perf_counter() for s in to_read}
     # (reads use a thread pool of this process even with Dask: the sources are this node's files)
     with execution.io_task_runner() as io:
-        futures = [(s, io.submit(read_source_task, {"source": s, "today": today})) for s in config.sources]
+        futures = [(s, io.submit(read_source_task, {"source": s, "today": today})) for s in to_read]
         for i, (source, future) in enumerate(futures):
             frame, failure = _resolve(future)
             secs = time.perf_counter() - started[source.name]
             error = None if failure is None else (str(failure) if isinstance(failure, ShockflowError) else f"{type(failure).__name__}: {failure}")
-            summary.ingest.append(store_source_task(path, source.name, frame, error, secs))
+            ingested[source.name] = store_source_task(path, source.name, frame, error, secs)
             _progress("ingest", source.name, i + 1, len(futures))
+    summary.ingest = [ingested[s.name] for s in config.sources]
     try:
-        quiet.record_fingerprints(config, con, taken, {r.source: r.status == "succeeded" for r in summary.ingest})
+        read = {s.name: ingested[s.name].status == "succeeded" for s in to_read}
+        quiet.record_fingerprints(config, con, taken, read)
     except Exception as exc:  # only a later quiet night's shortcut is lost
         log.warning("could not record the sources' fingerprints: %s", exc)
     summary.seconds["ingest"] = time.perf_counter() - t0

@@ -19,7 +19,10 @@ runs, and records everything as before):
    served results lag the warehouse), and, when exporting, **every report present** for each
    universe's newest window date, with no temporary export file of a killed run left.
 
-``--full`` always runs the flow. The nightly flow itself (and so every scheduled run of
+The flow uses the same fingerprints for each source: one unchanged since its last stored read is
+not read again (:func:`unchanged_sources`; its summary row says ``unchanged``), so a night where
+one small source brought a new day does not re-read years of history. ``--full`` reads every
+source and always runs the flow. The nightly flow itself (and so every scheduled run of
 ``shockflow schedule``) never skips: the check is the ``shockflow run`` command's.
 """
 
@@ -46,6 +49,7 @@ __all__ = [
     "quiet_night",
     "record_fingerprints",
     "source_fingerprint",
+    "unchanged_sources",
 ]
 
 #: source kinds whose content is known from files by path, size and modification time
@@ -116,8 +120,9 @@ def record_fingerprints(config: Config, con: Any, taken: dict[str, str | None], 
     quiet night its shortcut.
     """
     known = _read_fingerprints(config)
-    for name, fingerprint in taken.items():
-        if fingerprint is None or not stored.get(name):
+    for name, ok in stored.items():
+        fingerprint = taken.get(name)
+        if fingerprint is None or not ok:
             known.pop(name, None)
             continue
         row = con.execute(
@@ -134,6 +139,23 @@ def record_fingerprints(config: Config, con: Any, taken: dict[str, str | None], 
         os.replace(tmp, target)
     except OSError:
         tmp.unlink(missing_ok=True)
+
+
+def unchanged_sources(config: Config, con: Any, taken: dict[str, str | None]) -> dict[str, str]:
+    """Sources whose fingerprint `taken` now equals the one recorded at their newest ingest batch,
+    which succeeded: name → that batch's id. The flow does not read them again."""
+    known = _read_fingerprints(config)
+    out: dict[str, str] = {}
+    for name, fingerprint in taken.items():
+        entry = known.get(name) or {}
+        if fingerprint is None or entry.get("fingerprint") != fingerprint:
+            continue
+        row = con.execute(
+            "SELECT batch_id, status FROM ingest_batches WHERE source = ? ORDER BY started DESC LIMIT 1", [name]
+        ).fetchone()
+        if row is not None and row[0] == entry.get("batch_id") and row[1] == "succeeded":
+            out[name] = str(row[0])
+    return out
 
 
 class _Busy(Exception):

@@ -44,6 +44,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
+from pipeline._today import schedule_today, today_in
 from pipeline.errors import ScheduleError
 
 if TYPE_CHECKING:
@@ -102,26 +103,6 @@ def check_schedule(cron: str, timezone: str, *, where: str = "[schedule]") -> tu
                "'UTC', 'Europe/London' or 'America/New_York'")
         raise ScheduleError(msg) from exc
     return cron, str(timezone)
-
-
-def today_in(timezone: str, *, now: dt.datetime | None = None) -> dt.date:
-    """The calendar date in `timezone` (an IANA name) at `now` (default: this instant).
-
-    A night scheduled at 22:00 in ``Asia/Tokyo`` runs at 13:00 UTC: its "today" is Tokyo's date,
-    whatever the host's local time zone says. `now` without a time zone is read as UTC.
-    """
-    instant = now or dt.datetime.now(dt.UTC)
-    if instant.tzinfo is None:
-        instant = instant.replace(tzinfo=dt.UTC)
-    return instant.astimezone(ZoneInfo(str(timezone))).date()
-
-
-def schedule_today(config: Any, *, now: dt.datetime | None = None) -> dt.date:
-    """A run's "today": the date in the config's ``[schedule] timezone`` (see :func:`today_in`).
-
-    Sources reject rows dated after it; it follows the schedule, not the host's local date.
-    """
-    return today_in(config.schedule.timezone, now=now)
 
 
 # -- the deployment -------------------------------------------------------------------------------

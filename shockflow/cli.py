@@ -296,7 +296,12 @@ def config_path(given: Path | None, environ: dict[str, str] | os._Environ[str] =
 def _load(config: Path | None) -> Config:
     from pipeline.config import load_config
 
-    return load_config(config_path(config))
+    try:
+        path = config_path(config)
+    except ShockflowError as exc:  # no file named and none found: the command line lacks --config
+        console.print(f"[bold red]error:[/] {escape(str(exc))}", soft_wrap=True)
+        raise typer.Exit(EXIT_USAGE) from None
+    return load_config(path)
 
 
 # ------------------------------------------------------------------------------------------

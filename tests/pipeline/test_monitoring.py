@@ -63,7 +63,7 @@ def test_check_finds_the_config_through_the_environment_and_the_current_folder(t
     monkeypatch.delenv(CONFIG_ENV, raising=False)
     runner = CliRunner()
     missing = runner.invoke(app, ["check"])
-    assert missing.exit_code == 1 and "no configuration file" in missing.output
+    assert missing.exit_code == 64 and "no configuration file" in missing.output  # a usage error (EX_USAGE)
     by_env = runner.invoke(app, ["check"], env={CONFIG_ENV: str(tmp_path / "elsewhere.toml")})
     assert "sources of elsewhere.toml" in by_env.output, by_env.output
     write_config(tmp_path, MINIMAL)  # ./shockflow.toml

@@ -90,9 +90,21 @@ def test_a_quiet_night_skips_prefect_and_any_change_runs_the_flow(prefect_harnes
     doc = json.loads(again.stdout)
     assert doc["orchestrated"] is True and len(doc["flow_run_ids"]) == 2
     assert _runs(config) == runs + 1
+    assert [(s["name"], s["status"]) for s in doc["sources"]] == [("us_macro", "succeeded")]  # read again
     # ... after which the night is quiet again (the new fingerprint was recorded)
     quiet, _ = _quiet_subprocess(config, tmp_path / "prefect-home")
     assert quiet["orchestrated"] is False
+
+    # the flow forced on a quiet night: recorded in Prefect and the warehouse, the unchanged file not re-read
+    forced = runner.invoke(app, ["run", "--config", str(config), "--json", "--always-flow"])
+    assert forced.exit_code == 0, forced.output
+    doc = json.loads(forced.stdout)
+    assert doc["orchestrated"] is True and len(doc["flow_run_ids"]) == 2
+    assert [(s["name"], s["status"], s["rows_read"]) for s in doc["sources"]] == [("us_macro", "unchanged", 0)]
+    assert _runs(config) == runs + 2
+    # --full reads every source again
+    full = runner.invoke(app, ["run", "--config", str(config), "--json", "--full"])
+    assert [s["status"] for s in json.loads(full.stdout)["sources"]] == ["succeeded"], full.output
 
 
 def test_what_makes_a_night_busy(tmp_path: Path) -> None:

@@ -115,6 +115,6 @@ def test_the_demo_runs_from_a_plain_install_of_the_wheel(wheel: Path, prefect_ap
     assert demo.returncode == 0, demo.stdout + demo.stderr
     out = elsewhere / "demo_output"
     assert (out / "shockflow.duckdb").is_file() and (out / "shockflow-serving.duckdb").is_file()
-    assert sorted(p.parent.name for p in out.glob("exports/*/*/*.html")) == ["all_markets", "equities_weekly", "rates_fx"]
+    assert sorted(p.parent.name for p in out.glob("exports/*/*/*.html")) == ["all_markets", "all_markets_tvp", "equities_weekly", "rates_fx"]
     assert "invented market" in demo.stdout
     assert not any(p.name == "demo_output" for p in own.parent.rglob("demo_output"))  # nothing written into the install
