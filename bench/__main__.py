@@ -23,6 +23,8 @@ CASES: dict[str, str] = {
     "ingest_memory": "bench.ingest_memory:case",
     "tvp": "bench.tvp:main",
     "tvp_nightly": "bench.tvp_nightly:main",
+    "hundred": "bench.hundred:main",
+    "quiet": "bench.quiet:main",
 }
 
 

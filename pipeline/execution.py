@@ -35,6 +35,8 @@ default 1000) keep the per-task cost small beside the compute.
 from __future__ import annotations
 
 import socket
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 from urllib.parse import urlsplit
@@ -55,6 +57,8 @@ __all__ = [
     "check_scheduler",
     "io_task_runner",
     "local_cluster_kwargs",
+    "reporting_api",
+    "reporting_api_url",
     "scratch_folder",
     "task_runner",
 ]
@@ -184,3 +188,49 @@ def io_task_runner() -> Any:
     from prefect.task_runners import ThreadPoolTaskRunner
 
     return ThreadPoolTaskRunner(max_workers=LOCAL_THREADS)
+
+
+def reporting_api_url() -> str | None:
+    """The Prefect API this process reports to, as a URL other processes can use.
+
+    ``PREFECT_API_URL`` when set; else the URL of Prefect's temporary server of this process
+    (started now if the flow's client has not started it yet); None when Prefect's ephemeral
+    mode is off and no URL is set.
+    """
+    from prefect.settings import get_current_settings
+
+    settings = get_current_settings()
+    if settings.api.url:
+        return str(settings.api.url)
+    if not settings.server.ephemeral.enabled:
+        return None
+    from prefect.server.api.server import SubprocessASGIServer
+
+    server = SubprocessASGIServer()
+    if not server.running:
+        server.start()
+    return str(server.api_url)
+
+
+@contextmanager
+def reporting_api(config: Config) -> Iterator[str | None]:
+    """Within: Prefect's settings name the API this process reports to, so Dask workers do too.
+
+    A Dask worker runs Prefect's task engine with the settings the flow serialises with each task
+    (``prefect.context.serialize_context``). Without ``PREFECT_API_URL`` those settings name no
+    server, and a worker process would start a temporary server of its own (measured: each
+    worker logged "Starting temporary server") and record the fit task runs there, out of sight.
+    With ``[execution] runner = "dask"`` this sets ``PREFECT_API_URL`` to the flow's own API
+    (:func:`reporting_api_url`) for the duration; with threads nothing changes. Yields the URL.
+    """
+    if config.execution.runner != "dask":
+        yield None
+        return
+    from prefect.settings import PREFECT_API_URL, temporary_settings
+
+    url = reporting_api_url()
+    if url is None:
+        yield None
+        return
+    with temporary_settings(updates={PREFECT_API_URL: url}):
+        yield url

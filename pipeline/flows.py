@@ -16,7 +16,6 @@ from __future__ import annotations
 import logging
 import time
 from collections.abc import Callable
-from dataclasses import dataclass, field
 from datetime import date
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -25,16 +24,19 @@ from prefect import flow, task
 from prefect import runtime as prefect_runtime
 from prefect.cache_policies import NO_CACHE
 
-from pipeline import execution, jobs
+from pipeline import execution, jobs, quiet
 from pipeline import warehouse as wh
 from pipeline._logs import pipeline_logs_to_prefect
+from pipeline._summary import NightlySummary, summary_rows
+from pipeline._today import schedule_today
 from pipeline.config import Config, load_config
 from pipeline.errors import ShockflowError
+from pipeline.jobs import IngestResult
 
 if TYPE_CHECKING:
     import polars as pl
 
-    from pipeline.jobs import IngestResult, UniverseJob, UniverseResult
+    from pipeline.jobs import UniverseJob, UniverseResult
     from pipeline.publish import PublishResult
     from pipeline.sources import SourceFrame
 
@@ -66,81 +68,6 @@ def set_progress_hook(hook: Callable[[str, str, int, int], None] | None) -> None
 def _progress(stage: str, item: str, done: int, total: int) -> None:
     if _progress_hook is not None:
         _progress_hook(stage, item, done, total)
-
-
-@dataclass
-class NightlySummary:
-    """What a nightly run did; `exit_code` 0 ok, 2 partial, 1 nothing ran (see jobs.exit_code)."""
-
-    ingest: list[IngestResult] = field(default_factory=list)
-    universes: list[UniverseResult] = field(default_factory=list)
-    published: bool = False
-    publish_message: str | None = None
-    publish_failed: bool = False
-    exported: dict[str, list[str]] = field(default_factory=dict)
-    export_message: str | None = None
-    interrupted_marked: int = 0
-    #: temporary export files and folders of a killed run, removed at the start of this one
-    abandoned_removed: int = 0
-    seconds: dict[str, float] = field(default_factory=dict)
-    #: Prefect flow run ids: the nightly flow's, then its work subflow's (where the logs are)
-    flow_run_ids: list[str] = field(default_factory=list)
-
-    @property
-    def failures(self) -> list[str]:
-        """One line per failure, each naming what failed once ("source 'x': ...")."""
-        out = [_prefixed(f"source {r.source!r}", r.message) for r in self.ingest if r.status != "succeeded"]
-        out += [_prefixed(f"universe {r.universe!r}", r.message) for r in self.universes if r.status != "succeeded"]
-        if self.publish_message and not self.published and self.publish_failed:
-            out.append(_prefixed("publish", self.publish_message))
-        if self.export_message:
-            out.append(_prefixed("export", self.export_message))
-        return out
-
-    @property
-    def exit_code(self) -> int:
-        ok = sum(r.status == "succeeded" for r in self.ingest) + sum(r.status == "succeeded" for r in self.universes)
-        return jobs.exit_code(len(self.failures), ok)
-
-    @property
-    def revisions(self) -> int:
-        return sum(r.rows_revised for r in self.ingest)
-
-
-def _prefixed(prefix: str, message: str | None) -> str:
-    """`prefix: message`, unless the message already starts with that prefix (errors raised by a
-    step often name their source or universe themselves)."""
-    text = message or "failed (no reason recorded)"
-    return text if text.startswith(f"{prefix}:") else f"{prefix}: {text}"
-
-
-def summary_rows(summary: NightlySummary) -> list[dict[str, Any]]:
-    """The run summary as table rows (one per source and universe, then publish and export)."""
-    rows: list[dict[str, Any]] = [
-        {
-            "kind": "source", "name": r.source, "status": r.status, "rows read": r.rows_read, "new": r.rows_new,
-            "revised": r.rows_revised, "fitted": None, "skipped": None, "reused": None, "seconds": round(r.seconds, 2),
-            "note": r.message or "",
-        }
-        for r in summary.ingest
-    ]
-    rows += [
-        {
-            "kind": "universe", "name": r.universe, "status": r.status, "rows read": None, "new": None,
-            "revised": None, "fitted": r.fitted, "skipped": r.skipped, "reused": r.reused,
-            "seconds": round(sum(r.seconds.values()), 2), "note": r.message or r.reason,
-        }
-        for r in summary.universes
-    ]
-    publish = "succeeded" if summary.published else ("failed" if summary.publish_failed else "skipped")
-    rows.append({"kind": "publish", "name": "snapshot", "status": publish, "note": summary.publish_message or ""})
-    n_files = sum(len(v) for v in summary.exported.values())
-    rows.append({
-        "kind": "export", "name": f"{len(summary.exported)} universe(s), {n_files} file(s)",
-        "status": "failed" if summary.export_message else ("succeeded" if n_files else "skipped"),
-        "note": summary.export_message or "",
-    })
-    return rows
 
 
 def final_state(summary: NightlySummary) -> Any:
@@ -258,7 +185,7 @@ def _nightly_steps(
     export: bool,
     today: date,
 ) -> NightlySummary:
-    summary = NightlySummary()
+    summary = NightlySummary(today=today)
     path = config.warehouse.path
     summary.interrupted_marked = wh.mark_interrupted(con, path=path)
     if config.export.formats:  # what an export killed mid-write left (temporary files, profiles)
@@ -269,16 +196,31 @@ def _nightly_steps(
 
     # ingest: reads in parallel, stores one at a time in this process
     t0 = time.perf_counter()
-    started = {s.name: time.perf_counter() for s in config.sources}
+    # each source's fingerprint before its read, recorded once stored (a later quiet night's check)
+    taken = {s.name: quiet.source_fingerprint(s, today=today) for s in config.sources}
+    # a source whose files are unchanged since its last stored read is not read again (--full reads all)
+    unchanged = {} if full else quiet.unchanged_sources(config, con, taken)
+    to_read = [s for s in config.sources if s.name not in unchanged]
+    ingested: dict[str, IngestResult] = {
+        name: IngestResult(name, "unchanged", message=f"files unchanged since ingest {batch}; not read again")
+        for name, batch in unchanged.items()
+    }
+    started = {s.name: time.perf_counter() for s in to_read}
     # (reads use a thread pool of this process even with Dask: the sources are this node's files)
     with execution.io_task_runner() as io:
-        futures = [(s, io.submit(read_source_task, {"source": s, "today": today})) for s in config.sources]
+        futures = [(s, io.submit(read_source_task, {"source": s, "today": today})) for s in to_read]
         for i, (source, future) in enumerate(futures):
             frame, failure = _resolve(future)
             secs = time.perf_counter() - started[source.name]
             error = None if failure is None else (str(failure) if isinstance(failure, ShockflowError) else f"{type(failure).__name__}: {failure}")
-            summary.ingest.append(store_source_task(path, source.name, frame, error, secs))
+            ingested[source.name] = store_source_task(path, source.name, frame, error, secs)
             _progress("ingest", source.name, i + 1, len(futures))
+    summary.ingest = [ingested[s.name] for s in config.sources]
+    try:
+        read = {s.name: ingested[s.name].status == "succeeded" for s in to_read}
+        quiet.record_fingerprints(config, con, taken, read)
+    except Exception as exc:  # only a later quiet night's shortcut is lost
+        log.warning("could not record the sources' fingerprints: %s", exc)
     summary.seconds["ingest"] = time.perf_counter() - t0
 
     # universes (arlib — numpy/scipy — is imported once up front and timed on its own)
@@ -405,8 +347,10 @@ def nightly_flow(
     (threads, or Dask), so a deployment of this flow honours the config too.
     """
     config = load_config(config_path)
-    run = nightly_run_flow.with_options(task_runner=task_runner(config))
-    summary = run(config, universes=universes, full=full, export=export, today=today or date.today())
+    # Dask workers get this run's Prefect API with every task (not a temporary server of their own)
+    with execution.reporting_api(config):
+        run = nightly_run_flow.with_options(task_runner=task_runner(config))
+        summary = run(config, universes=universes, full=full, export=export, today=today or schedule_today(config))
     summary.flow_run_ids.insert(0, str(prefect_runtime.flow_run.id))
     _publish_summary_artifact(summary)
     return final_state(summary)

@@ -44,6 +44,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
+from pipeline._today import schedule_today, today_in
 from pipeline.errors import ScheduleError
 
 if TYPE_CHECKING:
@@ -56,7 +57,9 @@ __all__ = [
     "LocalPrefectServer",
     "build_deployment",
     "check_schedule",
+    "schedule_today",
     "serve",
+    "today_in",
 ]
 
 log = logging.getLogger("shockflow.schedule")

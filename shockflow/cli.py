@@ -32,7 +32,6 @@ from rich.table import Table
 from typer.core import TyperGroup
 
 import data_samples
-from dashboard import DashboardError  # the package import is light (no Dash, DuckDB)
 from pipeline.errors import ShockflowError
 
 if TYPE_CHECKING:
@@ -47,9 +46,12 @@ __all__ = [
     "EXIT_TERMINATED",
     "EXIT_USAGE",
     "app",
+    "config_path",
     "demo_config",
     "main",
     "prefect_environment",
+    "summary_json",
+    "version_text",
 ]
 
 EXIT_OK = 0
@@ -61,6 +63,9 @@ EXIT_PARTIAL = 2
 EXIT_USAGE = 64
 EXIT_INTERRUPTED = 130
 EXIT_TERMINATED = 143
+
+#: the caution every output meant for people carries
+CAUTION = "A research tool, not financial advice; estimated relations between markets change."
 
 console = Console(stderr=True, highlight=False)
 out = Console(highlight=False)
@@ -139,6 +144,47 @@ app = typer.Typer(
     rich_markup_mode=None,  # plain help: brackets print as written, flags show no value, fits 80 columns
 )
 
+def version_text() -> str:
+    """``shockflow <version>``: the installed package's version, plus the git commit when run from
+    a checkout (the same stamp the warehouse records as a run's ``code_version``)."""
+    from importlib.metadata import PackageNotFoundError, version
+
+    try:
+        text = version("shockflow")
+    except PackageNotFoundError:
+        text = "unknown (not installed)"
+    root = Path(__file__).resolve().parents[1]
+    if (root / ".git").exists():
+        import subprocess
+
+        try:
+            done = subprocess.run(
+                ["git", "-C", str(root), "rev-parse", "--short", "HEAD"],
+                capture_output=True, text=True, timeout=5, check=False,
+            )
+            if done.returncode == 0 and done.stdout.strip():
+                text += "+g" + done.stdout.strip()
+        except (OSError, subprocess.SubprocessError):
+            pass
+    return f"shockflow {text}"
+
+
+def _print_version(value: bool) -> None:
+    if value:
+        out.print(version_text(), markup=False, highlight=False)
+        raise typer.Exit(EXIT_OK)
+
+
+@app.callback()
+def _root(
+    show_version: Annotated[
+        bool,
+        typer.Option("--version", is_eager=True, callback=_print_version, help="Print shockflow's version and exit."),
+    ] = False,
+) -> None:
+    del show_version
+
+
 #: the demo's configuration, shipped as package data with the demo files (data_samples/)
 DEMO_CONFIG = data_samples.folder() / "demo.toml"
 
@@ -161,7 +207,17 @@ def prefect_environment(environ: dict[str, str] | os._Environ[str] = os.environ,
         environ.setdefault(key, value)
 
 
-ConfigOpt = Annotated[Path, typer.Option("--config", "-c", metavar="FILE", help="The TOML configuration file.")]
+ConfigOpt = Annotated[
+    Path | None,
+    typer.Option(
+        "--config", "-c", metavar="FILE",
+        help="The TOML configuration file (default: $SHOCKFLOW_CONFIG, else ./shockflow.toml).",
+    ),
+]
+#: the environment variable naming the configuration file when --config is not given
+CONFIG_ENV = "SHOCKFLOW_CONFIG"
+#: the file looked for in the current folder when neither --config nor SHOCKFLOW_CONFIG is given
+DEFAULT_CONFIG = "shockflow.toml"
 DebugOpt = Annotated[bool, typer.Option("--debug", help="Show full tracebacks on errors.")]
 HostOpt = Annotated[
     str | None,
@@ -184,7 +240,12 @@ UniverseOpt = Annotated[
 def _fail(exc: BaseException, debug: bool) -> typer.Exit:
     if debug:
         console.print_exception()
-    text = str(exc) if isinstance(exc, (ShockflowError, DashboardError)) else f"{type(exc).__name__}: {exc}"
+    # the dashboard's errors exist only once it was imported (not at start: a quiet `run` never does)
+    dash_pkg = sys.modules.get("dashboard")
+    ours: tuple[type[BaseException], ...] = (ShockflowError,)
+    if dash_pkg is not None and hasattr(dash_pkg, "DashboardError"):
+        ours += (dash_pkg.DashboardError,)
+    text = str(exc) if isinstance(exc, ours) else f"{type(exc).__name__}: {exc}"
     console.print(f"[bold red]error:[/] {escape(text)}", soft_wrap=True)
     return typer.Exit(1)
 
@@ -211,10 +272,36 @@ def _guard(debug: bool, fn: Callable[[], int]) -> None:
     raise typer.Exit(code)
 
 
-def _load(config: Path) -> Config:
+def config_path(given: Path | None, environ: dict[str, str] | os._Environ[str] = os.environ) -> Path:
+    """The configuration file: `--config`, else ``$SHOCKFLOW_CONFIG``, else ``./shockflow.toml``.
+
+    The first that is given wins (an empty SHOCKFLOW_CONFIG counts as not given); a file named by
+    --config or SHOCKFLOW_CONFIG that does not exist is reported by the loader, naming it.
+    """
+    if given is not None:
+        return given
+    named = environ.get(CONFIG_ENV, "").strip()
+    if named:
+        return Path(named).expanduser()
+    local = Path.cwd() / DEFAULT_CONFIG
+    if local.is_file():
+        return local
+    msg = (
+        f"no configuration file: pass --config FILE, set {CONFIG_ENV}=FILE, or put {DEFAULT_CONFIG} "
+        f"in the current folder ({Path.cwd()})"
+    )
+    raise ShockflowError(msg)
+
+
+def _load(config: Path | None) -> Config:
     from pipeline.config import load_config
 
-    return load_config(config)
+    try:
+        path = config_path(config)
+    except ShockflowError as exc:  # no file named and none found: the command line lacks --config
+        console.print(f"[bold red]error:[/] {escape(str(exc))}", soft_wrap=True)
+        raise typer.Exit(EXIT_USAGE) from None
+    return load_config(path)
 
 
 # ------------------------------------------------------------------------------------------
@@ -227,7 +314,7 @@ def _summary_table(summary: NightlySummary) -> Table:
     for col in ("universe", "status", "fitted", "skipped", "failed", "reused", "prepare s", "fit s", "store s", "note"):
         table.add_column(col, justify="right" if col not in ("universe", "status", "note") else "left")
     for r in summary.universes:
-        style = "green" if r.status == "succeeded" else "red"
+        style = "green" if r.status in ("succeeded", "unchanged") else "red"
         s = r.seconds
         table.add_row(
             escape(r.universe), f"[{style}]{r.status}[/]", str(r.fitted), str(r.skipped), str(r.failed), str(r.reused),
@@ -256,7 +343,7 @@ def _sources_table(summary: NightlySummary) -> Table:
     for col in ("source", "status", "rows read", "new", "revised", "seconds", "rows/s", "note"):
         table.add_column(col, justify="left" if col in ("source", "status", "note") else "right")
     for r in summary.ingest:
-        style = "green" if r.status == "succeeded" else "red"
+        style = "green" if r.status in ("succeeded", "unchanged") else "red"
         table.add_row(
             escape(r.source), f"[{style}]{r.status}[/]", f"{r.rows_read:,}", f"{r.rows_new:,}", f"{r.rows_revised:,}",
             f"{r.seconds:.2f}", _rate(r), escape(r.message or ""),
@@ -306,6 +393,8 @@ def _stages_line(summary: NightlySummary, wall: float) -> str:
     s = summary.seconds
     work = sum(s.values())
     parts = [f"{k} {v:.2f} s" for k, v in s.items()]
+    if not summary.orchestrated:
+        return f"nothing to do: checked in {work:.2f} s, no Prefect flow started; total {wall:.2f} s"
     return (
         f"stages: {', '.join(parts)}; Prefect start-up and orchestration {max(wall - work, 0):.2f} s; "
         f"total {wall:.2f} s; revisions {summary.revisions}"
@@ -319,7 +408,29 @@ def _run(
     full: bool,
     export: bool,
     debug: bool,
+    quick_check: bool = True,
 ) -> tuple[NightlySummary, float]:
+    from pipeline._tempserver import reap_orphans  # (no Prefect import)
+    from pipeline.quiet import quiet_night
+    from pipeline.schedule import schedule_today
+
+    t0 = time.perf_counter()
+    today = schedule_today(config)
+    if universes:
+        for name in universes:
+            config.universe(name)  # did-you-mean before anything starts
+    reaped = reap_orphans()
+    if reaped:
+        console.print(f"[yellow]note:[/] stopped {len(reaped)} temporary Prefect server(s) left running by a killed run")
+    # nothing new to ingest or fit: say what was checked, without starting Prefect (pipeline.quiet)
+    quiet, why = (
+        quiet_night(config, universes=universes, full=full, export=export, today=today)
+        if quick_check else (None, "--always-flow")
+    )  # fmt: skip
+    if quiet is not None:
+        return quiet, time.perf_counter() - t0
+    if debug:
+        console.print(f"[dim]starting the flow: {escape(why)}[/]")
     prefect_environment(debug=debug)
     from rich.progress import (
         BarColumn,
@@ -332,17 +443,10 @@ def _run(
 
     from pipeline import flows
     from pipeline._logs import quiet_tracebacks
-    from pipeline._tempserver import reap_orphans, start_temporary_server
+    from pipeline._tempserver import start_temporary_server
 
     quiet_tracebacks(debug)  # Prefect's console logs: one line per failure unless --debug
 
-    if universes:
-        for name in universes:
-            config.universe(name)  # did-you-mean before anything starts
-    reaped = reap_orphans()
-    if reaped:
-        console.print(f"[yellow]note:[/] stopped {len(reaped)} temporary Prefect server(s) left running by a killed run")
-    t0 = time.perf_counter()
     with Progress(
         SpinnerColumn(), TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), TimeElapsedColumn(),
         console=console, transient=False,
@@ -360,13 +464,72 @@ def _run(
         flows.set_progress_hook(hook)
         try:
             start_temporary_server()  # from this (main) thread, so it dies with this process
-            summary = flows.nightly(config, universes=universes, full=full, export=export)
+            summary = flows.nightly(config, universes=universes, full=full, export=export, today=today)
         finally:
             flows.set_progress_hook(None)
     return summary, time.perf_counter() - t0
 
 
-def _report(summary: NightlySummary, wall: float, config: Config) -> None:
+def summary_json(summary: NightlySummary, wall: float, config: Config) -> dict[str, Any]:
+    """`shockflow run --json`'s document (its fields are listed in the README, "Monitoring")."""
+    n_files = sum(len(v) for v in summary.exported.values())
+    publish = "succeeded" if summary.published else ("failed" if summary.publish_failed else "skipped")
+    export = "failed" if summary.export_message else ("succeeded" if n_files else "skipped")
+    status = {EXIT_OK: "succeeded", EXIT_PARTIAL: "partial", EXIT_NOTHING_RAN: "failed"}[summary.exit_code]
+    return {
+        "shockflow": version_text().removeprefix("shockflow "),
+        "config": str(config.path),
+        "status": status,
+        "exit_code": summary.exit_code,
+        "today": summary.today.isoformat() if summary.today else None,
+        "orchestrated": summary.orchestrated,
+        "flow_run_ids": list(summary.flow_run_ids),
+        "checked": list(summary.checked),
+        "seconds": {
+            "total": round(wall, 3),
+            "stages": {k: round(v, 3) for k, v in summary.seconds.items()},
+            "orchestration": round(max(wall - sum(summary.seconds.values()), 0.0), 3) if summary.orchestrated else 0.0,
+        },
+        "sources": [
+            {
+                "name": r.source, "status": r.status, "rows_read": r.rows_read, "rows_new": r.rows_new,
+                "rows_revised": r.rows_revised, "seconds": round(r.seconds, 3), "message": r.message,
+            }
+            for r in summary.ingest
+        ],
+        "universes": [
+            {
+                "name": r.universe, "status": r.status, "run_id": r.run_id, "fitted": r.fitted,
+                "skipped": r.skipped, "failed": r.failed, "reused": r.reused, "changed": r.changed,
+                "reason": r.reason, "message": r.message,
+                "seconds": {k: round(v, 3) for k, v in r.seconds.items()},
+            }
+            for r in summary.universes
+        ],
+        "publish": {
+            "status": publish, "snapshot": str(config.warehouse.snapshot), "message": summary.publish_message,
+        },
+        "export": {
+            "status": export, "directory": str(config.export.directory), "files": n_files,
+            "universes": sorted(summary.exported), "message": summary.export_message,
+        },
+        "revisions": summary.revisions,
+        "interrupted_marked": summary.interrupted_marked,
+        "failures": summary.failures,
+        "caution": CAUTION,
+    }
+
+
+def _report(summary: NightlySummary, wall: float, config: Config, *, as_json: bool = False) -> None:
+    if as_json:
+        out.print(json.dumps(summary_json(summary, wall, config), indent=2), markup=False, highlight=False, soft_wrap=True)
+        for failure in summary.failures:
+            console.print(f"[bold red]failed:[/] {escape(failure)}", soft_wrap=True)
+        return
+    if not summary.orchestrated:
+        out.print("nothing new to ingest or fit (checked before starting Prefect):", markup=False, soft_wrap=True)
+        for line in summary.checked:
+            out.print(f"  {line}", markup=False, highlight=False, soft_wrap=True)
     _emit(_sources_table(summary), _sources_lines(summary), "ingest")
     _emit(_summary_table(summary), _summary_lines(summary), "shockflow run")
     out.print(_stages_line(summary, wall), soft_wrap=True)
@@ -387,7 +550,7 @@ def _report(summary: NightlySummary, wall: float, config: Config) -> None:
 
 @app.command()
 def run(
-    config: ConfigOpt,
+    config: ConfigOpt = None,
     universe: UniverseOpt = None,
     full: Annotated[
         bool,
@@ -399,14 +562,31 @@ def run(
         ),
     ] = False,
     no_export: Annotated[bool, typer.Option("--no-export", help="Skip the report exports.")] = False,
+    as_json: Annotated[
+        bool,
+        typer.Option("--json", help="Print the run's summary as one JSON document (fields: README, Monitoring)."),
+    ] = False,
+    always_flow: Annotated[
+        bool,
+        typer.Option(
+            "--always-flow",
+            help="Start the Prefect flow (and record its run) even when a check finds nothing new.",
+        ),
+    ] = False,
     debug: DebugOpt = False,
 ) -> None:
-    """Ingest every source, refit new/changed windows, publish the snapshot and export reports."""
+    """Ingest every source, refit new/changed windows, publish the snapshot and export reports.
+
+    When a check before starting Prefect finds nothing new to ingest or fit, the run ends there
+    and says what it checked (no flow run is recorded; --full always runs the flow).
+    """
 
     def body() -> int:
         cfg = _load(config)
-        summary, wall = _run(cfg, universes=universe, full=full, export=not no_export, debug=debug)
-        _report(summary, wall, cfg)
+        summary, wall = _run(
+            cfg, universes=universe, full=full, export=not no_export, debug=debug, quick_check=not always_flow
+        )
+        _report(summary, wall, cfg, as_json=as_json)
         return summary.exit_code
 
     _guard(debug, body)
@@ -473,7 +653,7 @@ def _window_problems(cfg: Config, frames: list[Any]) -> list[str]:
 
 
 @app.command()
-def check(config: ConfigOpt, debug: DebugOpt = False) -> None:
+def check(config: ConfigOpt = None, debug: DebugOpt = False) -> None:
     """Validate the config, read every source, check each universe's window fits its data; writes nothing."""
 
     def body() -> int:
@@ -544,7 +724,7 @@ def check(config: ConfigOpt, debug: DebugOpt = False) -> None:
 
 @app.command()
 def export(
-    config: ConfigOpt,
+    config: ConfigOpt = None,
     universe: UniverseOpt = None,
     out_dir: Annotated[
         Path | None, typer.Option("--out", metavar="DIR", help="Export folder (default: the config's [export] directory).")
@@ -571,7 +751,7 @@ def export(
 
 
 @app.command()
-def schedule(config: ConfigOpt, debug: DebugOpt = False) -> None:
+def schedule(config: ConfigOpt = None, debug: DebugOpt = False) -> None:
     """Serve the nightly flow as a Prefect deployment on the configured cron (Ctrl+C stops it)."""
 
     def body() -> int:
@@ -587,7 +767,7 @@ def schedule(config: ConfigOpt, debug: DebugOpt = False) -> None:
 
 @app.command()
 def dashboard(
-    config: ConfigOpt,
+    config: ConfigOpt = None,
     host: HostOpt = None,
     port: PortOpt = None,
     workers: Annotated[

@@ -370,7 +370,7 @@ class ScheduleConfig:
     """When the nightly flow runs."""
 
     cron: str = setting("0 22 * * 1-5", check=_cron, doc="five-field cron of the nightly run")
-    timezone: str = setting("UTC", check=_timezone, doc="IANA time zone of the cron")
+    timezone: str = setting("UTC", check=_timezone, doc="IANA time zone of the cron and of a run's \"today\" (sources refuse rows dated after it)")
 
 
 @dataclass(frozen=True)

@@ -170,7 +170,7 @@ def test_cli_run_check_export_on_us_macro_data(prefect_harness: None, tmp_path: 
     assert joint[0][0] == pytest.approx(jc.total, rel=1e-8)
     np.testing.assert_allclose(joint[0][1], jc.from_others, rtol=1e-8)
 
-    again = runner.invoke(app, ["run", "--config", str(config)])
+    again = runner.invoke(app, ["run", "--config", str(config), "--always-flow"])  # the flow's own record
     assert again.exit_code == 0, again.output
     con = duckdb.connect(str(tmp_path / "wh" / "macro.duckdb"), read_only=True)
     try:
