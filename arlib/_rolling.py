@@ -960,7 +960,7 @@ def _fit_chunk(
             f"{k} coefficients per equation and a nonsingular residual covariance",
         )
     with timer("solve"):
-        sol = K.solve_grams(G, k, k + n, int("const" in terms))
+        sol = K.solve_grams(G, k, k + n, int("const" in terms), factor=False)
         coef_t, sse, inv = sol["coef_t"], sol["sse"], sol["inv"]
         logdet, cond = sol["logdet_sse"], sol["cond"]
         direct = ~short & (
@@ -1283,10 +1283,9 @@ def _select_orders(
             select(pos[s : s + size], G[s : s + size])
 
     def select(chunk: np.ndarray, G: np.ndarray) -> None:
-        sol = K.solve_grams(G, Kp, Kp + n, int("const" in terms))
-        L = sol["L"]
+        sol = K.solve_grams(G, Kp, Kp + n, int("const" in terms), factor=False)
         T_eff = nobs[chunk].astype(np.float64)
-        sse = K.nested_sse(L[:, Kp:, :Kp], L[:, Kp:, Kp:], [d + n * q for q in range(1, P + 1)])
+        sse = K.nested_sse(sol["L21"], sol["L22"], [d + n * q for q in range(1, P + 1)])
         crit = np.empty((len(chunk), P))
         for q in range(1, P + 1):
             with np.errstate(invalid="ignore", divide="ignore"):
