@@ -1010,7 +1010,7 @@ def _fit_chunk(
             out.ic[name][ws] = val
         out.condition_number[ws] = cond
     with timer("spectral radius"):
-        rho, _ = K.spectral_radius_batch(_balanced(acat, sigma, p), n, p)
+        rho, _ = K.spectral_radius_batch(_balanced(acat, sigma, p), n, p, timer=timer)
         out.spectral_radius[ws] = rho
     with timer("connectedness"):
         _responses_and_decompositions(acat, sigma, out, ws)

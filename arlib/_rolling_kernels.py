@@ -32,6 +32,10 @@ Lütkepohl, H. (2005). New Introduction to Multiple Time Series Analysis. Spring
 
 from __future__ import annotations
 
+from collections.abc import Iterator
+from contextlib import contextmanager
+from typing import Any
+
 import numpy as np
 from scipy import special
 
@@ -370,8 +374,12 @@ def spectral_radius_batch(
     max_dim: int | None = None,
     rank_tol: float = 1e-12,
     resid_tol: float = 1e-12,
+    timer: Any = None,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Largest eigenvalue modulus of each companion matrix, and a (W,) bool "certified".
+
+    `timer` (optional, e.g. the rolling engine's stage timer) receives the time of the three
+    parts as "spectral radius: squarings", ": Ritz and certificate", ": LAPACK fallback".
 
     Method (Golub & Van Loan 2013, Secs. 7.3.1–7.3.2):
 
@@ -401,7 +409,30 @@ def spectral_radius_batch(
         return np.abs(np.linalg.eigvals(companion_batch(acat, n, p))).max(axis=-1), np.zeros(
             W, dtype=bool
         )
-    cnorm = np.sqrt(np.einsum("wij,wij->w", acat, acat) + (N - n))  # ||C||_F
+    part = timer if timer is not None else _no_timer
+    with part("spectral radius: squarings"):
+        Y, good = _companion_power(acat, n, p, squarings)
+    with part("spectral radius: Ritz and certificate"):
+        rho, good = _ritz_step(Y, acat, n, p, good, max_dim, rank_tol, resid_tol)
+    with part("spectral radius: LAPACK fallback"):
+        if (~good).any():
+            C = companion_batch(acat[~good], n, p)
+            rho[~good] = np.abs(np.linalg.eigvals(C)).max(axis=-1)
+    return rho, good
+
+
+@contextmanager
+def _no_timer(name: str) -> Iterator[None]:
+    yield
+
+
+def _companion_power(
+    acat: np.ndarray, n: int, p: int, squarings: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """Step 1 of `spectral_radius_batch`: (Y (W, N, N) ∝ C^(2^squarings) of unit Frobenius
+    norm, (W,) bool good = no overflow or underflow on the way)."""
+    W = acat.shape[0]
+    N = n * p
     # C² without forming C: top rows A_1 [A_1..A_p] + [A_2..A_p, 0], then rows of C shifted down
     if p == 1:
         Y = acat @ acat
@@ -424,6 +455,18 @@ def spectral_radius_batch(
             good &= fine
             s[~fine] = 1.0
             Y *= (1.0 / s)[:, None, None]
+    return Y, good
+
+
+def _ritz_step(
+    Y: np.ndarray, acat: np.ndarray, n: int, p: int, good: np.ndarray, max_dim: int | None,
+    rank_tol: float, resid_tol: float,
+) -> tuple[np.ndarray, np.ndarray]:  # fmt: skip
+    """Steps 2–4 of `spectral_radius_batch`: (|θ| (W,), certified (W,) bool)."""
+    W = acat.shape[0]
+    N = n * p
+    good = good.copy()
+    cnorm = np.sqrt(np.einsum("wij,wij->w", acat, acat) + (N - n))  # ||C||_F
     dm = min(max(8, N // 5) if max_dim is None else max_dim, N - 1)
     omega = _sketch(N, dm + 1)
     S = np.swapaxes(Y @ omega, 1, 2)  # (W, dm+1, N): sketch columns as rows
@@ -495,10 +538,8 @@ def spectral_radius_batch(
     snorm = np.sqrt((ab * ab).sum(axis=(1, 2)))
     with np.errstate(invalid="ignore"):
         good &= resid <= resid_tol * cnorm * snorm
-    out = np.empty(W)
+    out = np.full(W, np.nan)
     out[good] = np.abs(theta[good])
-    if (~good).any():
-        out[~good] = np.abs(np.linalg.eigvals(companion_batch(acat[~good], n, p))).max(axis=-1)
     return out, good
 
 
