@@ -26,7 +26,8 @@ Cross-products are formed in shifted coordinates (each series less a shift close
 in the window, see Reproducibility; no shift for trend "n", where a shift would change the model)
 and summed without differencing running totals over the history
 (`_rolling_kernels.anchored_window_sums`); each window is solved by a Cholesky factorisation of
-its augmented cross-product matrix, which also yields the residual cross-products. Every
+its augmented cross-product matrix (blocked: the regressor block, then the residual Schur
+complement), which also yields the residual cross-products. Every
 condition measure below is scale-free (the same in any units). The loss of accuracy is about
 κ·1e-16 relative, where κ is `condition_number` = k'·Σ_i VIF_i over the k' non-constant
 regressors (centred when the model has an intercept): trace(R)·trace(R^{-1}) of their

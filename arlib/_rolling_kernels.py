@@ -12,9 +12,10 @@ The arithmetic follows the single-fit functions (`_estimate`, `_responses`, `_de
   sum is a sum of non-negative-definite terms (never a difference of two large running totals:
   no cancellation, whatever the length of the history) and the same bit for bit whichever other
   windows are computed with it;
-- one Cholesky factorisation of the augmented cross-product matrix gives the coefficients, the
-  residual cross-products (without forming Y'Y − Y'X B, another cancellation avoided) and
-  (X'X)^{-1};
+- one Cholesky factorisation of the augmented cross-product matrix, blocked as regressor block
+  and residual Schur complement (two small LAPACK factorisations joined by batched products),
+  gives the coefficients, the residual cross-products (without forming Y'Y − Y'X B, another
+  cancellation avoided) and (X'X)^{-1};
 - the spectral radius from repeated squaring of the companion matrix, a Rayleigh–Ritz step on the
   dominant invariant subspace it exposes, and a residual certificate (windows that fail it go to
   LAPACK's eigenvalue routine);
@@ -631,11 +632,11 @@ def granger_f(
     lag = inv[:, :, d:]  # (W, k, n·p); column l·n + j is lag l+1 of series j
     # V[w, j, l, l'] = Σ_r L^{-1}[w, r, l·n + j] L^{-1}[w, r, l'·n + j]
     V = np.empty((W, n, p, p))
-    for a in range(p):
-        for b in range(a + 1):
-            col_a, col_b = lag[:, :, a * n : (a + 1) * n], lag[:, :, b * n : (b + 1) * n]
-            V[:, :, a, b] = np.einsum("wrj,wrj->wj", col_a, col_b)
-            V[:, :, b, a] = V[:, :, a, b]
+    for la in range(p):
+        for lb in range(la + 1):
+            col_a, col_b = lag[:, :, la * n : (la + 1) * n], lag[:, :, lb * n : (lb + 1) * n]
+            V[:, :, la, lb] = np.einsum("wrj,wrj->wj", col_a, col_b)
+            V[:, :, lb, la] = V[:, :, la, lb]
     b = coef_t[:, :, d:].reshape(W, n, p, n)  # b[w, i, l, j]
     b = np.moveaxis(b, -1, 2)  # (W, n_i, n_j, p)
     if p == 1:
