@@ -12,9 +12,10 @@ The arithmetic follows the single-fit functions (`_estimate`, `_responses`, `_de
   sum is a sum of non-negative-definite terms (never a difference of two large running totals:
   no cancellation, whatever the length of the history) and the same bit for bit whichever other
   windows are computed with it;
-- one Cholesky factorisation of the augmented cross-product matrix gives the coefficients, the
-  residual cross-products (without forming Y'Y − Y'X B, another cancellation avoided) and
-  (X'X)^{-1};
+- one Cholesky factorisation of the augmented cross-product matrix, blocked as regressor block
+  and residual Schur complement (two small LAPACK factorisations joined by batched products),
+  gives the coefficients, the residual cross-products (without forming Y'Y − Y'X B, another
+  cancellation avoided) and (X'X)^{-1};
 - the spectral radius from repeated squaring of the companion matrix, a Rayleigh–Ritz step on the
   dominant invariant subspace it exposes, and a residual certificate (windows that fail it go to
   LAPACK's eigenvalue routine);
@@ -31,6 +32,10 @@ Lütkepohl, H. (2005). New Introduction to Multiple Time Series Analysis. Spring
 """
 
 from __future__ import annotations
+
+from collections.abc import Iterator
+from contextlib import contextmanager
+from typing import Any
 
 import numpy as np
 from scipy import special
@@ -211,7 +216,9 @@ def triangular_inverse(L: np.ndarray, size: int = 8) -> np.ndarray:
     return X
 
 
-def solve_grams(G: np.ndarray, k: int, m: int, centred: int) -> dict[str, np.ndarray]:
+def solve_grams(
+    G: np.ndarray, k: int, m: int, centred: int, *, factor: bool = True
+) -> dict[str, np.ndarray]:
     """Least squares for a batch of augmented cross-product matrices given as lower triangles
     (W, m, m), columns ordered [deterministic terms, lagged series | series].
 
@@ -239,17 +246,26 @@ def solve_grams(G: np.ndarray, k: int, m: int, centred: int) -> dict[str, np.nda
       equation (R² about the working shift): the residual cross-products come out of the
       Schur complement Y'Y − Y'X (X'X)^{-1} X'Y with a relative error of about this times 1e-16.
 
-    Returns "coef_t" (W, n, k), "sse" (W, n, n), "inv" = L11^{-1} (W, k, k), "logdet_sse",
-    "cond", "cond_work", "sse_cond", "fit_cond" (inf where the factorisation failed), "L" and
-    bool "ok".
+    Returns "coef_t" (W, n, k), "sse" (W, n, n), "inv" = L11^{-1} (W, k, k), "inv_diag" (W, k)
+    the diagonal of (X'X)^{-1}, "logdet_sse", "cond", "cond_work", "sse_cond", "fit_cond" (inf
+    where the factorisation failed), the blocks "L21" (W, n, k) and "L22" (W, n, n), bool "ok",
+    and with `factor` (the default) the whole factor "L" (W, m, m).
     """
     gdiag = np.diagonal(G, axis1=1, axis2=2)[:, :k].copy()
     ydiag = np.diagonal(G, axis1=1, axis2=2)[:, k:].copy()
     n = m - k
-    L, ok = cholesky_batch(G)
-    inv = triangular_inverse(L[:, :k, :k])
-    L22 = L[:, k:, k:]
-    coef_t = L[:, k:, :k] @ inv
+    W = G.shape[0]
+    # blocked factorisation (Golub & Van Loan 2013, Sec. 4.2.9): L11 = chol(G11),
+    # L21 = G21 L11^{-T}, L22 = chol(G22 − L21 L21'); two small LAPACK factorisations and
+    # batched products instead of one larger factorisation (LAPACK's small-matrix overhead
+    # grows steeply with size); every step acts on each window alone
+    L11, ok = cholesky_batch(G[:, :k, :k])
+    inv = triangular_inverse(L11)
+    L21 = G[:, k:, :k] @ np.swapaxes(inv, 1, 2)
+    schur = G[:, k:, k:] - L21 @ np.swapaxes(L21, 1, 2)  # lower triangle read
+    L22, ok22 = cholesky_batch(schur)
+    ok &= ok22
+    coef_t = L21 @ inv
     sse = L22 @ np.swapaxes(L22, 1, 2)
     d22 = np.diagonal(L22, axis1=1, axis2=2)
     c = centred
@@ -257,7 +273,7 @@ def solve_grams(G: np.ndarray, k: int, m: int, centred: int) -> dict[str, np.nda
         logdet = 2.0 * np.log(d22).sum(axis=-1)
         inv_diag = _sum_squares(inv, axis=1)  # ((X'X)^{-1})_ii = Σ_r (L^{-1})_ri²
         cond_work = k * (gdiag * inv_diag).sum(axis=-1)
-        Lc = L[:, c:k, c:k]
+        Lc = L11[:, c:, c:]
         cdiag = _sum_squares(Lc, axis=2)  # C_ii = Σ_{c'} L̃_ic'²
         cond = (k - c) * (cdiag * inv_diag[:, c:]).sum(axis=-1)
         # residual correlation matrix R = D^{-1/2} Û'Û D^{-1/2}: trace(R) trace(R^{-1}) =
@@ -272,18 +288,27 @@ def solve_grams(G: np.ndarray, k: int, m: int, centred: int) -> dict[str, np.nda
     bad = ~ok
     for arr in (cond, cond_work, sse_cond, fit_cond):
         arr[bad] = np.inf
-    return {
+    out = {
         "coef_t": coef_t,
         "sse": sse,
         "inv": inv,
+        "inv_diag": inv_diag,
         "logdet_sse": logdet,
         "cond": cond,
         "cond_work": cond_work,
         "sse_cond": sse_cond,
         "fit_cond": fit_cond,
         "ok": ok,
-        "L": L,
+        "L21": L21,
+        "L22": L22,
     }
+    if factor:
+        L = np.zeros((W, m, m))
+        L[:, :k, :k] = L11
+        L[:, k:, :k] = L21
+        L[:, k:, k:] = L22
+        out["L"] = L
+    return out
 
 
 def _sum_squares(x: np.ndarray, axis: int | tuple[int, ...]) -> np.ndarray:
@@ -326,6 +351,21 @@ def companion_batch(acat: np.ndarray, n: int, p: int) -> np.ndarray:
     return C
 
 
+def _sketch(N: int, columns: int) -> np.ndarray:
+    """The fixed Gaussian test matrix Ω (N, columns) with unit columns, made once per shape
+    (a pure function of its shape and `_SKETCH_SEED`)."""
+    omega = _SKETCHES.get((N, columns))
+    if omega is None:
+        omega = np.random.default_rng(_SKETCH_SEED).standard_normal((N, columns))
+        omega /= np.linalg.norm(omega, axis=0)
+        omega.flags.writeable = False
+        _SKETCHES[(N, columns)] = omega
+    return omega
+
+
+_SKETCHES: dict[tuple[int, int], np.ndarray] = {}
+
+
 def spectral_radius_batch(
     acat: np.ndarray,
     n: int,
@@ -335,8 +375,12 @@ def spectral_radius_batch(
     max_dim: int | None = None,
     rank_tol: float = 1e-12,
     resid_tol: float = 1e-12,
+    timer: Any = None,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Largest eigenvalue modulus of each companion matrix, and a (W,) bool "certified".
+
+    `timer` (optional, e.g. the rolling engine's stage timer) receives the time of the three
+    parts as "spectral radius: squarings", ": Ritz and certificate", ": LAPACK fallback".
 
     Method (Golub & Van Loan 2013, Secs. 7.3.1–7.3.2):
 
@@ -366,7 +410,30 @@ def spectral_radius_batch(
         return np.abs(np.linalg.eigvals(companion_batch(acat, n, p))).max(axis=-1), np.zeros(
             W, dtype=bool
         )
-    cnorm = np.sqrt(np.einsum("wij,wij->w", acat, acat) + (N - n))  # ||C||_F
+    part = timer if timer is not None else _no_timer
+    with part("spectral radius: squarings"):
+        Y, good = _companion_power(acat, n, p, squarings)
+    with part("spectral radius: Ritz and certificate"):
+        rho, good = _ritz_step(Y, acat, n, p, good, max_dim, rank_tol, resid_tol)
+    with part("spectral radius: LAPACK fallback"):
+        if (~good).any():
+            C = companion_batch(acat[~good], n, p)
+            rho[~good] = np.abs(np.linalg.eigvals(C)).max(axis=-1)
+    return rho, good
+
+
+@contextmanager
+def _no_timer(name: str) -> Iterator[None]:
+    yield
+
+
+def _companion_power(
+    acat: np.ndarray, n: int, p: int, squarings: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """Step 1 of `spectral_radius_batch`: (Y (W, N, N) ∝ C^(2^squarings) of unit Frobenius
+    norm, (W,) bool good = no overflow or underflow on the way)."""
+    W = acat.shape[0]
+    N = n * p
     # C² without forming C: top rows A_1 [A_1..A_p] + [A_2..A_p, 0], then rows of C shifted down
     if p == 1:
         Y = acat @ acat
@@ -389,9 +456,20 @@ def spectral_radius_batch(
             good &= fine
             s[~fine] = 1.0
             Y *= (1.0 / s)[:, None, None]
+    return Y, good
+
+
+def _ritz_step(
+    Y: np.ndarray, acat: np.ndarray, n: int, p: int, good: np.ndarray, max_dim: int | None,
+    rank_tol: float, resid_tol: float,
+) -> tuple[np.ndarray, np.ndarray]:  # fmt: skip
+    """Steps 2–4 of `spectral_radius_batch`: (|θ| (W,), certified (W,) bool)."""
+    W = acat.shape[0]
+    N = n * p
+    good = good.copy()
+    cnorm = np.sqrt(np.einsum("wij,wij->w", acat, acat) + (N - n))  # ||C||_F
     dm = min(max(8, N // 5) if max_dim is None else max_dim, N - 1)
-    omega = np.random.default_rng(_SKETCH_SEED).standard_normal((N, dm + 1))
-    omega /= np.linalg.norm(omega, axis=0)
+    omega = _sketch(N, dm + 1)
     S = np.swapaxes(Y @ omega, 1, 2)  # (W, dm+1, N): sketch columns as rows
     del Y
     Qt = np.zeros((W, dm, N))  # orthonormal basis vectors as rows
@@ -461,10 +539,8 @@ def spectral_radius_batch(
     snorm = np.sqrt((ab * ab).sum(axis=(1, 2)))
     with np.errstate(invalid="ignore"):
         good &= resid <= resid_tol * cnorm * snorm
-    out = np.empty(W)
+    out = np.full(W, np.nan)
     out[good] = np.abs(theta[good])
-    if (~good).any():
-        out[~good] = np.abs(np.linalg.eigvals(companion_batch(acat[~good], n, p))).max(axis=-1)
     return out, good
 
 
@@ -548,15 +624,19 @@ def granger_f(
 
         F_ij = b_ij' V_j^{-1} b_ij / (p σ_ii).
 
-    `inv` is L^{-1} (W, k, k); the lag block of (X'X)^{-1} is formed from its lag columns by one
-    product per window, V_j picked from it, and factored by a batched Cholesky over the p×p
-    blocks (p is small).
+    `inv` is L^{-1} (W, k, k); only the p×p blocks V_j of (X'X)^{-1} = L^{-T} L^{-1} are
+    formed, each entry a column product of L^{-1} (p(p+1)/2 products of n columns per window,
+    not the whole lag block), and factored by a batched Cholesky over the p×p blocks (p is small).
     """
     W = inv.shape[0]
     lag = inv[:, :, d:]  # (W, k, n·p); column l·n + j is lag l+1 of series j
-    M = np.swapaxes(lag, 1, 2) @ lag  # lag block of (X'X)^{-1} = L^{-T} L^{-1}
-    # V[w, j, l, l'] = M[w, l·n + j, l'·n + j]
-    V = np.diagonal(M.reshape(W, p, n, p, n), axis1=2, axis2=4).transpose(0, 3, 1, 2)
+    # V[w, j, l, l'] = Σ_r L^{-1}[w, r, l·n + j] L^{-1}[w, r, l'·n + j]
+    V = np.empty((W, n, p, p))
+    for la in range(p):
+        for lb in range(la + 1):
+            col_a, col_b = lag[:, :, la * n : (la + 1) * n], lag[:, :, lb * n : (lb + 1) * n]
+            V[:, :, la, lb] = np.einsum("wrj,wrj->wj", col_a, col_b)
+            V[:, :, lb, la] = V[:, :, la, lb]
     b = coef_t[:, :, d:].reshape(W, n, p, n)  # b[w, i, l, j]
     b = np.moveaxis(b, -1, 2)  # (W, n_i, n_j, p)
     if p == 1:
