@@ -153,17 +153,22 @@ def csv_file(rows: Any, chart: Any, state: Any) -> dict[str, Any] | None:
 
 
 def _view_callback(snap: Snapshot, view: View) -> Callable[..., list[Any]]:
-    """The callback body of one row of `VIEWS`: window state, input values (and the active tab)
-    → per chart (figure, CSV rows), the note, and the extra output if the row has one."""
+    """The callback body of one row of `VIEWS`: window state and input values → per chart (figure,
+    CSV rows), the note, and the extra output if the row has one.
+
+    A view shown above the tabs gets (state, *values) as its callback's inputs; a tab's view gets
+    them as one list, its ask (`ask_id`), which the browser sets only while the tab is selected and
+    only when the list differs from the last one asked (`ASK_JS`)."""
     from dash.exceptions import PreventUpdate
 
-    def run(state: Any, *values: Any) -> list[Any]:
-        given = list(values)
+    def run(*given: Any) -> list[Any]:
         if view.tab is not None:
-            active = given.pop()
-            if active != view.name:  # only the visible tab computes
-                raise PreventUpdate
-        triples = view.results(snap, state, *given)
+            (ask,) = given
+            if not isinstance(ask, list) or len(ask) != 1 + len(view.inputs):
+                raise PreventUpdate  # never asked yet (the tab was never selected)
+            given = tuple(ask)
+        state, *values = given
+        triples = view.results(snap, state, *values)
         out: list[Any] = []
         for fig, rows, _ in triples:
             out += [fig, rows]
@@ -174,6 +179,26 @@ def _view_callback(snap: Snapshot, view: View) -> Callable[..., list[Any]]:
 
     run.__name__ = f"_{view.name}_view"
     return run
+
+
+#: In the browser, per tab: (window state, *input values, selected tab, last ask) → the new ask
+#: ``[state, *values]``, or no update while the tab is not selected or nothing changed since the
+#: last ask. So a tab computes only when shown, and coming back to it unchanged costs no request.
+ASK_JS = """function () {
+    const args = Array.prototype.slice.call(arguments);
+    const last = args.pop();
+    const tab = args.pop();
+    if (tab !== %s) { return window.dash_clientside.no_update; }
+    if (last !== null && last !== undefined && JSON.stringify(last) === JSON.stringify(args)) {
+        return window.dash_clientside.no_update;
+    }
+    return args;
+}"""
+
+#: In the browser: the selected tab → each panel's class (`layout.PANEL_CLASSES`), in `VIEWS` order.
+PANELS_JS = """function (tab) {
+    return %s.map(name => name === tab ? %s : %s);
+}"""
 
 
 def universe_defaults(snap: Snapshot, universe: Any) -> dict[tuple[str, str], Any]:
@@ -253,6 +278,16 @@ def register(app: Any, snap: Snapshot, settings: Any = None) -> None:
             raise PreventUpdate from None
         return [values[k] for k in targets]
 
+    import json
+
+    from .layout import PANEL_CLASSES
+
+    tabbed = [v for v in views.VIEWS if v.tab is not None]
+    app.clientside_callback(
+        PANELS_JS % (json.dumps([v.name for v in tabbed]), json.dumps(PANEL_CLASSES[True]),
+                     json.dumps(PANEL_CLASSES[False])),
+        [Output(ids.panel_id(v.name), "className") for v in tabbed], Input(ids.TABS, "value"),
+    )  # fmt: skip
     for view in views.VIEWS:
         outputs = []
         for chart, _ in view.chart_list:
@@ -262,7 +297,12 @@ def register(app: Any, snap: Snapshot, settings: Any = None) -> None:
             outputs.append(Output(view.extra[0], "children"))
         inputs = [Input(ids.WINDOW, "data"), *(Input(cid, "value") for cid in view.inputs)]
         if view.tab is not None:
-            inputs.append(Input(ids.TABS, "value"))
+            ask = ids.ask_id(view.name)
+            app.clientside_callback(
+                ASK_JS % json.dumps(view.name), Output(ask, "data"),
+                [*inputs, Input(ids.TABS, "value")], State(ask, "data"),
+            )  # fmt: skip
+            inputs = [Input(ask, "data")]
         app.callback(outputs, inputs)(_view_callback(snap, view))
 
     @app.callback(

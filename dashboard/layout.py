@@ -19,7 +19,7 @@ from .data import Snapshot, Universe
 from .settings import DashboardSettings
 from .views import View
 
-__all__ = ["CAUTION", "build", "horizon_views"]
+__all__ = ["CAUTION", "PANEL_CLASSES", "build", "horizon_views"]
 
 CAUTION = (
     "A research tool, not financial advice. Estimated relations between markets change over time."
@@ -38,7 +38,9 @@ def _charts(view: View) -> list[Any]:
     return out
 
 
-def _tab(view: View, first: Universe | None) -> dcc.Tab:
+def _panel(view: View, first: Universe | None, *, shown: bool) -> html.Div:
+    """A tab's content: kept on the page whichever tab is selected, so coming back to a tab shows its
+    charts as they were drawn (no redraw, no request) — only its class changes (`_PANEL_CLASSES`)."""
     children: list[Any] = []
     if view.intro:
         children.append(html.P(view.intro, className="note"))
@@ -47,16 +49,25 @@ def _tab(view: View, first: Universe | None) -> dcc.Tab:
     children += [*_charts(view), note(view.note_id)]
     if view.extra is not None:
         children.append(html.Div(id=view.extra[0]))
-    return dcc.Tab(label=view.tab, value=view.name, children=children, className="view-tab",
-                   selected_className="view-tab--selected")  # fmt: skip
+    children.append(dcc.Store(id=ids.ask_id(view.name)))
+    return html.Div(children, id=ids.panel_id(view.name), className=PANEL_CLASSES[shown])
 
 
-def _tabs(first: Universe | None) -> dcc.Tabs:
+#: A panel's class when its tab is (True) or is not (False) selected; a hidden panel keeps its
+#: width (style.css), so its charts never re-lay themselves out when shown.
+PANEL_CLASSES = {True: "view-panel", False: "view-panel view-panel--hidden"}
+
+
+def _tabs(first: Universe | None) -> list[Any]:
+    """The tab strip (labels only) and, under it, every tab's panel."""
     shown = [v for v in views.VIEWS if v.tab]
-    return dcc.Tabs(
-        id=ids.TABS, value=shown[0].name, children=[_tab(v, first) for v in shown], className="view-tabs",
-        parent_className="view-tabs-parent",
+    strip = dcc.Tabs(
+        id=ids.TABS, value=shown[0].name, className="view-tabs", parent_className="view-tabs-parent",
+        children=[dcc.Tab(label=v.tab, value=v.name, className="view-tab", selected_className="view-tab--selected")
+                  for v in shown],
     )  # fmt: skip
+    panels = html.Div([_panel(v, first, shown=k == 0) for k, v in enumerate(shown)], id=ids.PANELS)
+    return [strip, panels]
 
 
 def _model_bar(first: Universe | None) -> html.Div:
@@ -133,7 +144,7 @@ def build(snap: Snapshot, settings: DashboardSettings) -> html.Div:
                            id=ids.REPORTS, className="reports")],
                  className="under-index"),
         _model_bar(first),
-        _tabs(first),
+        *_tabs(first),
         dcc.Store(id=ids.WINDOW),
         html.Footer([html.Strong("Caution. "), CAUTION], id=ids.CAUTION, className="caution", role="note"),
     ]  # fmt: skip
