@@ -96,7 +96,7 @@ PROBE = r"""
         return p;
       };
     }
-    P.__perfWrapped = true;
+    P.__perfWrapped = true; S.plotlyAt = performance.now();
     return true;
   };
   if (!wrap()) { const t = setInterval(() => { if (wrap()) clearInterval(t); }, 2); }

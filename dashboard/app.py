@@ -69,7 +69,7 @@ def create_app(settings_or_config: Any) -> Any:
 
     import arlib  # noqa: F401  (scipy loads here, once, not inside the first visitor's callbacks)
 
-    from .callbacks import register
+    from .callbacks import Answers, first_view, register
     from .data import Snapshot
     from .layout import build
     from .reports import resolve_report
@@ -96,8 +96,9 @@ def create_app(settings_or_config: Any) -> Any:
     def _unpin_snapshot(exc: BaseException | None) -> None:
         snap.reader.end_pin()
 
-    app.layout = lambda: build(snap, settings)
-    register(app, snap, settings)
+    answers = Answers()  # per worker process: what every visitor asks first is computed once
+    app.layout = lambda: build(snap, settings, first_view(snap, answers))
+    register(app, snap, settings, answers)
 
     @app.server.route("/reports/<path:name>")
     def _report(name: str) -> Any:

@@ -14,6 +14,7 @@ import pytest
 from dashboard import DashboardError, DashboardSettings, InsecureBindError, create_app, serve
 from dashboard.app import check_bind
 from dashboard.auth import COOKIE
+from dashboard.callbacks import asks
 from dashboard.reports import latest_reports, resolve_report
 
 from .conftest import read
@@ -29,6 +30,7 @@ def _prop_id(spec: dict[str, Any]) -> str:
 def call(client: Any, app: Any, output_key: str, values: dict[str, Any], *, headers: dict[str, str] | None = None) -> Any:
     """POST one callback the way the browser does; `values` maps "id.prop" to the value sent."""
     spec = app.callback_map[output_key]
+    values = {**values, **asks(values)}  # a tab's view is sent its inputs as one list
 
     def fill(specs: list[dict[str, Any]]) -> list[dict[str, Any]]:
         return [{"id": s["id"], "property": s["property"], "value": values.get(_prop_id(s))} for s in specs]

@@ -420,7 +420,7 @@ def test_shock_path_layout_in_the_browser(page: Any, snapshot_path: Path, univer
     svg = page.evaluate(BOXES_JS, ["paths-graph", ".main-svg"])[0]
     (legend,) = page.evaluate(BOXES_JS, ["paths-graph", ".legend"])
     assert svg["top"] <= legend["top"] and legend["bottom"] <= svg["bottom"] + 1, (legend, svg)
-    controls = page.evaluate(BOXES_JS, ["views", ".controls"]) + page.evaluate(BOXES_JS, ["model-bar", "*"])
+    controls = page.evaluate(BOXES_JS, ["paths-panel", ".controls"]) + page.evaluate(BOXES_JS, ["model-bar", "*"])
     assert not any(_overlap(legend, c) for c in controls)
     titles = page.evaluate(BOXES_JS, ["paths-graph", ".gtitle"])
     assert titles and all(t["right"] <= svg["right"] + 1 for t in titles), (titles, svg)

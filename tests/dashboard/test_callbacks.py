@@ -591,9 +591,10 @@ def test_a_new_view_is_one_row_of_the_table(monkeypatch: pytest.MonkeyPatch, sna
     body = {
         "output": key,
         "outputs": [{"id": o.split(".")[0], "property": o.split(".")[1]} for o in key.strip(".").split("...")],
+        # a tab's view is sent (window state, *its inputs) as one list, its ask (callbacks.ASK_JS)
         "inputs": [{"id": i["id"], "property": i["property"], "value": v}
-                   for i, v in zip(spec["inputs"], [state, "7", "echo"], strict=True)],
-        "changedPropIds": ["horizon.value"], "state": [],
+                   for i, v in zip(spec["inputs"], [[state, "7"]], strict=True)],
+        "changedPropIds": ["echo-ask.data"], "state": [],
     }  # fmt: skip
     outputs = body["outputs"]
     assert [o["id"] for o in outputs] == ["echo-graph", '{"chart":"echo","type":"chart-data"}', "echo-note"]
