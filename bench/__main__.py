@@ -17,6 +17,7 @@ import time
 CASES: dict[str, str] = {
     "rolling": "bench.rolling:main",
     "dashboard": "bench.dashboard_callbacks:case",
+    "dashboard_browser": "bench.dashboard_browser:case",
     "pipeline": "bench.pipeline:main",
     "load": "bench.load_dashboard:case",
     "ingest_memory": "bench.ingest_memory:case",

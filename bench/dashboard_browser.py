@@ -12,19 +12,20 @@ its own records, on the page's clock (``performance.now()``):
 
 An interaction lasts from its input event to the last request answered or chart drawn, once the
 page has been quiet (nothing pending, nothing new) for `QUIET_MS`. Reported per case: p50 and p95
-over the repeats, the round trips per interaction, the bytes answered, and the split into server
-(request sent → answered, summed over the chain's longest path is not attempted: the sum of
-request times and the time after the last answer are shown) and client drawing after the last answer.
+over the repeats, the round trips per interaction, the bytes answered, where the time goes — the
+summed request times (sent → answered; requests of one chain overlap) and the client's drawing
+after the last answer.
 
 First paint: a fresh browser context (empty cache) per repeat; navigation start → the index chart
 drawn with data.
 
-``--baseline DIR`` runs a second server from another checkout of the code (e.g. ``git worktree add
-/tmp/base $(git merge-base HEAD main)``) and measures both, interleaved, in the same browser: the
-before/after table. Goals (issue 15): first chart ≤ 1.5 s, every interaction p95 ≤ 300 ms.
+A second server runs the code of another checkout (``--baseline DIR``) or git revision
+(``--baseline-rev REV``; `make bench` uses `BASELINE_REV`, the dashboard before issue 15) and
+both are measured, interleaved, in the same browser: the before/after table. Goals (issue 15):
+first chart ≤ 1.5 s, every interaction p95 ≤ 300 ms.
 
     python -m bench dashboard_browser
-    python -m bench.dashboard_browser [--snapshot FILE] [--repeats 10] [--baseline DIR]
+    python -m bench.dashboard_browser [--snapshot FILE] [--repeats 10] [--baseline DIR | --baseline-rev REV]
 """
 
 from __future__ import annotations
@@ -36,6 +37,7 @@ import signal
 import statistics
 import subprocess
 import sys
+import tempfile
 from collections.abc import Iterator, Sequence
 from contextlib import ExitStack, contextmanager
 from dataclasses import dataclass, field
@@ -266,29 +268,40 @@ def _click_tab(label: str) -> Any:
     return act
 
 
-def measure(browser: Any, url: str, out: Measured, *, repeats: int) -> None:
-    """One pass of every case against the dashboard at `url`, adding `repeats`-ish samples each."""
-    for _ in range(max(1, repeats // 3)):
+def _tab_case(label: str, changed: bool) -> str:
+    which = "Compare windows" if label == "Compare windows" else "other tabs"
+    return f"tab switch, {which}: " + ("window changed since shown" if changed else "nothing changed")
+
+
+def measure(browser: Any, url: str, out: Measured, *, repeats: int, offset: int = 0) -> None:
+    """One pass of every case against the dashboard at `url`: `repeats` samples of each.
+
+    Every date-window change asks for a window not asked before in this run (`offset` shifts the
+    dates between passes), so no answer is a repeat of an earlier one."""
+    import datetime as dt
+
+    for _ in range(max(1, repeats // 2)):
         out.add("first chart painted (fresh browser)", first_paint(browser, url))
     page = open_page(browser, url)
     try:
         labels = tab_labels(page)
-        end = page.input_value("#window-end")
-        start = page.input_value("#window-start")
-        import datetime as dt
+        lo = dt.date.fromisoformat(page.input_value("#window-start"))
+        hi = dt.date.fromisoformat(page.input_value("#window-end"))
 
-        lo, hi = dt.date.fromisoformat(start), dt.date.fromisoformat(end)
-        ends = [(hi - dt.timedelta(days=round((hi - lo).days * f))).isoformat() for f in (0.1, 0.25, 0.4)]
+        def new_end(k: int) -> str:
+            return (hi - dt.timedelta(days=7 * (3 + 2 * offset + 5 * k) + (hi - lo).days // 10)).isoformat()
+
         for k in range(repeats):
-            out.add("change the window's 'to' date", interact(page, _set_end(ends[k % len(ends)])))
-        for k in range(repeats):
-            for label in labels:
-                name = "tab switch: " + ("Compare windows" if label == "Compare windows" else "other tabs")
-                out.add(name, interact(page, _click_tab(label)))
+            out.add("change the window's 'to' date", interact(page, _set_end(new_end(2 * k))))
+            for changed in (True, False):
+                for label in labels:
+                    out.add(_tab_case(label, changed), interact(page, _click_tab(label)))
+            page.locator(".view-tab", has_text=labels[0]).first.click()
+            _settle(page)
         page.locator(".view-tab", has_text="Compare windows").first.click()
         _settle(page)
         for k in range(repeats):
-            out.add("change 'to' date on Compare windows", interact(page, _set_end(ends[k % len(ends)])))
+            out.add("change the 'to' date on Compare windows", interact(page, _set_end(new_end(2 * k + 1))))
     finally:
         page.close()
 
@@ -310,9 +323,9 @@ def run(snapshot: Path, *, repeats: int = 10, baseline: Path | None = None) -> d
         for name in results:  # warm each server once (imports, snapshot caches) before measuring
             open_page(browser, urls[name]).close()
         half = max(1, repeats // 2)
-        for _ in range(2):
+        for k in range(2):  # two interleaved passes each, so both see the machine's load alike
             for name in results:
-                measure(browser, urls[name], results[name], repeats=half)
+                measure(browser, urls[name], results[name], repeats=half, offset=k)
         browser.close()
     return results
 
@@ -348,7 +361,7 @@ def report(results: dict[str, Measured]) -> None:
             ],
         )  # fmt: skip
     if len(results) == 2:
-        (bname, before), (aname, after) = results.items()
+        (_, before), (_, after) = results.items()
         rows = []
         for name in after.samples:
             if name not in before.samples:
@@ -367,22 +380,59 @@ def report(results: dict[str, Measured]) -> None:
         )  # fmt: skip
 
 
+#: The dashboard before issue 15's work (the "now" column of its table), measured side by side.
+BASELINE_REV = "cb1fa1d"
+
+
+@contextmanager
+def checkout(rev: str) -> Iterator[Path | None]:
+    """The tree of git revision `rev` of this repository in a temporary folder (None without git
+    or that revision: the table then shows this checkout alone)."""
+    with tempfile.TemporaryDirectory(prefix="shockflow-baseline-") as folder:
+        try:
+            archive = subprocess.run(["git", "-C", str(ROOT), "archive", rev], capture_output=True, check=True)
+            subprocess.run(["tar", "-x", "-C", folder], input=archive.stdout, check=True)
+        except (OSError, subprocess.CalledProcessError):
+            print(f"note: no git revision {rev!r} here; measuring this checkout only")
+            yield None
+            return
+        yield Path(folder)
+
+
+@contextmanager
+def demo_snapshot() -> Iterator[Path]:
+    """The demo's serving snapshot: demo_output/'s, or one built now in a temporary folder."""
+    if DEMO_SNAPSHOT.exists():
+        yield DEMO_SNAPSHOT
+        return
+    with tempfile.TemporaryDirectory(prefix="shockflow-demo-") as folder:
+        print(f"no {DEMO_SNAPSHOT}: building the demo (shockflow demo --no-serve) in {folder}")
+        subprocess.run([sys.executable, "-m", "shockflow", "demo", "--no-serve", "--out", folder], cwd=ROOT,
+                       check=True, stdout=subprocess.DEVNULL)  # fmt: skip
+        yield Path(folder) / "shockflow-serving.duckdb"
+
+
 def case() -> None:
-    """The bench registry's entry: the demo snapshot, this checkout only (no baseline)."""
-    main([])
+    """The bench registry's entry: the demo snapshot, this checkout and `BASELINE_REV` side by side."""
+    with demo_snapshot() as snapshot, checkout(BASELINE_REV) as baseline:
+        report(run(snapshot, repeats=10, baseline=baseline))
 
 
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(prog="python -m bench.dashboard_browser", description=__doc__)
-    parser.add_argument("--snapshot", type=Path, default=DEMO_SNAPSHOT)
+    parser.add_argument("--snapshot", type=Path, default=None, help="a serving snapshot (default: the demo's)")
     parser.add_argument("--repeats", type=int, default=10)
     parser.add_argument("--baseline", type=Path, default=None, help="another checkout's root, measured side by side")
+    parser.add_argument("--baseline-rev", default=None, help=f"a git revision to measure side by side (e.g. {BASELINE_REV})")
     args = parser.parse_args(argv)
-    if not args.snapshot.exists():
-        msg = (f"no serving snapshot at {args.snapshot}: run `shockflow demo --no-serve` (or `make demo`) "
-               "first, or pass --snapshot FILE")  # fmt: skip
-        raise SystemExit(msg)
-    report(run(args.snapshot, repeats=args.repeats, baseline=args.baseline))
+    if args.snapshot is not None and not args.snapshot.exists():
+        raise SystemExit(f"no serving snapshot at {args.snapshot}; pass --snapshot FILE or omit it for the demo's")
+    with ExitStack() as stack:
+        snapshot = args.snapshot or stack.enter_context(demo_snapshot())
+        baseline = args.baseline
+        if baseline is None and args.baseline_rev:
+            baseline = stack.enter_context(checkout(args.baseline_rev))
+        report(run(snapshot, repeats=args.repeats, baseline=baseline))
     return 0
 
 
