@@ -101,7 +101,11 @@ PROBE = r"""
     P.__perfWrapped = true; S.plotlyAt = performance.now();
     return true;
   };
-  if (!wrap()) { const t = setInterval(() => { if (wrap()) clearInterval(t); }, 2); }
+  // wrap plotly.js the moment it defines itself (a chart may be drawn in the same task)
+  let plotly;
+  Object.defineProperty(window, 'Plotly', {
+    configurable: true, get() { return plotly; }, set(v) { plotly = v; wrap(); },
+  });
   for (const kind of ['keydown', 'mousedown']) {
     document.addEventListener(kind, e => { S.inputs.push(e.timeStamp); }, true);
   }

@@ -295,19 +295,25 @@ def asks(values: dict[str, Any]) -> dict[str, list[Any]]:
     }  # fmt: skip
 
 
-#: In the browser, per tab: (window state, *input values, selected tab, last ask) → the new ask
-#: ``[state, *values]``, or no update while the tab is not selected or nothing changed since the
-#: last ask. So a tab computes only when shown, and coming back to it unchanged costs no request.
+#: In the browser, per tab: (window state, *input values, selected tab, the index chart's layout
+#: event, last ask) → the new ask ``[state, *values]``, or no update while the tab is not selected,
+#: nothing changed since the last ask, or the index chart (which comes with the page) has not been
+#: drawn yet — so the first chart is drawn before any tab's. A tab computes only when shown, and
+#: coming back to it unchanged costs no request.
 ASK_JS = """function () {
     const args = Array.prototype.slice.call(arguments);
     const last = args.pop();
+    const drawn = args.pop();
     const tab = args.pop();
-    if (tab !== %s) { return window.dash_clientside.no_update; }
+    if (tab !== %s || drawn === null || drawn === undefined) {
+        return window.dash_clientside.no_update;
+    }
     if (last !== null && last !== undefined && JSON.stringify(last) === JSON.stringify(args)) {
         return window.dash_clientside.no_update;
     }
     return args;
 }"""
+
 
 #: In the browser: the selected tab → each panel's class (`PANEL_CLASSES`), in `VIEWS` order.
 PANELS_JS = """function (tab) {
@@ -411,7 +417,7 @@ def register(app: Any, snap: Snapshot, settings: Any = None, answers: Answers | 
             ask = ids.ask_id(view.name)
             app.clientside_callback(
                 ASK_JS % json.dumps(view.name), Output(ask, "data"),
-                [*inputs, Input(ids.TABS, "value")], State(ask, "data"),
+                [*inputs, Input(ids.TABS, "value"), Input(ids.INDEX_GRAPH, "relayoutData")], State(ask, "data"),
             )  # fmt: skip
             inputs = [Input(ask, "data")]
         # the view above the tabs comes with the page (`first_view`); a tab's view when asked
