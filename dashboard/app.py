@@ -72,6 +72,11 @@ def create_app(settings_or_config: Any) -> Any:
 
     import arlib  # noqa: F401  (scipy loads here, once, not inside the first visitor's callbacks)
 
+    try:  # pyarrow's to_numpy and plotly's JSON encoder import pandas lazily; a thread finding it
+        import pandas  # noqa: F401  half-imported by another (the warm-up, a first request) failed
+    except ImportError:
+        pass
+
     from . import ids, views
     from .callbacks import Answers, _view_callback, first_view, register
     from .data import Snapshot
