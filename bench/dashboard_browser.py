@@ -207,9 +207,10 @@ def _since(page: Any, t0_index: int, req0: int, ren0: int) -> Interaction:
 
 
 def _counts(page: Any) -> tuple[int, int, int]:
-    return tuple(page.evaluate(  # type: ignore[return-value]  # a JSON list of three numbers
+    i, r, d = page.evaluate(
         "() => [window.__perf.inputs.length, window.__perf.requests.length, window.__perf.renders.length]"
-    ))
+    )
+    return int(i), int(r), int(d)
 
 
 def interact(page: Any, action: Any) -> Interaction:
