@@ -315,6 +315,14 @@ ASK_JS = """function () {
 }"""
 
 
+#: In the browser: the index chart's layout event → itself when it sets the x-range (the keys
+#: `_relayout_range` reads), else no update.
+RANGE_JS = """function (relayout) {
+    const keys = ["xaxis.range", "xaxis.range[0]", "xaxis.autorange", "xaxis.rangeslider.autorange"];
+    if (relayout && keys.some(k => k in relayout)) { return relayout; }
+    return window.dash_clientside.no_update;
+}"""
+
 #: In the browser: the selected tab → each panel's class (`PANEL_CLASSES`), in `VIEWS` order.
 PANELS_JS = """function (tab) {
     return %s.map(name => name === tab ? %s : %s);
@@ -367,10 +375,10 @@ def register(app: Any, snap: Snapshot, settings: Any = None, answers: Answers | 
         Output(ids.START, "value"), Output(ids.END, "value"), Output(ids.WINDOW, "data"),
         Output(ids.WINDOW_NOTE, "children"),
         Input(ids.UNIVERSE, "value"), Input(ids.START, "value"), Input(ids.END, "value"),
-        Input(ids.INDEX_GRAPH, "relayoutData"), State(ids.WINDOW, "data"), prevent_initial_call=True,
+        Input(ids.INDEX_RANGE, "data"), State(ids.WINDOW, "data"), prevent_initial_call=True,
     )  # fmt: skip
     def _sync(universe: Any, start: Any, end: Any, relayout: Any, current: Any) -> tuple[Any, ...]:
-        trigger = {ids.UNIVERSE: "universe", ids.INDEX_GRAPH: "relayout"}.get(
+        trigger = {ids.UNIVERSE: "universe", ids.INDEX_RANGE: "relayout"}.get(
             ctx.triggered_id, "dates" if ctx.triggered_id else None
         )
         if trigger == "universe" and isinstance(current, dict) and current.get("universe") == universe:
@@ -399,6 +407,10 @@ def register(app: Any, snap: Snapshot, settings: Any = None, answers: Answers | 
             raise PreventUpdate from None
         return [values[k] for k in targets]
 
+    # the index chart's layout events reach the server only when they set an x-range (not, e.g.,
+    # the one each draw sends)
+    app.clientside_callback(RANGE_JS, Output(ids.INDEX_RANGE, "data"), Input(ids.INDEX_GRAPH, "relayoutData"),
+                            prevent_initial_call=True)  # fmt: skip
     tabbed = [v for v in views.VIEWS if v.tab is not None]
     app.clientside_callback(
         PANELS_JS % (json.dumps([v.name for v in tabbed]), json.dumps(PANEL_CLASSES[True]),

@@ -29,6 +29,7 @@ END = "window-end"
 WINDOW = "window-state"  # dcc.Store {"universe", "start", "end"}
 WINDOW_NOTE = "window-note"
 INDEX_GRAPH = graph_id("index")  # its range slider also sets the date window
+INDEX_RANGE = "index-range"  # dcc.Store: the index chart's layout events that set an x-range
 STRESS_QUANTILE = "stress-quantile"
 REPORTS = "reports"
 CAUTION = "caution"

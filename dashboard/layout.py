@@ -158,6 +158,7 @@ def build(snap: Snapshot, settings: DashboardSettings, initial: Initial | None =
         _model_bar(first),
         *_tabs(first),
         dcc.Store(id=ids.WINDOW, **_given(initial, ids.WINDOW, "data")),
+        dcc.Store(id=ids.INDEX_RANGE),
         html.Footer([html.Strong("Caution. "), CAUTION], id=ids.CAUTION, className="caution", role="note"),
     ]  # fmt: skip
     return html.Div(body, className="page")

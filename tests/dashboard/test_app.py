@@ -208,7 +208,7 @@ def test_hostile_values_through_http_break_nothing(settings: DashboardSettings, 
     client = app.server.test_client()
     before = read(snapshot_path, "SELECT count(*) FROM runs")
     probes = [
-        (key(app, "..window-start.value"), {"universe.value": bad, "window-start.value": bad, "window-end.value": bad, "index-graph.relayoutData": {"xaxis.range": [bad, bad]}}),
+        (key(app, "..window-start.value"), {"universe.value": bad, "window-start.value": bad, "window-end.value": bad, "index-range.data": {"xaxis.range": [bad, bad]}}),
         (key(app, "..index-graph.figure"), {"window-state.data": {**state, "universe": bad}, "stress-quantile.value": bad}),
         (key(app, "..paths-graph.figure"), {"window-state.data": state, "identification.value": bad, "cholesky-ordering.value": bad, "cumulative.value": bad, "horizon.value": bad, "bands.value": bad, "views.value": "paths"}),
         (key(app, "..network-graph.figure"), {"window-state.data": {**state, "start": bad}, "network-mode.value": bad, "network-size.value": bad, "views.value": "network"}),

@@ -458,12 +458,11 @@ def test_network_spreads_nodes_and_labels(page: Any) -> None:
 # -- callback round trips per interaction (issue 15: a count, never a timing) --------------------
 
 #: The most `_dash-update-component` requests each interaction may cost (measured: opening the
-#: page 1 — the first tab's view; the index and date window come with the page — plus at most one
-#: answered-empty date-window sync from the index chart's first layout event; a new "to" date 3
+#: page 1 — the first tab's view; the index and date window come with the page; a new "to" date 3
 #: — the date window, the index, the open tab's view; a tab whose inputs changed since it was
 #: last shown 1; a tab shown again with nothing changed 0; a tab's own control 1). Before issue
-#: 15 every view's callback answered every window change and tab switch: 12 and 10.
-ROUND_TRIPS = {"open": 2, "to date": 3, "stale tab": 1, "same tab": 0, "own control": 1}
+#: 15 (measured): opening 14, a new "to" date 12, every tab switch 10.
+ROUND_TRIPS = {"open": 1, "to date": 3, "stale tab": 1, "same tab": 0, "own control": 1}
 
 
 class RoundTrips:
