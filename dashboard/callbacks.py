@@ -20,7 +20,7 @@ from typing import Any
 from . import views
 from ._components import PANEL_CLASSES, STRESS_DEFAULT, report_links
 from ._errors import DashboardError, WindowError
-from ._inputs import page_text
+from ._inputs import FAILED, page_text
 from .data import Snapshot, Universe, parse_date
 from .views import View, empty_note, has_fitted
 
@@ -169,7 +169,8 @@ class Answers:
     page every visitor opens first, a date window visited before — is answered without recomputing.
 
     Keyed by the snapshot's generation (a newly published file starts afresh) and the view's name
-    and inputs as JSON. A request pinned to a replaced file computes without keeping its answer.
+    and inputs as JSON. A request pinned to a replaced file computes without keeping its answer, and
+    an answer `keep` refuses (a view that failed unexpectedly) is not kept either.
     """
 
     def __init__(self, kept: int = ANSWERS_KEPT) -> None:
@@ -178,7 +179,10 @@ class Answers:
         self._newest = -1
         self._lock = threading.Lock()
 
-    def get(self, snap: Snapshot, name: str, inputs: Any, compute: Callable[[], Any]) -> Any:
+    def get(
+        self, snap: Snapshot, name: str, inputs: Any, compute: Callable[[], Any],
+        keep: Callable[[Any], bool] = lambda value: True,
+    ) -> Any:  # fmt: skip
         try:
             key = json.dumps([name, inputs], sort_keys=True, default=str)
         except (TypeError, ValueError):  # inputs JSON cannot hold: nothing to key on
@@ -198,7 +202,7 @@ class Answers:
                     return hit
             value = compute()
             with self._lock:
-                if generation == self._newest:
+                if generation == self._newest and keep(value):
                     self._items[(generation, key)] = value
                     while len(self._items) > self._kept:
                         self._items.popitem(last=False)
@@ -237,10 +241,15 @@ def _view_callback(snap: Snapshot, view: View, answers: Answers | None = None) -
         state, *values = given
         if answers is None:
             return compute(state, values)
-        return list(answers.get(snap, view.name, given, lambda: compute(state, values)))
+        return list(answers.get(snap, view.name, given, lambda: compute(state, values), keep=_succeeded))
 
     run.__name__ = f"_{view.name}_view"
     return run
+
+
+def _succeeded(out: list[Any]) -> bool:
+    """False when a view's note (a str among its outputs) says it failed unexpectedly."""
+    return not any(isinstance(x, str) and FAILED in x for x in out)
 
 
 def first_view(snap: Snapshot, answers: Answers | None = None) -> dict[tuple[str, str], Any]:

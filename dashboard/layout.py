@@ -91,9 +91,9 @@ def _model_bar(first: Universe | None) -> html.Div:
 Initial = dict[tuple[str, str], Any]
 
 
-def _given(initial: Initial, cid: str, prop: str, as_name: str | None = None) -> dict[str, Any]:
+def _given(initial: Initial, cid: str, prop: str) -> dict[str, Any]:
     """`{prop: value}` when the page is built with a value for (`cid`, `prop`), else nothing."""
-    return {as_name or prop: initial[cid, prop]} if (cid, prop) in initial else {}
+    return {prop: initial[cid, prop]} if (cid, prop) in initial else {}
 
 
 def _header(names: list[str], initial: Initial) -> html.Header:
