@@ -8,9 +8,11 @@ its own records, on the page's clock (``performance.now()``):
 - every ``/_dash-update-component`` request: sent, answered, body bytes, the callback's outputs;
 - every chart drawn: each ``Plotly.react``/``newPlot`` call, finished when its promise resolves and
   the next animation frame has run (the chart is on screen);
-- the input event (the Enter key, a click) that starts an interaction.
+- the input event (the Enter key, a click) that starts an interaction;
+- every change of the page (a tab's panel shown, a note rewritten), at the next animation frame.
 
-An interaction lasts from its input event to the last request answered or chart drawn, once the
+An interaction lasts from its input event to the last request answered, chart drawn or change of
+the page painted, once the
 page has been quiet (nothing pending, nothing new) for `QUIET_MS`. Reported per case: p50 and p95
 over the repeats, the round trips per interaction, the bytes answered, where the time goes — the
 summed request times (sent → answered; requests of one chain overlap) and the client's drawing
@@ -106,6 +108,10 @@ PROBE = r"""
   Object.defineProperty(window, 'Plotly', {
     configurable: true, get() { return plotly; }, set(v) { plotly = v; wrap(); },
   });
+  // the page's own changes (a tab's panel shown, text updated): marked once painted
+  new MutationObserver(() => {
+    requestAnimationFrame(() => { const t = performance.now(); S.paints = (S.paints || 0) + 1; mark(t); });
+  }).observe(document, {subtree: true, childList: true, attributes: true, characterData: true});
   for (const kind of ['keydown', 'mousedown']) {
     document.addEventListener(kind, e => { S.inputs.push(e.timeStamp); }, true);
   }
@@ -192,12 +198,12 @@ def _settle(page: Any) -> None:
 def _since(page: Any, t0_index: int, req0: int, ren0: int) -> Interaction:
     data = page.evaluate(
         """([i, r, d]) => { const S = window.__perf;
-           return {t0: S.inputs[i], req: S.requests.slice(r), ren: S.renders.slice(d)}; }""",
+           return {t0: S.inputs[i], last: S.last, req: S.requests.slice(r), ren: S.renders.slice(d)}; }""",
         [t0_index, req0, ren0],
     )
     t0 = data["t0"]
     ends = [x["end"] for x in data["req"]] + [x["end"] for x in data["ren"]]
-    last = max(ends) if ends else t0
+    last = max([*ends, data["last"], t0])  # the last answer, chart drawn or change of the page painted
     last_answer = max((x["end"] for x in data["req"]), default=t0)
     last_draw = max((x["end"] for x in data["ren"]), default=last_answer)
     return Interaction(
