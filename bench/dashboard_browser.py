@@ -425,6 +425,9 @@ def demo_snapshot() -> Iterator[Path]:
 
 def case() -> None:
     """The bench registry's entry: the demo snapshot, this checkout and `BASELINE_REV` side by side."""
+    if shutil.which("chromium") is None and not Path("/usr/bin/chromium").exists():
+        print("skipped: Debian's chromium is not installed (apt-get install -y chromium)")
+        return
     with demo_snapshot() as snapshot, checkout(BASELINE_REV) as baseline:
         report(run(snapshot, repeats=10, baseline=baseline))
 
