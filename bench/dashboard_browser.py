@@ -202,13 +202,18 @@ def _since(page: Any, t0_index: int, req0: int, ren0: int) -> Interaction:
         [t0_index, req0, ren0],
     )
     t0 = data["t0"]
-    ends = [x["end"] for x in data["req"]] + [x["end"] for x in data["ren"]]
-    last = max([*ends, data["last"], t0])  # the last answer, chart drawn or change of the page painted
-    last_answer = max((x["end"] for x in data["req"]), default=t0)
-    last_draw = max((x["end"] for x in data["ren"]), default=last_answer)
+    if t0 is None:
+        msg = "the page recorded no input event for this interaction"
+        raise RuntimeError(msg)
+    answers = [x["end"] for x in data["req"] if x["end"] is not None]
+    draws = [x["end"] for x in data["ren"] if x["end"] is not None]
+    # the last answer, chart drawn or change of the page painted
+    last = max([*answers, *draws, data["last"] or t0, t0])
+    last_answer = max(answers, default=t0)
+    last_draw = max(draws, default=last_answer)
     return Interaction(
         total_ms=last - t0, requests=len(data["req"]), bytes=sum(x["bytes"] for x in data["req"]),
-        server_ms=sum(x["end"] - x["start"] for x in data["req"]), draw_ms=max(0.0, last_draw - last_answer),
+        server_ms=sum(x["end"] - x["start"] for x in data["req"] if x["end"] is not None), draw_ms=max(0.0, last_draw - last_answer),
     )  # fmt: skip
 
 
