@@ -18,6 +18,7 @@ CASES: dict[str, str] = {
     "rolling": "bench.rolling:main",
     "rolling_extras": "bench.rolling_extras:main",
     "dashboard": "bench.dashboard_callbacks:case",
+    "dashboard_browser": "bench.dashboard_browser:case",
     "pipeline": "bench.pipeline:main",
     "load": "bench.load_dashboard:case",
     "ingest_memory": "bench.ingest_memory:case",

@@ -35,6 +35,9 @@ def _call(client: Any, app: Any, prefix: str, values: dict[str, Any]) -> float:
     """One callback request; returns milliseconds. Raises if the server answers an error."""
     key = next(k for k in app.callback_map if k.startswith(prefix))
     spec = app.callback_map[key]
+    from dashboard.callbacks import asks
+
+    values = {**values, **asks(values)}  # a tab's view is sent its inputs as one list
 
     def pid(s: dict[str, Any]) -> str:
         cid = s["id"]

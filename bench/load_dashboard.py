@@ -94,6 +94,9 @@ def callback_body(
     value sent (the first key is the input that changed).
     """
     spec = next(d for d in dependencies if d["output"].startswith(output_prefix))
+    from dashboard.callbacks import asks
+
+    values = {**values, **asks(values)}  # a tab's view is sent its inputs as one list
 
     def fill(specs: list[dict[str, Any]]) -> list[dict[str, Any]]:
         return [

@@ -17,7 +17,24 @@ from dash import dcc, html
 from . import ids
 from .reports import latest_reports
 
-__all__ = ["as_json", "csv_row", "graph", "label", "note", "report_links", "skipped_table"]
+__all__ = [
+    "PANEL_CLASSES",
+    "STRESS_DEFAULT",
+    "as_json",
+    "csv_row",
+    "graph",
+    "label",
+    "note",
+    "report_links",
+    "skipped_table",
+]
+
+#: A tab panel's class when its tab is (True) or is not (False) selected; a hidden panel keeps its
+#: width (assets/style.css), so its charts are neither redrawn nor re-laid out when shown again.
+PANEL_CLASSES = {True: "view-panel", False: "view-panel view-panel--idle"}
+
+#: The stress-shading quantile the page opens with.
+STRESS_DEFAULT = 0.9
 
 
 def label(text: str, child: Any, *, width: str | None = None) -> html.Label:
@@ -25,24 +42,28 @@ def label(text: str, child: Any, *, width: str | None = None) -> html.Label:
     return html.Label([html.Span(text, className="ctl-label"), child], className="ctl", style=style)
 
 
-def csv_row(chart: str) -> html.Div:
+def csv_row(chart: str, data: Any = None) -> html.Div:
+    store = dcc.Store(id=ids.chart_data(chart)) if data is None else dcc.Store(id=ids.chart_data(chart), data=data)
     return html.Div(
         [
             html.Button("Download data (CSV)", id=ids.csv_button(chart), n_clicks=0, className="csv-btn"),
             dcc.Download(id=ids.csv_download(chart)),
-            dcc.Store(id=ids.chart_data(chart)),
+            store,
         ],
         className="csv-row",
     )
 
 
-def graph(graph_id: str, *, height: int = 420) -> dcc.Loading:
-    """A chart inside a loading indicator (shown while its callback runs, e.g. a bootstrap band)."""
+def graph(graph_id: str, *, height: int = 420, figure: Any = None) -> dcc.Loading:
+    """A chart inside a loading indicator (shown while its callback runs, e.g. a bootstrap band);
+    `figure` draws it with the page, before any callback."""
+    drawn = {} if figure is None else {"figure": figure}
     return dcc.Loading(
         dcc.Graph(
             id=graph_id,
             config={"displaylogo": False, "responsive": True, "toImageButtonOptions": {"format": "png"}},
             style={"minHeight": f"{min(height, 360)}px"},
+            **drawn,
         ),
         type="circle",
         delay_show=150,

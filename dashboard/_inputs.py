@@ -24,6 +24,7 @@ from .data import Universe
 
 __all__ = [
     "BAND_CHOICES",
+    "FAILED",
     "IDENTIFICATIONS",
     "MAX_HORIZON",
     "Rows",
@@ -125,6 +126,10 @@ def grid_index(H1: int, n: int) -> list[tuple[int, int, int]]:
     return [(h, i, j) for h in range(H1) for i in range(n) for j in range(n)]
 
 
+#: What a view says when it failed unexpectedly (the server log has the traceback).
+FAILED = "This view could not be computed; the server log has the details."
+
+
 def guard(
     view: Callable[..., ViewResult], *, height: int = 320
 ) -> Callable[..., ViewResult]:
@@ -140,7 +145,7 @@ def guard(
             return charts.message_figure(wrap_text(text), height=height), [], text
         except Exception:
             log.exception("view %s failed", view.__name__)
-            text = "This view could not be computed; the server log has the details."
+            text = FAILED
             return charts.message_figure(text, height=height), [], text
 
     functools.update_wrapper(wrapper, view, assigned=("__name__", "__doc__"), updated=())  # and __wrapped__

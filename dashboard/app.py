@@ -8,6 +8,7 @@ import os
 import signal
 import socket
 import sys
+import threading
 from collections.abc import Callable
 from pathlib import Path
 from typing import Any
@@ -62,14 +63,22 @@ def create_app(settings_or_config: Any) -> Any:
     on the first request, and reopened whenever the pipeline publishes a new one. If credentials are
     set, every route (pages, callbacks, assets, downloads) requires them.
 
-    The snapshot accessor is kept as ``app.server.extensions["shockflow_snapshot"]``.
+    The snapshot accessor is kept as ``app.server.extensions["shockflow_snapshot"]``; the kept
+    answers (`callbacks.Answers`) as ``"shockflow_answers"``, and ``"shockflow_warm"`` computes the
+    first view and the first tab's before anyone asks (each `serve` worker runs it as it starts).
     """
     import dash
     from flask import abort, send_file
 
     import arlib  # noqa: F401  (scipy loads here, once, not inside the first visitor's callbacks)
 
-    from .callbacks import register
+    try:  # pyarrow's to_numpy and plotly's JSON encoder import pandas lazily; a thread finding it
+        import pandas  # noqa: F401  half-imported by another (the warm-up, a first request) failed
+    except ImportError:
+        pass
+
+    from . import ids, views
+    from .callbacks import Answers, _view_callback, first_view, register
     from .data import Snapshot
     from .layout import build
     from .reports import resolve_report
@@ -96,8 +105,9 @@ def create_app(settings_or_config: Any) -> Any:
     def _unpin_snapshot(exc: BaseException | None) -> None:
         snap.reader.end_pin()
 
-    app.layout = lambda: build(snap, settings)
-    register(app, snap, settings)
+    answers = Answers()  # per worker process: what every visitor asks first is computed once
+    app.layout = lambda: build(snap, settings, first_view(snap, answers))
+    register(app, snap, settings, answers)
 
     @app.server.route("/reports/<path:name>")
     def _report(name: str) -> Any:
@@ -106,10 +116,46 @@ def create_app(settings_or_config: Any) -> Any:
             abort(404)
         return send_file(path, as_attachment=True, download_name=path.name, max_age=0)
 
+    def warm() -> None:
+        """Compute what every visitor asks first — the page's first view and the first tab's view
+        at the page's own control values — before anyone asks (`serve` runs it once per worker)."""
+        try:
+            page = build(snap, settings, first_view(snap, answers))
+            first_tab = next(v for v in views.VIEWS if v.tab is not None)
+            values = _control_values(page)
+            state = values.get(ids.WINDOW)
+            if isinstance(state, dict) and state.get("universe"):
+                ask = [state, *(values.get(cid) for cid in first_tab.inputs)]
+                _view_callback(snap, first_tab, answers)(ask)
+        except Exception:  # a cold cache is all that is lost; requests report their own problems
+            log.debug("warming the first view failed", exc_info=True)
+
     _register_scripts(app)
+    app.server.extensions["shockflow_warm"] = warm
+    app.server.extensions["shockflow_answers"] = answers
     app.server.extensions["shockflow_snapshot"] = snap
     app.server.extensions["shockflow_settings"] = settings
     return app
+
+
+def _control_values(component: Any) -> dict[str, Any]:
+    """Component id → its `value` (or a store's `data`) as the page is built, over the whole tree."""
+    out: dict[str, Any] = {}
+    stack = [component]
+    while stack:
+        node = stack.pop()
+        if isinstance(node, (list, tuple)):
+            stack.extend(node)
+            continue
+        cid = getattr(node, "id", None)
+        if isinstance(cid, str):
+            for prop in ("value", "data"):
+                if prop in getattr(node, "_prop_names", ()) and getattr(node, prop, None) is not None:
+                    out[cid] = getattr(node, prop)
+        children = getattr(node, "children", None)
+        if children is not None and not isinstance(children, str):
+            stack.append(children)
+    return out
 
 
 def _register_scripts(app: Any) -> None:
@@ -200,6 +246,15 @@ def _check_port(host: str, port: int) -> None:
         raise DashboardError(msg) from None
     finally:
         probe.close()
+
+
+def _start_worker(worker: Any) -> None:
+    """In each worker as it starts: leave Ctrl+C to the master, and warm the first view in the
+    background (`create_app`'s ``warm``), so the first visitor finds it computed."""
+    _ignore_interrupt(worker)
+    warm = worker.wsgi.extensions.get("shockflow_warm") if hasattr(worker.wsgi, "extensions") else None
+    if warm is not None:
+        threading.Thread(target=warm, name="shockflow-warm", daemon=True).start()
 
 
 def _ignore_interrupt(worker: Any) -> None:
@@ -474,7 +529,7 @@ def serve(
         "forwarder_headers": "",
         "proc_name": "shockflow-dashboard",
         "when_ready": when_ready,
-        "post_worker_init": _ignore_interrupt,
+        "post_worker_init": _start_worker,
     }
 
     class _Server(BaseApplication):

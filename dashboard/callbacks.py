@@ -10,19 +10,26 @@ from __future__ import annotations
 
 import csv
 import io
+import json
 import re
+import threading
+from collections import OrderedDict
 from collections.abc import Callable
 from typing import Any
 
 from . import views
-from ._components import report_links
+from ._components import PANEL_CLASSES, STRESS_DEFAULT, report_links
 from ._errors import DashboardError, WindowError
-from ._inputs import page_text
+from ._inputs import FAILED, page_text
 from .data import Snapshot, Universe, parse_date
 from .views import View, empty_note, has_fitted
 
 __all__ = [
+    "ANSWERS_KEPT",
+    "Answers",
+    "asks",
     "csv_file",
+    "first_view",
     "register",
     "safe_filename",
     "sync_window",
@@ -152,18 +159,71 @@ def csv_file(rows: Any, chart: Any, state: Any) -> dict[str, Any] | None:
 # ---------------------------------------------------------------------------------------------
 
 
-def _view_callback(snap: Snapshot, view: View) -> Callable[..., list[Any]]:
-    """The callback body of one row of `VIEWS`: window state, input values (and the active tab)
-    → per chart (figure, CSV rows), the note, and the extra output if the row has one."""
+#: Answers of view callbacks one worker process keeps (the newest snapshot's; least recently used
+#: dropped first). The largest answers (a response grid with bands) are about 0.4 MB.
+ANSWERS_KEPT = 64
+
+
+class Answers:
+    """The outputs of view callbacks, per snapshot file and inputs: a question asked again — the
+    page every visitor opens first, a date window visited before — is answered without recomputing.
+
+    Keyed by the snapshot's generation (a newly published file starts afresh) and the view's name
+    and inputs as JSON. A request pinned to a replaced file computes without keeping its answer, and
+    an answer `keep` refuses (a view that failed unexpectedly) is not kept either.
+    """
+
+    def __init__(self, kept: int = ANSWERS_KEPT) -> None:
+        self._kept = kept
+        self._items: OrderedDict[tuple[int, str], Any] = OrderedDict()
+        self._newest = -1
+        self._lock = threading.Lock()
+
+    def get(
+        self, snap: Snapshot, name: str, inputs: Any, compute: Callable[[], Any],
+        keep: Callable[[Any], bool] = lambda value: True,
+    ) -> Any:  # fmt: skip
+        try:
+            key = json.dumps([name, inputs], sort_keys=True, default=str)
+        except (TypeError, ValueError):  # inputs JSON cannot hold: nothing to key on
+            return compute()
+        with snap.reader.pinned():
+            try:
+                generation = snap.reader.current_generation()
+            except DashboardError:  # no snapshot yet: the view says so itself
+                return compute()
+            with self._lock:
+                if generation > self._newest:
+                    self._items.clear()
+                    self._newest = generation
+                hit = self._items.get((generation, key))
+                if hit is not None:
+                    self._items.move_to_end((generation, key))
+                    return hit
+            value = compute()
+            with self._lock:
+                if generation == self._newest and keep(value):
+                    self._items[(generation, key)] = value
+                    while len(self._items) > self._kept:
+                        self._items.popitem(last=False)
+            return value
+
+    def __len__(self) -> int:
+        return len(self._items)
+
+
+def _view_callback(snap: Snapshot, view: View, answers: Answers | None = None) -> Callable[..., list[Any]]:
+    """The callback body of one row of `VIEWS`: window state and input values → per chart (figure,
+    CSV rows), the note, and the extra output if the row has one.
+
+    A view shown above the tabs gets (state, *values) as its callback's inputs; a tab's view gets
+    them as one list, its ask (`ask_id`), which the browser sets only while the tab is selected and
+    only when the list differs from the last one asked (`ASK_JS`). With `answers`, an answer given
+    before for the same inputs and snapshot file is sent again without recomputing."""
     from dash.exceptions import PreventUpdate
 
-    def run(state: Any, *values: Any) -> list[Any]:
-        given = list(values)
-        if view.tab is not None:
-            active = given.pop()
-            if active != view.name:  # only the visible tab computes
-                raise PreventUpdate
-        triples = view.results(snap, state, *given)
+    def compute(state: Any, values: list[Any]) -> list[Any]:
+        triples = view.results(snap, state, *values)
         out: list[Any] = []
         for fig, rows, _ in triples:
             out += [fig, rows]
@@ -172,8 +232,110 @@ def _view_callback(snap: Snapshot, view: View) -> Callable[..., list[Any]]:
             out.append(view.extra[1](triples[0][1]))
         return out
 
+    def run(*given: Any) -> list[Any]:
+        if view.tab is not None:
+            (ask,) = given
+            if not isinstance(ask, list) or len(ask) != 1 + len(view.inputs):
+                raise PreventUpdate  # never asked yet (the tab was never selected)
+            given = tuple(ask)
+        state, *values = given
+        if answers is None:
+            return compute(state, values)
+        return list(answers.get(snap, view.name, given, lambda: compute(state, values), keep=_succeeded))
+
     run.__name__ = f"_{view.name}_view"
     return run
+
+
+def _succeeded(out: list[Any]) -> bool:
+    """False when a view's note (a str among its outputs) says it failed unexpectedly."""
+    return not any(isinstance(x, str) and FAILED in x for x in out)
+
+
+def first_view(snap: Snapshot, answers: Answers | None = None) -> dict[tuple[str, str], Any]:
+    """(component id, property) → value of what every visitor sees first: the first universe's
+    whole history as the date window, its note, and the connectedness index over it (the first row
+    of `VIEWS`, default inputs) — put in the page itself, so the first chart needs no callback.
+
+    Empty when the snapshot lists no universe; a problem reading it becomes the window note.
+    Kept in `answers` (per snapshot file) when given."""
+    if answers is not None:
+        return dict(answers.get(snap, "first view", [], lambda: _first_view(snap, answers)))
+    return _first_view(snap, None)
+
+
+def _first_view(snap: Snapshot, answers: Answers | None) -> dict[tuple[str, str], Any]:
+    from . import ids
+
+    try:
+        names = sorted(snap.universes())
+    except DashboardError as exc:
+        return {(ids.WINDOW_NOTE, "children"): page_text(str(exc))}
+    if not names:
+        return {}
+    try:
+        start, end, state, note = sync_window(snap, names[0], None, None, None, None)
+    except DashboardError as exc:
+        return {(ids.WINDOW_NOTE, "children"): page_text(str(exc))}
+    out: dict[tuple[str, str], Any] = {
+        (ids.START, "value"): start, (ids.END, "value"): end, (ids.WINDOW, "data"): state,
+        (ids.WINDOW_NOTE, "children"): note,
+    }  # fmt: skip
+    overview = views.VIEWS[0]
+    values = [{ids.STRESS_QUANTILE: STRESS_DEFAULT}[cid] for cid in overview.inputs]
+    answer = _view_callback(snap, overview, answers)(state, *values)
+    # the rows behind a chart (its chart-data store) under (graph id, "data")
+    targets = [(ids.graph_id(c), k) for c, _ in overview.chart_list for k in ("figure", "data")]
+    targets.append((overview.note_id, "children"))
+    out.update(zip(targets, answer, strict=False))
+    return out
+
+
+def asks(values: dict[str, Any]) -> dict[str, list[Any]]:
+    """``"{view}-ask.data"`` → the ask the browser would send each tab's view (`ASK_JS`), given
+    ``"id.property"`` → value of the window state and the views' inputs (missing ones are None).
+
+    For clients other than the page (tests, benchmarks) that post callbacks as the browser does."""
+    from . import ids
+
+    return {
+        f"{ids.ask_id(v.name)}.data": [values.get(f"{ids.WINDOW}.data"), *(values.get(f"{c}.value") for c in v.inputs)]
+        for v in views.VIEWS if v.tab is not None
+    }  # fmt: skip
+
+
+#: In the browser, per tab: (window state, *input values, selected tab, the index chart's layout
+#: event, last ask) → the new ask ``[state, *values]``, or no update while the tab is not selected,
+#: nothing changed since the last ask, or the index chart (which comes with the page) has not been
+#: drawn yet — so the first chart is drawn before any tab's. A tab computes only when shown, and
+#: coming back to it unchanged costs no request.
+ASK_JS = """function () {
+    const args = Array.prototype.slice.call(arguments);
+    const last = args.pop();
+    const drawn = args.pop();
+    const tab = args.pop();
+    if (tab !== %s || drawn === null || drawn === undefined) {
+        return window.dash_clientside.no_update;
+    }
+    if (last !== null && last !== undefined && JSON.stringify(last) === JSON.stringify(args)) {
+        return window.dash_clientside.no_update;
+    }
+    return args;
+}"""
+
+
+#: In the browser: the index chart's layout event → itself when it sets the x-range (the keys
+#: `_relayout_range` reads), else no update.
+RANGE_JS = """function (relayout) {
+    const keys = ["xaxis.range", "xaxis.range[0]", "xaxis.autorange", "xaxis.rangeslider.autorange"];
+    if (relayout && keys.some(k => k in relayout)) { return relayout; }
+    return window.dash_clientside.no_update;
+}"""
+
+#: In the browser: the selected tab → each panel's class (`PANEL_CLASSES`), in `VIEWS` order.
+PANELS_JS = """function (tab) {
+    return %s.map(name => name === tab ? %s : %s);
+}"""
 
 
 def universe_defaults(snap: Snapshot, universe: Any) -> dict[tuple[str, str], Any]:
@@ -203,16 +365,17 @@ def universe_defaults_keys() -> tuple[tuple[str, str], ...]:
     return tuple(keys)
 
 
-def register(app: Any, snap: Snapshot, settings: Any = None) -> None:
+def register(app: Any, snap: Snapshot, settings: Any = None, answers: Answers | None = None) -> None:
     """Attach every callback to `app` (a `dash.Dash` whose layout comes from `layout.build`):
     one per row of `views.VIEWS`, plus the date window, universe defaults, report links and CSV
-    downloads."""
+    downloads. The page is built with what `first_view` gives (the date window, the index, the
+    report links), so those callbacks do not run when it opens; views answer through `answers`."""
     from dash import MATCH, Input, Output, State, ctx, no_update
     from dash.exceptions import PreventUpdate
 
     from . import ids
 
-    @app.callback(Output(ids.REPORTS, "children"), Input(ids.UNIVERSE, "value"))
+    @app.callback(Output(ids.REPORTS, "children"), Input(ids.UNIVERSE, "value"), prevent_initial_call=True)
     def _reports(universe: Any) -> list[Any]:
         export_dir = getattr(settings, "export_dir", None)
         return report_links(export_dir, universe if isinstance(universe, str) else None)
@@ -221,10 +384,10 @@ def register(app: Any, snap: Snapshot, settings: Any = None) -> None:
         Output(ids.START, "value"), Output(ids.END, "value"), Output(ids.WINDOW, "data"),
         Output(ids.WINDOW_NOTE, "children"),
         Input(ids.UNIVERSE, "value"), Input(ids.START, "value"), Input(ids.END, "value"),
-        Input(ids.INDEX_GRAPH, "relayoutData"), State(ids.WINDOW, "data"),
+        Input(ids.INDEX_RANGE, "data"), State(ids.WINDOW, "data"), prevent_initial_call=True,
     )  # fmt: skip
     def _sync(universe: Any, start: Any, end: Any, relayout: Any, current: Any) -> tuple[Any, ...]:
-        trigger = {ids.UNIVERSE: "universe", ids.INDEX_GRAPH: "relayout"}.get(
+        trigger = {ids.UNIVERSE: "universe", ids.INDEX_RANGE: "relayout"}.get(
             ctx.triggered_id, "dates" if ctx.triggered_id else None
         )
         if trigger == "universe" and isinstance(current, dict) and current.get("universe") == universe:
@@ -253,6 +416,16 @@ def register(app: Any, snap: Snapshot, settings: Any = None) -> None:
             raise PreventUpdate from None
         return [values[k] for k in targets]
 
+    # the index chart's layout events reach the server only when they set an x-range (not, e.g.,
+    # the one each draw sends)
+    app.clientside_callback(RANGE_JS, Output(ids.INDEX_RANGE, "data"), Input(ids.INDEX_GRAPH, "relayoutData"),
+                            prevent_initial_call=True)  # fmt: skip
+    tabbed = [v for v in views.VIEWS if v.tab is not None]
+    app.clientside_callback(
+        PANELS_JS % (json.dumps([v.name for v in tabbed]), json.dumps(PANEL_CLASSES[True]),
+                     json.dumps(PANEL_CLASSES[False])),
+        [Output(ids.panel_id(v.name), "className") for v in tabbed], Input(ids.TABS, "value"),
+    )  # fmt: skip
     for view in views.VIEWS:
         outputs = []
         for chart, _ in view.chart_list:
@@ -262,8 +435,14 @@ def register(app: Any, snap: Snapshot, settings: Any = None) -> None:
             outputs.append(Output(view.extra[0], "children"))
         inputs = [Input(ids.WINDOW, "data"), *(Input(cid, "value") for cid in view.inputs)]
         if view.tab is not None:
-            inputs.append(Input(ids.TABS, "value"))
-        app.callback(outputs, inputs)(_view_callback(snap, view))
+            ask = ids.ask_id(view.name)
+            app.clientside_callback(
+                ASK_JS % json.dumps(view.name), Output(ask, "data"),
+                [*inputs, Input(ids.TABS, "value"), Input(ids.INDEX_GRAPH, "relayoutData")], State(ask, "data"),
+            )  # fmt: skip
+            inputs = [Input(ask, "data")]
+        # the view above the tabs comes with the page (`first_view`); a tab's view when asked
+        app.callback(outputs, inputs, prevent_initial_call=view.tab is None)(_view_callback(snap, view, answers))
 
     @app.callback(
         Output({"type": "csv-download", "chart": MATCH}, "data"),

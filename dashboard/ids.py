@@ -9,7 +9,7 @@ pattern-matching ids ``{"type": ..., "chart": name}``.
 
 from __future__ import annotations
 
-__all__ = ["chart_data", "csv_button", "csv_download", "graph_id", "note_id"]
+__all__ = ["ask_id", "chart_data", "csv_button", "csv_download", "graph_id", "note_id", "panel_id"]
 
 
 def graph_id(chart: str) -> str:
@@ -29,6 +29,7 @@ END = "window-end"
 WINDOW = "window-state"  # dcc.Store {"universe", "start", "end"}
 WINDOW_NOTE = "window-note"
 INDEX_GRAPH = graph_id("index")  # its range slider also sets the date window
+INDEX_RANGE = "index-range"  # dcc.Store: the index chart's layout events that set an x-range
 STRESS_QUANTILE = "stress-quantile"
 REPORTS = "reports"
 CAUTION = "caution"
@@ -41,6 +42,17 @@ MODEL_BAR = "model-bar"
 MODEL_BAR_TITLE = "model-bar-title"
 
 TABS = "views"
+PANELS = "view-panels"  # the tabs' contents, every one kept on the page (hidden unless selected)
+
+
+def panel_id(view: str) -> str:
+    """The element holding tab `view`'s controls, charts and note (shown while its tab is selected)."""
+    return f"{view}-panel"
+
+
+def ask_id(view: str) -> str:
+    """The dcc.Store holding the inputs tab `view` was last asked to compute for (set in the browser)."""
+    return f"{view}-ask"
 
 
 def chart_data(chart: str) -> dict[str, str]:

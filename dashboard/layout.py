@@ -13,7 +13,7 @@ from typing import Any
 from dash import dcc, html
 
 from . import ids, views
-from ._components import csv_row, graph, label, note, report_links
+from ._components import PANEL_CLASSES, STRESS_DEFAULT, csv_row, graph, label, note, report_links
 from ._errors import DashboardError
 from .data import Snapshot, Universe
 from .settings import DashboardSettings
@@ -38,7 +38,9 @@ def _charts(view: View) -> list[Any]:
     return out
 
 
-def _tab(view: View, first: Universe | None) -> dcc.Tab:
+def _panel(view: View, first: Universe | None, *, shown: bool) -> html.Div:
+    """A tab's content: kept on the page whichever tab is selected, so coming back to a tab shows its
+    charts as they were drawn (no redraw, no request) — only its class changes (`PANEL_CLASSES`)."""
     children: list[Any] = []
     if view.intro:
         children.append(html.P(view.intro, className="note"))
@@ -47,16 +49,20 @@ def _tab(view: View, first: Universe | None) -> dcc.Tab:
     children += [*_charts(view), note(view.note_id)]
     if view.extra is not None:
         children.append(html.Div(id=view.extra[0]))
-    return dcc.Tab(label=view.tab, value=view.name, children=children, className="view-tab",
-                   selected_className="view-tab--selected")  # fmt: skip
+    children.append(dcc.Store(id=ids.ask_id(view.name)))
+    return html.Div(children, id=ids.panel_id(view.name), className=PANEL_CLASSES[shown])
 
 
-def _tabs(first: Universe | None) -> dcc.Tabs:
+def _tabs(first: Universe | None) -> list[Any]:
+    """The tab strip (labels only) and, under it, every tab's panel."""
     shown = [v for v in views.VIEWS if v.tab]
-    return dcc.Tabs(
-        id=ids.TABS, value=shown[0].name, children=[_tab(v, first) for v in shown], className="view-tabs",
-        parent_className="view-tabs-parent",
+    strip = dcc.Tabs(
+        id=ids.TABS, value=shown[0].name, className="view-tabs", parent_className="view-tabs-parent",
+        children=[dcc.Tab(label=v.tab, value=v.name, className="view-tab", selected_className="view-tab--selected")
+                  for v in shown],
     )  # fmt: skip
+    panels = html.Div([_panel(v, first, shown=k == 0) for k, v in enumerate(shown)], id=ids.PANELS)
+    return [strip, panels]
 
 
 def _model_bar(first: Universe | None) -> html.Div:
@@ -81,7 +87,16 @@ def _model_bar(first: Universe | None) -> html.Div:
     )  # fmt: skip
 
 
-def _header(names: list[str]) -> html.Header:
+#: (component id, property) → value the page is built with (`callbacks.first_view`).
+Initial = dict[tuple[str, str], Any]
+
+
+def _given(initial: Initial, cid: str, prop: str) -> dict[str, Any]:
+    """`{prop: value}` when the page is built with a value for (`cid`, `prop`), else nothing."""
+    return {prop: initial[cid, prop]} if (cid, prop) in initial else {}
+
+
+def _header(names: list[str], initial: Initial) -> html.Header:
     return html.Header(
         [
             html.Div([html.H1("shockflow"), html.Span("how shocks travel between markets, window by window",
@@ -94,14 +109,14 @@ def _header(names: list[str]) -> html.Header:
                     ), width="200px"),
                     label("Windows ending from", dcc.Input(
                         id=ids.START, type="text", debounce=True, placeholder="YYYY-MM-DD",
-                        className="date-input",
+                        className="date-input", **_given(initial, ids.START, "value"),
                     )),
                     label("to", dcc.Input(
                         id=ids.END, type="text", debounce=True, placeholder="YYYY-MM-DD",
-                        className="date-input",
+                        className="date-input", **_given(initial, ids.END, "value"),
                     )),
                     label("Shade stress above", dcc.Dropdown(
-                        id=ids.STRESS_QUANTILE, clearable=False, value=0.9,
+                        id=ids.STRESS_QUANTILE, clearable=False, value=STRESS_DEFAULT,
                         options=[{"label": f"{int(q * 100)}th pct", "value": q} for q in (0.75, 0.9, 0.95)],
                     ), width="140px"),
                 ],
@@ -112,8 +127,12 @@ def _header(names: list[str]) -> html.Header:
     )  # fmt: skip
 
 
-def build(snap: Snapshot, settings: DashboardSettings) -> html.Div:
-    """The whole page for one visitor (evaluated per page load)."""
+def build(snap: Snapshot, settings: DashboardSettings, initial: Initial | None = None) -> html.Div:
+    """The whole page for one visitor (evaluated per page load).
+
+    `initial` (`callbacks.first_view`) fills the date window, its note and the connectedness index
+    in the page itself, so the first chart is drawn with the page, before any callback answers."""
+    initial = initial or {}
     try:
         universes = snap.universes()
         problem = None if universes else "The serving snapshot holds no universe yet."
@@ -122,19 +141,24 @@ def build(snap: Snapshot, settings: DashboardSettings) -> html.Div:
     names = sorted(universes)
     first = universes[names[0]] if names else None
     overview = next(v for v in views.VIEWS if v.tab is None)
-    body: list[Any] = [_header(names), html.Div(id=ids.WINDOW_NOTE, className="window-note")]
+    body: list[Any] = [
+        _header(names, initial),
+        html.Div(id=ids.WINDOW_NOTE, className="window-note", **_given(initial, ids.WINDOW_NOTE, "children")),
+    ]
     if problem:
         body.append(html.Div(problem, className="problem"))
     (chart, height), = overview.chart_list
     body += [
-        graph(ids.graph_id(chart), height=height),
-        html.Div([html.P(id=overview.note_id, className="note"), csv_row(chart),
+        graph(ids.graph_id(chart), height=height, figure=initial.get((ids.graph_id(chart), "figure"))),
+        html.Div([html.P(id=overview.note_id, className="note", **_given(initial, overview.note_id, "children")),
+                  csv_row(chart, initial.get((ids.graph_id(chart), "data"))),
                   html.Div(report_links(settings.export_dir, names[0] if names else None),
                            id=ids.REPORTS, className="reports")],
                  className="under-index"),
         _model_bar(first),
-        _tabs(first),
-        dcc.Store(id=ids.WINDOW),
+        *_tabs(first),
+        dcc.Store(id=ids.WINDOW, **_given(initial, ids.WINDOW, "data")),
+        dcc.Store(id=ids.INDEX_RANGE),
         html.Footer([html.Strong("Caution. "), CAUTION], id=ids.CAUTION, className="caution", role="note"),
     ]  # fmt: skip
     return html.Div(body, className="page")

@@ -14,6 +14,7 @@ import pytest
 from dashboard import DashboardError, DashboardSettings, InsecureBindError, create_app, serve
 from dashboard.app import check_bind
 from dashboard.auth import COOKIE
+from dashboard.callbacks import asks
 from dashboard.reports import latest_reports, resolve_report
 
 from .conftest import read
@@ -29,6 +30,7 @@ def _prop_id(spec: dict[str, Any]) -> str:
 def call(client: Any, app: Any, output_key: str, values: dict[str, Any], *, headers: dict[str, str] | None = None) -> Any:
     """POST one callback the way the browser does; `values` maps "id.prop" to the value sent."""
     spec = app.callback_map[output_key]
+    values = {**values, **asks(values)}  # a tab's view is sent its inputs as one list
 
     def fill(specs: list[dict[str, Any]]) -> list[dict[str, Any]]:
         return [{"id": s["id"], "property": s["property"], "value": values.get(_prop_id(s))} for s in specs]
@@ -206,7 +208,7 @@ def test_hostile_values_through_http_break_nothing(settings: DashboardSettings, 
     client = app.server.test_client()
     before = read(snapshot_path, "SELECT count(*) FROM runs")
     probes = [
-        (key(app, "..window-start.value"), {"universe.value": bad, "window-start.value": bad, "window-end.value": bad, "index-graph.relayoutData": {"xaxis.range": [bad, bad]}}),
+        (key(app, "..window-start.value"), {"universe.value": bad, "window-start.value": bad, "window-end.value": bad, "index-range.data": {"xaxis.range": [bad, bad]}}),
         (key(app, "..index-graph.figure"), {"window-state.data": {**state, "universe": bad}, "stress-quantile.value": bad}),
         (key(app, "..paths-graph.figure"), {"window-state.data": state, "identification.value": bad, "cholesky-ordering.value": bad, "cumulative.value": bad, "horizon.value": bad, "bands.value": bad, "views.value": "paths"}),
         (key(app, "..network-graph.figure"), {"window-state.data": {**state, "start": bad}, "network-mode.value": bad, "network-size.value": bad, "views.value": "network"}),
@@ -339,3 +341,41 @@ def test_public_surface_is_pinned() -> None:
     ]
     assert dashboard.__all__ == sorted(dashboard.__all__)
     assert callable(dashboard.create_app) and callable(dashboard.serve)
+
+
+def test_warm_answers_the_first_visit_before_it_is_asked(settings: DashboardSettings, universe_name: str) -> None:
+    """Issue 15: `warm` (run by each server worker as it starts) computes the page's first view and
+    the first tab's view at the page's own control values; the first visitor's request for that
+    tab is then answered from what was kept (no new answer computed), and equals a fresh one."""
+    app = create_app(settings)
+    answers = app.server.extensions["shockflow_answers"]
+    app.server.extensions["shockflow_warm"]()
+    kept = len(answers)
+    assert kept == 3  # the first view, the index inside it, the first tab's view
+    client = app.server.test_client()
+    page = json.dumps(client.get("/_dash-layout").get_json())
+    assert len(answers) == kept  # the page came from what was kept
+    layout = client.get("/_dash-layout").get_json()
+
+    def value(node: Any, cid: str, prop: str) -> Any:  # a component's property as the page has it
+        stack = [node]
+        while stack:
+            n = stack.pop()
+            if isinstance(n, list):
+                stack.extend(n)
+            elif isinstance(n, dict):
+                props = n.get("props", {})
+                if props.get("id") == cid:
+                    return props.get(prop)
+                stack.append(props.get("children"))
+        raise AssertionError(cid)
+
+    state = value(layout, "window-state", "data")
+    assert state["universe"] == universe_name and universe_name in page
+    given = {"window-state.data": state, **{f"{c}.value": value(layout, c, "value")
+             for c in ("identification", "cholesky-ordering", "cumulative", "horizon", "bands")}}  # fmt: skip
+    r = call(client, app, key(app, "..paths-graph.figure"), given)
+    assert r.status_code == 200 and len(answers) == kept  # answered from what warm kept
+    fresh = create_app(settings)
+    again = call(fresh.server.test_client(), fresh, key(fresh, "..paths-graph.figure"), given)
+    assert r.get_json()["response"] == again.get_json()["response"]

@@ -338,8 +338,10 @@ def test_empty_universe_shows_its_own_empty_state(page: Any, universe_name: str,
     )
     wait_text(page, "#reports", f"No exported report for {EMPTY} yet.")
     assert page.locator("#reports a").count() == 0
+    # every chart on view (tabs not selected keep their panel, hidden, and recompute when shown)
     shown = page.evaluate(
-        "() => [...document.querySelectorAll('.js-plotly-plot')].map(gd => JSON.stringify(gd.layout || {}) + JSON.stringify(gd.data || [])).join(' ')"
+        "() => [...document.querySelectorAll('.js-plotly-plot')].filter(gd => !gd.closest('.view-panel--idle'))"
+        ".map(gd => JSON.stringify(gd.layout || {}) + JSON.stringify(gd.data || [])).join(' ')"
     )
     assert universe_name not in shown
     page.screenshot(path=str(ARTIFACTS / "05-empty-universe.png"))
@@ -420,7 +422,7 @@ def test_shock_path_layout_in_the_browser(page: Any, snapshot_path: Path, univer
     svg = page.evaluate(BOXES_JS, ["paths-graph", ".main-svg"])[0]
     (legend,) = page.evaluate(BOXES_JS, ["paths-graph", ".legend"])
     assert svg["top"] <= legend["top"] and legend["bottom"] <= svg["bottom"] + 1, (legend, svg)
-    controls = page.evaluate(BOXES_JS, ["views", ".controls"]) + page.evaluate(BOXES_JS, ["model-bar", "*"])
+    controls = page.evaluate(BOXES_JS, ["paths-panel", ".controls"]) + page.evaluate(BOXES_JS, ["model-bar", "*"])
     assert not any(_overlap(legend, c) for c in controls)
     titles = page.evaluate(BOXES_JS, ["paths-graph", ".gtitle"])
     assert titles and all(t["right"] <= svg["right"] + 1 for t in titles), (titles, svg)
@@ -451,3 +453,89 @@ def test_network_spreads_nodes_and_labels(page: Any) -> None:
         for p in points:  # a label never covers a node
             assert not _overlap(a, p), (a, p)
     page.screenshot(path=str(ARTIFACTS / "08-network.png"), full_page=True)
+
+
+# -- callback round trips per interaction (issue 15: a count, never a timing) --------------------
+
+#: The most `_dash-update-component` requests each interaction may cost (measured: opening the
+#: page 1 — the first tab's view; the index and date window come with the page; a new "to" date 3
+#: — the date window, the index, the open tab's view; a tab whose inputs changed since it was
+#: last shown 1; a tab shown again with nothing changed 0; a tab's own control 1). Before issue
+#: 15 (measured): opening 14, a new "to" date 12, every tab switch 10.
+ROUND_TRIPS = {"open": 1, "to date": 3, "stale tab": 1, "same tab": 0, "own control": 1}
+
+
+class RoundTrips:
+    """Counts the page's callback requests; `settle` waits until none is pending for a while."""
+
+    QUIET_MS = 1500  # no callback request pending or started for this long: the interaction is over
+
+    def __init__(self, page: Any) -> None:
+        self.page, self.sent, self.done = page, 0, 0
+        page.on("request", self._on_request)
+        page.on("requestfinished", self._on_done)
+        page.on("requestfailed", self._on_done)
+
+    @staticmethod
+    def _is_callback(request: Any) -> bool:
+        return "_dash-update-component" in request.url
+
+    def _on_request(self, request: Any) -> None:
+        if self._is_callback(request):
+            self.sent += 1
+
+    def _on_done(self, request: Any) -> None:
+        if self._is_callback(request):
+            self.done += 1
+
+    def settle(self) -> None:
+        quiet, seen = 0, -1
+        while quiet < self.QUIET_MS:
+            self.page.wait_for_timeout(100)
+            if self.sent != seen or self.done < self.sent:
+                seen, quiet = self.sent, 0
+            else:
+                quiet += 100
+
+    def count(self, action: Any) -> int:
+        before = self.sent
+        action()
+        self.settle()
+        return self.sent - before
+
+
+@pytest.fixture
+def fresh_page(page: Any, served: str) -> Iterator[tuple[Any, RoundTrips]]:
+    """A new page of the module's browser (nothing visited yet), and its callback-request count."""
+    pg = page.context.new_page()
+    pg.set_default_timeout(TIMEOUT)
+    trips = RoundTrips(pg)
+    pg.goto(served)
+    pg.wait_for_selector("#index-graph .js-plotly-plot")
+    yield pg, trips
+    pg.close()
+
+
+def test_round_trips_per_interaction_do_not_grow(fresh_page: tuple[Any, RoundTrips], bounds: tuple[dt.date, dt.date]) -> None:
+    """Each interaction costs at most `ROUND_TRIPS` callback requests (counted in the browser)."""
+    page, trips = fresh_page
+    trips.settle()
+    counts = {"open": trips.sent}
+    lo, hi = bounds
+    new_end = (lo + (hi - lo) * 3 / 4).isoformat()
+
+    def set_end() -> None:
+        page.fill("#window-end", new_end)
+        page.press("#window-end", "Enter")
+        wait_text(page, "#window-note", f"to {new_end}")
+
+    counts["to date"] = trips.count(set_end)
+    counts["stale tab"] = trips.count(lambda: open_tab(page, "Spillover network", "network-graph"))
+    counts["same tab"] = max(
+        trips.count(lambda: open_tab(page, "Shock paths", "paths-graph")),
+        trips.count(lambda: open_tab(page, "Spillover network", "network-graph")),
+    )
+    counts["own control"] = trips.count(lambda: page.locator("#network-mode input[value=mean]").check())
+    assert all(counts[k] <= ROUND_TRIPS[k] for k in ROUND_TRIPS), (counts, ROUND_TRIPS)
+    # and the page still answers: the network shows the averaged spillovers of the new window
+    wait_text(page, "#network-note", "averaged over")

@@ -591,9 +591,10 @@ def test_a_new_view_is_one_row_of_the_table(monkeypatch: pytest.MonkeyPatch, sna
     body = {
         "output": key,
         "outputs": [{"id": o.split(".")[0], "property": o.split(".")[1]} for o in key.strip(".").split("...")],
+        # a tab's view is sent (window state, *its inputs) as one list, its ask (callbacks.ASK_JS)
         "inputs": [{"id": i["id"], "property": i["property"], "value": v}
-                   for i, v in zip(spec["inputs"], [state, "7", "echo"], strict=True)],
-        "changedPropIds": ["horizon.value"], "state": [],
+                   for i, v in zip(spec["inputs"], [[state, "7"]], strict=True)],
+        "changedPropIds": ["echo-ask.data"], "state": [],
     }  # fmt: skip
     outputs = body["outputs"]
     assert [o["id"] for o in outputs] == ["echo-graph", '{"chart":"echo","type":"chart-data"}', "echo-note"]
@@ -647,3 +648,43 @@ def test_a_universe_without_bands_says_how_to_get_them(snap: Snapshot, bounds: t
     lo, hi = bounds
     result = vw.bands_view(snap, {"universe": other[0], "start": lo.isoformat(), "end": hi.isoformat()})
     assert "frequency_bands = [5, 20]" in str(result)
+
+
+def test_answers_are_kept_per_snapshot_file_and_never_when_a_view_failed(snapshot_path: Path, tmp_path: Path) -> None:
+    """Issue 15: the same question on the same snapshot file is computed once; a newly published
+    file (replaced in place, as publish does) starts afresh; an unexpected failure is not kept."""
+    import os
+    import shutil
+
+    from dashboard._inputs import FAILED
+
+    served = tmp_path / "serving.duckdb"
+    shutil.copyfile(snapshot_path, served)
+    snap = Snapshot(served)
+    answers = cb.Answers(kept=4)
+    calls: list[str] = []
+
+    def compute(text: str) -> Any:
+        def run() -> list[Any]:
+            calls.append(text)
+            return [{"data": []}, [], text]
+        return run
+
+    try:
+        assert answers.get(snap, "v", [1], compute("a")) == answers.get(snap, "v", [1], compute("a"))
+        assert calls == ["a"]
+        answers.get(snap, "v", [2], compute("b"))
+        assert calls == ["a", "b"]
+        for _ in range(2):  # a failed view is asked again, never answered from the kept ones
+            answers.get(snap, "v", [3], compute(FAILED), keep=cb._succeeded)
+        assert calls == ["a", "b", FAILED, FAILED]
+        fresh = tmp_path / "next.duckdb"
+        shutil.copyfile(snapshot_path, fresh)
+        os.replace(fresh, served)  # a new file at the same path: publish's atomic replace
+        answers.get(snap, "v", [1], compute("a"))
+        assert calls[-1] == "a" and len(calls) == 5 and len(answers) == 1
+        for k in range(10):  # at most `kept` answers
+            answers.get(snap, "v", [100 + k], compute("c"))
+        assert len(answers) == 4
+    finally:
+        snap.reader.close()

@@ -38,6 +38,7 @@ import numpy as np
 import polars as pl
 
 from dashboard import DashboardSettings, create_app
+from dashboard.callbacks import asks
 
 from .conftest import read
 
@@ -146,6 +147,7 @@ def callback_body(app: Any, output_prefix: str, values: dict[str, Any]) -> dict[
     starts with `output_prefix`; `values` maps "id.property" to the value sent."""
     key = next(k for k in app.callback_map if k.startswith(output_prefix))
     spec = app.callback_map[key]
+    values = {**values, **asks(values)}  # a tab's view is sent its inputs as one list
     outputs = []
     for part in key.strip(".").split("..."):
         cid, prop = part.rsplit(".", 1)

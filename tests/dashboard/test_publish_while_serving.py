@@ -60,13 +60,9 @@ def _network_body(state: dict[str, Any]) -> dict[str, Any]:
             {"id": {"chart": "network", "type": "chart-data"}, "property": "data"},
             {"id": "network-note", "property": "children"},
         ],
-        "inputs": [
-            {"id": "window-state", "property": "data", "value": state},
-            {"id": "network-mode", "property": "value", "value": "mean"},
-            {"id": "network-size", "property": "value", "value": "to"},
-            {"id": "views", "property": "value", "value": "network"},
-        ],
-        "changedPropIds": ["window-state.data"],
+        # a tab's view is sent (window state, *its inputs) as one list, its ask (dashboard.callbacks.ASK_JS)
+        "inputs": [{"id": "network-ask", "property": "data", "value": [state, "mean", "to"]}],
+        "changedPropIds": ["network-ask.data"],
     }
 
 

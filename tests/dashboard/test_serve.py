@@ -28,6 +28,7 @@ from typing import Any
 import pytest
 
 from dashboard import DashboardError, DashboardSettings, create_app, serve
+from dashboard.callbacks import asks
 
 from ._served import PROC, Served, needs_proc, stop_all
 from ._snapshot import SERIES, write_snapshot
@@ -187,6 +188,7 @@ def _bodies(settings: DashboardSettings) -> dict[str, dict[str, Any]]:
     def body(prefix: str, values: dict[str, Any]) -> dict[str, Any]:
         key = next(k for k in app.callback_map if k.startswith(prefix))
         spec = app.callback_map[key]
+        values = {**values, **asks(values)}  # a tab's view is sent its inputs as one list
 
         def fill(specs: list[dict[str, Any]]) -> list[dict[str, Any]]:
             return [{"id": s["id"], "property": s["property"], "value": values.get(f"{s['id']}.{s['property']}")} for s in specs]
