@@ -153,7 +153,7 @@ class SimplexState:
 
 
 def _fresh(X: np.ndarray, Yt: np.ndarray, basis: np.ndarray) -> tuple[np.ndarray, ...]:
-    """Z_h^{-1}, b = Z_h^{-1} y_h, r = y − Z b (zero on h), G = Z Z_h^{-1} from scratch."""
+    """Z_h^{-1}, b = Z_h^{-1} y_h and r = y − Z b (zero on h) from scratch."""
     P = basis.shape[0]
     Xh = X[basis]  # (P, k, k)
     binv = np.linalg.inv(Xh)
@@ -161,8 +161,7 @@ def _fresh(X: np.ndarray, Yt: np.ndarray, basis: np.ndarray) -> tuple[np.ndarray
     beta = np.einsum("pkl,pl->pk", binv, yh)
     resid = Yt - beta @ X.T
     resid[np.arange(P)[:, None], basis] = 0.0
-    G = np.matmul(X[None], binv)
-    return binv, beta, resid, G
+    return binv, beta, resid
 
 
 def initial_basis(X: np.ndarray, P: int) -> np.ndarray:
@@ -181,105 +180,107 @@ def simplex(
 
     Y (m, P) one response per problem; tau (P,); basis (P, k) rows of X with X_h nonsingular.
     Returns the optimal vertex of each problem (module docstring for the method and tolerances).
+    G = X Z_h^{-1} is never formed whole: a = Z_h^{-T}(X'ψ) and the edge's column X d_j are two
+    matrix products per exchange, (P, m)(m, k) and (P, k)(k, m). The working arrays hold only
+    the problems still moving (compacted when some stop).
     """
     m, k = X.shape
     Yt = np.ascontiguousarray(Y.T)  # (P, m)
     P = Yt.shape[0]
-    basis = basis.copy()
-    binv, beta, resid, G = _fresh(X, Yt, basis)
-    isbasic = np.zeros((P, m), dtype=bool)
-    isbasic[np.arange(P)[:, None], basis] = True
-    zero_tol = ZERO_TOL * np.maximum(np.abs(Yt).max(axis=1), np.finfo(float).tiny)  # (P,)
+    XT = np.ascontiguousarray(X.T)
+    out_basis = basis.copy()
     exchanges = np.zeros(P, dtype=np.int64)
-    since = 0
-    active = np.arange(P)
     degenerate = np.zeros(P, dtype=bool)
-    while active.size:
+    # working set
+    idx = np.arange(P)
+    bas = basis.copy()
+    bi, beta, r = _fresh(X, Yt, bas)
+    nb = np.ones((P, m), dtype=bool)
+    nb[np.arange(P)[:, None], bas] = False
+    tau_a = tau[:, None].astype(float)
+    ztol = (ZERO_TOL * np.maximum(np.abs(Yt).max(axis=1), np.finfo(float).tiny))[:, None]
+    ex = np.zeros(P, dtype=np.int64)
+    since = 0
+    while idx.size:
         if since >= REFRESH:
-            binv[active], beta[active], resid[active], G[active] = _fresh(
-                X, Yt[active], basis[active]
-            )
+            bi, beta, r = _fresh(X, Yt[idx], bas)
             since = 0
-        r = resid[active]
-        g_all = G[active]
-        tau_a = tau[active][:, None]
-        nb = ~isbasic[active]
-        zero = nb & (np.abs(r) <= zero_tol[active][:, None])
+        A = idx.size
+        rows = np.arange(A)
+        zero = nb & (np.abs(r) <= ztol)
         psi = np.where(r < 0, tau_a - 1.0, tau_a)
-        psi[~nb | zero] = 0.0
-        a = np.einsum("pm,pmk->pk", psi, g_all)
-        d_plus = (1.0 - tau_a) - a  # move b along +d_j: obs h_j's residual turns negative
-        d_minus = tau_a + a
+        psi[~nb] = 0.0
         has_zero = zero.any(axis=1)
         if has_zero.any():
-            zg = np.where(zero[:, :, None], g_all, 0.0)  # ρ_τ(∓G_tj) over exactly fitted t ∉ h
-            d_plus += np.where(-zg < 0, (tau_a[:, :, None] - 1.0) * -zg, tau_a[:, :, None] * -zg).sum(1)
-            d_minus += np.where(zg < 0, (tau_a[:, :, None] - 1.0) * zg, tau_a[:, :, None] * zg).sum(1)
-        both = np.concatenate([d_plus, d_minus], axis=1)  # (A, 2k)
+            psi[zero] = 0.0
+        a = np.einsum("pl,plj->pj", psi @ X, bi)  # a_j = Σ_t ψ_t x_t'd_j = (G'ψ)_j
+        both = np.concatenate([(1.0 - tau_a) - a, tau_a + a], axis=1)  # D⁺_j, D⁻_j  (A, 2k)
+        for i in np.flatnonzero(has_zero):  # + Σ ρ_τ(∓G_tj) over exactly fitted t ∉ h (rare)
+            gz = X[zero[i]] @ bi[i]  # (z, k)
+            t_ = tau_a[i, 0]
+            both[i, :k] += np.where(gz > 0, (1.0 - t_) * gz, -t_ * gz).sum(axis=0)
+            both[i, k:] += np.where(gz < 0, (t_ - 1.0) * gz, t_ * gz).sum(axis=0)
         pick = both.argmin(axis=1)
-        best = both[np.arange(active.size), pick]
-        done = best >= -OPT_TOL
-        capped = exchanges[active] >= MAX_EXCHANGES
-        degenerate[active[done | capped]] = has_zero[done | capped] | capped[done | capped]
-        go = ~(done | capped)
-        if not go.any():
-            break
-        active, r, g_all, nb, zero = active[go], r[go], g_all[go], nb[go], zero[go]
-        pick, best = pick[go], best[go]
-        A = active.size
-        rows = np.arange(A)
+        best = both[rows, pick]
+        stop = (best >= -OPT_TOL) | (ex >= MAX_EXCHANGES)
+        if stop.any():
+            gone = idx[stop]
+            out_basis[gone] = bas[stop]
+            exchanges[gone] = ex[stop]
+            degenerate[gone] = has_zero[stop] | (ex[stop] >= MAX_EXCHANGES)
+            go = ~stop
+            idx, bas, bi, beta, r, nb = idx[go], bas[go], bi[go], beta[go], r[go], nb[go]
+            tau_a, ztol, ex, zero = tau_a[go], ztol[go], ex[go], zero[go]
+            pick, best = pick[go], best[go]
+            A = idx.size
+            rows = np.arange(A)
+            if not A:
+                break
         j = pick % k
         sigma = np.where(pick < k, 1.0, -1.0)
-        gcol = g_all[rows, :, j] * sigma[:, None]  # (A, m) x_t' δ along δ = σ d_j
+        dj = bi[rows, :, j]  # (A, k) d_j = Z_h^{-1} e_j
+        gcol = (dj * sigma[:, None]) @ XT  # (A, m) x_t'δ along δ = σ d_j
         # kinks s_t = r_t / g_t > 0 of non-basic, not exactly fitted observations
-        ok = nb & ~zero & (r * gcol > 0)
-        s = np.where(ok, r / np.where(ok, gcol, 1.0), np.inf)
+        ok = (r * gcol > 0) & nb
+        if has_zero.any():
+            ok &= ~zero
+        s = np.divide(r, gcol, out=np.full_like(r, np.inf), where=ok)
         order = np.argsort(s, axis=1)
-        step = np.take_along_axis(np.abs(gcol) * ok, order, axis=1)
-        slope = best[:, None] + np.cumsum(step, axis=1)
-        pos = np.argmax(slope >= -OPT_TOL * 1e-3, axis=1)
+        kink = (np.abs(gcol) * ok)[rows[:, None], order]  # slope gained at each kink
+        slope = best[:, None] + np.cumsum(kink, axis=1)
+        pos = np.argmax(slope >= 0.0, axis=1)
         q = order[rows, pos]
         t = s[rows, q]
-        if not np.isfinite(t).all():  # no kink ahead: cannot happen for m > k with rank k
-            degenerate[active[~np.isfinite(t)]] = True
-            exchanges[active[~np.isfinite(t)]] = MAX_EXCHANGES
-            keep = np.isfinite(t)
-            active, r, g_all, j, sigma, gcol, q, t, rows = (
-                active[keep], r[keep], g_all[keep], j[keep], sigma[keep], gcol[keep], q[keep],
-                t[keep], np.arange(int(keep.sum())),
-            )  # fmt: skip
-            if not active.size:
-                continue
+        bad = ~np.isfinite(t)
+        if bad.any():  # no kink ahead: cannot happen for m > k with rank k; leave to the LP
+            ex[bad] = MAX_EXCHANGES
+            t = np.where(bad, 0.0, t)
+            q = np.where(bad, bas[rows, j], q)
         # step: b += t σ d_j, r −= t g; observation q enters h in place of h_j
-        bi = binv[active]
-        dj = bi[rows, :, j]  # (A, k)
-        beta[active] += (t * sigma)[:, None] * dj
-        r = r - t[:, None] * gcol
-        leaving = basis[active, j]
+        beta += (t * sigma)[:, None] * dj
+        r -= t[:, None] * gcol
         r[rows, q] = 0.0
-        resid[active] = r
-        isbasic[active, leaving] = False
-        isbasic[active, q] = True
-        basis[active, j] = q
-        # Sherman–Morrison exchange of row j of Z_h: G ← G − G_{:,j}(G_q − e_j')/G_qj, same for Z_h^{-1}
-        gq = g_all[rows, q, :].copy()  # (A, k)
-        piv = gq[rows, j]
+        nb[rows, bas[rows, j]] = True
+        nb[rows, q] = False
+        bas[rows, j] = q
+        # Sherman–Morrison exchange of row j of Z_h: Z_h^{-1} ← Z_h^{-1} − d_j (g_q − e_j')/g_qj
+        gq = np.einsum("pk,pkl->pl", X[q], bi)  # (A, k) g_q = x_q' Z_h^{-1}
+        piv = np.where(bad, 1.0, gq[rows, j])
         gq[rows, j] -= 1.0
-        w = gq / piv[:, None]
-        G[active] = g_all - g_all[rows, :, j][:, :, None] * w[:, None, :]
-        binv[active] = bi - dj[:, :, None] * w[:, None, :]
-        exchanges[active] += 1
+        bi -= dj[:, :, None] * (gq / piv[:, None])[:, None, :]
+        ex += 1
         since += 1
-    binv, beta, resid, _ = _fresh(X, Yt, basis)
+    binv, beta, resid = _fresh(X, Yt, out_basis)
     fallback = np.zeros(P, dtype=bool)
     if lp_fallback and degenerate.any():
         for p_ in np.flatnonzero(degenerate):
             b_lp = lp_quantile(X, Yt[p_], float(tau[p_]))
-            if check_loss(Yt[p_] - X @ b_lp, tau[p_])[()] < check_loss(resid[p_], tau[p_])[()]:
+            r_lp = Yt[p_] - X @ b_lp
+            if check_loss(r_lp[:, None], tau[p_])[0] < check_loss(resid[p_][:, None], tau[p_])[0]:
                 beta[p_] = b_lp
-                resid[p_] = Yt[p_] - X @ b_lp
+                resid[p_] = r_lp
                 fallback[p_] = True
-    return SimplexState(basis, binv, beta, resid, exchanges, fallback)
+    return SimplexState(out_basis, binv, beta, resid, exchanges, fallback)
 
 
 def lp_quantile(X: np.ndarray, y: np.ndarray, tau: float) -> np.ndarray:
@@ -288,7 +289,7 @@ def lp_quantile(X: np.ndarray, y: np.ndarray, tau: float) -> np.ndarray:
     The general-purpose route: used for degenerate problems (see `simplex`) and as the
     benchmark's baseline; independent of the basic-observation simplex.
     """
-    from scipy.sparse import eye, hstack, csr_matrix
+    from scipy.sparse import csr_matrix, eye, hstack
 
     m, k = X.shape
     c = np.concatenate([np.zeros(k), np.full(m, tau), np.full(m, 1.0 - tau)])
