@@ -74,6 +74,8 @@ __all__ = [
     "paths_view",
     "shares_view",
     "skipped_rows",
+    "tails_index_view",
+    "tails_tables_view",
     "tails_view",
 ]
 
