@@ -45,10 +45,17 @@ estimator = "quantile"
 quantiles = [0.05, 0.5, 0.95]
 
 [[universes]]
-name = "eq"
+name = "z_eq"
 series = ["VLX_BROAD", "VLX_BANKS", "VOB_ORE"]
 window = 250
 step = 40
+lags = 1
+horizon = 8
+
+[[universes]]
+name = "eq_tvp"
+model = "tvp"
+series = ["VLX_BROAD", "VLX_BANKS", "VOB_ORE"]
 lags = 1
 horizon = 8
 
@@ -111,7 +118,7 @@ def test_tails_view_plots_every_level_and_the_tables(snap: Snapshot) -> None:
 
 
 def test_tails_view_on_a_least_squares_universe_says_how_to_get_it(snap: Snapshot) -> None:
-    (_, rows, note), _ = vw.tails_view(snap, _state(snap, "eq"))
+    (_, rows, note), _ = vw.tails_view(snap, _state(snap, "z_eq"))
     assert not rows and "stores no quantile connectedness" in note and 'estimator = "quantile"' in note
 
 
@@ -136,8 +143,16 @@ def test_every_tab_answers_for_a_quantile_universe(snap: Snapshot) -> None:
         assert results[name][0]["data"], (name, results[name][2])
     assert "Granger tests are least-squares F tests" in results["leadlag"][2]
     assert "level nearest the median" in results["index"][2]
-    # the two universes on the same series are not each other's rolling/TVP counterpart
+    # a quantile universe has no rolling/TVP counterpart (that pairing compares least-squares fits)
     assert "has no counterpart" in results["models"][2]
+
+
+def test_tvp_counterpart_is_the_least_squares_universe_not_the_quantile_one(snap: Snapshot) -> None:
+    # eq_tails sorts before z_eq: without the estimator check the TVP universe would be compared
+    # with the quantile fits' median index
+    tails, tvp, ols = (snap.universe(n) for n in ("eq_tails", "eq_tvp", "z_eq"))
+    assert snap.counterpart(tvp) == ols and snap.counterpart(ols) == tvp
+    assert snap.counterpart(tails) is None
 
 
 def test_report_has_the_tails_section(built: tuple[Path, Path]) -> None:
