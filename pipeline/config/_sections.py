@@ -233,7 +233,7 @@ class QuantileSettings:
     """The quantile levels of an `estimator = "quantile"` universe (arlib.rolling_quantile_var)."""
 
     quantiles: tuple[float, ...] = setting(
-        (0.05, 0.5, 0.95), check=_quantile_levels,
+        (0.05, 0.5, 0.95), check=_quantile_levels, default_doc="`[0.05, 0.5, 0.95]`",
         doc="τ levels in (0, 1), increasing (lower tail, median, upper tail); the tabs that show one "
         "fit per window show the level nearest 0.5",
     )  # fmt: skip
