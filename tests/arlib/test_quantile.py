@@ -110,6 +110,27 @@ def test_ties_fall_back_to_the_lp_and_stay_optimal() -> None:
         assert float(fit.objective[i]) <= rho(y[1:, i] - Z @ ref, 0.5) + 1e-9
 
 
+def test_degenerate_vertices_go_to_the_lp_and_end_optimal() -> None:
+    # Integer data and binary regressors: many rows fitted exactly at every vertex (degenerate),
+    # where the edge test alone may stop early; those problems are checked by the LP (HiGHS) and
+    # end at the LP's objective (to rounding).
+    from arlib._quantile import check_loss, initial_basis, simplex
+
+    rng = np.random.default_rng(3)
+    X = np.column_stack([np.ones(60), rng.integers(0, 2, 60), rng.integers(0, 3, 60)]).astype(float)
+    Y = rng.integers(0, 4, (60, 4)).astype(float)
+    for tau in (0.25, 0.5, 0.75):
+        st = simplex(X, Y, np.full(4, tau), initial_basis(X, 4))
+        assert st.degenerate.all()
+        for i in range(4):
+            ref = lad_lp(X, Y[:, i]) if tau == 0.5 else None
+            want = rho(Y[:, i] - X @ ref, tau) if ref is not None else None
+            got = float(check_loss(st.resid[i][:, None], tau)[0])
+            assert got == pytest.approx(rho(Y[:, i] - X @ st.beta[i], tau), abs=1e-12)
+            if want is not None:
+                assert got <= want + 1e-9
+
+
 def test_quantile_fit_is_varlike_and_feeds_connectedness(var2_data: np.ndarray) -> None:
     # Connectedness from the fit equals the Pesaran–Shin generalized decomposition computed
     # directly from B̂(τ) and Σ̂(τ) (closed form: DY 2012 eq. 2 with Ψ_h from the recursion).
