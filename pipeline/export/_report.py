@@ -121,6 +121,10 @@ def _glance(d: ReportData) -> str:
         ("Identification", _esc(info.identification)),
         ("Granger level", f"{info.granger_level:g}"),
     ]
+    if info.estimator == "quantile" and d.quantiles is not None:
+        levels = ", ".join(f"{float(t):g}" for t in d.quantiles.quantiles)
+        rows[1:2] = [rows[1], ("Estimator", _esc(f"quantile regression per equation at τ = {levels} "
+                                                 "(figures outside the tails section: the level nearest 0.5)"))]
     dl = "".join(f"<dt>{k}</dt><dd>{v}</dd>" for k, v in rows)
     notes = ""
     if d.notes:

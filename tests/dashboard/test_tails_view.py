@@ -162,4 +162,5 @@ def test_report_has_the_tails_section(built: tuple[Path, Path]) -> None:
     assert 'id="tails"' in text and "Connectedness in the tails" in text
     assert 'id="fig-tails"' in text and 'id="fig-tails-tables"' in text
     assert "Granger tests are least-squares F tests" in text
+    assert "quantile regression per equation at τ = 0.05, 0.5, 0.95" in text  # at a glance
     assert "not financial advice" in text
