@@ -35,6 +35,8 @@ from ._moments import (
     spectral_peak,
     stationary_covariance,
 )
+from ._quantile import QuantileRegression, QuantileVARFit, quantile_regression, quantile_var
+from ._quantile_rolling import RollingQuantileVAR, rolling_quantile_var
 from ._responses import impulse_responses, ma_coefficients
 from ._rolling import RollingVAR, rolling_var
 from ._sizes import minimum_window
@@ -55,6 +57,9 @@ __all__ = [
     "LagSelection",
     "NormalityResult",
     "PortmanteauResult",
+    "QuantileRegression",
+    "QuantileVARFit",
+    "RollingQuantileVAR",
     "RollingVAR",
     "SpectralPeak",
     "TVPState",
@@ -79,6 +84,9 @@ __all__ = [
     "minimum_window",
     "normality_test",
     "portmanteau_test",
+    "quantile_regression",
+    "quantile_var",
+    "rolling_quantile_var",
     "rolling_var",
     "select_lags",
     "simulate_var",

@@ -26,6 +26,7 @@ CASES: dict[str, str] = {
     "tvp_nightly": "bench.tvp_nightly:main",
     "hundred": "bench.hundred:main",
     "quiet": "bench.quiet:main",
+    "quantile": "bench.quantile:main",
 }
 
 

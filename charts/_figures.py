@@ -919,3 +919,102 @@ def model_compare_figure(
         xaxis=th.axis(type="date"), yaxis=th.axis(title={"text": "% of forecast-error variance"}),
     )  # fmt: skip
     return {"data": data, "layout": layout}
+
+
+# ---------------------------------------------------------------------------------------------
+# quantile (tail) connectedness
+# ---------------------------------------------------------------------------------------------
+
+
+def quantile_label(tau: float) -> str:
+    """How a quantile level reads: "τ = 0.05 (lower tail)", "τ = 0.5 (median)", "τ = 0.95 (upper tail)"."""
+    side = "median" if tau == 0.5 else "lower tail" if tau < 0.5 else "upper tail"
+    return f"τ = {tau:g} ({side})"
+
+
+def _quantile_colour(tau: float) -> str:
+    return GREY if tau == 0.5 else VERMILLION if tau < 0.5 else BLUE
+
+
+def quantile_index_figure(
+    dates: Sequence[dt.date],
+    totals: np.ndarray,
+    quantiles: Sequence[float],
+    *,
+    universe: str,
+    horizon: int,
+    window_end: dt.date | None = None,
+    medium: Medium = "screen",
+) -> Figure:
+    """Total connectedness at each quantile level over time (Ando, Greenwood-Nimmo & Shin 2022).
+
+    totals : (W, Q) percent, column q at level quantiles[q]; lower tail red, median grey, upper
+    tail blue (dashed), the chosen window end marked.
+    """
+    x = th.dates(dates)
+    data = []
+    for q, tau in enumerate(quantiles):
+        data.append({
+            "type": "scatter", "x": x, "y": th.as_list(totals[:, q]), "mode": "lines",
+            "name": quantile_label(float(tau)),
+            "line": {"color": _quantile_colour(float(tau)), "width": 1.8 if tau != 0.5 else 1.4,
+                     "dash": "solid" if tau <= 0.5 else "dash"},
+            "hovertemplate": f"τ = {float(tau):g}: %{{y:.1f}}%<extra></extra>",
+        })  # fmt: skip
+    shapes = []
+    if window_end is not None:
+        shapes.append({"type": "line", "xref": "x", "yref": "paper", "x0": window_end.isoformat(),
+                       "x1": window_end.isoformat(), "y0": 0, "y1": 1,
+                       "line": {"color": GREY, "width": 1, "dash": "dot"}})  # fmt: skip
+    layout = th.layout(
+        height=360, medium=medium, shapes=shapes,
+        title=f"Total connectedness in the tails and at the median, {universe}, {horizon}-step horizon",
+        legend={"orientation": "h", "x": 0.0, "xanchor": "left", "yref": "container", "y": 0.0,
+                "yanchor": "bottom"},
+        margin={"l": 60, "r": 20, "t": 60, "b": 80},
+        xaxis=th.axis(type="date"), yaxis=th.axis(title={"text": "% of forecast-error variance"}),
+    )  # fmt: skip
+    return {"data": data, "layout": layout}
+
+
+def quantile_tables_figure(
+    tables: np.ndarray,
+    quantiles: Sequence[float],
+    names: Sequence[str],
+    *,
+    window_end: dt.date,
+    medium: Medium = "screen",
+) -> Figure:
+    """One heatmap per quantile level: the generalized table at τ [variable, shock], percent.
+
+    tables : (Q, n, n), rows summing to 100; one colour scale (0 to the largest off-diagonal
+    entry) for every panel so the panels compare; the diagonal (own shares) is written, not coloured.
+    """
+    Q, n = len(quantiles), len(names)
+    off = ~np.eye(n, dtype=bool)
+    top = float(max(np.nanmax(tables[:, off]), 1.0)) if n > 1 else 100.0
+    axes, refs = th.grid(1, Q, hgap=0.07, vgap=0.0, share_y=True)
+    data, anns = [], []
+    for q, tau in enumerate(quantiles):
+        xr, yr = refs[0][q]
+        z = np.where(off, tables[q], np.nan)
+        data.append({
+            "type": "heatmap", "z": th.matrix(z), "x": list(names), "y": list(names),
+            "zmin": 0, "zmax": top, "colorscale": SEQUENTIAL, "showscale": q == Q - 1,
+            "text": _heat_text(np.asarray(tables[q]), ".0f"), "texttemplate": "%{text}",
+            "colorbar": {"title": {"text": "% of variance"}, "x": 1.01, "xanchor": "left", "len": 0.9,
+                         "thickness": 12},
+            "hovertemplate": f"τ = {float(tau):g}: %{{z:.1f}}% of %{{y}}'s variance from %{{x}}<extra></extra>",
+            "xaxis": xr, "yaxis": yr,
+        })  # fmt: skip
+        axes[th.axis_key(xr)].update(title={"text": "shock from"}, tickangle=-30)
+        axes[th.axis_key(yr)].update(autorange="reversed")
+        dom = axes[th.axis_key(xr)]["domain"]
+        anns.append(th.text(quantile_label(float(tau)), (dom[0] + dom[1]) / 2, 1.0, yanchor="bottom"))
+    axes["yaxis"]["title"] = {"text": "series whose variance is split"}
+    layout = th.layout(
+        height=max(360, 170 + 40 * n), medium=medium, annotations=anns,
+        title=f"Spillover tables at each quantile level, window ending {window_end} (diagonal: own share)",
+        margin={"l": 60, "r": 20, "t": 100, "b": 60}, **axes,
+    )  # fmt: skip
+    return {"data": data, "layout": layout}

@@ -74,6 +74,9 @@ __all__ = [
     "paths_view",
     "shares_view",
     "skipped_rows",
+    "tails_index_view",
+    "tails_tables_view",
+    "tails_view",
 ]
 
 def empty_note(universe: str) -> str:
@@ -149,6 +152,9 @@ def index_view(snap: Snapshot, state: Any, quantile: Any = 0.9) -> ViewResult:
     )
     if u.model == "tvp":
         note += " Model: time-varying-parameter VAR, one value per filtered date (no window)."
+    if u.estimator == "quantile":
+        note += (" Estimator: quantile regression per equation; this index is the level nearest the "
+                 "median (the Tails tab shows every level).")
     return fig, rows, note
 
 
@@ -255,6 +261,11 @@ def leadlag_view(snap: Snapshot, state: Any, level: Any) -> ViewResult:
         msg = (f"Universe '{u.name}' is a time-varying-parameter VAR: Granger tests belong to a least-squares "
                "fit per window, so none are stored for its dates"
                + (f"; see its rolling counterpart '{other.name}'." if other is not None else "."))  # fmt: skip
+        raise WindowError(msg)
+    if u.estimator == "quantile":
+        msg = (f"Universe '{u.name}' is fitted by quantile regression at each τ: Granger tests are "
+               "least-squares F tests, so none are stored for its windows; the Tails tab shows how "
+               "its spillovers differ between the tails and the median.")  # fmt: skip
         raise WindowError(msg)
     alpha = parse_fraction(level, "significance level", 0.0, 0.5)
     end = snap.fitted_end(window)
@@ -623,6 +634,63 @@ def joint_view(snap: Snapshot, state: Any) -> ViewResult:
     return fig, rows, note
 
 
+def _quantile_history(snap: Snapshot, state: Any) -> tuple[Universe, Any, dt.date]:
+    window = _window(snap, state)
+    u = snap.universe(window.universe)
+    qh = snap.quantile_history(u)
+    if qh is None:
+        msg = (f"Universe '{u.name}' stores no quantile connectedness; set `estimator = \"quantile\"` "
+               "(and the levels in [universes.quantile] quantiles) in its [[universes]] table and run "
+               "again.")  # fmt: skip
+        raise WindowError(msg)
+    return u, qh, snap.fitted_end(window)
+
+
+@guard
+def tails_index_view(snap: Snapshot, state: Any) -> ViewResult:
+    """Lower-tail, median and upper-tail total connectedness over time."""
+    u, qh, end = _quantile_history(snap, state)
+    taus = [float(t) for t in qh.quantiles]
+    fig = charts.quantile_index_figure(qh.ends, qh.total, taus, universe=u.name, horizon=u.horizon,
+                                       window_end=end)  # fmt: skip
+    rows = [
+        {"window_end": iso(e), "quantile": t, "total_percent": num(qh.total[w, q])}
+        for w, e in enumerate(qh.ends) for q, t in enumerate(taus)
+    ]  # fmt: skip
+    k = qh.at(end)
+    at = ", ".join(f"τ = {t:g}: {qh.total[k, q]:.1f}%" for q, t in enumerate(taus))
+    low, high = qh.total[:, 0], qh.total[:, -1]
+    mid = qh.total[:, taus.index(min(taus, key=lambda t: (abs(t - 0.5), t)))]
+    note = (f"Quantile connectedness (Ando, Greenwood-Nimmo & Shin 2022): each equation fitted by "
+            f"quantile regression at τ. At {qh.ends[k]}: {at}. Over the history, lowest τ − central "
+            f"τ: mean {np.mean(low - mid):+.1f} points; highest τ − central: {np.mean(high - mid):+.1f}.")  # fmt: skip
+    return fig, rows, note
+
+
+@guard
+def tails_tables_view(snap: Snapshot, state: Any) -> ViewResult:
+    """The spillover table at each quantile level at the window end."""
+    u, qh, end = _quantile_history(snap, state)
+    k = qh.at(end)
+    taus = [float(t) for t in qh.quantiles]
+    fig = charts.quantile_tables_figure(qh.table[k], taus, u.series, window_end=qh.ends[k])
+    rows = [
+        {"window_end": iso(qh.ends[k]), "quantile": t, "series": u.series[i], "shock": u.series[j],
+         "share_percent": num(qh.table[k, q, i, j])}
+        for q, t in enumerate(taus) for i in range(len(u.series)) for j in range(len(u.series))
+    ]  # fmt: skip
+    net = ", ".join(
+        f"τ = {t:g}: {u.series[int(np.argmax(qh.net[k, q]))]} ({np.max(qh.net[k, q]):+.1f})"
+        for q, t in enumerate(taus)
+    )
+    return fig, rows, f"Window ending {qh.ends[k]}; largest net transmitter per level: {net}."
+
+
+def tails_view(snap: Snapshot, state: Any) -> tuple[ViewResult, ViewResult]:
+    """Both charts of the tails tab."""
+    return tails_index_view(snap, state), tails_tables_view(snap, state)
+
+
 @guard
 def models_view(snap: Snapshot, state: Any) -> ViewResult:
     """Total connectedness of the universe and its counterpart of the other model, side by side.
@@ -831,6 +899,11 @@ VIEWS: tuple[View, ...] = (
          intro=("The same series estimated both ways: total connectedness from rolling windows of "
                 "least squares next to the time-varying-parameter VAR filtered per date, for a "
                 "universe configured with a counterpart (same series, the other `model`).")),
+    View("tails", tails_view, tab="Tails", charts=(("tails", 360), ("tails-tables", 420)),
+         intro=("Connectedness in the tails (Ando, Greenwood-Nimmo & Shin 2022), for a universe with "
+                "`estimator = \"quantile\"`: each equation fitted by quantile regression at τ, so the "
+                "lower-tail index shows how shocks spread when markets fall hardest, next to the median "
+                "and the upper tail; below, the spillover tables at the window end.")),
     View("cycles", cycles_view, tab="Own cycles", charts=(("cycles", 460),),
          intro=("Each series on its own: a univariate AR (order chosen by AIC) fitted on the prepared "
                 "data of the window the views use; its implied spectral density and, where the "

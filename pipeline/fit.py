@@ -47,6 +47,8 @@ __all__ = [
     "latest_window_bands",
     "plan_tvp",
     "plan_windows",
+    "quantile_fit",
+    "quantile_tables",
     "result_tables",
     "tvp_filter",
     "tvp_tables",
@@ -263,6 +265,80 @@ def fit_block(prepared: Prepared, universe: UniverseConfig, ends: np.ndarray) ->
     except (ValueError, np.linalg.LinAlgError) as exc:
         msg = f"universe {universe.name!r}: the rolling engine refused the data: {' '.join(str(exc).split())}"
         raise FitError(msg) from exc
+
+
+# ------------------------------------------------------------------------------------------
+# estimator = "quantile": quantile regression per equation at each τ (arlib.rolling_quantile_var)
+# ------------------------------------------------------------------------------------------
+# The same window grid, plan and incremental rule as least squares. Each window is fitted at every
+# τ of [universes.quantile]; the τ nearest 0.5 (`UniverseConfig.central_quantile`) fills the
+# one-fit-per-window tables (window_fits, connectedness, directional, pairwise, window_params), so
+# every tab shows that fit, and `quantile_connectedness` holds every τ. No Granger tests (they are
+# least-squares F tests), no stored responses or decompositions (derived from window_params), no
+# response bands.
+
+
+def quantile_fit(prepared: Prepared, universe: UniverseConfig, ends: np.ndarray) -> Any:
+    """arlib.rolling_quantile_var on the window ends `ends`; a refusal is a FitError."""
+    import arlib
+
+    assert universe.lags is not None  # the loader requires fixed lags for quantile universes
+    try:
+        return arlib.rolling_quantile_var(
+            prepared.y, universe.window_rows, universe.lags, universe.horizon,
+            quantiles=universe.quantile.quantiles, step=universe.step, trend=universe.trend,
+            ends=np.asarray(ends, dtype=np.int64), names=list(prepared.names),
+        )  # fmt: skip
+    except (ValueError, np.linalg.LinAlgError) as exc:
+        msg = f"universe {universe.name!r}: the quantile engine refused the data: {' '.join(str(exc).split())}"
+        raise FitError(msg) from exc
+
+
+def quantile_tables(result: Any, prepared: Prepared, universe: UniverseConfig, *, run_id: str) -> dict[str, pl.DataFrame]:
+    """The quantile fits as the warehouse's tables: the central τ in the per-window tables a
+    least-squares universe writes (no Granger tests, criteria or arrays), every τ in
+    `quantile_connectedness`."""
+    from types import SimpleNamespace
+
+    taus = [float(t) for t in result.quantiles]
+    c = taus.index(universe.central_quantile)
+    W = len(result)
+    nan = np.full(W, np.nan)
+    view = SimpleNamespace(
+        ends=result.ends, starts=result.starts, ok=result.ok, spectral_radius=result.spectral_radius[c],
+        skip_reason=result.skip_reason, portmanteau_p=None, nobs=result.nobs, lags=np.full(W, result.lags),
+        aic=nan, bic=nan, hq=nan, fpe=nan, condition_number=nan,
+        total_connectedness=result.total_connectedness[c], to_others=result.to_others[c],
+        from_others=result.from_others[c], net=result.net[c], pairwise=result.pairwise[c], granger_f=None,
+        coefs=result.coefs[c], intercept=None if result.intercept is None else result.intercept[c],
+        trend_coef=None, sigma_u=result.sigma_u[c], responses=None, decomposition=None,
+    )  # fmt: skip
+    tables = result_tables(view, prepared, universe, run_id=run_id)
+    k = np.flatnonzero(np.asarray(result.ok, dtype=bool))
+    K, Q = k.size, len(taus)
+    dates = np.asarray(prepared.dates, dtype="datetime64[D]")
+    ends = np.repeat(dates[np.asarray(result.ends)[k]], Q)
+    wq = (np.repeat(k, Q), np.tile(np.arange(Q), K))  # rows: window-major, then τ
+
+    def pick(a: np.ndarray) -> np.ndarray:
+        return np.asarray(a).swapaxes(0, 1)[wq]
+
+    intercept = (
+        _flat(pick(result.intercept)) if result.intercept is not None else pl.Series([None] * (K * Q), dtype=pl.List(pl.Float64))
+    )
+    tables["quantile_connectedness"] = pl.DataFrame(
+        {
+            "run_id": [run_id] * (K * Q), "universe": [universe.name] * (K * Q),
+            "window_end": pl.Series("window_end", ends).cast(pl.Date),
+            "quantile": np.tile(np.asarray(taus), K), "total": pick(result.total_connectedness),
+            "to_others": _flat(pick(result.to_others)), "from_others": _flat(pick(result.from_others)),
+            "net": _flat(pick(result.net)), "shares": _flat(pick(result.pairwise)),
+            "spectral_radius": _none_if_nan(pick(result.spectral_radius)),
+            "lags": pl.Series([int(result.lags)] * (K * Q), dtype=pl.Int32),
+            "coefs": _flat(pick(result.coefs)), "intercept": intercept, "sigma_u": _flat(pick(result.sigma_u)),
+        }
+    )  # fmt: skip
+    return tables
 
 
 def _flat(a: np.ndarray) -> pl.Series:

@@ -31,6 +31,8 @@ from pipeline.fit import (
     latest_window_bands,
     plan_tvp,
     plan_windows,
+    quantile_fit,
+    quantile_tables,
     result_tables,
     tvp_filter,
     tvp_tables,
@@ -297,6 +299,8 @@ def fit_block_step(
     """
     if isinstance(ends, TVPBlock):
         return tvp_tables(tvp_filter(prepared, universe, ends), prepared, universe, ends, run_id=run_id)
+    if universe.estimator == "quantile":
+        return quantile_tables(quantile_fit(prepared, universe, ends), prepared, universe, run_id=run_id)
     rolling = fit_block(prepared, universe, ends)
     bands = latest_window_bands(prepared, universe, rolling) if with_bands else None
     return result_tables(rolling, prepared, universe, run_id=run_id, bands=bands, last_block=with_bands)

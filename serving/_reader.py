@@ -166,6 +166,12 @@ class Universe:
         """"rolling" (windows of least squares) or "tvp" (the TVP-VAR filter: one result per date)."""
         return str(self.config.get("model", "rolling"))
 
+    @property
+    def estimator(self) -> str:
+        """"ols" (least squares) or "quantile" (quantile regression at each τ; the per-window
+        tables hold the τ nearest 0.5, `Snapshot.quantile_history` every τ)."""
+        return str(self.config.get("estimator", "ols"))
+
 
 @dataclasses.dataclass(frozen=True)
 class Fit:
@@ -481,6 +487,27 @@ class JointHistory:
     from_others: np.ndarray
 
 
+@dataclasses.dataclass(frozen=True)
+class QuantileHistory:
+    """Quantile connectedness of every stored window (Ando, Greenwood-Nimmo & Shin 2022), percent.
+
+    ends: W window ends; quantiles: (Q,) the τ levels, increasing; total: (W, Q);
+    to_others, from_others, net: (W, Q, n); table: (W, Q, n, n) [window, τ, variable, shock].
+    """
+
+    ends: list[dt.date]
+    quantiles: np.ndarray
+    total: np.ndarray
+    to_others: np.ndarray
+    from_others: np.ndarray
+    net: np.ndarray
+    table: np.ndarray
+
+    def at(self, end: dt.date) -> int:
+        """Index of the last stored window ending on or before `end` (0 when none is)."""
+        return max(bisect.bisect_right(self.ends, end) - 1, 0)
+
+
 class Snapshot:
     """The dashboard's questions to the snapshot, each one parameterised statement.
 
@@ -656,7 +683,7 @@ class Snapshot:
         or None; with several, the first by name. This is how "configured both ways" is found."""
         for name in sorted(self.universes()):
             other = self.universes()[name]
-            if other.model != universe.model and other.series == universe.series:
+            if other.model != universe.model and other.series == universe.series and other.estimator == universe.estimator:
                 return other
         return None
 
@@ -1019,6 +1046,39 @@ class Snapshot:
 
         return self._cached(("joint", universe.name), load)
 
+    def quantile_history(self, universe: Universe) -> QuantileHistory | None:
+        """Connectedness at every τ of every window, or None when the universe stores none."""
+
+        def load() -> QuantileHistory | None:
+            if not self.has("quantile_connectedness"):
+                return None
+            t = self.history("quantile_connectedness", universe.name)
+            if t.num_rows == 0:
+                return None
+            col = {name: t.column(name).to_pylist() for name in ("window_end", "quantile", "total", "to_others", "from_others", "net", "shares")}
+            taus = sorted(set(col["quantile"]))
+            Q, n = len(taus), len(universe.series)
+            W = t.num_rows // Q
+            if W * Q != t.num_rows or col["quantile"][:Q] * W != col["quantile"]:
+                msg = f"universe {universe.name!r}: quantile_connectedness rows are not whole windows (every τ per window)"
+                raise StoredArrayError(msg)
+
+            def grid(name: str, *shape: int) -> np.ndarray:
+                out = np.asarray(col[name] if not shape else [_need(v, shape, f"quantile_connectedness.{name}") for v in col[name]],
+                                 dtype=np.float64).reshape(W, Q, *shape)  # fmt: skip
+                out.flags.writeable = False
+                return out
+
+            quantiles = np.asarray(taus)
+            quantiles.flags.writeable = False
+            return QuantileHistory(
+                ends=col["window_end"][::Q], quantiles=quantiles, total=grid("total"),
+                to_others=grid("to_others", n), from_others=grid("from_others", n), net=grid("net", n),
+                table=grid("shares", n, n),
+            )  # fmt: skip
+
+        return self._cached(("quantile", universe.name), load)
+
     def universe_names(self) -> list[str]:
         return sorted(self.universes())
 
@@ -1094,6 +1154,7 @@ _LABEL_ORDER: dict[str, tuple[str, ...]] = {
     "granger": ("caused", "causing"),
     "responses": ("identification",),
     "decompositions": ("method",),
+    "quantile_connectedness": ("quantile",),
 }
 #: The column naming an array table's variants.
 _VARIANT = {"responses": "identification", "decompositions": "method"}

@@ -232,6 +232,16 @@ SCHEMA: tuple[Table, ...] = (
         _c("generalized_total", "DOUBLE", nn=True, note="(the Diebold–Yilmaz index at the same horizon)"),
         _arr("from_others", ("n",), nn=True, note="(share of each series' variance due to all others jointly, percent)"),
     ), note="Lastrapes & Wiesen (2021); only universes with `joint = true`"),
+    Table("quantile_connectedness", "universe × window_end × quantile", "window", (
+        *_window_key(), _c("quantile", "DOUBLE", nn=True, note="(τ)"),
+        _c("total", "DOUBLE", nn=True, note="(percent)"),
+        _arr("to_others", ("n",), nn=True), _arr("from_others", ("n",), nn=True), _arr("net", ("n",), nn=True),
+        _arr("shares", ("n", "n"), nn=True, axes=("variable", "shock"), note="percent (the generalized table at τ)"),
+        _c("spectral_radius", "DOUBLE"), _c("lags", "INTEGER", nn=True),
+        _arr("coefs", ("p", "n", "n"), nn=True, axes=("lag", "equation", "regressor"), note="B̂(τ)"),
+        _arr("intercept", ("n",), note="or NULL (trend `n`)"),
+        _arr("sigma_u", ("n", "n"), nn=True, note="Σ̂(τ): centred covariance of the τ-residuals (divided by T_eff − 1)"),
+    ), note="Ando, Greenwood-Nimmo & Shin (2022); only universes with `estimator = \"quantile\"` (the other per-window tables hold the τ nearest 0.5)"),
     Table("tvp_state", "universe (model `tvp`)", "state", (
         *_window_key(), _c("window_start", "DATE", nn=True, note="(the first filtered date)"),
         _c("row", "BIGINT", nn=True, note="(complete prepared rows the filter has consumed)"),

@@ -277,6 +277,10 @@ def _load_universe(raw: Any, i: int, problems: Problems, base: Path) -> Universe
         typo = difflib.get_close_matches("window", [k for k in raw if k not in given], n=1, cutoff=0.6)
         if "window" in v and v["window"] is None and not typo:  # a misspelt window is reported as such
             problems.add(key("window"), "is required but missing", f"add `window = 250` (rows per window) to {where}, or set model = \"tvp\"")
+    if v.get("estimator") == "quantile":
+        lags_ok = _quantile_rules(v, given, where, problems) and lags_ok
+    elif "quantile" in given:
+        problems.add(key("quantile"), "is set but estimator is not 'quantile'", 'remove the [universes.quantile] table or set estimator = "quantile"')
     if lags_ok and v.get("model") != "tvp" and not _bad(v, "series", "window", "trend") and v["window"] is not None:
         _window_rules(v, where, problems)
     if len(problems) > before:
@@ -315,6 +319,28 @@ def _tvp_rules(v: dict[str, Any], given: set[str], where: str, problems: Problem
                 f"= {training} rows cannot give a least-squares prior for {n} series × {p} lags{' + intercept' if trend != 'n' else ''}",
                 f"use training >= {need} (p + k + n), or leave it out for the default max(p + k + n, 4·k)",
             )
+    return ok
+
+
+def _quantile_rules(v: dict[str, Any], given: set[str], where: str, problems: Problems) -> bool:
+    """The rules of an `estimator = "quantile"` universe; False when `lags` cannot be used for the row rule."""
+    ok = True
+    if v.get("model") == "tvp":
+        problems.add(f"{where}.estimator", 'is "quantile", which fits rolling windows, but model is "tvp"', 'use model = "rolling" (the default) or estimator = "ols"')
+        ok = False
+    if v.get("lag_selection") is not None:
+        problems.add(f"{where}.lag_selection", "cannot choose p per window for quantile fits (criteria are least-squares ones)", "set a fixed `lags = 2` instead")
+        ok = False
+    if v.get("trend") == "ct":
+        problems.add(f"{where}.trend", 'is "ct": quantile universes take trend "c" or "n"', 'use trend = "c" with estimator = "quantile"')
+        ok = False
+    if v.get("expanding"):
+        problems.add(f"{where}.expanding", "is true: quantile fits use rolling windows only", 'remove `expanding` or use estimator = "ols"')
+    if v.get("bands", NO_BANDS).method != "none":
+        problems.add(f"{where}.bands.method", f"is {v['bands'].method!r}: response bands are least-squares ones, not defined for quantile fits", 'remove the [universes.bands] table of an estimator = "quantile" universe')
+    for k, what in (("frequency_bands", "frequency-band connectedness"), ("joint", "joint connectedness")):
+        if k in given and v.get(k):
+            problems.add(f"{where}.{k}", f"is set, but {what} is not computed for quantile fits", f'remove `{k}` or use estimator = "ols"')
     return ok
 
 

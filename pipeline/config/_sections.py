@@ -32,6 +32,7 @@ __all__ = [
     "ExecutionConfig",
     "ExportConfig",
     "LagSelection",
+    "QuantileSettings",
     "ScheduleConfig",
     "SeriesSpec",
     "TVPSettings",
@@ -56,6 +57,9 @@ EXPORT_FORMATS = ("html", "csv", "parquet", "pdf")
 RUNNERS = ("local", "dask")
 #: how a universe is estimated: windows of least squares, or the TVP-VAR filter (arlib.tvp_var)
 MODELS = ("rolling", "tvp")
+#: how each window's equations are estimated: least squares, or quantile regression at each τ
+#: of `[universes.quantile]` (arlib.rolling_quantile_var)
+ESTIMATORS = ("ols", "quantile")
 #: the TVP filter's state covariance (arlib's COVARIANCES)
 TVP_COVARIANCES = ("kronecker", "full")
 #: the most worker processes the dashboard starts (dashboard.settings.MAX_WORKERS)
@@ -115,6 +119,12 @@ def _band_edges(edges: tuple[float, ...]) -> tuple[str, str] | None:
 
 def _kappa(value: float) -> tuple[str, str] | None:
     return None if 0 < value <= 1 else (f"is {value}", "use a factor in (0, 1], e.g. 0.99 (memory about 1/(1 − κ) rows)")
+
+
+def _quantile_levels(levels: tuple[float, ...]) -> tuple[str, str] | None:
+    if not levels or list(levels) != sorted(set(levels)) or not all(0 < t < 1 for t in levels):
+        return (f"is {list(levels)}", "list distinct levels in (0, 1), increasing, e.g. [0.05, 0.5, 0.95]")
+    return None
 
 
 def _cron(cron: str) -> tuple[str, str] | None:
@@ -235,6 +245,21 @@ DEFAULT_TVP = TVPSettings()
 
 
 @dataclass(frozen=True)
+class QuantileSettings:
+    """The quantile levels of an `estimator = "quantile"` universe (arlib.rolling_quantile_var)."""
+
+    quantiles: tuple[float, ...] = setting(
+        (0.05, 0.5, 0.95), check=_quantile_levels, default_doc="`[0.05, 0.5, 0.95]`",
+        doc="τ levels in (0, 1), increasing (lower tail, median, upper tail); the tabs that show one "
+        "fit per window show the level nearest 0.5",
+    )  # fmt: skip
+
+
+#: a universe without a `[universes.quantile]` table
+DEFAULT_QUANTILE = QuantileSettings()
+
+
+@dataclass(frozen=True)
 class UniverseConfig:
     """One `[[universes]]` entry: a named set of series and how to fit them."""
 
@@ -313,6 +338,16 @@ class UniverseConfig:
         DEFAULT_TVP, fit_if_set=True, default_doc="arlib's defaults",
         doc="a table: the TVP filter's settings (`model = \"tvp\"` only)",
     )  # fmt: skip
+    estimator: str = setting(
+        "ols", choices=ESTIMATORS, fit_if_set=True,
+        doc="`ols` (least squares per window) or `quantile` (each equation by quantile regression at "
+        "every τ of `[universes.quantile]`: tail connectedness, Ando–Greenwood-Nimmo–Shin 2022; "
+        "rolling windows, fixed `lags`, trend `n`/`c`, no Granger tests, bands, `frequency_bands` or `joint`)",
+    )  # fmt: skip
+    quantile: QuantileSettings = setting(
+        DEFAULT_QUANTILE, fit_if_set=True, default_doc="τ = 0.05, 0.5, 0.95",
+        doc="a table: the quantile levels (`estimator = \"quantile\"` only)",
+    )  # fmt: skip
 
     @property
     def names(self) -> tuple[str, ...]:
@@ -326,6 +361,11 @@ class UniverseConfig:
             return None
         edges = (1.0, *(float(e) for e in self.frequency_bands), float("inf"))
         return tuple(itertools.pairwise(edges))
+
+    @property
+    def central_quantile(self) -> float:
+        """The τ of a quantile universe whose fit fills the one-fit-per-window tables: nearest 0.5."""
+        return min(self.quantile.quantiles, key=lambda t: (abs(t - 0.5), t))
 
     @property
     def window_rows(self) -> int:

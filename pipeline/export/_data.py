@@ -25,6 +25,7 @@ from serving import (
     BandHistory,
     DecompositionSet,
     JointHistory,
+    QuantileHistory,
     ResponseSet,
     ServingError,
     stored_decompositions,
@@ -59,6 +60,7 @@ class ReportData:
     notes: list[str] = field(default_factory=list)
     bands: BandHistory | None = None  # frequency-band connectedness of every window (or none stored)
     joint: JointHistory | None = None  # joint connectedness of every window (or none stored)
+    quantiles: QuantileHistory | None = None  # connectedness at every τ (estimator "quantile" only)
     #: the universe of the other model on the same series (Snapshot.counterpart): its name, model
     #: and (date, total) index history up to the report date; None when there is none
     counterpart: tuple[str, str, list[tuple[dt.date, float]]] | None = None
@@ -169,7 +171,7 @@ def _gather(snap: Snapshot, universe: str, as_of: dt.date | None) -> ReportData:
         from_others=from_o, net=net, total=total, granger_f=gf, granger_p=gp,
         responses=responses, decompositions=decomps, runs=runs,
         batches=frame(snap.source_batches(universe, report_date, before)), run_id=run_id, notes=notes,
-        bands=snap.band_history(info), joint=snap.joint_history(info), counterpart=_counterpart(snap, info, report_date),
+        bands=snap.band_history(info), joint=snap.joint_history(info), quantiles=snap.quantile_history(info), counterpart=_counterpart(snap, info, report_date),
     )
 
 

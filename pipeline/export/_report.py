@@ -121,6 +121,10 @@ def _glance(d: ReportData) -> str:
         ("Identification", _esc(info.identification)),
         ("Granger level", f"{info.granger_level:g}"),
     ]
+    if info.estimator == "quantile" and d.quantiles is not None:
+        levels = ", ".join(f"{float(t):g}" for t in d.quantiles.quantiles)
+        rows[1:2] = [rows[1], ("Estimator", _esc(f"quantile regression per equation at τ = {levels} "
+                                                 "(figures outside the tails section: the level nearest 0.5)"))]
     dl = "".join(f"<dt>{k}</dt><dd>{v}</dd>" for k, v in rows)
     notes = ""
     if d.notes:
@@ -201,6 +205,37 @@ def _cycles(d: ReportData, chart: _Charts) -> str:
                 [jh.ends[w] for w in keep], jh.total[keep], jh.generalized_total[keep],
                 universe=d.info.name, horizon=d.info.horizon, medium="print"), div_id="fig-joint"))  # fmt: skip
             out.append("</section>")
+    return "".join(out)
+
+
+def _tails(d: ReportData, chart: _Charts) -> str:
+    """Lower-tail, median and upper-tail connectedness, for a universe fitted by quantile regression."""
+    qh = d.quantiles
+    if qh is None:
+        return ""
+    keep = [w for w, e in enumerate(qh.ends) if e <= d.report_date]
+    if not keep:
+        return ""
+    last = keep[-1]
+    taus = [float(t) for t in qh.quantiles]
+    out = ['<section id="tails" class="major"><h2>Connectedness in the tails</h2>'
+           '<p class="note">Each equation fitted by quantile regression at τ (Ando, Greenwood-Nimmo '
+           "&amp; Shin 2022), so the lower-tail index shows how shocks spread when the series are "
+           "at their worst, the upper-tail one when they are at their best; the other sections show "
+           "the level nearest the median.</p>",
+           chart(charts.quantile_index_figure(
+               [qh.ends[w] for w in keep], qh.total[keep], taus, universe=d.info.name,
+               horizon=d.info.horizon, window_end=qh.ends[last], medium="print"), div_id="fig-tails"),
+           chart(charts.quantile_tables_figure(qh.table[last], taus, d.info.series, window_end=qh.ends[last],
+                                               medium="print"), div_id="fig-tails-tables")]  # fmt: skip
+    rows = "".join(
+        f"<tr><th>{_esc(charts.quantile_label(t))}</th><td>{_num(qh.total[last, q])}</td>"
+        + "".join(_num(qh.net[last, q, i]) for i in range(len(d.info.series))) + "</tr>"
+        for q, t in enumerate(taus)
+    )
+    head = "".join(f"<th>net {_esc(s)}</th>" for s in d.info.series)
+    out.append(f'<table class="plain" id="tails-table"><caption>Window ending {qh.ends[last]}</caption>'
+               f"<tr><th>level</th><th>total, %</th>{head}</tr>{rows}</table></section>")
     return "".join(out)
 
 
@@ -341,6 +376,11 @@ def _granger(d: ReportData) -> str:
     if d.info.model == "tvp":
         out.append('<p class="note">A time-varying-parameter VAR: Granger tests belong to a least-squares '
                    "fit per window, so none are stored for its dates.</p></div></section>")  # fmt: skip
+        return "".join(out)
+    if d.info.estimator == "quantile":
+        out.append('<p class="note">Fitted by quantile regression at each τ: Granger tests are '
+                   "least-squares F tests, so none are stored for its windows (see Connectedness in "
+                   "the tails).</p></div></section>")  # fmt: skip
         return "".join(out)
     if d.granger_p is None or d.granger_f is None:  # set together
         out.append('<p class="note">No fitted window.</p></div></section>')
@@ -492,7 +532,7 @@ def render_report(d: ReportData, *, generated: dt.datetime, version: str) -> str
     """The complete HTML text of one universe's report."""
     chart = _Charts()
     body = "\n".join([
-        _glance(d), _connectedness(d, chart), _cycles(d, chart), _models(d, chart), _spillovers(d), _responses(d, chart),
+        _glance(d), _connectedness(d, chart), _cycles(d, chart), _tails(d, chart), _models(d, chart), _spillovers(d), _responses(d, chart),
         _decompositions(d, chart), _granger(d), _health(d, chart), _lineage(d),
     ])
     files = resources.files("pipeline.export") / "templates"

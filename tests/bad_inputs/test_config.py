@@ -86,6 +86,17 @@ FATAL = [
         r"\(3 series × 1 lags \+ trend\), fewer than the 7 needed; use window >= 8 .*",
     ),
     ConfigCase(
+        "quantile-level-outside-0-1",
+        _replace("window = 40\nlags = 1", 'window = 40\nlags = 1\nestimator = "quantile"\nquantile = { quantiles = [0.05, 1.5] }'),
+        r"`universes\['stocks'\]\.quantile\.quantiles` is \[0\.05, 1\.5\]; list distinct levels in \(0, 1\), increasing, e\.g\. \[0\.05, 0\.5, 0\.95\]",
+    ),
+    ConfigCase(
+        "quantile-table-without-estimator",
+        _replace("window = 40\nlags = 1", "window = 40\nlags = 1\nquantile = { quantiles = [0.1, 0.9] }"),
+        r"`universes\['stocks'\]\.quantile` is set but estimator is not 'quantile'; remove the "
+        r"\[universes\.quantile\] table or set estimator = \"quantile\"",
+    ),
+    ConfigCase(
         "invalid-cron-value", _append('[schedule]\ncron = "0 25 * * 1-5"\n'),
         r"`schedule\.cron` is '0 25 \* \* 1-5': .*; fix the field, e\.g\. '0 22 \* \* 1-5' for 22:00 on weekdays",
     ),

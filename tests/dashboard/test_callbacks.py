@@ -395,6 +395,8 @@ ALL_VIEWS = (
     lambda snap, st: vw.compare_pairs_view(snap, st, None, None, None, None),
     lambda snap, st: vw.compare_paths_view(snap, st, None, None, None, None, "generalized", None, 5),
     lambda snap, st: vw.cycles_view(snap, st),
+    lambda snap, st: vw.tails_index_view(snap, st),
+    lambda snap, st: vw.tails_tables_view(snap, st),
 )
 
 

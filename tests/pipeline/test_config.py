@@ -201,8 +201,10 @@ max_lags = 6
 def test_fit_hash_of_existing_configs_is_unchanged(tmp_path: Path) -> None:
     demo = {u.name: u.config_hash for u in load_config(_DEMO).universes}
     # all_markets' settings changed on purpose (frequency_bands and joint added to the demo in
-    # c4fe67c: 2724928f8ce9058f before); all_markets_tvp is new. The other two are pinned as before.
+    # c4fe67c: 2724928f8ce9058f before); all_markets_tvp and equities_tails (estimator = "quantile")
+    # are new. The other two are pinned as before.
     assert demo == {"all_markets": "20ecf2e082d41a14", "all_markets_tvp": "f09a68e721b06780",
+                    "equities_tails": "71b898ce53856459",
                     "rates_fx": "641ce7f2e387a726", "equities_weekly": "942c05c6b427c4f9"}  # fmt: skip
     other = {u.name: u.config_hash for u in load_config_text(MINIMAL + _PINNED_EXTRA, tmp_path / "c.toml").universes}
     assert other == {"pair": "648e2940618b97be", "chol": "2e44e2d08d7be155", "sel": "2b37c38e3c458c29"}

@@ -107,7 +107,7 @@ def test_public_surface_is_pinned() -> None:
     assert serving.__all__ == sorted(serving.__all__, key=lambda s: (not s.isupper(), s[0].islower(), s))
     assert set(serving.__all__) == {
         "BandHistory", "BandSet", "BandSettings", "Column", "DERIVED", "DateWindow", "DecompositionSet", "Fit",
-        "JointHistory",
+        "JointHistory", "QuantileHistory",
         "IDENTIFICATIONS", "RESULT_TABLES", "RefitMismatchError", "ResponseSet", "SCHEMA",
         "SCHEMA_VERSION", "SNAPSHOT_TABLES", "STORED", "ServingError", "Snapshot",
         "SnapshotMissingError", "SnapshotReader", "StoredArrayError", "Table", "UNIVERSE_TABLES",
