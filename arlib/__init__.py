@@ -33,6 +33,7 @@ from ._moments import (
 )
 from ._responses import impulse_responses, ma_coefficients
 from ._rolling import RollingVAR, rolling_var
+from ._shrink import ShrinkageFit, shrinkage_draws, shrinkage_var
 from ._sizes import minimum_window
 from ._tvp import TimeVaryingVAR, TVPState, tvp_var
 from ._validate import ArlibError, InvalidInputError, UnstableProcessWarning, VARLike
@@ -51,6 +52,7 @@ __all__ = [
     "NormalityResult",
     "PortmanteauResult",
     "RollingVAR",
+    "ShrinkageFit",
     "SpectralPeak",
     "TVPState",
     "TimeVaryingVAR",
@@ -76,6 +78,8 @@ __all__ = [
     "portmanteau_test",
     "rolling_var",
     "select_lags",
+    "shrinkage_draws",
+    "shrinkage_var",
     "simulate_var",
     "spectral_density",
     "spectral_peak",

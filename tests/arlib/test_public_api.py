@@ -18,6 +18,7 @@ PINNED = [
     "NormalityResult",
     "PortmanteauResult",
     "RollingVAR",
+    "ShrinkageFit",
     "SpectralPeak",
     "TVPState",
     "TimeVaryingVAR",
@@ -43,6 +44,8 @@ PINNED = [
     "portmanteau_test",
     "rolling_var",
     "select_lags",
+    "shrinkage_draws",
+    "shrinkage_var",
     "simulate_var",
     "spectral_density",
     "spectral_peak",
@@ -88,5 +91,7 @@ def test_model_arguments_are_typed_with_the_protocol() -> None:
             if arg in params:
                 seen += 1
                 want = "VARFit" if name in needs_fit else "VARLike"
+                if name == "shrinkage_draws":  # draws need the posterior, only a ShrinkageFit has it
+                    want = "ShrinkageFit"
                 assert params[arg].annotation == want, (name, params[arg].annotation)
-    assert seen == 18  # frequency_connectedness and joint_connectedness included
+    assert seen == 19  # frequency_connectedness, joint_connectedness, shrinkage_draws included
