@@ -34,6 +34,7 @@ from ._moments import (
 from ._responses import impulse_responses, ma_coefficients
 from ._rolling import RollingVAR, rolling_var
 from ._shrink import ShrinkageFit, shrinkage_draws, shrinkage_var
+from ._shrink_rolling import RollingShrinkage, rolling_shrinkage
 from ._sizes import minimum_window
 from ._tvp import TimeVaryingVAR, TVPState, tvp_var
 from ._validate import ArlibError, InvalidInputError, UnstableProcessWarning, VARLike
@@ -51,6 +52,7 @@ __all__ = [
     "LagSelection",
     "NormalityResult",
     "PortmanteauResult",
+    "RollingShrinkage",
     "RollingVAR",
     "ShrinkageFit",
     "SpectralPeak",
@@ -76,6 +78,7 @@ __all__ = [
     "minimum_window",
     "normality_test",
     "portmanteau_test",
+    "rolling_shrinkage",
     "rolling_var",
     "select_lags",
     "shrinkage_draws",
