@@ -22,6 +22,7 @@ CASES: dict[str, str] = {
     "ingest_memory": "bench.ingest_memory:case",
     "tvp": "bench.tvp:main",
     "tvp_nightly": "bench.tvp_nightly:main",
+    "shrink": "bench.shrink:main",
 }
 
 
