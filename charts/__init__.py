@@ -29,6 +29,7 @@ from ._figures import (
     responses_figure,
     shares_figure,
     stress_runs,
+    tightness_figure,
 )
 from ._theme import (
     DIVERGING,
@@ -73,4 +74,5 @@ __all__ = [
     "series_style",
     "shares_figure",
     "stress_runs",
+    "tightness_figure",
 ]

@@ -256,6 +256,12 @@ def leadlag_view(snap: Snapshot, state: Any, level: Any) -> ViewResult:
                "fit per window, so none are stored for its dates"
                + (f"; see its rolling counterpart '{other.name}'." if other is not None else "."))  # fmt: skip
         raise WindowError(msg)
+    if u.estimator == "shrinkage":
+        msg = (f"Universe '{u.name}' is a shrinkage VAR (Minnesota prior, posterior mean): Granger F tests "
+               "belong to a least-squares fit and are not defined for it, so none are stored. Lead–lag "
+               "spillovers show instead in the pairwise shares of the Spillover network tab (who drives "
+               "whose forecast-error variance), and the prior's pull in the Shrinkage tab (λ per window).")  # fmt: skip
+        raise WindowError(msg)
     alpha = parse_fraction(level, "significance level", 0.0, 0.5)
     end = snap.fitted_end(window)
     pvals = snap.granger_at(u, end)
@@ -799,6 +805,32 @@ def _skipped(rows: Rows) -> Any:
     return as_json(skipped_table(skipped_rows(rows)))
 
 
+@guard
+def tightness_view(snap: Snapshot, state: Any) -> ViewResult:
+    """The shrinkage prior's tightness λ per window end in the date window (shrinkage universes)."""
+    window = _window(snap, state)
+    u = snap.universe(window.universe)
+    if u.estimator != "shrinkage":
+        msg = (f"Universe '{u.name}' is fitted by least squares per window: it has no shrinkage prior. "
+               'Set estimator = "shrinkage" in its [[universes]] table to see the tightness λ here.')  # fmt: skip
+        raise WindowError(msg)
+    rows_in = snap.tightness_in(window)
+    if not rows_in:
+        raise WindowError(f"No fitted window of '{u.name}' ends between {window.label}; widen the range.")
+    ends = [r[0] for r in rows_in]
+    lam = np.array([r[1] for r in rows_in], dtype=float)
+    chosen = bool(rows_in[-1][2])
+    fig = charts.tightness_figure(ends, lam, universe=u.name, chosen=chosen)
+    rows = [{"window_end": iso(e), "tightness": num(v), "chosen": bool(c), "log_marginal_likelihood": num(m)}
+            for e, v, c, m in rows_in]  # fmt: skip
+    note = (f"λ over {len(ends)} windows from {window.label}: median {np.median(lam):.3g}, range "
+            f"{lam.min():.3g} to {lam.max():.3g}. Smaller λ pulls each equation harder towards the prior "
+            "(random walk for level series, white noise for changes and returns); "
+            + ("λ is chosen per window by maximising the marginal likelihood over [0.001, 10]."
+               if chosen else "λ is fixed by the configuration."))  # fmt: skip
+    return fig, rows, note
+
+
 def _compare_build(snap: Snapshot, state: Any, *values: Any) -> tuple[ViewResult, ViewResult]:
     return compare_view(snap, state, *values)
 
@@ -831,6 +863,10 @@ VIEWS: tuple[View, ...] = (
          intro=("The same series estimated both ways: total connectedness from rolling windows of "
                 "least squares next to the time-varying-parameter VAR filtered per date, for a "
                 "universe configured with a counterpart (same series, the other `model`).")),
+    View("shrinkage", tightness_view, tab="Shrinkage", charts=(("shrinkage", 340),),
+         intro=("For a shrinkage universe (estimator = \"shrinkage\"): the tightness λ of its Minnesota "
+                "prior per window. Its coefficients are posterior means, pulled towards a random walk "
+                "(level series) or white noise (changes, returns); smaller λ, harder pull.")),
     View("cycles", cycles_view, tab="Own cycles", charts=(("cycles", 460),),
          intro=("Each series on its own: a univariate AR (order chosen by AIC) fitted on the prepared "
                 "data of the window the views use; its implied spectral density and, where the "

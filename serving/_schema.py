@@ -232,6 +232,13 @@ SCHEMA: tuple[Table, ...] = (
         _c("generalized_total", "DOUBLE", nn=True, note="(the Diebold–Yilmaz index at the same horizon)"),
         _arr("from_others", ("n",), nn=True, note="(share of each series' variance due to all others jointly, percent)"),
     ), note="Lastrapes & Wiesen (2021); only universes with `joint = true`"),
+    Table("shrinkage_fits", "universe × window_end", "window", (
+        *_window_key(),
+        _c("tightness", "DOUBLE", nn=True, note="(λ, the Minnesota prior's overall tightness)"),
+        _c("tightness_chosen", "BOOLEAN", nn=True, note="(λ chosen by the marginal likelihood, else fixed)"),
+        _c("log_marginal_likelihood", "DOUBLE", nn=True, note="(at λ; flat intercept as a limit, arlib._shrink)"),
+        _c("lag_decay", "DOUBLE", nn=True),
+    ), note='natural-conjugate shrinkage VAR (arlib.rolling_shrinkage); only universes with `estimator = "shrinkage"`'),
     Table("tvp_state", "universe (model `tvp`)", "state", (
         *_window_key(), _c("window_start", "DATE", nn=True, note="(the first filtered date)"),
         _c("row", "BIGINT", nn=True, note="(complete prepared rows the filter has consumed)"),

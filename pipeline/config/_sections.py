@@ -34,6 +34,7 @@ __all__ = [
     "LagSelection",
     "ScheduleConfig",
     "SeriesSpec",
+    "ShrinkageSettings",
     "TVPSettings",
     "UniverseConfig",
     "WarehouseConfig",
@@ -54,6 +55,12 @@ EXPORT_FORMATS = ("html", "csv", "parquet", "pdf")
 RUNNERS = ("local", "dask")
 #: how a universe is estimated: windows of least squares, or the TVP-VAR filter (arlib.tvp_var)
 MODELS = ("rolling", "tvp")
+#: how each window of a rolling universe is estimated: least squares, or the natural-conjugate
+#: shrinkage VAR (arlib.rolling_shrinkage)
+ESTIMATORS = ("ols", "shrinkage")
+#: the shrinkage prior's mean for each series' own first lag, by its transform: levels behave
+#: like random walks, changes and returns like white noise (arlib._shrink.PRIOR_MEANS)
+PRIOR_MEAN_BY_TRANSFORM = {"level": "random_walk", "log_return": "white_noise", "pct_change": "white_noise", "diff": "white_noise"}
 #: the TVP filter's state covariance (arlib's COVARIANCES)
 TVP_COVARIANCES = ("kronecker", "full")
 #: the most worker processes the dashboard starts (dashboard.settings.MAX_WORKERS)
@@ -113,6 +120,12 @@ def _band_edges(edges: tuple[float, ...]) -> tuple[str, str] | None:
 
 def _kappa(value: float) -> tuple[str, str] | None:
     return None if 0 < value <= 1 else (f"is {value}", "use a factor in (0, 1], e.g. 0.99 (memory about 1/(1 − κ) rows)")
+
+
+def _tightness(value: float | str) -> tuple[str, str] | None:
+    if isinstance(value, str):
+        return None if value == "auto" else (f"is {value!r}", 'use "auto" (chosen per window by the marginal likelihood) or a number > 0, e.g. 0.2')
+    return None if 0 < value < float("inf") else (f"is {value}", 'use "auto" or a positive number, e.g. 0.2')
 
 
 def _cron(cron: str) -> tuple[str, str] | None:
@@ -219,6 +232,24 @@ DEFAULT_TVP = TVPSettings()
 
 
 @dataclass(frozen=True)
+class ShrinkageSettings:
+    """The prior of an `estimator = "shrinkage"` universe (arlib.rolling_shrinkage)."""
+
+    tightness: float | str = setting(
+        "auto", check=_tightness,
+        doc='overall tightness λ of the Minnesota prior: `"auto"` (chosen per window by maximising '
+        "the marginal likelihood over [0.001, 10]) or a number > 0 (smaller shrinks harder)",
+    )  # fmt: skip
+    lag_decay: float = setting(
+        1.0, minimum=0.0, doc="prior sd of lag-l coefficients ∝ 1/l^decay (1: variance 1/l²)"
+    )
+
+
+#: a universe without a `[universes.shrinkage]` table
+DEFAULT_SHRINKAGE = ShrinkageSettings()
+
+
+@dataclass(frozen=True)
 class UniverseConfig:
     """One `[[universes]]` entry: a named set of series and how to fit them."""
 
@@ -295,11 +326,26 @@ class UniverseConfig:
         DEFAULT_TVP, fit_if_set=True, default_doc="arlib's defaults",
         doc="a table: the TVP filter's settings (`model = \"tvp\"` only)",
     )  # fmt: skip
+    estimator: str = setting(
+        "ols", choices=ESTIMATORS, fit_if_set=True,
+        doc="per window: `ols` (least squares) or `shrinkage` (natural-conjugate Minnesota prior, "
+        "posterior mean; prior mean random walk for `level` series, white noise for changes and "
+        "returns; needs fixed `lags`, trend `n`/`c`, rolling windows; no Granger tests)",
+    )  # fmt: skip
+    shrinkage: ShrinkageSettings = setting(
+        DEFAULT_SHRINKAGE, fit_if_set=True, default_doc="λ auto, decay 1",
+        doc='a table: the shrinkage prior (`estimator = "shrinkage"` only)',
+    )  # fmt: skip
 
     @property
     def names(self) -> tuple[str, ...]:
         """Series names in column order."""
         return tuple(s.name for s in self.series)
+
+    @property
+    def prior_means(self) -> tuple[str, ...]:
+        """The shrinkage prior mean rule of each series, from its transform (`PRIOR_MEAN_BY_TRANSFORM`)."""
+        return tuple(PRIOR_MEAN_BY_TRANSFORM.get(s.transform, "white_noise") for s in self.series)
 
     @property
     def band_periods(self) -> tuple[tuple[float, float], ...] | None:
