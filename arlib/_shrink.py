@@ -151,7 +151,9 @@ class Prepared:
         )  # fmt: skip
 
 
-def ar1_variances(XX: np.ndarray, XY: np.ndarray, YY: np.ndarray, N: np.ndarray, centred: bool) -> np.ndarray:
+def ar1_variances(
+    XX: np.ndarray, XY: np.ndarray, YY: np.ndarray, N: np.ndarray, centred: bool
+) -> np.ndarray:
     """(W, n) σ_j² = (Σ y_j² − (Σ y_j y_j,−1)² / Σ y_j,−1²) / (N − 1 − centred): the AR(1)
     residual variance of each series from its own lag-1 cross-products (centred when `centred`)."""
     n = YY.shape[-1]
@@ -202,9 +204,9 @@ def prepare(
 def _multigammaln(a: np.ndarray, n: int) -> np.ndarray:
     """log Γ_n(a) = n(n−1)/4 log π + Σ_{j=1}^n log Γ(a + (1 − j)/2), elementwise over a."""
     j = np.arange(1, n + 1)
-    return 0.25 * n * (n - 1) * np.log(np.pi) + special.gammaln(
-        a[..., None] + 0.5 * (1 - j)
-    ).sum(axis=-1)
+    return 0.25 * n * (n - 1) * np.log(np.pi) + special.gammaln(a[..., None] + 0.5 * (1 - j)).sum(
+        axis=-1
+    )
 
 
 def sbar(prep: Prepared, mu: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -354,7 +356,9 @@ def check_tightness(tightness: Any) -> float | None:
     """None for "auto", else λ as a positive finite float."""
     if isinstance(tightness, str) and tightness == "auto":
         return None
-    if isinstance(tightness, bool) or not isinstance(tightness, int | float | np.integer | np.floating):
+    if isinstance(tightness, bool) or not isinstance(
+        tightness, int | float | np.integer | np.floating
+    ):
         msg = f'`tightness` must be "auto" or a positive number (λ), got {tightness!r}'
         raise InvalidInputError(msg)
     lam = float(tightness)
@@ -366,7 +370,9 @@ def check_tightness(tightness: Any) -> float | None:
 
 def check_decay(lag_decay: Any) -> float:
     """Lag decay as a finite float >= 0."""
-    if isinstance(lag_decay, bool) or not isinstance(lag_decay, int | float | np.integer | np.floating):
+    if isinstance(lag_decay, bool) or not isinstance(
+        lag_decay, int | float | np.integer | np.floating
+    ):
         msg = f"`lag_decay` must be a number >= 0 (prior sd shrinks as 1/lag^decay), got {lag_decay!r}"
         raise InvalidInputError(msg)
     out = float(lag_decay)

@@ -218,7 +218,9 @@ def rolling_shrinkage(
             if good.size == 0:
                 continue
             ws = sel[good]
-            prep: Prepared = prepare(XX[good], XY[good], YY[good], N[good], delta, p, decay, centred)
+            prep: Prepared = prepare(
+                XX[good], XY[good], YY[good], N[good], delta, p, decay, centred
+            )
             x = search_tightness(prep) if lam is None else np.full(good.size, np.log(lam))
             post = posterior(prep, x)
             A = lag_coefs(post["B"], n, p)

@@ -6,6 +6,8 @@ numeric integration, simulated truth) are in tests/reference/test_shrinkage_refe
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 import pytest
 
@@ -25,10 +27,10 @@ def levels() -> np.ndarray:
     return y
 
 
-def _window_fit(y: np.ndarray, e: int, window: int, p: int, **kw: object) -> arlib.ShrinkageFit:
+def _window_fit(y: np.ndarray, e: int, window: int, p: int, **kw: Any) -> arlib.ShrinkageFit:
     """shrinkage_var on a window's usable rows (the rows stacked as `rolling_shrinkage` uses
     them: a window without a gap is just its rows)."""
-    return arlib.shrinkage_var(y[e - window + 1 : e + 1], p, **kw)  # type: ignore[arg-type]  # kw are keyword options
+    return arlib.shrinkage_var(y[e - window + 1 : e + 1], p, **kw)
 
 
 @pytest.mark.parametrize(
@@ -36,14 +38,14 @@ def _window_fit(y: np.ndarray, e: int, window: int, p: int, **kw: object) -> arl
     [("c", "white_noise", "auto"), ("c", "random_walk", "auto"), ("n", "white_noise", "auto"),
      ("c", "random_walk", 0.3)],
 )  # fmt: skip
-def test_rolling_equals_single_fit(levels: np.ndarray, trend: str, prior: str, tightness: object) -> None:
+def test_rolling_equals_single_fit(levels: np.ndarray, trend: str, prior: str, tightness: Any) -> None:
     """Every window of the batched engine, λ search included, equals the single fit to 1e-8
     (relative; the engine sums cross-products by blocks, the single fit directly, so they differ
     by rounding only — about 1e-12 here, 1e-10 for trend "n" where series at 100 are not shifted)."""
     y = levels[:, :]
     window, p = 90, 2
     r = rolling_shrinkage(y, window, p, 8, step=5, trend=trend, prior_mean=prior,
-                          tightness=tightness, responses="generalized")  # type: ignore[arg-type]  # fmt: skip
+                          tightness=tightness, responses="generalized")  # fmt: skip
     assert isinstance(r, RollingShrinkage) and r.granger_f is None
     checked = 0
     for w in range(len(r)):
