@@ -195,7 +195,7 @@ def rolling_shrinkage(
     usable = K.usable_observations(finite, p)
     L = win - p
     first = e_rows - win + 1 + p
-    for pos, G in _window_sums(data, usable, p, first, L, centred):
+    for pos, G in _window_sums(data, usable, p, first, L, centred) if W else ():
         for lo in range(0, pos.size, BATCH):
             sel = pos[lo : lo + BATCH]
             g = G[lo : lo + BATCH]

@@ -112,6 +112,7 @@ def test_gaps_skip_or_fit_on_usable_rows(levels: np.ndarray) -> None:
     np.testing.assert_allclose(r.coefs[0, 0], post["B"][0][:3].T, atol=1e-8)
     short = rolling_shrinkage(y, 8, 2, 5, ends=np.array([303]))  # 2 usable observations
     assert not short.ok[0] and "usable observations" in short.skip_reason[0]
+    assert len(rolling_shrinkage(y, 90, 2, 5, after=len(y) - 1)) == 0  # no window asked for
 
 
 def test_slope_and_curvature_are_the_derivatives(var2_data: np.ndarray) -> None:
