@@ -321,5 +321,6 @@ def test_the_demo_config_reads_the_packaged_data_and_writes_into_its_folder(tmp_
     )
     assert [s.path for s in cfg.sources] == [
         str(data_samples.folder() / "markets_wide.csv"), str(data_samples.folder() / "rates_long.csv"),
+        str(data_samples.folder() / "sector_wide.csv"),
     ]
-    assert [u.name for u in cfg.universes] == ["all_markets", "rates_fx", "equities_weekly"]
+    assert [u.name for u in cfg.universes] == ["all_markets", "all_markets_tvp", "rates_fx", "equities_weekly", "sector_40"]
