@@ -33,7 +33,7 @@ from ._moments import (
 )
 from ._responses import impulse_responses, ma_coefficients
 from ._rolling import RollingVAR, rolling_var
-from ._shrink import ShrinkageFit, shrinkage_draws, shrinkage_var
+from ._shrink import ShrinkageFit, shrinkage_bands, shrinkage_draws, shrinkage_var
 from ._shrink_rolling import RollingShrinkage, rolling_shrinkage
 from ._sizes import minimum_window
 from ._tvp import TimeVaryingVAR, TVPState, tvp_var
@@ -81,6 +81,7 @@ __all__ = [
     "rolling_shrinkage",
     "rolling_var",
     "select_lags",
+    "shrinkage_bands",
     "shrinkage_draws",
     "shrinkage_var",
     "simulate_var",

@@ -46,6 +46,7 @@ PINNED = [
     "rolling_shrinkage",
     "rolling_var",
     "select_lags",
+    "shrinkage_bands",
     "shrinkage_draws",
     "shrinkage_var",
     "simulate_var",
@@ -93,7 +94,7 @@ def test_model_arguments_are_typed_with_the_protocol() -> None:
             if arg in params:
                 seen += 1
                 want = "VARFit" if name in needs_fit else "VARLike"
-                if name == "shrinkage_draws":  # draws need the posterior, only a ShrinkageFit has it
+                if name in ("shrinkage_draws", "shrinkage_bands"):  # need the posterior: a ShrinkageFit
                     want = "ShrinkageFit"
                 assert params[arg].annotation == want, (name, params[arg].annotation)
-    assert seen == 19  # frequency_connectedness, joint_connectedness, shrinkage_draws included
+    assert seen == 20  # frequency_connectedness, joint_connectedness, shrinkage_draws/_bands included
