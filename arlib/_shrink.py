@@ -27,7 +27,7 @@ arlib takes the rule as an argument; the pipeline passes it from each universe's
 σ_j² is the residual variance Σ_t û_t² / (N − 2) of an AR(1) with intercept fitted by least
 squares to series j on the window's N usable rows (N − 1 without intercept, trend "n").
 
-Posterior (closed form; KK 1997 eqs. 14–16; BGR 2010 eq. 8)::
+Posterior (closed form; KK 1997 Sec. 3; BGR 2010 Sec. 2 — section numbers recalled from memory)::
 
     Ω̄⁻¹ = X'X + Ω⁻¹,   B̄ = Ω̄ (X'Y + Ω⁻¹ B₀),   ν̄ = ν₀ + N
     S̄ = S₀ + (Y − X B̄)'(Y − X B̄) + (B̄ − B₀)' Ω⁻¹ (B̄ − B₀)
@@ -70,16 +70,16 @@ then found by Newton's method on d log p / d log λ (analytic first and second d
 below), safeguarded by bisection of the bracket whenever a step leaves it or the curvature is
 not negative, until a Newton step is below `ROOT_TOL` (1e-7 in log λ), which is then taken —
 converging quadratically, the error left is about its square, near 1e-14 (at most `ROOT_STEPS`
-steps). A
-maximum on the range's edge is the edge. The steps are the same for a single fit and for every rolling window (batched), so the
-rolling engine reproduces a single fit's λ to the rounding of its cross-products.
+steps). A maximum on the range's edge is the edge. The steps are the same for a single fit and
+for every rolling window (batched), so the rolling engine reproduces a single fit's λ to the
+rounding of its cross-products.
 
 References
 ----------
 Kadiyala, K. R. and Karlsson, S. (1997). Numerical methods for estimation and inference in
     Bayesian VAR-models. Journal of Applied Econometrics 12(2), 99–132.
 Bańbura, M., Giannone, D. and Reichlin, L. (2010). Large Bayesian vector auto regressions.
-    Journal of Applied Econometrics 25(1), 71–92 (prior, Sec. 2; dummy observations, eq. 5).
+    Journal of Applied Econometrics 25(1), 71–92 (the prior and its dummy observations, Sec. 2).
 Giannone, D., Lenza, M. and Primiceri, G. E. (2015). Prior selection for vector
     autoregressions. Review of Economics and Statistics 97(2), 436–451 (marginal likelihood).
 Gupta, A. K. and Nagar, D. K. (2000). Matrix Variate Distributions. Chapman & Hall (Def. 4.2.1).

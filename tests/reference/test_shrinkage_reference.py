@@ -4,7 +4,7 @@ Sources beside each check:
 - λ → ∞: the posterior mean tends to least squares (Kadiyala & Karlsson 1997, Sec. 3: the
   prior precision Ω⁻¹ → 0 in B̄ = (X'X + Ω⁻¹)⁻¹(X'Y + Ω⁻¹B₀)); compared with arlib.fit_var and
   statsmodels' VAR (a general-purpose reference library) on the statsmodels macro data set.
-- Dummy observations: Bańbura, Giannone & Reichlin (2010), Sec. 2.2 / eq. (5): the natural-
+- Dummy observations: Bańbura, Giannone & Reichlin (2010), Sec. 2 (recalled from memory): the natural-
   conjugate Minnesota prior is least squares on the data stacked with artificial rows. Built
   here row by row from the paper's recipe, independently of arlib's closed form.
 - Marginal likelihood: the density of Y under the prior is matrix-variate t,
@@ -52,7 +52,7 @@ def test_loose_prior_equals_least_squares() -> None:
 
 
 def _dummy_regression(y: np.ndarray, p: int, lam: float, decay: float, delta: np.ndarray):
-    """BGR (2010) Sec. 2.2 dummies for the Minnesota prior, built from the recipe:
+    """BGR (2010) Sec. 2 dummies for the Minnesota prior, built from the recipe (as recalled):
 
     Y_d = [diag(δ σ)/λ ; 0_{n(p−1)×n} ; diag(σ)],   X_d = [J_p ⊗ diag(σ)/λ ; 0_{n×np}]
     with J_p = diag(1, 2^decay, ..., p^decay), one block row per lag, and the σ rows giving the
