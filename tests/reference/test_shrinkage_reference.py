@@ -8,7 +8,7 @@ Sources beside each check:
   conjugate Minnesota prior is least squares on the data stacked with artificial rows. Built
   here row by row from the paper's recipe, independently of arlib's closed form.
 - Marginal likelihood: the density of Y under the prior is matrix-variate t,
-  Y − X B₀ ~ T_{N,n}(ν₀, I_N + X Ω X', S₀) (Gupta & Nagar 2000, Def. 4.2.1; the natural-
+  Y − X B₀ ~ T_{N,n}(ν₀, I_N + X Ω X', S₀) (Gupta & Nagar 2000, Def. 4.2.1 as recalled; the natural-
   conjugate case of Kadiyala & Karlsson 1997 / Giannone, Lenza & Primiceri 2015), evaluated
   directly with N×N determinants; and, for n = 1, by numeric integration of likelihood × prior
   over (B, σ²).
