@@ -82,7 +82,7 @@ Bańbura, M., Giannone, D. and Reichlin, L. (2010). Large Bayesian vector auto r
     Journal of Applied Econometrics 25(1), 71–92 (the prior and its dummy observations, Sec. 2).
 Giannone, D., Lenza, M. and Primiceri, G. E. (2015). Prior selection for vector
     autoregressions. Review of Economics and Statistics 97(2), 436–451 (marginal likelihood).
-Gupta, A. K. and Nagar, D. K. (2000). Matrix Variate Distributions. Chapman & Hall (Def. 4.2.1).
+Gupta, A. K. and Nagar, D. K. (2000). Matrix Variate Distributions. Chapman & Hall (Def. 4.2.1; number recalled from memory).
 """
 
 from __future__ import annotations

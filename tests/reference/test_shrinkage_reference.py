@@ -110,7 +110,7 @@ def test_closed_form_equals_dummy_observation_regression(prior: str, decay: floa
 
 
 def _matrix_t_logpdf(E: np.ndarray, P: np.ndarray, S0: np.ndarray, nu0: float) -> float:
-    """log density of E (N, n) ~ T_{N,n}(ν₀, P, S₀) (Gupta & Nagar 2000, Def. 4.2.1, in the
+    """log density of E (N, n) ~ T_{N,n}(ν₀, P, S₀) (Gupta & Nagar 2000, Def. 4.2.1 as recalled, in the
     parametrisation Γ_n((ν₀+N)/2) / (π^{Nn/2} Γ_n(ν₀/2)) |P|^{-n/2} |S₀|^{ν₀/2}
     |S₀ + E'P⁻¹E|^{-(ν₀+N)/2})."""
     N, n = E.shape
