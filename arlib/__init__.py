@@ -39,6 +39,8 @@ from ._quantile import QuantileRegression, QuantileVARFit, quantile_regression, 
 from ._quantile_rolling import RollingQuantileVAR, rolling_quantile_var
 from ._responses import impulse_responses, ma_coefficients
 from ._rolling import RollingVAR, rolling_var
+from ._shrink import ShrinkageFit, shrinkage_bands, shrinkage_draws, shrinkage_var
+from ._shrink_rolling import RollingShrinkage, rolling_shrinkage
 from ._sizes import minimum_window
 from ._tvp import TimeVaryingVAR, TVPState, tvp_var
 from ._validate import ArlibError, InvalidInputError, UnstableProcessWarning, VARLike
@@ -60,7 +62,9 @@ __all__ = [
     "QuantileRegression",
     "QuantileVARFit",
     "RollingQuantileVAR",
+    "RollingShrinkage",
     "RollingVAR",
+    "ShrinkageFit",
     "SpectralPeak",
     "TVPState",
     "TimeVaryingVAR",
@@ -87,8 +91,12 @@ __all__ = [
     "quantile_regression",
     "quantile_var",
     "rolling_quantile_var",
+    "rolling_shrinkage",
     "rolling_var",
     "select_lags",
+    "shrinkage_bands",
+    "shrinkage_draws",
+    "shrinkage_var",
     "simulate_var",
     "spectral_density",
     "spectral_peak",

@@ -70,7 +70,8 @@ class Bands(FrameMixin):
     lower, upper : pointwise band limits.
     median : median of the bootstrap draws (the point estimate for asymptotic bands).
     std : bootstrap standard deviation or asymptotic standard error.
-    coverage : nominal pointwise coverage.   kind : "bootstrap" or "asymptotic".
+    coverage : nominal pointwise coverage.   kind : "bootstrap", "asymptotic" or "posterior"
+        (`shrinkage_bands`: quantiles of exact posterior draws).
     draws : bootstrap replications used (0 for asymptotic bands).
     bias_corrected : whether Kilian's (1998) correction was applied.
     names : series names.   date : the fit's last date (datetime64) or None without dates.

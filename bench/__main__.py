@@ -27,6 +27,7 @@ CASES: dict[str, str] = {
     "hundred": "bench.hundred:main",
     "quiet": "bench.quiet:main",
     "quantile": "bench.quantile:main",
+    "shrink": "bench.shrink:main",
 }
 
 

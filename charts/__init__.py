@@ -32,6 +32,7 @@ from ._figures import (
     responses_figure,
     shares_figure,
     stress_runs,
+    tightness_figure,
 )
 from ._theme import (
     DIVERGING,
@@ -79,4 +80,5 @@ __all__ = [
     "series_style",
     "shares_figure",
     "stress_runs",
+    "tightness_figure",
 ]

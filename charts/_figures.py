@@ -884,6 +884,32 @@ def joint_index_figure(
     return {"data": data, "layout": layout}
 
 
+def tightness_figure(
+    dates: Sequence[dt.date],
+    tightness: Sequence[float] | np.ndarray,
+    *,
+    universe: str,
+    chosen: bool = True,
+    medium: Medium = "screen",
+) -> Figure:
+    """The shrinkage prior's overall tightness λ per window end (log scale): smaller λ pulls the
+    coefficients harder towards the prior mean (random walk or white noise per series)."""
+    how = "chosen per window by the marginal likelihood" if chosen else "fixed by the configuration"
+    data = [
+        {"type": "scatter", "x": th.dates(dates), "y": th.as_list(tightness), "mode": "lines",
+         "name": "λ", "line": {"color": BLUE, "width": 1.6},
+         "hovertemplate": "λ %{y:.4g}<extra></extra>"},
+    ]  # fmt: skip
+    layout = th.layout(
+        height=320, medium=medium,
+        title=f"Shrinkage tightness λ ({how}), {universe}",
+        margin={"l": 60, "r": 20, "t": 60, "b": 50},
+        xaxis=th.axis(type="date"),
+        yaxis=th.axis(type="log", title={"text": "λ (log scale; smaller = more shrinkage)"}),
+    )  # fmt: skip
+    return {"data": data, "layout": layout}
+
+
 #: How each universe model reads in titles and notes.
 MODEL_LABELS = {"rolling": "rolling-window VAR", "tvp": "time-varying-parameter VAR (filtered per date)"}
 

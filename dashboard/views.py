@@ -266,6 +266,11 @@ def leadlag_view(snap: Snapshot, state: Any, level: Any) -> ViewResult:
         msg = (f"Universe '{u.name}' is fitted by quantile regression at each τ: Granger tests are "
                "least-squares F tests, so none are stored for its windows; the Tails tab shows how "
                "its spillovers differ between the tails and the median.")  # fmt: skip
+    if u.estimator == "shrinkage":
+        msg = (f"Universe '{u.name}' is a shrinkage VAR (Minnesota prior, posterior mean): Granger F tests "
+               "belong to a least-squares fit and are not defined for it, so none are stored. Lead–lag "
+               "spillovers show instead in the pairwise shares of the Spillover network tab (who drives "
+               "whose forecast-error variance), and the prior's pull in the Shrinkage tab (λ per window).")  # fmt: skip
         raise WindowError(msg)
     alpha = parse_fraction(level, "significance level", 0.0, 0.5)
     end = snap.fitted_end(window)
@@ -867,6 +872,32 @@ def _skipped(rows: Rows) -> Any:
     return as_json(skipped_table(skipped_rows(rows)))
 
 
+@guard
+def tightness_view(snap: Snapshot, state: Any) -> ViewResult:
+    """The shrinkage prior's tightness λ per window end in the date window (shrinkage universes)."""
+    window = _window(snap, state)
+    u = snap.universe(window.universe)
+    if u.estimator != "shrinkage":
+        msg = (f"Universe '{u.name}' is fitted by least squares per window: it has no shrinkage prior. "
+               'Set estimator = "shrinkage" in its [[universes]] table to see the tightness λ here.')  # fmt: skip
+        raise WindowError(msg)
+    rows_in = snap.tightness_in(window)
+    if not rows_in:
+        raise WindowError(f"No fitted window of '{u.name}' ends between {window.label}; widen the range.")
+    ends = [r[0] for r in rows_in]
+    lam = np.array([r[1] for r in rows_in], dtype=float)
+    chosen = bool(rows_in[-1][2])
+    fig = charts.tightness_figure(ends, lam, universe=u.name, chosen=chosen)
+    rows = [{"window_end": iso(e), "tightness": num(v), "chosen": bool(c), "log_marginal_likelihood": num(m)}
+            for e, v, c, m in rows_in]  # fmt: skip
+    note = (f"λ over {len(ends)} windows from {window.label}: median {np.median(lam):.3g}, range "
+            f"{lam.min():.3g} to {lam.max():.3g}. Smaller λ pulls each equation harder towards the prior "
+            "(random walk for level series, white noise for changes and returns); "
+            + ("λ is chosen per window by maximising the marginal likelihood over [0.001, 10]."
+               if chosen else "λ is fixed by the configuration."))  # fmt: skip
+    return fig, rows, note
+
+
 def _compare_build(snap: Snapshot, state: Any, *values: Any) -> tuple[ViewResult, ViewResult]:
     return compare_view(snap, state, *values)
 
@@ -904,6 +935,10 @@ VIEWS: tuple[View, ...] = (
                 "`estimator = \"quantile\"`: each equation fitted by quantile regression at τ, so the "
                 "lower-tail index shows how shocks spread when markets fall hardest, next to the median "
                 "and the upper tail; below, the spillover tables at the window end.")),
+    View("shrinkage", tightness_view, tab="Shrinkage", charts=(("shrinkage", 340),),
+         intro=("For a shrinkage universe (estimator = \"shrinkage\"): the tightness λ of its Minnesota "
+                "prior per window. Its coefficients are posterior means, pulled towards a random walk "
+                "(level series) or white noise (changes, returns); smaller λ, harder pull.")),
     View("cycles", cycles_view, tab="Own cycles", charts=(("cycles", 460),),
          intro=("Each series on its own: a univariate AR (order chosen by AIC) fitted on the prepared "
                 "data of the window the views use; its implied spectral density and, where the "

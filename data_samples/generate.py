@@ -11,7 +11,10 @@ Run ``python data_samples/generate.py [--out DIR]`` (default: this folder). It w
 - ``rates_long.csv``     yields, the breakeven, the credit spread and the currency, one LONG file:
                          ``date,series,value`` (a blank ``value`` is a missing observation);
 - ``true_parameters.json`` the generator's true parameters (calm and stress regimes, stress profile,
-                         calendars, the cells blanked on purpose).
+                         calendars, the cells blanked on purpose);
+- ``sector_wide.csv``    prices of 40 invented stocks VSX_01..VSX_40 (WIDE), driven by the broad
+                         index and a sparse VAR of their own (`sector_panel`): the demo's large
+                         universe, fitted by the shrinkage VAR.
 
 The output is deterministic: the random draws come from ``numpy.random.default_rng`` seeded with
 ``SEED`` (NumPy's Generator streams are stable within a NumPy release line), the recursion runs in
@@ -195,6 +198,7 @@ HERE = Path(__file__).resolve().parent
 WIDE_FILE = "markets_wide.csv"
 LONG_FILE = "rates_long.csv"
 PARAMS_FILE = "true_parameters.json"
+SECTOR_FILE = "sector_wide.csv"
 
 # ---------------------------------------------------------------------------------------------
 # Calendars
@@ -379,7 +383,8 @@ def build(out_dir: Path) -> dict[str, Path]:
     days = business_days(FIRST_DAY, LAST_DAY)
     years = range(FIRST_DAY.year, LAST_DAY.year + 1)
     check_stable()
-    levels = to_levels(days, simulate(days, np.random.default_rng(sim_seq)))
+    changes = simulate(days, np.random.default_rng(sim_seq))
+    levels = to_levels(days, changes)
     check_levels(days, levels)
 
     closed_exchange = exchange_holidays(years)
@@ -423,7 +428,61 @@ def build(out_dir: Path) -> dict[str, Path]:
         closed_ore=closed_ore, blanks=sorted(blank_wide | blank_long),
     )
     _write(paths["params"], json.dumps(params, indent=1) + "\n")
+    broad = [row[col["VLX_BROAD"]] for row in changes]
+    paths["sector"] = out_dir / SECTOR_FILE
+    _write(paths["sector"], sector_panel(days, wide_days, broad))
     return paths
+
+
+# ---------------------------------------------------------------------------------------------
+# The 40-stock panel (a large invented universe for the shrinkage VAR)
+# ---------------------------------------------------------------------------------------------
+
+#: the invented stocks of the panel: VSX_01 .. VSX_40 (Veloria Exchange constituents)
+SECTOR_TICKERS = [f"VSX_{i:02d}" for i in range(1, 41)]
+SECTOR_SEED = SEED + 40
+
+
+def sector_panel(days: list[date], wide_days: list[date], broad: list[float]) -> str:
+    """Prices of 40 invented stocks (Veloria Exchange calendar, 2 decimals), as a WIDE csv text.
+
+    Daily log returns in percent:  r_it = β_i(s_t) m_t + Σ_j a_ij r_j,t−1 + σ_i(s_t) e_it,
+    m_t the broad index's return (VLX_BROAD, the same draws as the main market), β_i(s) =
+    β_i (1 + 0.5 s) and σ_i(s) = σ_i (1 + s) rising with the stress intensity s_t, and a sparse
+    own and cross lag matrix a (own 0.02..0.10, two cross effects per stock ±0.06..0.12; stable).
+    Plain Python floats, seeded with SECTOR_SEED: the same bits on every machine.
+    """
+    n = len(SECTOR_TICKERS)
+    rng = np.random.default_rng(SECTOR_SEED)
+    beta = [round(float(b), 3) for b in rng.uniform(0.4, 1.3, n)]
+    sd = [round(float(v), 3) for v in rng.uniform(0.8, 1.8, n)]
+    own = [round(float(v), 3) for v in rng.uniform(0.02, 0.10, n)]
+    cross: list[list[tuple[int, float]]] = []
+    for i in range(n):
+        others = [int(j) for j in rng.choice([j for j in range(n) if j != i], size=2, replace=False)]
+        signs = rng.choice([-1.0, 1.0], size=2)
+        sizes = rng.uniform(0.06, 0.12, size=2)
+        cross.append([(j, round(float(sg * sz), 3)) for j, sg, sz in zip(others, signs, sizes, strict=True)])
+    s_path = stress_intensity(days)
+    draws = rng.standard_normal((len(days), n)).tolist()
+    prev = [0.0] * n
+    level = [100.0] * n
+    by_day = {}
+    for t, d in enumerate(days):
+        s = s_path[t]
+        r = []
+        for i in range(n):
+            acc = beta[i] * (1.0 + 0.5 * s) * broad[t] + own[i] * prev[i]
+            for j, a in cross[i]:
+                acc += a * prev[j]
+            acc += sd[i] * (1.0 + s) * draws[t][i]
+            r.append(acc)
+        prev = r
+        level = [lv * math.exp(x / 100.0) for lv, x in zip(level, r, strict=True)]
+        by_day[d] = list(level)
+    lines = ["date," + ",".join(SECTOR_TICKERS)]
+    lines += [d.isoformat() + "," + ",".join(_fmt(v, 2) for v in by_day[d]) for d in wide_days]
+    return "\n".join(lines) + "\n"
 
 
 def _write(path: Path, text: str) -> None:

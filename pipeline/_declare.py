@@ -126,7 +126,7 @@ class Declared:
     name: str
     setting: Setting
     default: Any
-    base: Any  # str, int, float, bool, Path, a declared dataclass, or tuple for a list
+    base: Any  # str, int, float, bool, Path, a declared dataclass, tuple for a list, (float, str)
     element: Any  # the element type of a tuple[...], else None
     optional: bool
 
@@ -156,6 +156,8 @@ def declared(cls: type) -> tuple[Declared, ...]:
 def _strip_none(tp: Any) -> tuple[Any, bool]:
     if isinstance(tp, types.UnionType) or typing.get_origin(tp) is typing.Union:
         args = [a for a in typing.get_args(tp) if a is not type(None)]
+        if set(args) == {float, str}:  # a number or a word, e.g. tightness = 0.2 or "auto"
+            return (float, str), len(args) < len(typing.get_args(tp))
         return args[0], len(args) < len(typing.get_args(tp))
     return tp, False
 
@@ -203,6 +205,8 @@ def _kind_name(d: Declared) -> str:
         return "list"
     if dataclasses.is_dataclass(d.base):
         return "table"
+    if d.base == (float, str):
+        return "number or str"
     return d.base.__name__ if d.base is not Path else "str"
 
 
@@ -304,7 +308,7 @@ def _convert(d: Declared, value: Any, key: str, problems: Problems, *, base: Pat
             return BAD
         return items
     want = str if d.base is Path else d.base
-    if want is float and _is(value, int):
+    if (want is float or want == (float, str)) and _is(value, int):
         value = float(value)
     if not _is(value, want):
         name = _kind_name(d)
@@ -329,7 +333,7 @@ def _convert(d: Declared, value: Any, key: str, problems: Problems, *, base: Pat
     return value
 
 
-def _is(value: Any, kind: type) -> bool:
+def _is(value: Any, kind: type | tuple[type, ...]) -> bool:
     if isinstance(value, bool):
         return kind is bool
     return isinstance(value, kind)

@@ -241,6 +241,29 @@ def fit_block(prepared: Prepared, universe: UniverseConfig, ends: np.ndarray) ->
     import arlib
 
     sel = universe.lag_selection
+    if universe.estimator == "shrinkage":
+        try:
+            return arlib.rolling_shrinkage(
+                prepared.y,
+                universe.window_rows,
+                universe.max_lag,
+                universe.horizon,
+                step=universe.step,
+                ends=np.asarray(ends, dtype=np.int64),
+                tightness=universe.shrinkage.tightness,
+                prior_mean=list(universe.prior_means),
+                lag_decay=universe.shrinkage.lag_decay,
+                trend=universe.trend,
+                responses=universe.identification,
+                decomposition=universe.identification,
+                names=list(prepared.names),
+                frequency_bands=universe.band_periods,
+                band_truncation=universe.band_truncation,
+                joint=universe.joint,
+            )
+        except (ValueError, np.linalg.LinAlgError) as exc:
+            msg = f"universe {universe.name!r}: the shrinkage engine refused the data: {' '.join(str(exc).split())}"
+            raise FitError(msg) from exc
     try:
         return arlib.rolling_var(
             prepared.y,
@@ -465,6 +488,16 @@ def result_tables(
                 "total": np.asarray(rolling.joint_total)[k],
                 "generalized_total": np.asarray(rolling.total_connectedness)[k],
                 "from_others": _flat(np.asarray(rolling.joint_from_others)[k]),
+            }
+        )
+    if getattr(rolling, "tightness", None) is not None:  # estimator = "shrinkage"
+        tables["shrinkage_fits"] = pl.DataFrame(
+            {
+                **head(k),
+                "tightness": np.asarray(rolling.tightness)[k],
+                "tightness_chosen": pl.Series([bool(rolling.tightness_chosen)] * K, dtype=pl.Boolean),
+                "log_marginal_likelihood": np.asarray(rolling.log_marginal_likelihood)[k],
+                "lag_decay": np.full(K, float(rolling.lag_decay)),
             }
         )
     lags = np.asarray(rolling.lags, dtype=np.int64)

@@ -67,6 +67,9 @@ _ROW_TABLES: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
     "directional": (
         ("window_end", "series", "to_others", "from_others", "net"), ("window_end", "series")
     ),
+    "shrinkage_fits": (
+        ("window_end", "tightness", "tightness_chosen", "log_marginal_likelihood"), ("window_end",)
+    ),
 }
 _SKIP_REASON = 9  # position of skip_reason in the window_fits rows above
 #: Tables a `Snapshot` keeps per universe as (W, n, n) arrays: (row label, column label, value).
@@ -170,6 +173,7 @@ class Universe:
     def estimator(self) -> str:
         """"ols" (least squares) or "quantile" (quantile regression at each τ; the per-window
         tables hold the τ nearest 0.5, `Snapshot.quantile_history` every τ)."""
+        """"ols" (least squares per window) or "shrinkage" (the natural-conjugate shrinkage VAR)."""
         return str(self.config.get("estimator", "ols"))
 
 
@@ -796,6 +800,11 @@ class Snapshot:
     def index_history(self, universe: str) -> list[tuple[dt.date, float]]:
         """The whole connectedness index history of `universe` (the overview chart)."""
         return list(self._rows_of("connectedness", universe).rows)
+
+    def tightness_in(self, window: DateWindow) -> list[tuple[dt.date, float, bool, float]]:
+        """Per window of a shrinkage universe: end, λ, whether it was chosen, log marginal
+        likelihood (empty for other universes)."""
+        return self._rows_of("shrinkage_fits", window.universe).between(window.start, window.end)
 
     def index_in(self, window: DateWindow) -> list[tuple[dt.date, float]]:
         return self._rows_of("connectedness", window.universe).between(window.start, window.end)

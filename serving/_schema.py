@@ -242,6 +242,13 @@ SCHEMA: tuple[Table, ...] = (
         _arr("intercept", ("n",), note="or NULL (trend `n`)"),
         _arr("sigma_u", ("n", "n"), nn=True, note="Σ̂(τ): centred covariance of the τ-residuals (divided by T_eff − 1)"),
     ), note="Ando, Greenwood-Nimmo & Shin (2022); only universes with `estimator = \"quantile\"` (the other per-window tables hold the τ nearest 0.5)"),
+    Table("shrinkage_fits", "universe × window_end", "window", (
+        *_window_key(),
+        _c("tightness", "DOUBLE", nn=True, note="(λ, the Minnesota prior's overall tightness)"),
+        _c("tightness_chosen", "BOOLEAN", nn=True, note="(λ chosen by the marginal likelihood, else fixed)"),
+        _c("log_marginal_likelihood", "DOUBLE", nn=True, note="(at λ; flat intercept as a limit, arlib._shrink)"),
+        _c("lag_decay", "DOUBLE", nn=True),
+    ), note='natural-conjugate shrinkage VAR (arlib.rolling_shrinkage); only universes with `estimator = "shrinkage"`'),
     Table("tvp_state", "universe (model `tvp`)", "state", (
         *_window_key(), _c("window_start", "DATE", nn=True, note="(the first filtered date)"),
         _c("row", "BIGINT", nn=True, note="(complete prepared rows the filter has consumed)"),

@@ -23,7 +23,7 @@ import arlib
 
 ROOT = Path(__file__).resolve().parents[1]
 SAMPLES = ROOT / "data_samples"
-FILES = ("markets_wide.csv", "rates_long.csv", "true_parameters.json")
+FILES = ("markets_wide.csv", "rates_long.csv", "true_parameters.json", "sector_wide.csv")
 # The calm stretch fitted in test 2: after the small-cap index starts (2013-01-02, so its first
 # one-day change is 2013-01-03) and a month before the stress episode begins (2017-08-01).
 CALM_FIRST, CALM_LAST = date(2013, 1, 3), date(2017, 6, 30)

@@ -281,11 +281,44 @@ def _load_universe(raw: Any, i: int, problems: Problems, base: Path) -> Universe
         lags_ok = _quantile_rules(v, given, where, problems) and lags_ok
     elif "quantile" in given:
         problems.add(key("quantile"), "is set but estimator is not 'quantile'", 'remove the [universes.quantile] table or set estimator = "quantile"')
+    shrink = v.get("estimator") == "shrinkage"
+    if shrink:
+        lags_ok = _shrinkage_rules(v, where, problems) and lags_ok
+    elif "shrinkage" in given:
+        problems.add(key("shrinkage"), "is set but estimator is not 'shrinkage'", 'remove the [universes.shrinkage] table or set estimator = "shrinkage"')
     if lags_ok and v.get("model") != "tvp" and not _bad(v, "series", "window", "trend") and v["window"] is not None:
-        _window_rules(v, where, problems)
+        if shrink:
+            p = v["lags"]
+            if v["window"] < p + 4:
+                problems.add(key("window"), f"= {v['window']} leaves {v['window'] - p} observations, too few for the shrinkage prior's AR(1) scales", f"use window >= {p + 4}")
+        else:
+            _window_rules(v, where, problems)
     if len(problems) > before:
         return None
     return UniverseConfig(**v)
+
+
+def _shrinkage_rules(v: dict[str, Any], where: str, problems: Problems) -> bool:
+    """The rules of an `estimator = "shrinkage"` universe; False when `lags` cannot be used for the row rule."""
+    ok = True
+    if v.get("model") == "tvp":
+        problems.add(f"{where}.estimator", 'is "shrinkage" but model is "tvp" (the filter has its own prior)', 'use model = "rolling" with estimator = "shrinkage"')
+        ok = False
+    if v.get("lag_selection") is not None:
+        problems.add(f"{where}.lag_selection", "cannot choose p per window with estimator = \"shrinkage\" (the prior shrinks distant lags instead)", "set a fixed `lags = 2` instead")
+        ok = False
+    if v.get("trend") == "ct":
+        problems.add(f"{where}.trend", 'is "ct": the shrinkage VAR has an intercept (flat prior) or none', 'use trend = "c" or "n" with estimator = "shrinkage"')
+        ok = False
+    if v.get("expanding"):
+        problems.add(f"{where}.expanding", 'is true: the shrinkage engine fits rolling windows only', 'remove `expanding` or use estimator = "ols"')
+    bands = v.get("bands", NO_BANDS)
+    if bands.method != "none":
+        problems.add(
+            f"{where}.bands.method", f"is {bands.method!r}: response bands are least-squares bands",
+            'remove the [universes.bands] table of an estimator = "shrinkage" universe',
+        )
+    return ok
 
 
 def _tvp_rules(v: dict[str, Any], given: set[str], where: str, problems: Problems) -> bool:

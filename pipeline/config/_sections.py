@@ -35,6 +35,7 @@ __all__ = [
     "QuantileSettings",
     "ScheduleConfig",
     "SeriesSpec",
+    "ShrinkageSettings",
     "TVPSettings",
     "UniverseConfig",
     "WarehouseConfig",
@@ -59,7 +60,11 @@ RUNNERS = ("local", "dask")
 MODELS = ("rolling", "tvp")
 #: how each window's equations are estimated: least squares, or quantile regression at each τ
 #: of `[universes.quantile]` (arlib.rolling_quantile_var)
-ESTIMATORS = ("ols", "quantile")
+#: and the natural-conjugate shrinkage VAR (arlib.rolling_shrinkage)
+ESTIMATORS = ("ols", "shrinkage", "quantile")
+#: the shrinkage prior's mean for each series' own first lag, by its transform: levels behave
+#: like random walks, changes and returns like white noise (arlib._shrink.PRIOR_MEANS)
+PRIOR_MEAN_BY_TRANSFORM = {"level": "random_walk", "log_return": "white_noise", "pct_change": "white_noise", "diff": "white_noise"}
 #: the TVP filter's state covariance (arlib's COVARIANCES)
 TVP_COVARIANCES = ("kronecker", "full")
 #: the most worker processes the dashboard starts (dashboard.settings.MAX_WORKERS)
@@ -125,6 +130,10 @@ def _quantile_levels(levels: tuple[float, ...]) -> tuple[str, str] | None:
     if not levels or list(levels) != sorted(set(levels)) or not all(0 < t < 1 for t in levels):
         return (f"is {list(levels)}", "list distinct levels in (0, 1), increasing, e.g. [0.05, 0.5, 0.95]")
     return None
+def _tightness(value: float | str) -> tuple[str, str] | None:
+    if isinstance(value, str):
+        return None if value == "auto" else (f"is {value!r}", 'use "auto" (chosen per window by the marginal likelihood) or a number > 0, e.g. 0.2')
+    return None if 0 < value < float("inf") else (f"is {value}", 'use "auto" or a positive number, e.g. 0.2')
 
 
 def _cron(cron: str) -> tuple[str, str] | None:
@@ -257,6 +266,21 @@ class QuantileSettings:
 
 #: a universe without a `[universes.quantile]` table
 DEFAULT_QUANTILE = QuantileSettings()
+class ShrinkageSettings:
+    """The prior of an `estimator = "shrinkage"` universe (arlib.rolling_shrinkage)."""
+
+    tightness: float | str = setting(
+        "auto", check=_tightness,
+        doc='overall tightness λ of the Minnesota prior: `"auto"` (chosen per window by maximising '
+        "the marginal likelihood over [0.001, 10]) or a number > 0 (smaller shrinks harder)",
+    )  # fmt: skip
+    lag_decay: float = setting(
+        1.0, minimum=0.0, doc="prior sd of lag-l coefficients ∝ 1/l^decay (1: variance 1/l²)"
+    )
+
+
+#: a universe without a `[universes.shrinkage]` table
+DEFAULT_SHRINKAGE = ShrinkageSettings()
 
 
 @dataclass(frozen=True)
@@ -340,19 +364,31 @@ class UniverseConfig:
     )  # fmt: skip
     estimator: str = setting(
         "ols", choices=ESTIMATORS, fit_if_set=True,
-        doc="`ols` (least squares per window) or `quantile` (each equation by quantile regression at "
-        "every τ of `[universes.quantile]`: tail connectedness, Ando–Greenwood-Nimmo–Shin 2022; "
-        "rolling windows, fixed `lags`, trend `n`/`c`, no Granger tests, bands, `frequency_bands` or `joint`)",
+        doc="per window: `ols` (least squares); `shrinkage` (natural-conjugate Minnesota prior, "
+        "posterior mean; prior mean random walk for `level` series, white noise for changes and "
+        "returns; needs fixed `lags`, trend `n`/`c`, rolling windows; no Granger tests); or `quantile` "
+        "(each equation by quantile regression at every τ of `[universes.quantile]`: tail connectedness, "
+        "Ando–Greenwood-Nimmo–Shin 2022; rolling windows, fixed `lags`, trend `n`/`c`, no Granger tests, "
+        "bands, `frequency_bands` or `joint`)",
     )  # fmt: skip
     quantile: QuantileSettings = setting(
         DEFAULT_QUANTILE, fit_if_set=True, default_doc="τ = 0.05, 0.5, 0.95",
         doc="a table: the quantile levels (`estimator = \"quantile\"` only)",
+    )  # fmt: skip
+    shrinkage: ShrinkageSettings = setting(
+        DEFAULT_SHRINKAGE, fit_if_set=True, default_doc="λ auto, decay 1",
+        doc='a table: the shrinkage prior (`estimator = "shrinkage"` only)',
     )  # fmt: skip
 
     @property
     def names(self) -> tuple[str, ...]:
         """Series names in column order."""
         return tuple(s.name for s in self.series)
+
+    @property
+    def prior_means(self) -> tuple[str, ...]:
+        """The shrinkage prior mean rule of each series, from its transform (`PRIOR_MEAN_BY_TRANSFORM`)."""
+        return tuple(PRIOR_MEAN_BY_TRANSFORM.get(s.transform, "white_noise") for s in self.series)
 
     @property
     def band_periods(self) -> tuple[tuple[float, float], ...] | None:

@@ -64,6 +64,8 @@ class ReportData:
     #: the universe of the other model on the same series (Snapshot.counterpart): its name, model
     #: and (date, total) index history up to the report date; None when there is none
     counterpart: tuple[str, str, list[tuple[dt.date, float]]] | None = None
+    #: a shrinkage universe's λ per window (shrinkage_fits: window_end, tightness, ...); None otherwise
+    tightness: pl.DataFrame | None = None
 
     @property
     def run(self) -> dict | None:
@@ -172,6 +174,8 @@ def _gather(snap: Snapshot, universe: str, as_of: dt.date | None) -> ReportData:
         responses=responses, decompositions=decomps, runs=runs,
         batches=frame(snap.source_batches(universe, report_date, before)), run_id=run_id, notes=notes,
         bands=snap.band_history(info), joint=snap.joint_history(info), quantiles=snap.quantile_history(info), counterpart=_counterpart(snap, info, report_date),
+        tightness=(frame(snap.history("shrinkage_fits", universe, report_date))
+                   if info.estimator == "shrinkage" and "shrinkage_fits" in snap.tables() else None),
     )
 
 

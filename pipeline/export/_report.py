@@ -263,6 +263,26 @@ def _models(d: ReportData, chart: _Charts) -> str:
             + "</section>")  # fmt: skip
 
 
+def _shrinkage(d: ReportData, chart: _Charts) -> str:
+    """A shrinkage universe's tightness λ per window (estimator = "shrinkage")."""
+    if d.tightness is None or d.tightness.height == 0:
+        return ""
+    lam = d.tightness["tightness"].to_numpy()
+    chosen = bool(d.tightness["tightness_chosen"][-1])
+    how = ("chosen per window by maximising the marginal likelihood over [0.001, 10]" if chosen
+           else "fixed by the configuration")  # fmt: skip
+    return ('<section id="shrinkage" class="major"><h2>Shrinkage</h2>'
+            '<p class="note">Each window is a natural-conjugate shrinkage VAR (Minnesota prior; '
+            "Kadiyala &amp; Karlsson 1997, Bańbura, Giannone &amp; Reichlin 2010): coefficients are "
+            "posterior means, pulled towards a random walk for level series and white noise for changes "
+            f"and returns; the tightness λ is {how}. Smaller λ, harder pull. Over {lam.size} windows: "
+            f'median <span data-value="{np.median(lam):.6g}">{np.median(lam):.3g}</span>, range '
+            f"{lam.min():.3g} to {lam.max():.3g}.</p>"
+            + chart(charts.tightness_figure(d.tightness["window_end"].to_list(), lam, universe=d.info.name,
+                                            chosen=chosen, medium="print"), div_id="fig-shrinkage")
+            + "</section>")  # fmt: skip
+
+
 def _spillovers(d: ReportData) -> str:
     names = d.info.series
     head = ['<section id="spillovers" class="major"><div class="keep"><h2>Spillover table</h2>']
@@ -381,6 +401,11 @@ def _granger(d: ReportData) -> str:
         out.append('<p class="note">Fitted by quantile regression at each τ: Granger tests are '
                    "least-squares F tests, so none are stored for its windows (see Connectedness in "
                    "the tails).</p></div></section>")  # fmt: skip
+    if d.info.estimator == "shrinkage":
+        out.append('<p class="note">A shrinkage VAR (Minnesota prior, posterior mean): Granger F tests '
+                   "belong to a least-squares fit and are not defined for it, so none are stored. Lead–lag "
+                   "spillovers show instead in the spillover table above (who drives whose forecast-error "
+                   "variance); the prior's pull per window in the shrinkage section.</p></div></section>")  # fmt: skip
         return "".join(out)
     if d.granger_p is None or d.granger_f is None:  # set together
         out.append('<p class="note">No fitted window.</p></div></section>')
@@ -533,6 +558,7 @@ def render_report(d: ReportData, *, generated: dt.datetime, version: str) -> str
     chart = _Charts()
     body = "\n".join([
         _glance(d), _connectedness(d, chart), _cycles(d, chart), _tails(d, chart), _models(d, chart), _spillovers(d), _responses(d, chart),
+        _glance(d), _connectedness(d, chart), _cycles(d, chart), _models(d, chart), _shrinkage(d, chart), _spillovers(d), _responses(d, chart),
         _decompositions(d, chart), _granger(d), _health(d, chart), _lineage(d),
     ])
     files = resources.files("pipeline.export") / "templates"

@@ -21,7 +21,9 @@ PINNED = [
     "QuantileRegression",
     "QuantileVARFit",
     "RollingQuantileVAR",
+    "RollingShrinkage",
     "RollingVAR",
+    "ShrinkageFit",
     "SpectralPeak",
     "TVPState",
     "TimeVaryingVAR",
@@ -48,8 +50,12 @@ PINNED = [
     "quantile_regression",
     "quantile_var",
     "rolling_quantile_var",
+    "rolling_shrinkage",
     "rolling_var",
     "select_lags",
+    "shrinkage_bands",
+    "shrinkage_draws",
+    "shrinkage_var",
     "simulate_var",
     "spectral_density",
     "spectral_peak",
@@ -95,5 +101,7 @@ def test_model_arguments_are_typed_with_the_protocol() -> None:
             if arg in params:
                 seen += 1
                 want = "VARFit" if name in needs_fit else "VARLike"
+                if name in ("shrinkage_draws", "shrinkage_bands"):  # need the posterior: a ShrinkageFit
+                    want = "ShrinkageFit"
                 assert params[arg].annotation == want, (name, params[arg].annotation)
-    assert seen == 18  # frequency_connectedness and joint_connectedness included
+    assert seen == 20  # frequency_connectedness, joint_connectedness, shrinkage_draws/_bands included

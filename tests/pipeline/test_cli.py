@@ -362,6 +362,7 @@ def test_the_demo_config_reads_the_packaged_data_and_writes_into_its_folder(tmp_
     )
     assert [s.path for s in cfg.sources] == [
         str(data_samples.folder() / "markets_wide.csv"), str(data_samples.folder() / "rates_long.csv"),
+        str(data_samples.folder() / "sector_wide.csv"),
     ]
     demo_toml = tomllib.loads((data_samples.folder() / "demo.toml").read_text(encoding="utf-8"))
     assert [u.name for u in cfg.universes] == [u["name"] for u in demo_toml["universes"]]

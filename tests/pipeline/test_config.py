@@ -201,10 +201,10 @@ max_lags = 6
 def test_fit_hash_of_existing_configs_is_unchanged(tmp_path: Path) -> None:
     demo = {u.name: u.config_hash for u in load_config(_DEMO).universes}
     # all_markets' settings changed on purpose (frequency_bands and joint added to the demo in
-    # c4fe67c: 2724928f8ce9058f before); all_markets_tvp and equities_tails (estimator = "quantile")
-    # are new. The other two are pinned as before.
+    # c4fe67c: 2724928f8ce9058f before); all_markets_tvp, equities_tails (estimator = "quantile")
+    # and sector_40 (estimator = "shrinkage") are new. The other two are pinned as before.
     assert demo == {"all_markets": "20ecf2e082d41a14", "all_markets_tvp": "f09a68e721b06780",
-                    "equities_tails": "71b898ce53856459",
+                    "equities_tails": "71b898ce53856459", "sector_40": "650ff836cd2186d7",
                     "rates_fx": "641ce7f2e387a726", "equities_weekly": "942c05c6b427c4f9"}  # fmt: skip
     other = {u.name: u.config_hash for u in load_config_text(MINIMAL + _PINNED_EXTRA, tmp_path / "c.toml").universes}
     assert other == {"pair": "648e2940618b97be", "chol": "2e44e2d08d7be155", "sel": "2b37c38e3c458c29"}
@@ -289,19 +289,19 @@ def test_a_new_declared_key_enters_the_fit_hash_unless_marked(tmp_path: Path) ->
 
     @dataclass(frozen=True)
     class Extended(UniverseConfig):  # a synthetic declaration, as a contributor would add one
-        shrinkage: float = setting(0.0, doc="synthetic: changes the estimates")
+        ridge: float = setting(0.0, doc="synthetic: changes the estimates")
         caption: str = setting("", doc="synthetic: display only", fit=False)
 
     base = minimal_config(tmp_path).universes[0]
     fields = {f.name: getattr(base, f.name) for f in dataclasses.fields(base)}
     ext = Extended(**fields)
-    assert ext.fit_settings() == {**base.fit_settings(), "shrinkage": 0.0}
-    assert dataclasses.replace(ext, shrinkage=0.5).config_hash != ext.config_hash
+    assert ext.fit_settings() == {**base.fit_settings(), "ridge": 0.0}
+    assert dataclasses.replace(ext, ridge=0.5).config_hash != ext.config_hash
     assert dataclasses.replace(ext, caption="for the board").config_hash == ext.config_hash
     # the loader reads the new key by its declaration, with its type check
     problems = Problems(tmp_path / "c.toml")
-    values, given = read_table(Extended, {"shrinkage": 1, "caption": 3}, "universes['u']", problems, base=tmp_path)
-    assert values["shrinkage"] == 1.0 and given == {"shrinkage", "caption"}
+    values, given = read_table(Extended, {"ridge": 1, "caption": 3}, "universes['u']", problems, base=tmp_path)
+    assert values["ridge"] == 1.0 and given == {"ridge", "caption"}
     assert [p for p in problems.items if "required but missing" not in p] == [
         f"{tmp_path / 'c.toml'}: `universes['u'].caption` must be str, got 3; set `caption` to a str"
     ]
@@ -310,7 +310,7 @@ def test_a_new_declared_key_enters_the_fit_hash_unless_marked(tmp_path: Path) ->
     from pipeline.config.readme import _table
 
     rows = _table(Section("universes", Extended, many=True))
-    assert "| `shrinkage` | 0.0 | yes | synthetic: changes the estimates |" in rows
+    assert "| `ridge` | 0.0 | yes | synthetic: changes the estimates |" in rows
     assert "| `caption` | `` | no | synthetic: display only |" in rows
 
 
