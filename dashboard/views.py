@@ -266,6 +266,7 @@ def leadlag_view(snap: Snapshot, state: Any, level: Any) -> ViewResult:
         msg = (f"Universe '{u.name}' is fitted by quantile regression at each τ: Granger tests are "
                "least-squares F tests, so none are stored for its windows; the Tails tab shows how "
                "its spillovers differ between the tails and the median.")  # fmt: skip
+        raise WindowError(msg)
     if u.estimator == "shrinkage":
         msg = (f"Universe '{u.name}' is a shrinkage VAR (Minnesota prior, posterior mean): Granger F tests "
                "belong to a least-squares fit and are not defined for it, so none are stored. Lead–lag "

@@ -171,9 +171,9 @@ class Universe:
 
     @property
     def estimator(self) -> str:
-        """"ols" (least squares) or "quantile" (quantile regression at each τ; the per-window
-        tables hold the τ nearest 0.5, `Snapshot.quantile_history` every τ)."""
-        """"ols" (least squares per window) or "shrinkage" (the natural-conjugate shrinkage VAR)."""
+        """"ols" (least squares), "shrinkage" (the natural-conjugate shrinkage VAR) or "quantile"
+        (quantile regression at each τ; the per-window tables hold the τ nearest 0.5,
+        `Snapshot.quantile_history` every τ)."""
         return str(self.config.get("estimator", "ols"))
 
 

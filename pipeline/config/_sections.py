@@ -266,6 +266,9 @@ class QuantileSettings:
 
 #: a universe without a `[universes.quantile]` table
 DEFAULT_QUANTILE = QuantileSettings()
+
+
+@dataclass(frozen=True)
 class ShrinkageSettings:
     """The prior of an `estimator = "shrinkage"` universe (arlib.rolling_shrinkage)."""
 

@@ -401,6 +401,7 @@ def _granger(d: ReportData) -> str:
         out.append('<p class="note">Fitted by quantile regression at each τ: Granger tests are '
                    "least-squares F tests, so none are stored for its windows (see Connectedness in "
                    "the tails).</p></div></section>")  # fmt: skip
+        return "".join(out)
     if d.info.estimator == "shrinkage":
         out.append('<p class="note">A shrinkage VAR (Minnesota prior, posterior mean): Granger F tests '
                    "belong to a least-squares fit and are not defined for it, so none are stored. Lead–lag "
@@ -557,8 +558,8 @@ def render_report(d: ReportData, *, generated: dt.datetime, version: str) -> str
     """The complete HTML text of one universe's report."""
     chart = _Charts()
     body = "\n".join([
-        _glance(d), _connectedness(d, chart), _cycles(d, chart), _tails(d, chart), _models(d, chart), _spillovers(d), _responses(d, chart),
-        _glance(d), _connectedness(d, chart), _cycles(d, chart), _models(d, chart), _shrinkage(d, chart), _spillovers(d), _responses(d, chart),
+        _glance(d), _connectedness(d, chart), _cycles(d, chart), _tails(d, chart), _models(d, chart), _shrinkage(d, chart),
+        _spillovers(d), _responses(d, chart),
         _decompositions(d, chart), _granger(d), _health(d, chart), _lineage(d),
     ])
     files = resources.files("pipeline.export") / "templates"
