@@ -58,7 +58,7 @@ def reduced_demo_config(folder: Path, execution_toml: str) -> Path:
     text = (DEMO / "demo.toml").read_text(encoding="utf-8")
     replacements = [
         (r'"\.\./demo_output/', '"./out/', 3),  # warehouse, snapshot, exports
-        (r'path = "(markets_wide|rates_long)\.csv"', lambda m: f'path = "{(DEMO / m.group(1)).as_posix()}.csv"', 2),
+        (r'path = "(\w+)\.csv"', lambda m: f'path = "{(DEMO / m.group(1)).as_posix()}.csv"', 2),  # every demo file
         (r"\nstep = 5\n", "\nstep = 25\n", 2),  # the daily universes: every 25th window end
         (r"\nstep = 1\n", "\nstep = 4\n", 1),  # the weekly one: every 4th
     ]
