@@ -83,6 +83,42 @@ JOIN universe_series r ON r.universe = f.universe AND r.position = (f.k // s.n) 
 JOIN universe_series c ON c.universe = f.universe AND c.position = f.k % s.n
 """,
     ),
+    "band_long": (
+        "one row per (universe, window_end, band, variable, shock): period_lo, period_hi and share "
+        "(percent of the variable's forecast-error variance from the shock's cycles in the band) — "
+        "`band_connectedness.shares` unnested; the bands of a window add up to the total table",
+        f"""
+WITH sizes AS ({_SIZES}),
+flat AS (
+    SELECT run_id, universe, window_end, band, period_lo, period_hi,
+           unnest(shares) AS share, generate_subscripts(shares, 1) - 1 AS k
+    FROM band_connectedness
+)
+SELECT f.run_id, f.universe, f.window_end, f.band, f.period_lo, f.period_hi,
+       r.series AS variable, c.series AS shock, f.share
+FROM flat f
+JOIN sizes s ON s.universe = f.universe
+JOIN universe_series r ON r.universe = f.universe AND r.position = f.k // s.n
+JOIN universe_series c ON c.universe = f.universe AND c.position = f.k % s.n
+""",
+    ),
+    "quantile_long": (
+        "one row per (universe, window_end, quantile, variable, shock): share (percent, the "
+        "generalized table at τ) — `quantile_connectedness.shares` unnested",
+        f"""
+WITH sizes AS ({_SIZES}),
+flat AS (
+    SELECT run_id, universe, window_end, quantile,
+           unnest(shares) AS share, generate_subscripts(shares, 1) - 1 AS k
+    FROM quantile_connectedness
+)
+SELECT f.run_id, f.universe, f.window_end, f.quantile, r.series AS variable, c.series AS shock, f.share
+FROM flat f
+JOIN sizes s ON s.universe = f.universe
+JOIN universe_series r ON r.universe = f.universe AND r.position = f.k // s.n
+JOIN universe_series c ON c.universe = f.universe AND c.position = f.k % s.n
+""",
+    ),
     "pairwise_net": (
         "one row per (universe, window_end, source, target), source ≠ target: share (source → "
         "target), reverse (target → source) and net = share − reverse, in percent — from `pairwise`",

@@ -92,3 +92,30 @@ def test_views_live_in_the_warehouse_too(tmp_path: Path) -> None:
         assert got == [(0, 0.5, None), (1, 0.3, None)]
     finally:
         con.close()
+
+
+def test_band_and_quantile_tables_have_long_views(tmp_path: Path) -> None:
+    # A 2-series universe with one band row and one quantile row written by hand: the long views
+    # must return shares[variable, shock] of the C-ordered (n, n) table by series name.
+    con = wh.connect(tmp_path / "w.duckdb")
+    try:
+        con.execute("INSERT INTO universe_series VALUES ('u', 0, 'a', 'level'), ('u', 1, 'b', 'level')")
+        con.execute("INSERT INTO band_connectedness (run_id, universe, window_end, band, period_lo, period_hi, "
+                    "truncation, total, within_total, band_share, to_others, from_others, shares) VALUES "
+                    "('r', 'u', DATE '2024-01-02', 0, 1, 5, 100, 20, 30, 0.6, [1, 2], [3, 4], [50, 10, 20, 40])")
+        got = con.execute("SELECT band, period_lo, period_hi, variable, shock, share FROM band_long "
+                          "ORDER BY variable, shock").fetchall()
+        assert got == [(0, 1.0, 5.0, "a", "a", 50.0), (0, 1.0, 5.0, "a", "b", 10.0),
+                       (0, 1.0, 5.0, "b", "a", 20.0), (0, 1.0, 5.0, "b", "b", 40.0)]
+        cols = [r[0] for r in con.execute("DESCRIBE quantile_connectedness").fetchall()]
+        values = {"run_id": "'r'", "universe": "'u'", "window_end": "DATE '2024-01-02'", "quantile": "0.05",
+                  "total": "25", "to_others": "[1, 2]", "from_others": "[3, 4]", "net": "[-2, -2]",
+                  "shares": "[70, 30, 5, 95]", "lags": "1", "coefs": "[0.1, 0, 0, 0.2]",
+                  "sigma_u": "[1, 0, 0, 1]"}
+        con.execute(f"INSERT INTO quantile_connectedness ({', '.join(values)}) VALUES ({', '.join(values.values())})")
+        assert set(values) <= set(cols)
+        got = con.execute("SELECT quantile, variable, shock, share FROM quantile_long WHERE variable = 'a' "
+                          "ORDER BY shock").fetchall()
+        assert got == [(0.05, "a", "a", 70.0), (0.05, "a", "b", 30.0)]
+    finally:
+        con.close()
