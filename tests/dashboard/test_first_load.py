@@ -9,7 +9,8 @@ of the same worker was still doing that first setup, answered them 500 and the p
 - HTTP: a fresh server (default worker count) asked for every script of the page at once, before
   anyone has loaded the page, answers every one 200, and its log holds no error;
 - browser: a fresh server loaded at once in Debian's chromium (a fresh profile each time) renders
-  the index chart, with no answer >= 500 — 3 fresh servers in the default suite, 20 under `slow`.
+  the index chart, with no answer >= 500 — 20 fresh servers in a row, in the default suite (the
+  issue's count; about 80 s on 2 idle cores).
 """
 
 from __future__ import annotations
@@ -117,13 +118,6 @@ def first_loads(snapshot: Path, chromium: str, times: int) -> list[str]:
     return failures
 
 
-@pytest.mark.browser
-def test_first_page_load_renders_on_fresh_servers(small_snapshot: Path, chromium_path: str) -> None:
-    failures = first_loads(small_snapshot, chromium_path, 3)
-    assert not failures, failures
-
-
-@pytest.mark.slow
 @pytest.mark.browser
 def test_first_page_load_renders_twenty_times_in_twenty(small_snapshot: Path, chromium_path: str) -> None:
     failures = first_loads(small_snapshot, chromium_path, 20)

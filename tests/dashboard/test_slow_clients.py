@@ -5,8 +5,8 @@ request one line per second (no token needed for that): half trickle the head, h
 declaring a 64 KiB body and trickle the body. While they are open, ordinary
 requests must still be answered. The bound asserted is functional, not a benchmark: on an idle
 machine an answer takes milliseconds, and before the fix none came at all while the trickling
-lasted (every worker thread sat reading a trickled head); 10 s is five times the 2 s the issue
-asks for, slack for a busy 2-core machine. The trickling connections themselves are closed once
+lasted (every worker thread sat reading a trickled head). The bound is the issue's 2 s; measured
+answers were 9–38 ms. The trickling connections themselves are closed once
 `dashboard.app.HEAD_TIMEOUT` (plus, for a declared body, its length at `MIN_BODY_RATE`) has
 passed. A request body over `MAX_REQUEST_BYTES` is refused 413.
 
@@ -33,7 +33,7 @@ from ._snapshot import write_snapshot
 
 SLOW_CLIENTS = 50
 TRICKLE_SECONDS = 30.0  # how long each slow client keeps trickling if the server lets it
-ANSWER_BOUND = 10.0  # s; see the module docstring
+ANSWER_BOUND = 2.0  # s, the issue's bound; see the module docstring
 
 
 @pytest.fixture(autouse=True)
