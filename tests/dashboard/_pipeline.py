@@ -10,6 +10,7 @@ invented Veloria market of data_samples/ (not real market data).
 from __future__ import annotations
 
 from pathlib import Path
+from typing import Any
 
 ROOT = Path(__file__).resolve().parents[2]
 DATA = ROOT / "data_samples"
@@ -84,20 +85,22 @@ def available() -> bool:
     return hasattr(arlib, "rolling_var")
 
 
-def config_in(folder: Path) -> object:
-    """The small config, written into `folder` (its warehouse, snapshot and exports land there)."""
+def config_in(folder: Path, text: str = CONFIG) -> Any:
+    """A config (`text`, with ``{data}`` standing for data_samples/), written into `folder` (its
+    warehouse, snapshot and exports land there) and loaded."""
     from pipeline.config import load_config
 
     config_path = folder / "shockflow.toml"
-    config_path.write_text(CONFIG.format(data=DATA.as_posix()), encoding="utf-8")
+    config_path.write_text(text.format(data=DATA.as_posix()), encoding="utf-8")
     return load_config(config_path)
 
 
-def build(folder: Path, *, export: bool = True) -> tuple[Path, Path]:
-    """Run ingest → fit → publish (→ export) into `folder`; returns (snapshot, export folder)."""
+def build(folder: Path, *, export: bool | list[str] = True, text: str = CONFIG) -> tuple[Path, Path]:
+    """Run ingest → fit → publish (→ export every universe, or the ones named) into `folder` with
+    the small config or `text`; returns (snapshot, export folder)."""
     from pipeline import jobs
 
-    config = config_in(folder)
+    config = config_in(folder, text)
     for source in config.sources:
         result = jobs.ingest_source(config.warehouse.path, source)
         if result.status != "succeeded":
@@ -110,5 +113,12 @@ def build(folder: Path, *, export: bool = True) -> tuple[Path, Path]:
             raise RuntimeError(msg)
     jobs.publish_step(config)
     if export:
-        jobs.export_step(config, [u.name for u in config.universes])
+        names = export if isinstance(export, list) else [u.name for u in config.universes]
+        jobs.export_step(config, names)
     return config.warehouse.snapshot, config.export.directory
+
+
+def whole_range(snap: Any, universe: str) -> dict[str, str]:
+    """The dashboard's state for `universe` over all its stored window ends."""
+    lo, hi = snap.date_bounds(universe)
+    return {"universe": universe, "start": lo.isoformat(), "end": hi.isoformat()}

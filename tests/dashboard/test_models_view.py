@@ -16,10 +16,8 @@ import pytest
 import arlib
 from dashboard import views as vw
 from dashboard.data import Snapshot
-from pipeline import jobs
-from pipeline.config import load_config
 
-from ._pipeline import DATA
+from ._pipeline import build, whole_range
 
 CONFIG = """
 [warehouse]
@@ -71,17 +69,7 @@ formats = ["html"]
 
 @pytest.fixture(scope="module")
 def built(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, Path]:
-    folder = tmp_path_factory.mktemp("models")
-    (folder / "shockflow.toml").write_text(CONFIG.format(data=DATA.as_posix()), encoding="utf-8")
-    config = load_config(folder / "shockflow.toml")
-    for source in config.sources:
-        assert jobs.ingest_source(config.warehouse.path, source).status == "succeeded"
-    for universe in config.universes:
-        done = jobs.run_universe(config.warehouse.path, universe)
-        assert done.status == "succeeded", done.message
-    jobs.publish_step(config)
-    jobs.export_step(config, ["rates", "rates_tvp"])
-    return config.warehouse.snapshot, config.export.directory
+    return build(tmp_path_factory.mktemp("models"), text=CONFIG, export=["rates", "rates_tvp"])
 
 
 @pytest.fixture
@@ -92,8 +80,7 @@ def snap(built: tuple[Path, Path]) -> Iterator[Snapshot]:
 
 
 def _state(snap: Snapshot, universe: str) -> dict[str, str]:
-    lo, hi = snap.date_bounds(universe)
-    return {"universe": universe, "start": lo.isoformat(), "end": hi.isoformat()}
+    return whole_range(snap, universe)
 
 
 def test_counterpart_is_the_other_model_on_the_same_series(snap: Snapshot) -> None:
