@@ -238,7 +238,7 @@ def test_saved_parameters_match_the_generator(generator: ModuleType, truth: dict
 
 
 # ---------------------------------------------------------------------------------------------
-# 7. the stress episode in the short-run band (connectedness by cycle length, the demo's universes)
+# 4. the stress episode in the short-run band (connectedness by cycle length, the demo's universes)
 # ---------------------------------------------------------------------------------------------
 
 
