@@ -25,7 +25,12 @@ from ._estimate import (
 )
 from ._forecast import Forecast, forecast
 from ._frequency import FrequencyConnectedness, frequency_connectedness
-from ._joint import JointConnectedness, joint_connectedness
+from ._joint import (
+    JointConnectedness,
+    JointFrequencyConnectedness,
+    joint_connectedness,
+    joint_frequency_connectedness,
+)
 from ._labels import LabelledArray
 from ._moments import (
     SpectralPeak,
@@ -55,6 +60,7 @@ __all__ = [
     "GrangerResult",
     "InvalidInputError",
     "JointConnectedness",
+    "JointFrequencyConnectedness",
     "LabelledArray",
     "LagSelection",
     "NormalityResult",
@@ -84,6 +90,7 @@ __all__ = [
     "impulse_responses",
     "irf_bands",
     "joint_connectedness",
+    "joint_frequency_connectedness",
     "ma_coefficients",
     "minimum_window",
     "normality_test",

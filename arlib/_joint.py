@@ -26,8 +26,26 @@ the paper, recalled from memory; the identities above are what the tests pin):
 
     table[i, j] = 100 · θ̃^g_ij · J_i / Σ_{k≠i} θ̃^g_ik  (j ≠ i),   table[i, i] = 100 (1 − J_i).
 
+**By frequency band.** The definition carries over: J_i is a decomposition with a fixed impact
+matrix, B_i = Σ M_i (M_i' Σ M_i)^{-1/2} (B_i B_i' = Σ M_i (M_i'ΣM_i)^{-1} M_i'Σ), so its numerator
+is Σ_{h<H} ‖e_i' Φ_h B_i‖² and, by Parseval, splits over frequency like any decomposition built
+from Ψ(e^{−iω}) = Σ_h Φ_h e^{−iωh} times a fixed matrix (the argument of Baruník & Křehlík 2018,
+eqs. 10–12, which needs no orthogonality beyond that):
+
+    J_i(d) = (1/2π) ∫_d ‖e_i' Ψ(e^{−iω}) B_i‖² dω / MSE_i(H)
+           = (1/2π) ∫_d [(Ψ Σ Ψ*)_ii − |Ψ_ii(e^{−iω})|² / (Σ^{-1})_ii] dω / MSE_i(H),
+
+the second line by the same projection identity frequency by frequency. The denominator is the
+total-frequency MSE (no row normalisation: the bands' parts add up to J_i(H) exactly), so J_i(d)
+is the band's contribution to the joint share; J_i(d) / Γ_i(d), with Γ_i(d) the share of i's
+variance in band d, is the joint share *within* the band. With diagonal Σ both equal the
+generalized band measures of `frequency_connectedness`. `joint_frequency_connectedness` computes
+them on the grid and with the truncation of `frequency_connectedness` (same error statement).
+The TVP filter's per-date joint shares are the time-domain J_i(H) of each date's B_t and Σ_t.
+
 References
 ----------
+Baruník, J. and Křehlík, T. (2018). Journal of Financial Econometrics 16(2), 271–296.
 Lastrapes, W. D. and Wiesen, T. F. P. (2021). The joint spillover index. Economic Modelling 94,
     681–691.
 Pesaran, M. H. and Shin, Y. (1998). Economics Letters 58, 17–29.
@@ -36,11 +54,22 @@ Diebold, F. X. and Yilmaz, K. (2012). International Journal of Forecasting 28, 5
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
 
 from ._decompose import fevd_kernel, spillover_measures
+from ._frequency import (
+    DEFAULT_BANDS,
+    DEFAULT_TRUNCATION,
+    band_angles,
+    band_kernel,
+    band_map,
+    band_weights,
+    check_bands,
+    default_grid,
+)
 from ._responses import ma_kernel
 from ._validate import VARLike, check_int, check_model, readonly
 
@@ -56,6 +85,28 @@ def joint_kernel(coefs: np.ndarray, sigma: np.ndarray, horizon: int) -> np.ndarr
     own = np.einsum("...hii,...hii->...i", phi, phi)
     precision = np.diagonal(np.linalg.inv(sigma), axis1=-2, axis2=-1)
     return 1.0 - own / (precision * mse)
+
+
+def joint_band_kernel(
+    coefs: np.ndarray, sigma: np.ndarray, truncation: int, grid: int, weights: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """(joint, variance), each (..., d, n): J_i(d) and Γ_i(d) as fractions (grid of `band_kernel`).
+
+    With L the Cholesky factor of Σ, (ΨΣΨ*)_ii = Σ_k |(Ψ L)_ik|²; the band sums of it and of
+    |Ψ_ii|² come from one rfft of size M = 2H per entry and `band_map` (the same grid-N band sums
+    as `frequency_kernel`, exact for any N >= H). J_i(d) = (S_d − O_d / (Σ^{-1})_ii) / Σ_d' S_d'.
+    """
+    phi = ma_kernel(coefs, truncation - 1)  # (..., H, n, n)
+    chol = np.linalg.cholesky(sigma)
+    M, U = band_map(weights, grid, truncation)
+    full = np.fft.rfft(np.moveaxis(phi @ chol[..., None, :, :], -3, -1), n=M, axis=-1)  # (..., n, n, M')
+    own = np.fft.rfft(np.diagonal(phi, axis1=-2, axis2=-1), n=M, axis=-2)  # (..., M', n)
+    total = np.moveaxis((full.real**2 + full.imag**2).sum(axis=-2) @ U, -1, -2)  # (..., d, n)
+    own_power = np.swapaxes(own.real**2 + own.imag**2, -1, -2) @ U  # (..., n, d)
+    precision = np.diagonal(np.linalg.inv(sigma), axis1=-2, axis2=-1)
+    mse = total.sum(axis=-2, keepdims=True)
+    joint = (total - np.swapaxes(own_power, -1, -2) / precision[..., None, :]) / mse
+    return joint, total / mse
 
 
 def joint_table(generalized: np.ndarray, joint: np.ndarray) -> np.ndarray:
@@ -128,4 +179,83 @@ def joint_connectedness(fit: VARLike, horizon: int) -> JointConnectedness:
         from_others=from_others, total=float(from_others.mean()),
         generalized_from_others=g["from_others"], generalized_total=float(g["total"]),
         table=table, to_others=m["to_others"], net=m["net"], horizon=H, names=model.names,
+    )  # fmt: skip
+
+
+@dataclass(frozen=True, eq=False, repr=False)
+class JointFrequencyConnectedness:
+    """Joint connectedness split by frequency band, in percent. Arrays are read-only.
+
+    Attributes
+    ----------
+    bands, angles : as in `FrequencyConnectedness` (cycle lengths (P_lo, P_hi] in observations).
+    from_others : (d, n) 100·J_i(d), band d's part of i's joint share; summed over bands, the
+        Lastrapes–Wiesen share `joint_connectedness(fit, truncation).from_others`.
+    total : (d,) mean over series of `from_others`; summed over bands, the joint total index.
+    variance_share : (d, n) Γ_i(d), the share of i's forecast-error variance (horizon
+        `truncation`) in band d; summed over bands, one.
+    within_from_others : (d, n) 100·J_i(d)/Γ_i(d), the share of i's band-d variance that all
+        other shocks cause jointly (NaN for a band without variance).
+    generalized_from_others, generalized_total : (d, n), (d,) the Baruník–Křehlík frequency
+        "from others" and total of `frequency_connectedness` on the same bands, for comparison.
+    truncation, grid : MA terms and FFT grid size.   names : series names.
+    """
+
+    bands: tuple[tuple[float, float], ...]
+    angles: np.ndarray
+    from_others: np.ndarray
+    total: np.ndarray
+    variance_share: np.ndarray
+    within_from_others: np.ndarray
+    generalized_from_others: np.ndarray
+    generalized_total: np.ndarray
+    truncation: int
+    grid: int
+    names: tuple[str, ...]
+
+    def __repr__(self) -> str:
+        parts = ", ".join(
+            f"({lo:g}, {hi:g}]: {t:.2f}%" for (lo, hi), t in zip(self.bands, self.total, strict=True)
+        )
+        return f"JointFrequencyConnectedness({parts}; truncation={self.truncation}, grid={self.grid})"
+
+
+def joint_frequency_connectedness(
+    fit: VARLike,
+    *,
+    bands: Sequence[tuple[float, float]] = DEFAULT_BANDS,
+    truncation: int = DEFAULT_TRUNCATION,
+    grid: int | None = None,
+) -> JointFrequencyConnectedness:
+    """Lastrapes–Wiesen joint connectedness split by frequency band (module docstring), in percent.
+
+    Parameters
+    ----------
+    fit : `VARFit` or `VARProcess`.
+    bands, truncation, grid : as in `frequency_connectedness` (cycle lengths in observations from
+        a period <= 2 to inf; MA terms H; FFT size N >= H). The bands add up exactly (discrete
+        Parseval) to `joint_connectedness(fit, truncation)`; the grid's only error is at band
+        edges, as for `frequency_connectedness`.
+    """
+    model = check_model(fit)
+    H = check_int(truncation, "truncation", minimum=1)
+    if grid is None:
+        N = default_grid(H)
+    else:
+        N = check_int(grid, "grid", minimum=H, hint="the FFT grid needs N >= `truncation`")
+    parts = check_bands(bands)
+    weights = band_weights(parts, N)
+    coefs, sigma = np.asarray(model.coefs), np.asarray(model.sigma_u)
+    joint, share = joint_band_kernel(coefs, sigma, H, N, weights)
+    from_others = 100.0 * joint
+    with np.errstate(invalid="ignore", divide="ignore"):
+        within = np.where(share > 0, from_others / share, np.nan)
+    g = spillover_measures(100.0 * band_kernel(coefs[None], sigma[None], H, N, weights)[0])
+    total = from_others.mean(axis=-1)
+    angles = band_angles(parts)
+    readonly(angles, from_others, total, share, within, g["from_others"], g["total"])
+    return JointFrequencyConnectedness(
+        bands=parts, angles=angles, from_others=from_others, total=total, variance_share=share,
+        within_from_others=within, generalized_from_others=g["from_others"],
+        generalized_total=g["total"], truncation=H, grid=N, names=model.names,
     )  # fmt: skip

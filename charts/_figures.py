@@ -43,6 +43,7 @@ __all__ = [
     "band_index_figure",
     "band_label",
     "band_net_figure",
+    "band_pairs_figure",
     "cycles_figure",
     "granger_figure",
     "health_figure",
@@ -850,6 +851,53 @@ def band_net_figure(
                 "yanchor": "bottom"},
         margin={"l": 60, "r": 20, "t": 60, "b": 90},
         xaxis=th.axis(), yaxis=th.axis(title={"text": "net (to − from), percentage points"}),
+    )  # fmt: skip
+    return {"data": data, "layout": layout}
+
+
+def band_pairs_figure(
+    tables: np.ndarray,
+    periods: Sequence[tuple[float, float]],
+    names: Sequence[str],
+    *,
+    window_end: dt.date,
+    unit: str = "rows",
+    medium: Medium = "screen",
+) -> Figure:
+    """One heatmap per band: the band table [receiving, sending] at one window, in percent.
+
+    tables : (d, n, n) band tables θ̃_d (Baruník–Křehlík 2018, eq. 12) in percent of the receiver's
+    forecast-error variance; summed over bands they are the Diebold–Yilmaz table. One colour scale
+    (0 to the largest off-diagonal entry of any band) for every panel, so a band whose cells are
+    pale carries little spillover; the diagonal (own shares) is written, not coloured.
+    """
+    arr = np.asarray(tables, dtype=float)
+    d, n = len(periods), len(names)
+    off = ~np.eye(n, dtype=bool)
+    top = float(max(np.nanmax(arr[:, off]), 1.0)) if n > 1 else 100.0
+    axes, refs = th.grid(1, d, hgap=0.07, vgap=0.0, share_y=True)
+    data, anns = [], []
+    for b, (lo, hi) in enumerate(periods):
+        xr, yr = refs[0][b]
+        name = band_label(lo, hi, unit)
+        data.append({
+            "type": "heatmap", "z": th.matrix(np.where(off, arr[b], np.nan)), "x": list(names),
+            "y": list(names), "zmin": 0, "zmax": top, "colorscale": SEQUENTIAL, "showscale": b == d - 1,
+            "text": _heat_text(arr[b], ".1f"), "texttemplate": "%{text}",
+            "colorbar": {"title": {"text": "% of variance"}, "x": 1.01, "xanchor": "left", "len": 0.9,
+                         "thickness": 12},
+            "hovertemplate": f"{name}: " + "%{z:.2f}% of %{y}'s variance from %{x}<extra></extra>",
+            "xaxis": xr, "yaxis": yr,
+        })  # fmt: skip
+        axes[th.axis_key(xr)].update(title={"text": "shock from"}, tickangle=-30)
+        axes[th.axis_key(yr)].update(autorange="reversed")
+        dom = axes[th.axis_key(xr)]["domain"]
+        anns.append(th.text(name, (dom[0] + dom[1]) / 2, 1.0, yanchor="bottom"))
+    axes["yaxis"]["title"] = {"text": "series whose variance is split"}
+    layout = th.layout(
+        height=max(360, 170 + 40 * n), medium=medium, annotations=anns,
+        title=f"Pairwise spillovers by cycle length, window ending {window_end} (diagonal: own share)",
+        margin={"l": 60, "r": 20, "t": 100, "b": 60}, **axes,
     )  # fmt: skip
     return {"data": data, "layout": layout}
 

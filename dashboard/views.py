@@ -59,6 +59,7 @@ __all__ = [
     "View",
     "band_index_view",
     "band_net_view",
+    "band_pairs_view",
     "bands_view",
     "compare_pairs_view",
     "compare_paths_view",
@@ -610,9 +611,37 @@ def band_net_view(snap: Snapshot, state: Any) -> ViewResult:
     return fig, rows, f"Window ending {end}; percentage points."
 
 
-def bands_view(snap: Snapshot, state: Any) -> tuple[ViewResult, ViewResult]:
-    """Both charts of the cycle-length tab."""
-    return band_index_view(snap, state), band_net_view(snap, state)
+@guard
+def band_pairs_view(snap: Snapshot, state: Any) -> ViewResult:
+    """The pairwise spillover table of each band at the window end (one heatmap per band)."""
+    u, bh, end = _band_history(snap, state)
+    k = bh.at(end)
+    table = bh.table[k]  # (d, n, n) [band, variable, shock], percent
+    fig = charts.band_pairs_figure(table, bh.periods, u.series, window_end=end)
+    labels = [charts.band_label(lo, hi) for lo, hi in bh.periods]
+    rows = [
+        {"window_end": iso(end), "band": labels[b], "series": s, "shock": t,
+         "share_percent": num(table[b, i, j])}
+        for b in range(len(labels)) for i, s in enumerate(u.series) for j, t in enumerate(u.series)
+    ]  # fmt: skip
+    n = len(u.series)
+    off = ~np.eye(n, dtype=bool)
+    tops = []
+    for b, lab in enumerate(labels):
+        if n < 2:
+            break
+        i, j = np.unravel_index(int(np.argmax(np.where(off, table[b], -np.inf))), (n, n))
+        tops.append(f"{lab}: {u.series[j]} → {u.series[i]} ({table[b, i, j]:.1f}%)")
+    note = ("Pairwise tables: percent of the receiving series' forecast-error variance, one colour "
+            "scale for every band; summed over the bands, the cells are the spillover table at "
+            f"{bh.truncation} steps." + (f" Largest pair per band at {end}: " + "; ".join(tops) + "."
+                                         if tops else ""))  # fmt: skip
+    return fig, rows, note
+
+
+def bands_view(snap: Snapshot, state: Any) -> tuple[ViewResult, ViewResult, ViewResult]:
+    """The three charts of the cycle-length tab."""
+    return band_index_view(snap, state), band_net_view(snap, state), band_pairs_view(snap, state)
 
 
 @guard
@@ -920,10 +949,11 @@ VIEWS: tuple[View, ...] = (
          charts=(("compare-pairs", 380), ("compare-paths", 520)), controls=_compare_controls),
     View("health", health_view, tab="Model health", inputs=(NEAR_ONE,), charts=(("health", 640),),
          controls=_health_controls, extra=(SKIPPED_TABLE, _skipped)),
-    View("bands", bands_view, tab="By cycle length", charts=(("bands", 400), ("bands-net", 380)),
+    View("bands", bands_view, tab="By cycle length", charts=(("bands", 400), ("bands-net", 380), ("bands-pairs", 420)),
          intro=("How much of the connectedness travels in short cycles and how much in long ones "
                 "(Baruník–Křehlík 2018): the stored index split by cycle length, in rows of the "
-                "universe's calendar, and each series' net role by cycle length at the window end.")),
+                "universe's calendar; each series' net role by cycle length at the window end; and "
+                "who sends to whom in each band at the window end.")),
     View("joint", joint_view, tab="Joint index", charts=(("joint", 360),),
          intro=("The share of each series' forecast-error variance due to all other shocks together "
                 "(Lastrapes–Wiesen 2021), next to the row-normalised generalized index.")),

@@ -14,6 +14,7 @@ PINNED = [
     "GrangerResult",
     "InvalidInputError",
     "JointConnectedness",
+    "JointFrequencyConnectedness",
     "LabelledArray",
     "LagSelection",
     "NormalityResult",
@@ -43,6 +44,7 @@ PINNED = [
     "impulse_responses",
     "irf_bands",
     "joint_connectedness",
+    "joint_frequency_connectedness",
     "ma_coefficients",
     "minimum_window",
     "normality_test",
@@ -104,4 +106,4 @@ def test_model_arguments_are_typed_with_the_protocol() -> None:
                 if name in ("shrinkage_draws", "shrinkage_bands"):  # need the posterior: a ShrinkageFit
                     want = "ShrinkageFit"
                 assert params[arg].annotation == want, (name, params[arg].annotation)
-    assert seen == 20  # frequency_connectedness, joint_connectedness, shrinkage_draws/_bands included
+    assert seen == 21  # frequency_connectedness, joint_connectedness, joint_frequency_connectedness, shrinkage_draws/_bands included

@@ -124,7 +124,7 @@ def test_cycle_lengths_and_joint_index_same_on_screen_and_in_report(snap: Snapsh
     the numbers the screen shows: the same stacked band values and the same joint series."""
     html = made[1]
     assert 'id="cycles"' in html and 'id="joint"' in html
-    (screen, _, _), (bars, _, _) = cb.bands_view(snap, latest_state(snap))
+    (screen, _, _), (bars, _, _), _ = cb.bands_view(snap, latest_state(snap))
     printed = plotly_traces(html, "fig-cycles")
     on_screen = [t for t in screen["data"] if t.get("stackgroup") == "bands"]
     assert [t["name"] for t in printed] == [t["name"] for t in on_screen]

@@ -259,6 +259,7 @@ def test_other_identification(page: Any, snapshot_path: Path, universe_name: str
         ("Compare windows", "compare-pairs-graph", "compare-note"),
         ("Model health", "health-graph", "health-note"),
         ("Own cycles", "cycles-graph", "cycles-note"),
+        ("By cycle length", "bands-pairs-graph", "bands-note"),
     ],
 )
 def test_each_view_loads(page: Any, label: str, graph: str, note: str) -> None:

@@ -612,7 +612,7 @@ def test_bands_view_splits_the_stored_index_by_cycle_length(snap: Snapshot, stat
     otherwise to arlib's index at the truncation horizon (Baruník–Křehlík 2018, discrete Parseval);
     the net bars at the window end are the stored to − from per band."""
     u = snap.universe(universe_name)
-    (fig, rows, note), (bars, net_rows, _) = vw.bands_view(snap, state)
+    (fig, rows, note), (bars, net_rows, _), _ = vw.bands_view(snap, state)
     bh = snap.band_history(u)
     assert bh is not None and "cycles ≤ 5 rows" in {t["name"] for t in fig["data"]}
     stacked = [t for t in fig["data"] if t.get("stackgroup") == "bands"]
@@ -690,3 +690,45 @@ def test_answers_are_kept_per_snapshot_file_and_never_when_a_view_failed(snapsho
         assert len(answers) == 4
     finally:
         snap.reader.close()
+
+
+def test_bands_view_shows_the_pairwise_table_of_each_band_at_the_window_end(snap: Snapshot, state: dict[str, str], universe_name: str) -> None:
+    """The third chart of the cycle-length tab: one heatmap per band of the band table θ̃_d at the
+    window end [receiving, sending], in percent of the receiver's variance (Baruník–Křehlík 2018,
+    eq. 12), on one colour scale for every band. Its off-diagonal cells equal arlib's
+    `frequency_connectedness` of the window refitted from its stored prepared rows, and the
+    stored band table, to 1e-9; summed over bands they are the Diebold–Yilmaz table."""
+    u = snap.universe(universe_name)
+    results = vw.bands_view(snap, state)
+    assert len(results) == 3
+    heat, rows, note = results[2]
+    _valid(heat)
+    bh = snap.band_history(u)
+    assert bh is not None
+    end = _end(snap, state)
+    k = bh.at(end)
+    stored = snap.fit(u, end)
+    y = snap.prepared(u, stored.window_start, stored.window_end)
+    refit = arlib.fit_var(y, stored.lags, trend=u.trend, names=list(u.series))
+    fc = arlib.frequency_connectedness(refit, bands=bh.periods, truncation=bh.truncation)
+    n, d = len(u.series), len(bh.periods)
+    panels = [t for t in heat["data"] if t["type"] == "heatmap"]
+    assert len(panels) == d
+    off = ~np.eye(n, dtype=bool)
+    for b, panel in enumerate(panels):
+        z = np.asarray(panel["z"], dtype=float)
+        assert np.isnan(z[~off]).all()  # own shares are written, not coloured
+        np.testing.assert_allclose(z[off], fc.tables[b][off], rtol=1e-9, atol=1e-9)
+        np.testing.assert_allclose(z[off], bh.table[k, b][off], rtol=1e-9, atol=1e-9)
+        assert panel["x"] == panel["y"] == list(u.series)
+    # one colour scale: the same limits in every panel, covering every off-diagonal cell
+    assert len({(p["zmin"], p["zmax"]) for p in panels}) == 1
+    assert panels[0]["zmin"] == 0 and panels[0]["zmax"] >= np.max(fc.tables[:, off]) - 1e-9
+    assert sum(bool(p.get("showscale", True)) for p in panels) == 1
+    # CSV rows: every cell of every band table, own shares included
+    assert len(rows) == d * n * n
+    got = np.array([r["share_percent"] for r in rows]).reshape(d, n, n)
+    np.testing.assert_allclose(got, fc.tables, rtol=1e-9, atol=1e-9)
+    dy = arlib.connectedness(refit, bh.truncation)
+    np.testing.assert_allclose(got.sum(axis=0), dy.table, rtol=1e-9, atol=1e-9)
+    assert "one colour scale for every band" in note

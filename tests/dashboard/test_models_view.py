@@ -159,9 +159,9 @@ def test_every_tab_answers_for_a_tvp_universe(snap: Snapshot) -> None:
         "cycles": vw.cycles_view(snap, state),
         "joint": vw.joint_view(snap, state),
     }
-    for (a, b) in [vw.compare_view(snap, state, "", "", "", "", "generalized", None, "8"), vw.bands_view(snap, state)]:
-        results[f"pair {a[2][:20]}"] = a
-        results[f"pair {b[2][:20]}"] = b
+    for triples in [vw.compare_view(snap, state, "", "", "", "", "generalized", None, "8"), vw.bands_view(snap, state)]:
+        for t in triples:
+            results[f"pair {t[2][:20]}"] = t
     for name, (fig, _, note) in results.items():
         assert "could not be computed" not in note, (name, note)
         assert fig["data"] or note, name
