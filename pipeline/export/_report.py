@@ -13,8 +13,8 @@ The one trusted-HTML path: a chart's ``<div>`` and ``<script>``, made here by `p
 (`_Charts`), is handed to the templates as a string and inserted by the ``chart`` macro with
 ``|safe``; nothing else is marked safe. Plotly writes every figure string as JSON with ``<``,
 ``>`` and ``/`` as ``\\u`` escapes, so a series name cannot close the script; the div ids are ours.
-The stylesheet ``report.css`` is included as a template whose name does not end in ``.html``
-(no autoescaping, and no expressions in it), not passed as a value.
+The stylesheet ``report.css`` is included as a template, not passed as a value: its name does
+not end in ``.html`` (no autoescaping) and the loader reads it as raw text (no Jinja syntax).
 
 Plotly's JavaScript is inlined once, in the first chart (``include_plotlyjs=True``), and every
 later chart reuses it (``include_plotlyjs=False``), so the file opens with no network. Chart
@@ -44,7 +44,7 @@ import charts
 if TYPE_CHECKING:
     from pipeline.export._data import ReportData, ResponseSet
 
-__all__ = ["CAUTION", "SECTIONS", "environment", "render_report"]
+__all__ = ["CAUTION", "SECTIONS", "environment", "render_report", "report_context"]
 
 CAUTION = ("A research tool, not financial advice. "
            "Estimated relations between markets change over time.")
@@ -66,8 +66,11 @@ def _template_source(name: str) -> tuple[str, str, Callable[[], bool]]:
     node = resources.files(TEMPLATE_PACKAGE).joinpath("templates", *parts)
     if not node.is_file():
         raise jinja2.TemplateNotFound(name)
+    text = node.read_text(encoding="utf-8")
+    if not name.endswith(".html"):  # the stylesheet: literal text, whatever braces it holds
+        text = "{% raw %}" + text + "{% endraw %}"
     # resources do not change while the process runs: a compiled template stays valid
-    return node.read_text(encoding="utf-8"), f"{TEMPLATE_PACKAGE}:templates/{name}", lambda: True
+    return text, f"{TEMPLATE_PACKAGE}:templates/{name}", lambda: True
 
 
 @functools.cache

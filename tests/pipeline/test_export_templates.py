@@ -18,6 +18,7 @@ import sys
 import zipfile
 from collections.abc import Iterator
 from html.parser import HTMLParser
+from importlib import resources
 from pathlib import Path
 
 import duckdb
@@ -286,6 +287,14 @@ def test_templates_load_from_the_package_inside_a_zip(snap: Path, tmp_path: Path
     html = Path(proc.stdout.strip()).read_text(encoding="utf-8")
     assert [e.attrs["id"] for e in Page(html).find("section")] == [
         "glance", "connectedness", "spillovers", "responses", "decompositions", "granger", "health", "lineage"]
+
+
+def test_the_stylesheet_is_inserted_as_written(page: Page) -> None:
+    """report.css goes in literally: not escaped (its quotes), not read as Jinja (its braces)."""
+    css = (resources.files("pipeline.export") / "templates" / "report.css").read_text(encoding="utf-8")
+    assert '"DejaVu Sans"' in css and "{ " in css
+    (style,) = page.find("style")
+    assert style.text.strip() == css.strip()
 
 
 def test_template_names_cannot_leave_the_templates_folder() -> None:
