@@ -13,6 +13,7 @@ from __future__ import annotations
 import dataclasses
 import datetime as dt
 import os
+import re
 import subprocess
 import sys
 import zipfile
@@ -287,6 +288,19 @@ def test_templates_load_from_the_package_inside_a_zip(snap: Path, tmp_path: Path
     html = Path(proc.stdout.strip()).read_text(encoding="utf-8")
     assert [e.attrs["id"] for e in Page(html).find("section")] == [
         "glance", "connectedness", "spillovers", "responses", "decompositions", "granger", "health", "lineage"]
+
+
+def test_only_the_chart_macro_marks_html_safe() -> None:
+    """The one trusted-HTML path (pipeline/export/_report.py's docstring): plotly's output, through
+    macros.html's `chart`. No other template marks a value safe or turns autoescaping off."""
+    folder = resources.files("pipeline.export") / "templates"
+    texts = {f"{d}{f.name}": f.read_text(encoding="utf-8")
+             for d, node in (("", folder), ("sections/", folder / "sections"))
+             for f in node.iterdir() if f.name.endswith(".html")}
+    assert len(texts) == 2 + len(SECTIONS)  # report, macros and one per section
+    marks = {name: re.findall(r"\|\s*safe\b|autoescape|Markup", text) for name, text in texts.items()}
+    assert {name: m for name, m in marks.items() if m} == {"macros.html": ["|safe"]}
+    assert '<div class="chart">{{ html|safe }}</div>' in texts["macros.html"]
 
 
 def test_the_stylesheet_is_inserted_as_written(page: Page) -> None:
