@@ -1,4 +1,20 @@
-"""The HTML report: one self-contained file per universe.
+"""The HTML report: one self-contained file per universe, built from Jinja templates.
+
+Python builds plain context data — numbers, strings, lists of rows — one context function per
+section (``_glance``, ``_connectedness``, … in `SECTIONS`); the templates under
+``pipeline/export/templates/`` do all markup: ``report.html`` is the page and includes
+``sections/<name>.html`` for every section present, in `SECTIONS` order; ``macros.html`` holds the
+table cells and the chart wrapper. The environment autoescapes every ``.html`` template and uses
+`StrictUndefined`, so a value reaches the page escaped exactly once, and a key a template names but
+the context lacks raises instead of printing nothing. Templates are read through
+`importlib.resources`, so they load the same from a checkout, an installed wheel or a zip.
+
+The one trusted-HTML path: a chart's ``<div>`` and ``<script>``, made here by `plotly.io.to_html`
+(`_Charts`), is handed to the templates as a string and inserted by the ``chart`` macro with
+``|safe``; nothing else is marked safe. Plotly writes every figure string as JSON with ``<``,
+``>`` and ``/`` as ``\\u`` escapes, so a series name cannot close the script; the div ids are ours.
+The stylesheet ``report.css`` is included as a template, not passed as a value: its name does
+not end in ``.html`` (no autoescaping) and the loader reads it as raw text (no Jinja syntax).
 
 Plotly's JavaScript is inlined once, in the first chart (``include_plotlyjs=True``), and every
 later chart reuses it (``include_plotlyjs=False``), so the file opens with no network. Chart
@@ -12,12 +28,13 @@ readers (and the tests) can check the shown figures against the snapshot exactly
 from __future__ import annotations
 
 import datetime as dt
-import html
+import functools
 import math
+from collections.abc import Callable
 from importlib import resources
-from string import Template
 from typing import TYPE_CHECKING, Any, cast
 
+import jinja2
 import numpy as np
 import plotly.io as pio
 import polars as pl
@@ -27,7 +44,7 @@ import charts
 if TYPE_CHECKING:
     from pipeline.export._data import ReportData, ResponseSet
 
-__all__ = ["CAUTION", "render_report"]
+__all__ = ["CAUTION", "SECTIONS", "environment", "render_report", "report_context"]
 
 CAUTION = ("A research tool, not financial advice. "
            "Estimated relations between markets change over time.")
@@ -35,61 +52,81 @@ CAUTION = ("A research tool, not financial advice. "
 _PLOTLY_CONFIG = {"displayModeBar": False, "responsive": True, "displaylogo": False,
                   "staticPlot": False}
 
+#: The package whose ``templates/`` folder holds the report's templates.
+TEMPLATE_PACKAGE = "pipeline.export"
 
-def _esc(value: Any) -> str:
-    return html.escape("" if value is None else str(value))
+
+# -- templates -----------------------------------------------------------------------------------
+
+def _template_source(name: str) -> tuple[str, str, Callable[[], bool]]:
+    """A template's text, read from the package's resources (a folder, a wheel or a zip)."""
+    parts = name.split("/")
+    if any(p in ("", ".", "..") for p in parts):
+        raise jinja2.TemplateNotFound(name)
+    node = resources.files(TEMPLATE_PACKAGE).joinpath("templates", *parts)
+    if not node.is_file():
+        raise jinja2.TemplateNotFound(name)
+    text = node.read_text(encoding="utf-8")
+    if not name.endswith(".html"):  # the stylesheet: literal text, whatever braces it holds
+        text = "{% raw %}" + text + "{% endraw %}"
+    # resources do not change while the process runs: a compiled template stays valid
+    return text, f"{TEMPLATE_PACKAGE}:templates/{name}", lambda: True
 
 
-def _num(value: Any, digits: int = 2, *, cls: str = "") -> str:
-    """A table cell showing `value` to `digits` decimals, full precision in `data-value`."""
-    if value is None or (isinstance(value, float) and math.isnan(value)):
-        return '<td class="na">–</td>'
+@functools.cache
+def environment() -> jinja2.Environment:
+    """The report's Jinja environment: autoescaped ``.html`` templates, undefined names raise."""
+    env = jinja2.Environment(
+        loader=jinja2.FunctionLoader(_template_source),
+        autoescape=jinja2.select_autoescape(enabled_extensions=("html",), default_for_string=True),
+        undefined=jinja2.StrictUndefined,
+        trim_blocks=True,
+        lstrip_blocks=True,
+    )
+    env.globals["significance_mark"] = charts.SIGNIFICANCE_MARK
+    return env
+
+
+# -- plain values for the templates --------------------------------------------------------------
+
+def _f(value: Any) -> float | None:
+    """A number as a Python float (full precision for ``data-value``), None when missing or NaN."""
+    if value is None:
+        return None
     v = float(value)
-    attr = f' class="{cls}"' if cls else ""
-    return f'<td{attr} data-value="{v!r}">{v:.{digits}f}</td>'
+    return None if math.isnan(v) else v
 
 
-def _pval(p: float, f: float, level: float) -> str:
-    if p is None or math.isnan(p):
-        return '<td class="na">–</td>'
-    flag = ' class="flag"' if p < level else ""
-    shown = "&lt;0.001" if p < 0.001 else f"{p:.3f}"
-    if p < level:
-        shown += f" {charts.SIGNIFICANCE_MARK}"
-    return (f'<td{flag} data-value="{float(p)!r}" data-f="{float(f)!r}" '
-            f'title="F = {f:.3f}">{shown}</td>')
-
-
-def _shade(v: float) -> str:
-    """Cell background growing with the share (Okabe–Ito blue at up to 45% opacity)."""
-    a = max(0.0, min(1.0, v / 100.0)) * 0.45
-    return f' style="background: rgba(var(--cell), {a:.3f})"'
+def _shade(v: float | None) -> float | None:
+    """Cell background opacity growing with the share (Okabe–Ito blue at up to 45%); none when
+    the cell has no number."""
+    if v is None:
+        return None
+    return max(0.0, min(1.0, v / 100.0)) * 0.45
 
 
 def _text_table(df: pl.DataFrame, columns: list[tuple[str, str]], *, caption: str = "",
-                cls: str = "") -> str:
-    """A plain table of `df`'s rows; `columns` maps column name → header."""
-    head = "".join(f"<th>{_esc(h)}</th>" for _, h in columns)
-    body = []
+                cls: str = "") -> dict[str, Any]:
+    """A plain table of `df`'s rows; `columns` maps column name → header. Floats become number
+    cells (four decimals), timestamps ISO text, anything else its text (None: empty)."""
+    rows = []
     for row in df.iter_rows(named=True):
-        cells = []
+        cells: list[dict[str, Any]] = []
         for name, _ in columns:
             v = row[name]
             if isinstance(v, float):
-                cells.append(_num(v, 4))
+                cells.append({"kind": "num", "value": _f(v), "digits": 4})
             elif isinstance(v, dt.datetime):
-                cells.append(f'<td class="text">{_esc(v.isoformat(sep=" ", timespec="seconds"))}</td>')
+                cells.append({"kind": "text", "text": v.isoformat(sep=" ", timespec="seconds")})
             else:
-                cells.append(f'<td class="text">{_esc(v)}</td>')
-        body.append("<tr>" + "".join(cells) + "</tr>")
-    cap = f"<caption>{_esc(caption)}</caption>" if caption else ""
-    c = f' class="{cls}"' if cls else ""
-    return (f'<div class="tablewrap"><table{c}>{cap}<thead><tr>{head}</tr></thead>'
-            f"<tbody>{''.join(body)}</tbody></table></div>")
+                cells.append({"kind": "text", "text": "" if v is None else str(v)})
+        rows.append(cells)
+    return {"headers": [h for _, h in columns], "rows": rows, "caption": caption, "cls": cls}
 
 
 class _Charts:
-    """Turns figures into HTML divs; the first one carries plotly.js inline."""
+    """Turns figures into HTML (the trusted path, see the module docstring); the first one carries
+    plotly.js inline."""
 
     def __init__(self) -> None:
         self.count = 0
@@ -98,38 +135,33 @@ class _Charts:
         inner = pio.to_html(fig, full_html=False, include_plotlyjs=self.count == 0,
                             config=_PLOTLY_CONFIG, div_id=div_id, validate=False)
         self.count += 1
-        return f'<div class="chart">{inner}</div>'
+        return inner
 
 
-# -- sections ------------------------------------------------------------------------------------
+# -- sections: one context function each, for templates/sections/<name>.html ---------------------
 
-def _glance(d: ReportData) -> str:
+def _glance(d: ReportData, chart: _Charts) -> dict[str, Any]:
     info = d.info
     fits = d.fits
     n_skipped = fits.filter(pl.col("skip_reason").is_not_null()).height
-    series = ", ".join(f"{s} ({t})" for s, t in zip(info.series, info.transforms, strict=True))
-    total = "–" if d.total is None else f'<span data-value="{d.total!r}">{d.total:.2f}%</span>'
-    rows = [
-        ("Universe", _esc(info.name)),
-        ("Model", _esc(charts.MODEL_LABELS.get(info.model, info.model))),
-        ("Series (transform)", _esc(series)),
-        ("Latest window end", _esc(d.fitted_date or "none fitted")),
-        ("Windows up to this date", f"{fits.height} ({fits.height - n_skipped} fitted, "
-                                    f"{n_skipped} skipped)"),
-        ("Total connectedness, latest", total),
-        ("Horizon", f"{info.horizon} steps"),
-        ("Identification", _esc(info.identification)),
-        ("Granger level", f"{info.granger_level:g}"),
-    ]
+    estimator = None
     if info.estimator == "quantile" and d.quantiles is not None:
         levels = ", ".join(f"{float(t):g}" for t in d.quantiles.quantiles)
-        rows[1:2] = [rows[1], ("Estimator", _esc(f"quantile regression per equation at τ = {levels} "
-                                                 "(figures outside the tails section: the level nearest 0.5)"))]
-    dl = "".join(f"<dt>{k}</dt><dd>{v}</dd>" for k, v in rows)
-    notes = ""
-    if d.notes:
-        notes = '<div class="notes">' + "".join(f'<p class="note">{_esc(x)}</p>' for x in d.notes) + "</div>"
-    return f'<section id="glance"><h2>At a glance</h2><dl class="facts">{dl}</dl>{notes}</section>'
+        estimator = (f"quantile regression per equation at τ = {levels} "
+                     "(figures outside the tails section: the level nearest 0.5)")
+    return {
+        "universe": info.name,
+        "model": charts.MODEL_LABELS.get(info.model, info.model),
+        "estimator": estimator,
+        "series": ", ".join(f"{s} ({t})" for s, t in zip(info.series, info.transforms, strict=True)),
+        "fitted_date": str(d.fitted_date) if d.fitted_date is not None else "none fitted",
+        "windows": fits.height, "fitted": fits.height - n_skipped, "skipped": n_skipped,
+        "total": _f(d.total),
+        "horizon": info.horizon,
+        "identification": info.identification,
+        "granger_level": f"{info.granger_level:g}",
+        "notes": list(d.notes),
+    }
 
 
 def _net_history(d: ReportData) -> tuple[list[dt.date], np.ndarray]:
@@ -141,111 +173,89 @@ def _net_history(d: ReportData) -> tuple[list[dt.date], np.ndarray]:
     return wide["window_end"].to_list(), np.column_stack(cols)
 
 
-def _connectedness(d: ReportData, chart: _Charts) -> str:
-    out = ['<section id="connectedness" class="major"><h2>Connectedness over time</h2>',
-           '<p class="note">Share of all series\' forecast-error variance that comes from shocks to '
-           f"other series (Diebold–Yilmaz total index), {d.info.horizon}-step horizon, generalized "
-           "decomposition; " + ("one point per date of the time-varying-parameter VAR filter "
-           "(no window).</p>" if d.info.model == "tvp" else "one point per window, named by its last date.</p>")]
-    if d.connectedness.height == 0:
-        out.append('<p class="note">No fitted windows yet.</p></section>')
-        return "".join(out)
-    out.append(chart(charts.index_figure(
-        d.connectedness["window_end"].to_list(), d.connectedness["total"].to_numpy(),
-        universe=d.info.name, horizon=d.info.horizon, model=d.info.model, medium="print"),
-        div_id="fig-connectedness"))
-    if d.directional.height:
-        ends, net = _net_history(d)
-        out.append(chart(charts.net_figure(ends, net, d.info.series, medium="print"),
-                         div_id="fig-net"))
-    out.append("</section>")
-    return "".join(out)
+def _connectedness(d: ReportData, chart: _Charts) -> dict[str, Any]:
+    figures: list[str] = []
+    if d.connectedness.height:
+        figures.append(chart(charts.index_figure(
+            d.connectedness["window_end"].to_list(), d.connectedness["total"].to_numpy(),
+            universe=d.info.name, horizon=d.info.horizon, model=d.info.model, medium="print"),
+            div_id="fig-connectedness"))
+        if d.directional.height:
+            ends, net = _net_history(d)
+            figures.append(chart(charts.net_figure(ends, net, d.info.series, medium="print"),
+                                 div_id="fig-net"))
+    return {"horizon": d.info.horizon, "tvp": d.info.model == "tvp", "charts": figures}
 
 
-def _cycles(d: ReportData, chart: _Charts) -> str:
+def _cycles(d: ReportData, chart: _Charts) -> dict[str, Any] | None:
     """Connectedness by cycle length (Baruník–Křehlík) and the joint index, when the universe stores them."""
-    out: list[str] = []
     cut = d.report_date
+    bands = joint = None
     if d.bands is not None:
         bh = d.bands
         keep = [w for w, e in enumerate(bh.ends) if e <= cut]
         if keep:
             ends = [bh.ends[w] for w in keep]
             last = keep[-1]
-            labels = [charts.band_label(lo, hi) for lo, hi in bh.periods]
-            out.append('<section id="cycles" class="major"><h2>Connectedness by cycle length</h2>'
-                       '<p class="note">The total index split by the cycle length at which shocks '
-                       "travel (Baruník–Křehlík 2018), in rows of the universe's calendar; the bands "
-                       f"add up to the index at {bh.truncation} steps.</p>")  # fmt: skip
-            out.append(chart(charts.band_index_figure(
+            index_chart = chart(charts.band_index_figure(
                 ends, bh.total[keep], bh.periods, universe=d.info.name, truncation=bh.truncation,
-                medium="print"), div_id="fig-cycles"))  # fmt: skip
+                medium="print"), div_id="fig-cycles")  # fmt: skip
             net = bh.to_others[last] - bh.from_others[last]
-            out.append(chart(charts.band_net_figure(
+            net_chart = chart(charts.band_net_figure(
                 net, bh.periods, d.info.series, medium="print",
                 title=f"Net transmitter (+) or receiver (−) by cycle length, window ending {bh.ends[last]}"),
-                div_id="fig-cycles-net"))  # fmt: skip
-            rows = "".join(
-                f"<tr><th>{_esc(lab)}</th><td>{_num(bh.total[last, b])}</td>"
-                f"<td>{_num(bh.within[last, b])}</td><td>{_num(100 * bh.share[last, b], 0)}</td></tr>"
-                for b, lab in enumerate(labels)
-            )
-            out.append(f'<table class="plain"><caption>Window ending {bh.ends[last]}</caption>'
-                       "<tr><th>band</th><th>index share, %</th><th>within band, %</th>"
-                       f"<th>variance in band, %</th></tr>{rows}</table></section>")  # fmt: skip
+                div_id="fig-cycles-net")  # fmt: skip
+            bands = {
+                "truncation": bh.truncation, "window_end": str(bh.ends[last]),
+                "charts": [index_chart, net_chart],
+                "rows": [{"label": charts.band_label(lo, hi), "total": _f(bh.total[last, b]),
+                          "within": _f(bh.within[last, b]), "share": _f(100 * bh.share[last, b])}
+                         for b, (lo, hi) in enumerate(bh.periods)],
+            }
     if d.joint is not None:
         jh = d.joint
         keep = [w for w, e in enumerate(jh.ends) if e <= cut]
         if keep:
-            out.append('<section id="joint" class="major"><h2>Joint connectedness</h2>'
-                       "<p class=\"note\">Each series' share of forecast-error variance due to all "
-                       "other shocks together (Lastrapes–Wiesen 2021), averaged, next to the "
-                       "row-normalised generalized index.</p>")  # fmt: skip
-            out.append(chart(charts.joint_index_figure(
+            joint = {"charts": [chart(charts.joint_index_figure(
                 [jh.ends[w] for w in keep], jh.total[keep], jh.generalized_total[keep],
-                universe=d.info.name, horizon=d.info.horizon, medium="print"), div_id="fig-joint"))  # fmt: skip
-            out.append("</section>")
-    return "".join(out)
+                universe=d.info.name, horizon=d.info.horizon, medium="print"), div_id="fig-joint")]}  # fmt: skip
+    if bands is None and joint is None:
+        return None
+    return {"bands": bands, "joint": joint}
 
 
-def _tails(d: ReportData, chart: _Charts) -> str:
+def _tails(d: ReportData, chart: _Charts) -> dict[str, Any] | None:
     """Lower-tail, median and upper-tail connectedness, for a universe fitted by quantile regression."""
     qh = d.quantiles
     if qh is None:
-        return ""
+        return None
     keep = [w for w, e in enumerate(qh.ends) if e <= d.report_date]
     if not keep:
-        return ""
+        return None
     last = keep[-1]
     taus = [float(t) for t in qh.quantiles]
-    out = ['<section id="tails" class="major"><h2>Connectedness in the tails</h2>'
-           '<p class="note">Each equation fitted by quantile regression at τ (Ando, Greenwood-Nimmo '
-           "&amp; Shin 2022), so the lower-tail index shows how shocks spread when the series are "
-           "at their worst, the upper-tail one when they are at their best; the other sections show "
-           "the level nearest the median.</p>",
-           chart(charts.quantile_index_figure(
-               [qh.ends[w] for w in keep], qh.total[keep], taus, universe=d.info.name,
-               horizon=d.info.horizon, window_end=qh.ends[last], medium="print"), div_id="fig-tails"),
-           chart(charts.quantile_tables_figure(qh.table[last], taus, d.info.series, window_end=qh.ends[last],
-                                               medium="print"), div_id="fig-tails-tables")]  # fmt: skip
-    rows = "".join(
-        f"<tr><th>{_esc(charts.quantile_label(t))}</th><td>{_num(qh.total[last, q])}</td>"
-        + "".join(_num(qh.net[last, q, i]) for i in range(len(d.info.series))) + "</tr>"
-        for q, t in enumerate(taus)
-    )
-    head = "".join(f"<th>net {_esc(s)}</th>" for s in d.info.series)
-    out.append(f'<table class="plain" id="tails-table"><caption>Window ending {qh.ends[last]}</caption>'
-               f"<tr><th>level</th><th>total, %</th>{head}</tr>{rows}</table></section>")
-    return "".join(out)
+    figures = [
+        chart(charts.quantile_index_figure(
+            [qh.ends[w] for w in keep], qh.total[keep], taus, universe=d.info.name,
+            horizon=d.info.horizon, window_end=qh.ends[last], medium="print"), div_id="fig-tails"),
+        chart(charts.quantile_tables_figure(qh.table[last], taus, d.info.series, window_end=qh.ends[last],
+                                            medium="print"), div_id="fig-tails-tables"),
+    ]  # fmt: skip
+    return {
+        "charts": figures, "window_end": str(qh.ends[last]), "series": list(d.info.series),
+        "rows": [{"label": charts.quantile_label(t), "total": _f(qh.total[last, q]),
+                  "net": [_f(qh.net[last, q, i]) for i in range(len(d.info.series))]}
+                 for q, t in enumerate(taus)],
+    }
 
 
-def _models(d: ReportData, chart: _Charts) -> str:
+def _models(d: ReportData, chart: _Charts) -> dict[str, Any] | None:
     """Rolling vs TVP total connectedness, when the universe has a counterpart of the other model."""
     if d.counterpart is None or d.connectedness.height == 0:
-        return ""
+        return None
     name, _, history = d.counterpart
     if not history:
-        return ""
+        return None
     own = (d.connectedness["window_end"].to_list(), d.connectedness["total"].to_numpy())
     other = ([e for e, _ in history], np.asarray([v for _, v in history]))
     rolling, tvp = (own, other) if d.info.model == "rolling" else (other, own)
@@ -254,73 +264,41 @@ def _models(d: ReportData, chart: _Charts) -> str:
     pairs = np.asarray([(v, at[e]) for e, v in zip(*rolling, strict=True) if e in at])
     gap = (f"On the {len(pairs)} dates both store, TVP − rolling: mean {np.mean(pairs[:, 1] - pairs[:, 0]):+.1f} "
            "points." if pairs.size else "The two store no common date.")  # fmt: skip
-    return ('<section id="models" class="major"><h2>Rolling windows vs time-varying parameters</h2>'
-            f'<p class="note">The same series estimated both ways: {_esc(names[0])} (rolling windows '
-            f"of least squares) and {_esc(names[1])} (a time-varying-parameter VAR filtered per date "
-            f"with forgetting factors). {gap}</p>"
-            + chart(charts.model_compare_figure(rolling, tvp, names=names, horizon=d.info.horizon, medium="print"),
-                    div_id="fig-models")
-            + "</section>")  # fmt: skip
+    figure = chart(charts.model_compare_figure(rolling, tvp, names=names, horizon=d.info.horizon,
+                                               medium="print"), div_id="fig-models")
+    return {"rolling": names[0], "tvp": names[1], "gap": gap, "charts": [figure]}
 
 
-def _shrinkage(d: ReportData, chart: _Charts) -> str:
+def _shrinkage(d: ReportData, chart: _Charts) -> dict[str, Any] | None:
     """A shrinkage universe's tightness λ per window (estimator = "shrinkage")."""
     if d.tightness is None or d.tightness.height == 0:
-        return ""
+        return None
     lam = d.tightness["tightness"].to_numpy()
     chosen = bool(d.tightness["tightness_chosen"][-1])
-    how = ("chosen per window by maximising the marginal likelihood over [0.001, 10]" if chosen
-           else "fixed by the configuration")  # fmt: skip
-    return ('<section id="shrinkage" class="major"><h2>Shrinkage</h2>'
-            '<p class="note">Each window is a natural-conjugate shrinkage VAR (Minnesota prior; '
-            "Kadiyala &amp; Karlsson 1997, Bańbura, Giannone &amp; Reichlin 2010): coefficients are "
-            "posterior means, pulled towards a random walk for level series and white noise for changes "
-            f"and returns; the tightness λ is {how}. Smaller λ, harder pull. Over {lam.size} windows: "
-            f'median <span data-value="{np.median(lam):.6g}">{np.median(lam):.3g}</span>, range '
-            f"{lam.min():.3g} to {lam.max():.3g}.</p>"
-            + chart(charts.tightness_figure(d.tightness["window_end"].to_list(), lam, universe=d.info.name,
-                                            chosen=chosen, medium="print"), div_id="fig-shrinkage")
-            + "</section>")  # fmt: skip
+    figure = chart(charts.tightness_figure(d.tightness["window_end"].to_list(), lam, universe=d.info.name,
+                                           chosen=chosen, medium="print"), div_id="fig-shrinkage")
+    return {"chosen": chosen, "windows": int(lam.size), "median": float(np.median(lam)),
+            "min": float(lam.min()), "max": float(lam.max()), "charts": [figure]}
 
 
-def _spillovers(d: ReportData) -> str:
+def _spillovers(d: ReportData, chart: _Charts) -> dict[str, Any]:
     names = d.info.series
-    head = ['<section id="spillovers" class="major"><div class="keep"><h2>Spillover table</h2>']
     if d.table is None or d.from_others is None or d.to_others is None or d.net is None:  # set together
-        return head[0] + '<p class="note">No fitted window.</p></div></section>'
-    head.append(
-        f'<p class="note">Window ending {_esc(d.fitted_date)}. Cell (row, column): percent of the '
-        f"row series' {d.info.horizon}-step forecast-error variance due to shocks in the column "
-        "series. \"From others\" sums a row off the diagonal; \"to others\" sums a column off the "
-        "diagonal; net = to − from. Total connectedness is the mean of \"from others\".</p>")
-    th = "".join(f'<th scope="col">{_esc(s)}</th>' for s in names)
+        return {"table": None}
     rows = []
     for i, s in enumerate(names):
         cells = []
         for j in range(len(names)):
-            v = d.table[i, j]
-            if i == j:
-                cells.append(_num(v, 2, cls="own"))
-            else:
-                cells.append(_num(v, 2).replace("<td", "<td" + _shade(v), 1))
-        rows.append(f'<tr data-target="{_esc(s)}"><th class="rowhead" scope="row">{_esc(s)}</th>'
-                    + "".join(cells) + _num(d.from_others[i], 2) + "</tr>")
-    to_row = "".join(_num(v, 2) for v in d.to_others)
-    net_row = "".join(_num(v, 2) for v in d.net)
-    total = _num(d.total, 2)
-    table = (
-        '<div class="tablewrap"><table class="spillover">'
-        "<caption>rows: receiving series · columns: shocked series · percent</caption>"
-        f'<thead><tr><th class="rowhead">receives ↓ / from →</th>{th}<th>from others</th></tr></thead>'
-        f"<tbody>{''.join(rows)}"
-        f'<tr class="summary" data-row="to_others"><th class="rowhead">to others</th>{to_row}'
-        f'<td class="na"></td></tr>'
-        f'<tr data-row="net"><th class="rowhead">net (to − from)</th>{net_row}'
-        f'<td class="na"></td></tr>'
-        f'<tr data-row="total"><th class="rowhead">total connectedness</th>'
-        f'{"".join("<td></td>" for _ in names)}{total}</tr>'
-        "</tbody></table></div>")
-    return "".join(head) + table + "</div></section>"
+            v = _f(d.table[i, j])
+            own = i == j
+            cells.append({"value": v, "own": own, "shade": None if own else _shade(v)})
+        rows.append({"name": s, "cells": cells, "from_others": _f(d.from_others[i])})
+    return {
+        "fitted_date": str(d.fitted_date), "horizon": d.info.horizon,
+        "table": {"names": list(names), "rows": rows,
+                  "to_others": [_f(v) for v in d.to_others], "net": [_f(v) for v in d.net],
+                  "total": _f(d.total)},
+    }
 
 
 #: Largest n drawn as one n × n grid of responses; above it, one figure (a column) per shock.
@@ -341,117 +319,73 @@ def _response_figures(rs: ResponseSet, names: tuple[str, ...], end: Any) -> list
             for j in range(n)]
 
 
-def _responses(d: ReportData, chart: _Charts) -> str:
-    out = ['<section id="responses" class="major"><h2>Impulse responses</h2>']
-    if not d.responses:
-        out.append('<p class="note">No impulse responses for this window.</p></section>')
-        return "".join(out)
+def _responses(d: ReportData, chart: _Charts) -> dict[str, Any]:
+    sets = []
     for k, rs in enumerate(d.responses):
         band = (f"shaded: {rs.coverage:.0%} band" if rs.coverage else "shaded: band") \
             if rs.lower is not None else "no bands available"
-        out.append(f'<div class="keep"><h3>{_esc(rs.identification.capitalize())} shocks</h3>'
-                   f'<p class="note">Window ending {_esc(d.fitted_date)}; horizons 0–{rs.horizon} '
-                   f"(0 is impact); one-standard-deviation shocks; {band}; "
-                   f"{_esc(rs.origin)}.</p>")
-        for m, fig in enumerate(_response_figures(rs, d.info.series, d.fitted_date)):
-            out.append(chart(fig, div_id=f"fig-irf-{k}-{m}"))
-            if m == 0:
-                out.append("</div>")  # heading kept with the first chart
-    out.append("</section>")
-    return "".join(out)
+        figures = [chart(fig, div_id=f"fig-irf-{k}-{m}")
+                   for m, fig in enumerate(_response_figures(rs, d.info.series, d.fitted_date))]
+        sets.append({"identification": rs.identification.capitalize(), "horizon": rs.horizon,
+                     "band": band, "origin": rs.origin, "charts": figures})
+    return {"fitted_date": str(d.fitted_date), "sets": sets}
 
 
-def _decompositions(d: ReportData, chart: _Charts) -> str:
+def _decompositions(d: ReportData, chart: _Charts) -> dict[str, Any]:
     names = d.info.series
-    out = ['<section id="decompositions" class="major"><h2>Variance decompositions</h2>']
-    if not d.decompositions:
-        out.append('<p class="note">No decompositions for this window.</p></section>')
-        return "".join(out)
+    sets = []
     for k, ds in enumerate(d.decompositions):
         last = 100.0 * ds.share[-1]
-        out.append(f'<div class="keep"><h3>{_esc(ds.method.capitalize())}, {ds.horizon} steps</h3>'
-                   f'<p class="note">Percent of each row series\' {ds.horizon}-step forecast-error '
-                   f"variance due to shocks in each column series; rows sum to 100; "
-                   f"{_esc(ds.origin)}.</p>")
-        out.append(chart(charts.shares_figure(
+        figure = chart(charts.shares_figure(
             [(ds.method, last)], names, medium="print",
             title=(f"{ds.method.capitalize()} decomposition at {ds.horizon} steps: percent of each "
-                   "series' forecast-error variance, by shock")), div_id=f"fig-fevd-{k}"))
-        th = "".join(f'<th scope="col">{_esc(s)}</th>' for s in names)
-        body = "".join(
-            f'<tr><th class="rowhead" scope="row">{_esc(s)}</th>'
-            + "".join(_num(v, 2) for v in last[i]) + "</tr>"
-            for i, s in enumerate(names))
-        out.append(f'<div class="tablewrap"><table class="decomposition" '
-                   f'data-method="{_esc(ds.method)}"><thead><tr><th class="rowhead">variable ↓ / '
-                   f"shock →</th>{th}</tr></thead><tbody>{body}</tbody></table></div></div>")
-    out.append("</section>")
-    return "".join(out)
+                   "series' forecast-error variance, by shock")), div_id=f"fig-fevd-{k}")
+        sets.append({"method": ds.method, "title": ds.method.capitalize(), "horizon": ds.horizon,
+                     "origin": ds.origin, "charts": [figure],
+                     "rows": [{"name": s, "cells": [_f(v) for v in last[i]]}
+                              for i, s in enumerate(names)]})
+    return {"names": list(names), "sets": sets}
 
 
-def _granger(d: ReportData) -> str:
+def _granger(d: ReportData, chart: _Charts) -> dict[str, Any]:
     names = d.info.series
     level = d.info.granger_level
-    out = ['<section id="granger" class="major"><div class="keep"><h2>Granger causality</h2>']
+    out: dict[str, Any] = {"absent": None, "table": None, "history": None}
     if d.info.model == "tvp":
-        out.append('<p class="note">A time-varying-parameter VAR: Granger tests belong to a least-squares '
-                   "fit per window, so none are stored for its dates.</p></div></section>")  # fmt: skip
-        return "".join(out)
-    if d.info.estimator == "quantile":
-        out.append('<p class="note">Fitted by quantile regression at each τ: Granger tests are '
-                   "least-squares F tests, so none are stored for its windows (see Connectedness in "
-                   "the tails).</p></div></section>")  # fmt: skip
-        return "".join(out)
-    if d.info.estimator == "shrinkage":
-        out.append('<p class="note">A shrinkage VAR (Minnesota prior, posterior mean): Granger F tests '
-                   "belong to a least-squares fit and are not defined for it, so none are stored. Lead–lag "
-                   "spillovers show instead in the spillover table above (who drives whose forecast-error "
-                   "variance); the prior's pull per window in the shrinkage section.</p></div></section>")  # fmt: skip
-        return "".join(out)
+        out["absent"] = "tvp"
+        return out
+    if d.info.estimator in ("quantile", "shrinkage"):
+        out["absent"] = d.info.estimator
+        return out
     if d.granger_p is None or d.granger_f is None:  # set together
-        out.append('<p class="note">No fitted window.</p></div></section>')
-        return "".join(out)
+        out["absent"] = "unfitted"
+        return out
     n = len(names)
     off = ~np.eye(n, dtype=bool)
     p_off = d.granger_p[off]
-    n_sig = int(np.sum(p_off[~np.isnan(p_off)] < level))
-    out.append(
-        f'<p class="note">Window ending {_esc(d.fitted_date)}. Cell (row, column): p-value of the '
-        "F test of \"the column series does not Granger-cause the row series\" (lags of the column "
-        f"series add nothing to the row's equation). Marked {charts.SIGNIFICANCE_MARK} where "
-        f"p &lt; {level:g}: "
-        f'<span data-value="{n_sig}">{n_sig}</span> of {n * (n - 1)} ordered pairs. Hover a cell '
-        "for its F statistic.</p>")
-    th = "".join(f'<th scope="col">{_esc(s)}</th>' for s in names)
-    rows = []
-    for i, s in enumerate(names):
-        cells = "".join('<td class="na">–</td>' if i == j else
-                        _pval(d.granger_p[i, j], d.granger_f[i, j], level) for j in range(n))
-        rows.append(f'<tr><th class="rowhead" scope="row">{_esc(s)}</th>{cells}</tr>')
-    out.append(f'<div class="tablewrap"><table class="granger" data-level="{level!r}">'
-               "<caption>rows: caused · columns: causing · p-values</caption>"
-               f'<thead><tr><th class="rowhead">caused ↓ / causing →</th>{th}</tr></thead>'
-               f"<tbody>{''.join(rows)}</tbody></table></div></div>")
+    out["table"] = {
+        "fitted_date": str(d.fitted_date), "level": level, "level_g": f"{level:g}",
+        "significant": int(np.sum(p_off[~np.isnan(p_off)] < level)), "pairs": n * (n - 1),
+        "names": list(names),
+        "rows": [{"name": s, "cells": [None if i == j else
+                                       {"p": _f(d.granger_p[i, j]), "f": float(d.granger_f[i, j])}
+                                       for j in range(n)]}
+                 for i, s in enumerate(names)],
+    }
     # Persistence over the history: share of windows where each pair was significant.
     hist = d.granger.filter(pl.col("caused") != pl.col("causing"))
     if hist.height and hist["window_end"].n_unique() > 1:
         share = (hist.group_by("caused", "causing")
                  .agg((pl.col("p_value") < level).mean().alias("share")))
         lookup = {(a, b): v for a, b, v in share.iter_rows()}
-        rows = []
-        for i, s in enumerate(names):
-            cells = "".join('<td class="na">–</td>' if i == j else
-                            _num(100.0 * lookup.get((s, names[j]), float("nan")), 0)
-                            for j in range(n))
-            rows.append(f'<tr><th class="rowhead" scope="row">{_esc(s)}</th>{cells}</tr>')
-        out.append(
-            "<h3>How often, over all windows</h3>"
-            f'<div class="tablewrap"><table class="granger-history"><caption>percent of the '
-            f"{hist['window_end'].n_unique()} fitted windows with p &lt; {level:g}</caption>"
-            f'<thead><tr><th class="rowhead">caused ↓ / causing →</th>{th}</tr></thead>'
-            f"<tbody>{''.join(rows)}</tbody></table></div>")
-    out.append("</section>")
-    return "".join(out)
+        out["history"] = {
+            "windows": hist["window_end"].n_unique(),
+            "rows": [{"name": s, "cells": [None if i == j else
+                                           {"value": _f(100.0 * lookup.get((s, names[j]), float("nan")))}
+                                           for j in range(n)]}
+                     for i, s in enumerate(names)],
+        }
+    return out
 
 
 _SKIP_LIMIT = 60
@@ -475,101 +409,98 @@ def _health_figure(d: ReportData) -> dict[str, Any]:
         near_one=_NEAR_ONE, title=f"Model health by window, {d.info.name}", medium="print")
 
 
-def _health(d: ReportData, chart: _Charts) -> str:
-    out = ['<section id="health" class="major"><h2>Model health</h2>',
-           '<p class="note">A window is stable when every eigenvalue of its companion matrix lies '
-           "inside the unit circle (spectral radius below 1). Windows that could not be fitted "
-           "are listed with the reason.</p>"]
-    out.append(chart(_health_figure(d), div_id="fig-health"))
+def _health(d: ReportData, chart: _Charts) -> dict[str, Any]:
+    out: dict[str, Any] = {"charts": [chart(_health_figure(d), div_id="fig-health")],
+                           "latest": None, "skipped": None}
     fitted = d.fits.filter(pl.col("skip_reason").is_null())
     if d.fitted_date is not None and fitted.height:
         latest = fitted.filter(pl.col("window_end") == d.fitted_date)
-        out.append("<h3>Latest fitted window</h3>")
-        out.append(_text_table(latest, [
-            ("window_start", "first date"), ("window_end", "last date"), ("nobs", "observations"),
-            ("lags", "lags"), ("spectral_radius", "spectral radius"), ("stable", "stable"),
-            ("aic", "AIC"), ("bic", "BIC"), ("hq", "HQ"), ("fpe", "FPE"),
-            ("condition_number", "condition number"), ("portmanteau_p", "portmanteau p"),
-        ], cls="health-latest"))
-        unstable = fitted.filter(~pl.col("stable"))
-        out.append(f'<p class="note">Fitted windows: {fitted.height}; unstable: '
-                   f'<span data-value="{unstable.height}">{unstable.height}</span>; spectral '
-                   f"radius from {cast(float, fitted['spectral_radius'].min()):.4f} to "
-                   f"{cast(float, fitted['spectral_radius'].max()):.4f}; lags used: "
-                   f"{', '.join(str(x) for x in sorted(fitted['lags'].unique().to_list()))}.</p>")
+        out["latest"] = {
+            "table": _text_table(latest, [
+                ("window_start", "first date"), ("window_end", "last date"), ("nobs", "observations"),
+                ("lags", "lags"), ("spectral_radius", "spectral radius"), ("stable", "stable"),
+                ("aic", "AIC"), ("bic", "BIC"), ("hq", "HQ"), ("fpe", "FPE"),
+                ("condition_number", "condition number"), ("portmanteau_p", "portmanteau p"),
+            ], cls="health-latest"),
+            "fitted": fitted.height,
+            "unstable": fitted.filter(~pl.col("stable")).height,
+            "radius_min": f"{cast(float, fitted['spectral_radius'].min()):.4f}",
+            "radius_max": f"{cast(float, fitted['spectral_radius'].max()):.4f}",
+            "lags": ", ".join(str(x) for x in sorted(fitted["lags"].unique().to_list())),
+        }
     skipped = d.fits.filter(pl.col("skip_reason").is_not_null()).sort("window_end", descending=True)
-    out.append(f"<h3>Skipped windows ({skipped.height})</h3>")
-    if skipped.height == 0:
-        out.append('<p class="note">None: every window was fitted.</p>')
-    else:
-        shown = skipped.head(_SKIP_LIMIT)
+    out["skipped_count"] = skipped.height
+    if skipped.height:
         more = (f"; the {skipped.height - _SKIP_LIMIT} older ones are in the window_fits extract"
                 if skipped.height > _SKIP_LIMIT else "")
-        out.append(_text_table(shown, [("window_end", "window end"), ("skip_reason", "reason")],
-                               caption=f"newest first{more}", cls="skipped"))
-    out.append("</section>")
-    return "".join(out)
+        out["skipped"] = _text_table(skipped.head(_SKIP_LIMIT),
+                                     [("window_end", "window end"), ("skip_reason", "reason")],
+                                     caption=f"newest first{more}", cls="skipped")
+    return out
 
 
-def _lineage(d: ReportData) -> str:
-    out = ['<section id="lineage" class="major"><h2>Lineage</h2>']
+def _lineage(d: ReportData, chart: _Charts) -> dict[str, Any]:
+    out: dict[str, Any] = {"run": None, "runs": None, "batches": None}
     run = d.run
-    if run is None:
-        out.append('<p class="note">The run behind these results is not recorded in the '
-                   "snapshot.</p>")
-    else:
+    if run is not None:
         rows = [("run id", run["run_id"]), ("status", run["status"]), ("started", run["started"]),
                 ("finished", run["finished"]), ("configuration hash", run["config_hash"]),
                 ("data fingerprint", run["data_fingerprint"]), ("code version", run["code_version"]),
                 ("windows fitted / skipped / failed",
                  f"{run['windows_fitted']} / {run['windows_skipped']} / {run['windows_failed']}"),
                 ("message", run["message"] or "")]
-        dl = "".join(f'<dt>{_esc(k)}</dt><dd class="mono" data-field="{_esc(k)}">{_esc(v)}</dd>'
-                     for k, v in rows)
-        out.append(f"<h3>Run behind the latest window</h3><dl class=\"facts lineage\">{dl}</dl>")
+        out["run"] = [{"field": k, "text": "" if v is None else str(v)} for k, v in rows]
     ids = set()
     for frame in (d.connectedness, d.fits):
         if frame.height:
             ids.update(frame["run_id"].drop_nulls().unique().to_list())
     if d.runs.height:
         used = d.runs.filter(pl.col("run_id").is_in(sorted(ids)))
-        out.append(f"<h3>Runs behind the windows in this report ({used.height})</h3>")
-        out.append(_text_table(used, [
+        out["runs"] = _text_table(used, [
             ("run_id", "run id"), ("status", "status"), ("started", "started"),
             ("finished", "finished"), ("config_hash", "configuration hash"),
             ("data_fingerprint", "data fingerprint"), ("code_version", "code version"),
             ("windows_fitted", "fitted"), ("windows_skipped", "skipped"),
             ("windows_failed", "failed"),
-        ], cls="runs"))
-    out.append("<h3>Source batches</h3>")
-    if d.batches.height == 0:
-        out.append('<p class="note">The snapshot carries no ingest batches.</p>')
-    else:
-        out.append(_text_table(d.batches, [
+        ], cls="runs")
+        out["runs_count"] = used.height
+    if d.batches.height:
+        out["batches"] = _text_table(d.batches, [
             ("batch_id", "batch"), ("source", "source"), ("started", "started"),
             ("finished", "finished"), ("status", "status"), ("rows_read", "rows read"),
             ("rows_new", "new"), ("rows_revised", "revised"),
-        ], cls="batches"))
-    out.append("</section>")
-    return "".join(out)
+        ], cls="batches")
+    return out
+
+
+#: The report's sections in page order: (name, context function). Each name has a template
+#: ``templates/sections/<name>.html`` that reads the variable `<name>`; a function returning None
+#: leaves its section out. Charts are made in this order (the first one carries plotly.js).
+SECTIONS: tuple[tuple[str, Callable[[ReportData, _Charts], dict[str, Any] | None]], ...] = (
+    ("glance", _glance), ("connectedness", _connectedness), ("cycles", _cycles), ("tails", _tails),
+    ("models", _models), ("shrinkage", _shrinkage), ("spillovers", _spillovers),
+    ("responses", _responses), ("decompositions", _decompositions), ("granger", _granger),
+    ("health", _health), ("lineage", _lineage),
+)
+
+
+def report_context(d: ReportData, *, generated: dt.datetime, version: str) -> dict[str, Any]:
+    """Everything ``report.html`` reads: the page's texts, and one entry per section."""
+    chart = _Charts()
+    context: dict[str, Any] = {name: make(d, chart) for name, make in SECTIONS}
+    context["sections"] = [name for name, _ in SECTIONS if context[name] is not None]
+    context["page"] = {
+        "title": f"Shock propagation in {d.info.name}",
+        "subtitle": (f"Results as of {d.report_date.isoformat()} · exported "
+                     f"{generated.isoformat(sep=' ', timespec='seconds')}"),
+        "caution": CAUTION, "version": version,
+        "footer": (f"Written by shockflow {version} from the serving snapshot. Numbers are "
+                   "estimates from vector autoregressions fitted to past data."),
+    }
+    return context
 
 
 def render_report(d: ReportData, *, generated: dt.datetime, version: str) -> str:
     """The complete HTML text of one universe's report."""
-    chart = _Charts()
-    body = "\n".join([
-        _glance(d), _connectedness(d, chart), _cycles(d, chart), _tails(d, chart), _models(d, chart), _shrinkage(d, chart),
-        _spillovers(d), _responses(d, chart),
-        _decompositions(d, chart), _granger(d), _health(d, chart), _lineage(d),
-    ])
-    files = resources.files("pipeline.export") / "templates"
-    template = Template((files / "report.html").read_text(encoding="utf-8"))
-    css = (files / "report.css").read_text(encoding="utf-8")
-    subtitle = (f"Results as of {d.report_date.isoformat()} · exported "
-                f"{generated.isoformat(sep=' ', timespec='seconds')}")
-    return template.substitute(
-        title=_esc(f"Shock propagation in {d.info.name}"), subtitle=_esc(subtitle),
-        caution=_esc(CAUTION), css=css, body=body, version=_esc(version),
-        footer=_esc(f"Written by shockflow {version} from the serving snapshot. Numbers are "
-                    "estimates from vector autoregressions fitted to past data."),
-    )
+    page = environment().get_template("report.html")
+    return page.render(report_context(d, generated=generated, version=version))

@@ -67,6 +67,16 @@ def test_the_wheel_carries_the_command_and_the_demo_data(wheel: Path) -> None:
     assert not any(n.startswith("tests/") for n in names)
 
 
+def test_the_wheel_carries_every_report_template(wheel: Path) -> None:
+    """The report renders from templates/report.html, macros.html and sections/*.html, read as
+    package resources: each must be package data (a `templates/*` pattern missed sections/)."""
+    folder = REPO / "pipeline" / "export" / "templates"
+    wanted = {p.relative_to(REPO).as_posix() for p in folder.rglob("*") if p.is_file()}
+    assert {"pipeline/export/templates/report.html", "pipeline/export/templates/sections/glance.html"} <= wanted
+    with zipfile.ZipFile(wheel) as zf:
+        assert wanted <= set(zf.namelist())
+
+
 def test_pipeline_never_imports_the_dashboard() -> None:
     """The command (shockflow/) assembles both; pipeline/ itself names no dashboard module."""
     offenders = []
