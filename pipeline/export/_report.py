@@ -205,9 +205,12 @@ def _cycles(d: ReportData, chart: _Charts) -> dict[str, Any] | None:
                 net, bh.periods, d.info.series, medium="print",
                 title=f"Net transmitter (+) or receiver (−) by cycle length, window ending {bh.ends[last]}"),
                 div_id="fig-cycles-net")  # fmt: skip
+            pairs_chart = chart(charts.band_pairs_figure(
+                bh.table[last], bh.periods, d.info.series, window_end=bh.ends[last], medium="print"),
+                div_id="fig-cycles-pairs")  # fmt: skip
             bands = {
                 "truncation": bh.truncation, "window_end": str(bh.ends[last]),
-                "charts": [index_chart, net_chart],
+                "charts": [index_chart, net_chart, pairs_chart],
                 "rows": [{"label": charts.band_label(lo, hi), "total": _f(bh.total[last, b]),
                           "within": _f(bh.within[last, b]), "share": _f(100 * bh.share[last, b])}
                          for b, (lo, hi) in enumerate(bh.periods)],

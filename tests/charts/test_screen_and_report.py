@@ -124,7 +124,7 @@ def test_cycle_lengths_and_joint_index_same_on_screen_and_in_report(snap: Snapsh
     the numbers the screen shows: the same stacked band values and the same joint series."""
     html = made[1]
     assert 'id="cycles"' in html and 'id="joint"' in html
-    (screen, _, _), (bars, _, _), _ = cb.bands_view(snap, latest_state(snap))
+    (screen, _, _), (bars, _, _), (pairs, _, _) = cb.bands_view(snap, latest_state(snap))
     printed = plotly_traces(html, "fig-cycles")
     on_screen = [t for t in screen["data"] if t.get("stackgroup") == "bands"]
     assert [t["name"] for t in printed] == [t["name"] for t in on_screen]
@@ -134,6 +134,11 @@ def test_cycle_lengths_and_joint_index_same_on_screen_and_in_report(snap: Snapsh
     printed_bars = plotly_traces(html, "fig-cycles-net")
     for a, b in zip(printed_bars, bars["data"], strict=True):
         np.testing.assert_allclose(a["y"], b["y"], rtol=1e-12)
+    # the pairwise table of each band at the window end: the same heatmap cells
+    printed_pairs = plotly_traces(html, "fig-cycles-pairs")
+    assert len(printed_pairs) == len(pairs["data"]) > 1
+    for a, b in zip(printed_pairs, pairs["data"], strict=True):
+        np.testing.assert_allclose(np.asarray(a["z"], dtype=float), np.asarray(b["z"], dtype=float), rtol=1e-12)
     joint_screen, _, _ = cb.joint_view(snap, latest_state(snap))
     joint_printed = plotly_traces(html, "fig-joint")
     for a, b in zip(joint_printed, joint_screen["data"], strict=True):
