@@ -487,11 +487,43 @@ SECTIONS: tuple[tuple[str, Callable[[ReportData, _Charts], dict[str, Any] | None
 )
 
 
+#: section → its headings as (anchor, title) for the table of contents; a section's template
+#: gives each heading that anchor as its ``id``. Cycles draws two headings, each only when stored.
+CONTENTS: dict[str, tuple[tuple[str, str], ...]] = {
+    "glance": (("glance", "At a glance"),),
+    "connectedness": (("connectedness", "Connectedness over time"),),
+    "cycles": (("cycles", "Connectedness by cycle length"), ("joint", "Joint connectedness")),
+    "tails": (("tails", "Connectedness in the tails"),),
+    "models": (("models", "Rolling windows vs time-varying parameters"),),
+    "shrinkage": (("shrinkage", "Shrinkage"),),
+    "spillovers": (("spillovers", "Spillover table"),),
+    "responses": (("responses", "Impulse responses"),),
+    "decompositions": (("decompositions", "Variance decompositions"),),
+    "granger": (("granger", "Granger causality"),),
+    "health": (("health", "Model health"),),
+    "lineage": (("lineage", "Lineage"),),
+}
+_SUB_HEADINGS = {"cycles": "bands", "joint": "joint"}  # anchor → the key of `_cycles` that draws it
+
+
+def _contents(context: dict[str, Any]) -> list[dict[str, str]]:
+    """The table of contents: the headings of the sections present, in page order."""
+    out = []
+    for name in context["sections"]:
+        for anchor, title in CONTENTS[name]:
+            key = _SUB_HEADINGS.get(anchor) if name == "cycles" else None
+            if key is None or context[name].get(key) is not None:
+                out.append({"anchor": anchor, "title": title})
+    return out
+
+
 def report_context(d: ReportData, *, generated: dt.datetime, version: str) -> dict[str, Any]:
-    """Everything ``report.html`` reads: the page's texts, and one entry per section."""
+    """Everything ``report.html`` reads: the page's texts, the table of contents and one entry per
+    section."""
     chart = _Charts()
     context: dict[str, Any] = {name: make(d, chart) for name, make in SECTIONS}
     context["sections"] = [name for name, _ in SECTIONS if context[name] is not None]
+    context["contents"] = _contents(context)
     context["page"] = {
         "title": f"Shock propagation in {d.info.name}",
         "subtitle": (f"Results as of {d.report_date.isoformat()} · exported "

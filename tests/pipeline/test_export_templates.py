@@ -229,6 +229,14 @@ def test_every_section_is_drawn_by_the_augmented_data(data: ReportData) -> None:
     assert {"cycles", "joint", "tails", "models", "shrinkage"} <= {e.attrs["id"] for e in page.find("section")}
 
 
+def test_the_table_of_contents_lists_every_section_drawn(page: Page) -> None:
+    """Every heading section of the page is in the contents, in page order, and every link lands
+    on a section (the contents once listed only the first eight sections)."""
+    links = [e.attrs["href"].removeprefix("#") for e in page.find("a") if e.attrs.get("href", "").startswith("#")]
+    sections = [e.attrs["id"] for e in page.find("section") if "id" in e.attrs]
+    assert links == sections
+
+
 # -- (2) a key the template reads but the context lacks raises --------------------------------------
 
 def section_keys(d: ReportData) -> Iterator[tuple[str, dict, str]]:
