@@ -693,7 +693,13 @@ def _window_ends(T: int, window: int, step: int, ends: Any, after: Any) -> np.nd
 
 
 class _Outputs:
-    """Preallocated result arrays (NaN until a window is fitted)."""
+    """Preallocated result arrays.
+
+    Arrays every fitted window writes in full are left uninitialised (`finish` sets the rows
+    of skipped windows to NaN): filling them with NaN first would be a second pass over the
+    largest arrays of the run. The portmanteau p-values, which some fitted windows leave
+    undefined (gaps), start as NaN.
+    """
 
     def __init__(
         self, W: int, n: int, P: int, H: int, trend: str, granger: bool,
@@ -706,25 +712,25 @@ class _Outputs:
         self.starts = np.zeros(W, dtype=np.int64)
         self.nobs = np.zeros(W, dtype=np.int64)
         self.lags = np.zeros(W, dtype=np.int64)
-        self.coefs = np.full((W, P, n, n), nan)
-        self.intercept = np.full((W, n), nan) if "const" in terms else None
-        self.trend_coef = np.full((W, n), nan) if "trend" in terms else None
-        self.sigma_u = np.full((W, n, n), nan)
-        self.spectral_radius = np.full(W, nan)
-        self.ic = {name: np.full(W, nan) for name in CRITERIA}
-        self.condition_number = np.full(W, nan)
-        self.total = np.full(W, nan)
-        self.to_others = np.full((W, n), nan)
-        self.from_others = np.full((W, n), nan)
-        self.net = np.full((W, n), nan)
-        self.pairwise = np.full((W, n, n), nan)
-        self.granger_f = np.full((W, n, n), nan) if granger else None
-        self.granger_p = np.full((W, n, n), nan) if granger else None
+        self.coefs = np.empty((W, P, n, n))
+        self.intercept = np.empty((W, n)) if "const" in terms else None
+        self.trend_coef = np.empty((W, n)) if "trend" in terms else None
+        self.sigma_u = np.empty((W, n, n))
+        self.spectral_radius = np.empty(W)
+        self.ic = {name: np.empty(W) for name in CRITERIA}
+        self.condition_number = np.empty(W)
+        self.total = np.empty(W)
+        self.to_others = np.empty((W, n))
+        self.from_others = np.empty((W, n))
+        self.net = np.empty((W, n))
+        self.pairwise = np.empty((W, n, n))
+        self.granger_f = np.empty((W, n, n)) if granger else None
+        self.granger_p = np.empty((W, n, n)) if granger else None
         self.granger_df = np.zeros((W, 2), dtype=np.int64) if granger else None
         self.response_kind = responses
-        self.responses = np.full((W, H + 1, n, n), nan) if responses else None
+        self.responses = np.empty((W, H + 1, n, n)) if responses else None
         self.decomposition_kind = decomposition
-        self.decomposition = np.full((W, H, n, n), nan) if decomposition else None
+        self.decomposition = np.empty((W, H, n, n)) if decomposition else None
         self.h_port = h_port
         self.portmanteau_p = np.full(W, nan) if h_port is not None else None
         self.skip_reason = np.full(W, "", dtype=object)
@@ -1083,7 +1089,8 @@ def _balanced(acat: np.ndarray, sigma: np.ndarray, p: int) -> np.ndarray:
     e = np.clip(np.nan_to_num(e), -400, 400).astype(np.int64)
     s = np.ldexp(1.0, e)  # (W, n)
     ratio = s[:, None, :] / s[:, :, None]  # [w, i, j] = s_j / s_i
-    return acat * np.tile(ratio, (1, 1, p))
+    W, n = s.shape
+    return (acat.reshape(W, n, p, n) * ratio[:, :, None, :]).reshape(W, n, n * p)
 
 
 class _Skip(Exception):

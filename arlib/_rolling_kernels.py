@@ -559,8 +559,9 @@ def propagate(acat: np.ndarray, x0: np.ndarray, steps: int) -> np.ndarray:
     p = N // n
     c = x0.shape[-1]
     # newest first: buf[:, q] holds X_h with q = steps − h + (p − 1); X_{<0} = 0 sits after X_0
-    buf = np.zeros((W, steps + p, n, c))
+    buf = np.empty((W, steps + p, n, c))
     buf[:, steps] = x0
+    buf[:, steps + 1 :] = 0.0
     for h in range(1, steps + 1):
         q = steps - h
         hist = buf[:, q + 1 : q + 1 + p].reshape(W, N, c)  # [X_{h−1}; ...; X_{h−p}]
