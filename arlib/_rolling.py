@@ -1236,12 +1236,18 @@ def _responses_and_decompositions(
     X = K.propagate(acat, x0, steps)  # (W, steps+1, n, c·n)
     var = np.diagonal(sigma, axis1=1, axis2=2)  # σ_jj
     psi = X[:, :H, :, :n]  # Φ_h Σ for h < H; ψ_ij(h)² = (Φ_h Σ)_ij² / σ_jj
-    share = np.einsum("whij,whij->wij", psi, psi) / var[:, None, :]  # Σ_{h<H} ψ_ij(h)²
-    table = 100.0 * share / share.sum(axis=-1, keepdims=True)
+    share = np.einsum("whij,whij->wij", psi, psi)
+    share /= var[:, None, :]  # Σ_{h<H} ψ_ij(h)²
+    # table = 100 share / (row sums), written in place into the result when the windows are
+    # one contiguous block (the usual case)
+    table = out.pairwise[widx] if isinstance(widx, slice) else np.empty_like(share)
+    np.divide(share, share.sum(axis=-1, keepdims=True), out=table)
+    table *= 100.0
     diag = np.diagonal(table, axis1=1, axis2=2)
     from_others = table.sum(axis=-1) - diag
     to_others = table.sum(axis=-2) - diag
-    out.pairwise[widx] = table
+    if not isinstance(widx, slice):
+        out.pairwise[widx] = table
     out.from_others[widx] = from_others
     out.to_others[widx] = to_others
     out.net[widx] = to_others - from_others
