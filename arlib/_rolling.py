@@ -693,7 +693,13 @@ def _window_ends(T: int, window: int, step: int, ends: Any, after: Any) -> np.nd
 
 
 class _Outputs:
-    """Preallocated result arrays (NaN until a window is fitted)."""
+    """Preallocated result arrays.
+
+    Arrays every fitted window writes in full are left uninitialised (`finish` sets the rows
+    of skipped windows to NaN): filling them with NaN first would be a second pass over the
+    largest arrays of the run. The portmanteau p-values, which some fitted windows leave
+    undefined (gaps), start as NaN.
+    """
 
     def __init__(
         self, W: int, n: int, P: int, H: int, trend: str, granger: bool,
@@ -706,25 +712,25 @@ class _Outputs:
         self.starts = np.zeros(W, dtype=np.int64)
         self.nobs = np.zeros(W, dtype=np.int64)
         self.lags = np.zeros(W, dtype=np.int64)
-        self.coefs = np.full((W, P, n, n), nan)
-        self.intercept = np.full((W, n), nan) if "const" in terms else None
-        self.trend_coef = np.full((W, n), nan) if "trend" in terms else None
-        self.sigma_u = np.full((W, n, n), nan)
-        self.spectral_radius = np.full(W, nan)
-        self.ic = {name: np.full(W, nan) for name in CRITERIA}
-        self.condition_number = np.full(W, nan)
-        self.total = np.full(W, nan)
-        self.to_others = np.full((W, n), nan)
-        self.from_others = np.full((W, n), nan)
-        self.net = np.full((W, n), nan)
-        self.pairwise = np.full((W, n, n), nan)
-        self.granger_f = np.full((W, n, n), nan) if granger else None
-        self.granger_p = np.full((W, n, n), nan) if granger else None
+        self.coefs = np.empty((W, P, n, n))
+        self.intercept = np.empty((W, n)) if "const" in terms else None
+        self.trend_coef = np.empty((W, n)) if "trend" in terms else None
+        self.sigma_u = np.empty((W, n, n))
+        self.spectral_radius = np.empty(W)
+        self.ic = {name: np.empty(W) for name in CRITERIA}
+        self.condition_number = np.empty(W)
+        self.total = np.empty(W)
+        self.to_others = np.empty((W, n))
+        self.from_others = np.empty((W, n))
+        self.net = np.empty((W, n))
+        self.pairwise = np.empty((W, n, n))
+        self.granger_f = np.empty((W, n, n)) if granger else None
+        self.granger_p = np.empty((W, n, n)) if granger else None
         self.granger_df = np.zeros((W, 2), dtype=np.int64) if granger else None
         self.response_kind = responses
-        self.responses = np.full((W, H + 1, n, n), nan) if responses else None
+        self.responses = np.empty((W, H + 1, n, n)) if responses else None
         self.decomposition_kind = decomposition
-        self.decomposition = np.full((W, H, n, n), nan) if decomposition else None
+        self.decomposition = np.empty((W, H, n, n)) if decomposition else None
         self.h_port = h_port
         self.portmanteau_p = np.full(W, nan) if h_port is not None else None
         self.skip_reason = np.full(W, "", dtype=object)
@@ -1083,7 +1089,8 @@ def _balanced(acat: np.ndarray, sigma: np.ndarray, p: int) -> np.ndarray:
     e = np.clip(np.nan_to_num(e), -400, 400).astype(np.int64)
     s = np.ldexp(1.0, e)  # (W, n)
     ratio = s[:, None, :] / s[:, :, None]  # [w, i, j] = s_j / s_i
-    return acat * np.tile(ratio, (1, 1, p))
+    W, n = s.shape
+    return (acat.reshape(W, n, p, n) * ratio[:, :, None, :]).reshape(W, n, n * p)
 
 
 class _Skip(Exception):
@@ -1229,12 +1236,18 @@ def _responses_and_decompositions(
     X = K.propagate(acat, x0, steps)  # (W, steps+1, n, c·n)
     var = np.diagonal(sigma, axis1=1, axis2=2)  # σ_jj
     psi = X[:, :H, :, :n]  # Φ_h Σ for h < H; ψ_ij(h)² = (Φ_h Σ)_ij² / σ_jj
-    share = np.einsum("whij,whij->wij", psi, psi) / var[:, None, :]  # Σ_{h<H} ψ_ij(h)²
-    table = 100.0 * share / share.sum(axis=-1, keepdims=True)
+    share = np.einsum("whij,whij->wij", psi, psi)
+    share /= var[:, None, :]  # Σ_{h<H} ψ_ij(h)²
+    # table = 100 share / (row sums), written in place into the result when the windows are
+    # one contiguous block (the usual case)
+    table = out.pairwise[widx] if isinstance(widx, slice) else np.empty_like(share)
+    np.divide(share, share.sum(axis=-1, keepdims=True), out=table)
+    table *= 100.0
     diag = np.diagonal(table, axis1=1, axis2=2)
     from_others = table.sum(axis=-1) - diag
     to_others = table.sum(axis=-2) - diag
-    out.pairwise[widx] = table
+    if not isinstance(widx, slice):
+        out.pairwise[widx] = table
     out.from_others[widx] = from_others
     out.to_others[widx] = to_others
     out.net[widx] = to_others - from_others

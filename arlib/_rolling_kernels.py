@@ -559,8 +559,9 @@ def propagate(acat: np.ndarray, x0: np.ndarray, steps: int) -> np.ndarray:
     p = N // n
     c = x0.shape[-1]
     # newest first: buf[:, q] holds X_h with q = steps − h + (p − 1); X_{<0} = 0 sits after X_0
-    buf = np.zeros((W, steps + p, n, c))
+    buf = np.empty((W, steps + p, n, c))
     buf[:, steps] = x0
+    buf[:, steps + 1 :] = 0.0
     for h in range(1, steps + 1):
         q = steps - h
         hist = buf[:, q + 1 : q + 1 + p].reshape(W, N, c)  # [X_{h−1}; ...; X_{h−p}]
@@ -580,8 +581,11 @@ def f_survival(f: np.ndarray, df1: np.ndarray | int, df2: np.ndarray | int) -> n
         a = float(df1)
         b = np.asarray(df2, dtype=np.float64)
         with np.errstate(invalid="ignore"):
-            ratio = a * np.maximum(f, 0.0) / b  # x = 1 / (1 + ratio), 1 − x = ratio / (1 + ratio)
-            out = np.exp(-0.5 * b * np.log1p(ratio))  # x^{df2/2}
+            # x = 1 / (1 + ratio), 1 − x = ratio / (1 + ratio)
+            ratio = np.maximum(f, 0.0) * (a / b)
+            out = np.log1p(ratio)
+            out *= -0.5 * b
+            np.exp(out, out=out)  # x^{df2/2}
             if a > 2:
                 one_minus = ratio / (1.0 + ratio)
                 term = np.ones_like(out)
@@ -629,30 +633,35 @@ def granger_f(
     not the whole lag block), and factored by a batched Cholesky over the p×p blocks (p is small).
     """
     W = inv.shape[0]
-    lag = inv[:, :, d:]  # (W, k, n·p); column l·n + j is lag l+1 of series j
-    # V[w, j, l, l'] = Σ_r L^{-1}[w, r, l·n + j] L^{-1}[w, r, l'·n + j]
+    # V[w, j, l, l'] = Σ_r L^{-1}[w, r, d + l·n + j] L^{-1}[w, r, d + l'·n + j]; L^{-1} is lower
+    # triangular, so column d + l·n + j is zero above row d + l·n: the sum starts there
     V = np.empty((W, n, p, p))
     for la in range(p):
         for lb in range(la + 1):
-            col_a, col_b = lag[:, :, la * n : (la + 1) * n], lag[:, :, lb * n : (lb + 1) * n]
+            r0 = d + la * n  # la >= lb: the later of the two columns' first nonzero rows
+            col_a = inv[:, r0:, d + la * n : d + (la + 1) * n]
+            col_b = inv[:, r0:, d + lb * n : d + (lb + 1) * n]
             V[:, :, la, lb] = np.einsum("wrj,wrj->wj", col_a, col_b)
             V[:, :, lb, la] = V[:, :, la, lb]
     b = coef_t[:, :, d:].reshape(W, n, p, n)  # b[w, i, l, j]
     b = np.moveaxis(b, -1, 2)  # (W, n_i, n_j, p)
     if p == 1:
         quad = b[..., 0] ** 2 / V[:, None, :, 0, 0]
-    elif p == 2:  # closed form b' V^{-1} b = (v22 b1² − 2 v12 b1 b2 + v11 b2²) / det V
-        v11, v12, v22 = V[:, None, :, 0, 0], V[:, None, :, 0, 1], V[:, None, :, 1, 1]
+    elif p == 2:
+        # closed form by the 2×2 Cholesky factor of V_j (per causing series j, broadcast over
+        # the caused series i): b' V^{-1} b = b1² / v11 + (b2 − (v12 / v11) b1)² / (v22 − v12² / v11)
+        v11, v12, v22 = V[:, :, 0, 0], V[:, :, 0, 1], V[:, :, 1, 1]
+        ratio = v12 / v11
+        r1 = (1.0 / v11)[:, None, :]
+        r2 = (1.0 / (v22 - v12 * ratio))[:, None, :]
         b1, b2 = b[..., 0], b[..., 1]
+        t = b1 * ratio[:, None, :]
+        np.subtract(b2, t, out=t)
+        t *= t
+        t *= r2
         quad = b1 * b1
-        quad *= v22
-        cross = b1 * b2
-        cross *= 2.0 * v12
-        quad -= cross
-        np.multiply(b2, b2, out=cross)
-        cross *= v11
-        quad += cross
-        quad /= v11 * v22 - v12 * v12
+        quad *= r1
+        quad += t
     else:
         Lc = np.zeros_like(V)  # Cholesky of V, column by column
         for j in range(p):
