@@ -812,14 +812,21 @@ def band_index_figure(
     layout = th.layout(
         height=380, medium=medium,
         title=f"Connectedness by cycle length, {universe}",
+        subtitle=(f"% of forecast-error variance from other series, stacked by band: the bands add up to "
+                  f"the index at {truncation} steps" + ("; within-band lines (right axis) from the legend"
+                                                        if within is not None else "")),
         legend={"orientation": "h", "x": 0.0, "xanchor": "left", "yref": "container", "y": 0.0,
                 "yanchor": "bottom"},
         margin={"l": 60, "r": 60, "t": 70, "b": 90},
         xaxis=th.axis(type="date"),
-        yaxis=th.axis(title={"text": f"% of forecast-error variance (stacked; sum = index at {truncation} steps)"}),
-        yaxis2={"overlaying": "y", "side": "right", "showgrid": False,
-                "title": {"text": "within-band, %"}},
+        yaxis=th.axis(title={"text": "index share, %"}),
     )  # fmt: skip
+    if within is not None:
+        # the within-band lines start hidden: a fixed range from the data keeps the right axis
+        # readable (plotly's default for an axis with no visible trace is −1…4)
+        top = float(np.nanmax(np.asarray(within, dtype=float), initial=0.0))
+        layout["yaxis2"] = {"overlaying": "y", "side": "right", "showgrid": False, "rangemode": "tozero",
+                            "range": [0.0, 1.05 * top if top > 0 else 1.0], "title": {"text": "within band, %"}}
     return {"data": data, "layout": layout}
 
 

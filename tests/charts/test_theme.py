@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import datetime as dt
 from pathlib import Path
 
 import numpy as np
@@ -70,3 +71,18 @@ def test_figures_build_without_dash_or_duckdb() -> None:
     code = "import sys, charts; bad = [m for m in sys.modules if m.split('.')[0] in ('dash', 'duckdb', 'dashboard', 'pipeline')]; print(bad); sys.exit(bool(bad))"
     out = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True, check=False)
     assert out.returncode == 0, out.stdout + out.stderr
+
+
+def test_band_index_right_axis_spans_the_hidden_within_band_lines() -> None:
+    """The within-band lines start hidden (legend only); plotly then draws an axis with no visible
+    trace from −1 to 4 (seen in the demo: ticks 3.98, 2.73, …, −1). The right axis spans the data."""
+
+
+    ends = [dt.date(2024, 1, d) for d in (2, 3, 4)]
+    totals = np.array([[10.0, 5.0, 1.0], [12.0, 4.0, 1.5], [9.0, 6.0, 2.0]])
+    within = np.array([[30.0, 20.0, 8.0], [32.0, 22.0, 9.0], [28.0, 25.0, 7.0]])
+    fig = charts.band_index_figure(ends, totals, ((1, 5), (5, 20), (20, float("inf"))), universe="u",
+                                   truncation=100, within=within)
+    y2 = fig["layout"]["yaxis2"]
+    assert y2["range"][0] == 0 and 32.0 <= y2["range"][1] <= 32.0 * 1.1
+    assert len(fig["layout"]["yaxis"]["title"]["text"]) <= 30  # a long title is clipped on screen
