@@ -15,6 +15,7 @@ from dash import dcc, html
 from . import ids, views
 from ._components import PANEL_CLASSES, STRESS_DEFAULT, csv_row, graph, label, note, report_links
 from ._errors import DashboardError
+from ._inputs import page_text
 from .data import Snapshot, Universe
 from .settings import DashboardSettings
 from .views import View
@@ -43,7 +44,7 @@ def _panel(view: View, first: Universe | None, *, shown: bool) -> html.Div:
     charts as they were drawn (no redraw, no request) — only its class changes (`PANEL_CLASSES`)."""
     children: list[Any] = []
     if view.intro:
-        children.append(html.P(view.intro, className="note"))
+        children.append(html.P(page_text(view.intro), className="note"))
     if view.controls is not None:
         children.append(html.Div(view.controls(first), className="controls"))
     children += [*_charts(view), note(view.note_id)]

@@ -133,3 +133,23 @@ def test_the_page_layout_passes_dashs_own_check(snapshot_path: Path) -> None:
     app = create_app(DashboardSettings(snapshot=snapshot_path))
     with app.server.test_request_context("/"):
         _validate.validate_layout(app.layout, app._layout_value())
+
+
+def test_no_text_on_the_page_shows_markdown_backticks(snapshot_path: Path) -> None:
+    """The page is not Markdown: a name in backticks (`estimator = "quantile"` in the Tails tab's
+    introduction, seen in the demo) must show as plain words, as the error messages already do."""
+    app = create_app(DashboardSettings(snapshot=snapshot_path))
+    with app.server.test_request_context("/"):
+        page = app._layout_value()
+
+    def texts(node: Any) -> list[str]:
+        if isinstance(node, str):
+            return [node]
+        if isinstance(node, list | tuple):
+            return [t for child in node for t in texts(child)]
+        children = getattr(node, "children", None)
+        return texts(children) if children is not None else []
+
+    shown = texts(page)
+    assert any("quantile regression" in t for t in shown)  # the Tails introduction is on the page
+    assert [t for t in shown if "`" in t] == []
