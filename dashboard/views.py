@@ -159,6 +159,27 @@ def index_view(snap: Snapshot, state: Any, quantile: Any = 0.9) -> ViewResult:
     return fig, rows, note
 
 
+#: Most series a shock-path grid draws (a grid is n × n panels: the demo's 40-series universe,
+#: 1,600 panels, kept the browser busy for over 30 s). Larger universes show the first ones of
+#: the ordering control, where the user picks which; the CSV keeps every series.
+GRID_SERIES_MAX = 12
+
+
+def _grid_series(order: tuple[str, ...], series: tuple[str, ...]) -> tuple[list[int], str]:
+    """Positions (in `series`) of the series a grid draws, and a note when that is not all."""
+    if len(series) <= GRID_SERIES_MAX:
+        return list(range(len(series))), ""
+    shown = [series.index(s) for s in order[:GRID_SERIES_MAX]]
+    return shown, (f" The grid shows {GRID_SERIES_MAX} of {len(series)} series: the first "
+                   f"{GRID_SERIES_MAX} of the ordering control (choose series there to see others); "
+                   f"the CSV has all {len(series)}.")
+
+
+def _sub(a: np.ndarray, idx: list[int]) -> np.ndarray:
+    """(H+1, n, n) → (H+1, m, m): the responses and shocks at positions `idx`."""
+    return a[:, idx][:, :, idx]
+
+
 @guard
 def paths_view(
     snap: Snapshot,
@@ -209,9 +230,12 @@ def paths_view(
         if cum
         else "change of the responding series (as prepared) per one-s.d. shock"
     )
+    shown, shown_note = _grid_series(order, u.series)
     fig = charts.responses_figure(
-        resp, u.series, lower=lower, upper=upper, title=title, subtitle=order_text, yunit=unit
-    )
+        _sub(resp, shown), [u.series[i] for i in shown],
+        lower=None if lower is None else _sub(lower, shown), upper=None if upper is None else _sub(upper, shown),
+        title=title, subtitle=order_text, yunit=unit,
+    )  # fmt: skip
     end_text, names = iso(end), u.series
     values = nums(resp)
     lows = [None] * len(values) if lower is None else nums(lower)
@@ -221,7 +245,7 @@ def paths_view(
          "response": names[i], "shock": names[j], "value": v, "lower": lo, "upper": hi}
         for (h, i, j), v, lo, hi in zip(grid_index(H + 1, len(names)), values, lows, highs, strict=True)
     ]  # fmt: skip
-    note = f"Window ending {end}; responses {source}; {band_note}."
+    note = f"Window ending {end}; responses {source}; {band_note}.{shown_note}"
     return fig, rows, note
 
 
@@ -401,8 +425,9 @@ def compare_paths_view(
         for e in ends
     ]
     labels = (f"A: window ending {ends[0]}", f"B: window ending {ends[1]}")
+    shown, shown_note = _grid_series(order, u.series)
     fig = charts.responses_compare_figure(
-        paths[0], paths[1], u.series, labels=labels,
+        _sub(paths[0], shown), _sub(paths[1], shown), [u.series[i] for i in shown], labels=labels,
         title=f"Shock paths, {ident}: A (solid) against B (dashed)",
     )  # fmt: skip
     n = len(u.series)
@@ -415,7 +440,7 @@ def compare_paths_view(
             strict=True,
         )
     ]  # fmt: skip
-    note = f"A: window ending {ends[0]}; B: window ending {ends[1]}; {ident} shocks."
+    note = f"A: window ending {ends[0]}; B: window ending {ends[1]}; {ident} shocks.{shown_note}"
     return fig, rows, note
 
 
