@@ -430,6 +430,22 @@ def store_universe_results(
             if t in tables:
                 _insert(con, t, tables[t])
         if prepared is not None:
+            # which prepared rows this run rewrites (publish copies only those into the snapshot)
+            previous = con.execute("SELECT run_id FROM universes WHERE universe = ?", [name]).fetchall()
+            written: list[date | None] = list(prepared_dates) if prepared_dates is not None else [None]
+            _insert(
+                con,
+                "prepared_writes",
+                pl.DataFrame(
+                    {
+                        "run_id": [run_id] * len(written),
+                        "universe": [name] * len(written),
+                        "previous_run_id": [previous[0][0] if previous else None] * len(written),
+                        "date": written,
+                    },
+                    schema={"run_id": pl.String, "universe": pl.String, "previous_run_id": pl.String, "date": pl.Date},
+                ),
+            )
             for t in UNIVERSE_TABLES:
                 if t == "prepared" and prepared_dates is not None:
                     continue
