@@ -38,7 +38,7 @@ from serving._schema import (
     STATE_TABLES,
     UNIVERSE_TABLES,
 )
-from serving._views import create_views
+from serving._views import VIEWS, create_views, view_tag
 
 if TYPE_CHECKING:
     from pipeline.config import UniverseConfig
@@ -100,8 +100,40 @@ def connect(path: str | Path, *, read_only: bool = False) -> duckdb.DuckDBPyConn
     return con
 
 
+def _schema_current(con: duckdb.DuckDBPyConnection) -> bool:
+    """Every table exists, every view carries this code's `view_tag` and the version is this one:
+    what `ensure_schema` would leave, checked by reading the catalog (about 1 ms, where the DDL
+    takes about 20 ms — and the nightly job connects three times per universe)."""
+    try:
+        tables = {
+            r[0]
+            for r in con.execute(
+                "SELECT table_name FROM duckdb_tables() WHERE database_name = current_database() AND schema_name = 'main'"
+            ).fetchall()
+        }
+        if not set(TABLES) <= tables:
+            return False
+        views = dict(
+            con.execute(
+                "SELECT view_name, comment FROM duckdb_views() "
+                "WHERE database_name = current_database() AND schema_name = 'main' AND NOT internal"
+            ).fetchall()
+        )
+        if any(views.get(name) != view_tag(name) for name in VIEWS):
+            return False
+        row = con.execute("SELECT max(version) FROM schema_version").fetchone()
+    except duckdb.Error:
+        return False
+    return row is not None and row[0] == SCHEMA_VERSION
+
+
 def ensure_schema(con: duckdb.DuckDBPyConnection, *, path: str | Path = "?") -> None:
-    """Create every table if missing (idempotent), (re)create the long views, record the version once."""
+    """Create every table if missing (idempotent), (re)create the long views, record the version once.
+
+    A file whose schema is already this code's (`_schema_current`) is left as it is.
+    """
+    if _schema_current(con):
+        return
     try:
         con.execute("BEGIN TRANSACTION")
         for name, columns in TABLES.items():
