@@ -240,9 +240,21 @@ class Prepared:
     @property
     def frame(self) -> pl.DataFrame:
         """Long form (date, series, value) of `y`, NaN as null: what the warehouse stores."""
-        wide = pl.DataFrame({"date": pl.Series(self.dates, dtype=pl.Date)})
+        return self.frame_of(None)
+
+    def frame_of(self, dates: list[date] | None) -> pl.DataFrame:
+        """`frame` restricted to the rows of `dates` (None = every date; dates not held are
+        ignored): equal to ``frame.filter(pl.col("date").is_in(dates))``, built from those rows only."""
+        if dates is None:
+            rows, kept = self.y, self.dates
+        else:
+            wanted = np.asarray(sorted(dates), dtype="datetime64[D]")
+            mask = np.isin(np.asarray(self.dates, dtype="datetime64[D]"), wanted)
+            rows = self.y[mask]
+            kept = tuple(d for d, m in zip(self.dates, mask.tolist(), strict=True) if m)
+        wide = pl.DataFrame({"date": pl.Series(kept, dtype=pl.Date)})
         for j, name in enumerate(self.names):
-            wide = wide.with_columns(pl.Series(name, self.y[:, j]).fill_nan(None))
+            wide = wide.with_columns(pl.Series(name, rows[:, j]).fill_nan(None))
         return wide.unpivot(index="date", variable_name="series", value_name="value").select(
             "date", "series", pl.col("value").cast(pl.Float64)
         )
