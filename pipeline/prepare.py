@@ -294,6 +294,25 @@ def _check_sampling(aligned: pl.DataFrame, obs: pl.DataFrame, universe: Universe
         raise DataError(msg)
 
 
+def _aggregate(on_rows: pl.DataFrame, how: str) -> pl.DataFrame:
+    """One row per (series, row): the `how` aggregate of the values in it and their count, in
+    (series, row) order.
+
+    When no row holds two observations of a series (a daily series on the business-day calendar),
+    `last` and `first` are the value itself: it is taken as it is, without the group-by (the
+    same frame, values and order; the nightly job prepares 6,000 rows × 12 series per universe).
+    """
+    ordered = on_rows.sort("series", "date")
+    if how in ("last", "first") and ordered.schema["value"] == pl.Float64:
+        same_series = pl.col("series") == pl.col("series").shift(1)
+        clash = ordered.select((same_series & (pl.col("row") <= pl.col("row").shift(1))).any()).item()
+        if not clash:
+            return ordered.select("series", "row", "value", pl.lit(1, dtype=pl.UInt32).alias("count"))
+    return ordered.group_by("series", "row", maintain_order=True).agg(
+        AGGREGATIONS[how].expr(pl.col("value")).alias("value"), pl.len().alias("count")
+    )
+
+
 def prepare_universe(observations: pl.DataFrame, universe: UniverseLike) -> Prepared:
     """Align, fill, transform and trim `observations` (series, date, value) for `universe`."""
     names = list(universe.names)
@@ -311,15 +330,7 @@ def prepare_universe(observations: pl.DataFrame, universe: UniverseLike) -> Prep
     by_aggregation: dict[str, list[str]] = {}
     for s in universe.series:
         by_aggregation.setdefault(s.aggregate, []).append(s.name)
-    labelled = pl.concat(
-        [
-            on_rows.filter(pl.col("series").is_in(members))
-            .sort("series", "date")
-            .group_by("series", "row", maintain_order=True)
-            .agg(AGGREGATIONS[how].expr(pl.col("value")).alias("value"), pl.len().alias("count"))
-            for how, members in by_aggregation.items()
-        ]
-    )
+    labelled = pl.concat([_aggregate(on_rows.filter(pl.col("series").is_in(members)), how) for how, members in by_aggregation.items()])
     if labelled.height == 0:
         msg = f"universe {universe.name!r}: no observation falls on the {universe.frequency} calendar; check the dates"
         raise DataError(msg)
