@@ -143,6 +143,59 @@ class WindowPlan:
         return self.ends.size == 0 and not self.prepared_changed and self.delete_ends == []
 
 
+_EPOCH_ORDINAL = date(1970, 1, 1).toordinal()
+
+
+def _days(dates: tuple[date, ...] | list[date]) -> np.ndarray:
+    """`dates` as datetime64[D] (through ordinals: ~30x numpy's own conversion of date objects)."""
+    return (np.fromiter((d.toordinal() for d in dates), np.int64, len(dates)) - _EPOCH_ORDINAL).astype("datetime64[D]")
+
+
+def _grid(frame: pl.DataFrame, names: tuple[str, ...]) -> tuple[np.ndarray, np.ndarray] | None:
+    """Long rows (date, series, value) sorted by (date, series) as (dates (D,) datetime64[D],
+    values (D, n) in `names` order, NaN for null), or None unless every date holds exactly one
+    row of each of `names`."""
+    n = len(names)
+    if n == 0 or frame.height % n:
+        return None
+    order = sorted(names)
+    try:  # series as positions in `order` (a name outside it raises)
+        codes = frame["series"].cast(pl.Enum(order)).to_physical().to_numpy()
+    except pl.exceptions.PolarsError:
+        return None
+    if not np.array_equal(codes, np.tile(np.arange(n, dtype=codes.dtype), frame.height // n)):
+        return None
+    dates = frame["date"].to_numpy().astype("datetime64[D]").reshape(-1, n)
+    if not (dates == dates[:, :1]).all() or (dates.shape[0] > 1 and not (np.diff(dates[:, 0]) > np.timedelta64(0, "D")).all()):
+        return None
+    values = frame["value"].cast(pl.Float64).to_numpy().reshape(-1, n)
+    return dates[:, 0], values[:, [order.index(name) for name in names]]
+
+
+def _changed_dates_of(prepared: Prepared, old: pl.DataFrame) -> tuple[set[date], set[date]]:
+    """`_changed_dates(prepared.frame, old)` without the long frame and the join: both sides as
+    (dates × series) matrices compared element by element (null = NaN on both sides; the stored
+    rows never hold NaN, as `Prepared.frame` turns it into null). Falls back to the join when
+    the stored rows are not such a grid."""
+    grid = _grid(old, prepared.names)
+    if grid is None:
+        return _changed_dates(prepared.frame, old)
+    old_dates, old_y = grid
+    new_dates = _days(prepared.dates)
+    y = np.asarray(prepared.y, dtype=np.float64)
+    pos = np.searchsorted(old_dates, new_dates)
+    pos_ok = np.minimum(pos, max(old_dates.size - 1, 0))
+    found = (pos < old_dates.size) & (old_dates[pos_ok] == new_dates) if old_dates.size else np.zeros(new_dates.size, bool)
+    same = np.zeros(new_dates.size, dtype=bool)
+    if found.any():
+        a, b = y[found], old_y[pos_ok[found]]
+        same[found] = ((a == b) | (np.isnan(a) & np.isnan(b))).all(axis=1)
+    changed = {d for d, keep in zip(prepared.dates, same.tolist(), strict=True) if not keep}
+    removed_mask = ~np.isin(old_dates, new_dates)
+    removed = {d.item() for d in old_dates[removed_mask]}
+    return changed, removed
+
+
 def _changed_dates(new: pl.DataFrame, old: pl.DataFrame) -> tuple[set[date], set[date]]:
     """(dates of `new` with a row that differs from `old` or is new there, dates only in `old`)."""
     joined = new.with_columns(pl.lit(True).alias("_new")).join(
@@ -183,9 +236,8 @@ def plan_windows(
             reason = "config changed: refitting every window"
         return WindowPlan(ends=ends, delete_ends=None, prepared_changed=True, reason=reason, candidates=int(ends.size), notes=notes)
 
-    new = prepared.frame
-    changed, removed = _changed_dates(new, stored.prepared)
-    dates = np.asarray(prepared.dates, dtype="datetime64[D]")
+    changed, removed = _changed_dates_of(prepared, stored.prepared)
+    dates = _days(prepared.dates)
     changed_mask = np.isin(dates, np.asarray(sorted(changed), dtype="datetime64[D]")) if changed else np.zeros(T, bool)
     cs = np.concatenate([[0], np.cumsum(changed_mask)])
     # removed date r lies between rows pos-1 and pos; a window [s, e] spans it iff s < pos <= e
@@ -195,15 +247,20 @@ def plan_windows(
         boundary[pos] += 1
     cb = np.cumsum(boundary)
 
+    stored_ends = stored.windows["window_end"].to_numpy().astype("datetime64[D]")
+    stored_starts = stored.windows["window_start"].to_numpy().astype("datetime64[D]")
+    by_end = np.argsort(stored_ends, kind="stable")
+    stored_ends, stored_starts = stored_ends[by_end], stored_starts[by_end]
+    # a window is reused when its end is stored with the same start and no changed or removed date
+    # lies in its span; every other window on the grid is (re)fitted
+    end_d, start_d = dates[ends], dates[starts]
+    at = np.searchsorted(stored_ends, end_d)
+    at_ok = np.minimum(at, max(stored_ends.size - 1, 0))
+    known = (at < stored_ends.size) & (stored_ends[at_ok] == end_d) if stored_ends.size else np.zeros(ends.size, bool)
+    same_start = known & (stored_starts[at_ok] == start_d) if stored_ends.size else known
+    touched = (cs[ends + 1] - cs[starts] > 0) | (cb[ends] - cb[starts] > 0)
+    refit = ~same_start | touched
     stored_map: dict[date, date] = dict(zip(stored.windows["window_end"].to_list(), stored.windows["window_start"].to_list(), strict=True))
-    refit = np.zeros(ends.size, dtype=bool)
-    for w, (e, s) in enumerate(zip(ends.tolist(), starts.tolist(), strict=True)):
-        end_d, start_d = prepared.dates[e], prepared.dates[s]
-        old_start = stored_map.get(end_d)
-        if old_start is None or old_start != start_d:
-            refit[w] = True
-        elif cs[e + 1] - cs[s] > 0 or cb[e] - cb[s] > 0:
-            refit[w] = True
     grid_ends = {prepared.dates[e] for e in ends.tolist()}
     stale = sorted(d for d in stored_map if d not in grid_ends)
     fit_ends = ends[refit]
@@ -667,7 +724,7 @@ def plan_tvp(
     removed: set[date] = set()
     if reason is None:
         assert stored is not None and stored.tvp is not None
-        changed, removed = _changed_dates(prepared.frame, stored.prepared)
+        changed, removed = _changed_dates_of(prepared, stored.prepared)
         last = stored.tvp.last
         early = sorted(d for d in changed | removed if d <= last)
         if early:

@@ -333,7 +333,11 @@ def store_universe(
             universe=job.universe,
             tables=tables,
             replace_ends=plan.delete_ends,
-            prepared=job.prepared.frame if plan.prepared_changed else None,
+            # only the rows stored anew (plan.prepared_dates) when the run replaces some dates
+            prepared=(
+                job.prepared.frame_of(plan.prepared_dates if plan.delete_ends is not None else None)
+                if plan.prepared_changed else None
+            ),
             dropped=job.prepared.dropped if plan.prepared_changed else None,
             counts={"fitted": fitted, "skipped": skipped, "failed": 0},
             prepared_dates=plan.prepared_dates if plan.delete_ends is not None else None,

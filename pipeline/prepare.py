@@ -240,9 +240,21 @@ class Prepared:
     @property
     def frame(self) -> pl.DataFrame:
         """Long form (date, series, value) of `y`, NaN as null: what the warehouse stores."""
-        wide = pl.DataFrame({"date": pl.Series(self.dates, dtype=pl.Date)})
+        return self.frame_of(None)
+
+    def frame_of(self, dates: list[date] | None) -> pl.DataFrame:
+        """`frame` restricted to the rows of `dates` (None = every date; dates not held are
+        ignored): equal to ``frame.filter(pl.col("date").is_in(dates))``, built from those rows only."""
+        if dates is None:
+            rows, kept = self.y, self.dates
+        else:
+            wanted = np.asarray(sorted(dates), dtype="datetime64[D]")
+            mask = np.isin(np.asarray(self.dates, dtype="datetime64[D]"), wanted)
+            rows = self.y[mask]
+            kept = tuple(d for d, m in zip(self.dates, mask.tolist(), strict=True) if m)
+        wide = pl.DataFrame({"date": pl.Series(kept, dtype=pl.Date)})
         for j, name in enumerate(self.names):
-            wide = wide.with_columns(pl.Series(name, self.y[:, j]).fill_nan(None))
+            wide = wide.with_columns(pl.Series(name, rows[:, j]).fill_nan(None))
         return wide.unpivot(index="date", variable_name="series", value_name="value").select(
             "date", "series", pl.col("value").cast(pl.Float64)
         )
@@ -282,6 +294,25 @@ def _check_sampling(aligned: pl.DataFrame, obs: pl.DataFrame, universe: Universe
         raise DataError(msg)
 
 
+def _aggregate(on_rows: pl.DataFrame, how: str) -> pl.DataFrame:
+    """One row per (series, row): the `how` aggregate of the values in it and their count, in
+    (series, row) order.
+
+    When no row holds two observations of a series (a daily series on the business-day calendar),
+    `last` and `first` are the value itself: it is taken as it is, without the group-by (the
+    same frame, values and order; the nightly job prepares 6,000 rows × 12 series per universe).
+    """
+    ordered = on_rows.sort("series", "date")
+    if how in ("last", "first") and ordered.schema["value"] == pl.Float64:
+        same_series = pl.col("series") == pl.col("series").shift(1)
+        clash = ordered.select((same_series & (pl.col("row") <= pl.col("row").shift(1))).any()).item()
+        if not clash:
+            return ordered.select("series", "row", "value", pl.lit(1, dtype=pl.UInt32).alias("count"))
+    return ordered.group_by("series", "row", maintain_order=True).agg(
+        AGGREGATIONS[how].expr(pl.col("value")).alias("value"), pl.len().alias("count")
+    )
+
+
 def prepare_universe(observations: pl.DataFrame, universe: UniverseLike) -> Prepared:
     """Align, fill, transform and trim `observations` (series, date, value) for `universe`."""
     names = list(universe.names)
@@ -299,15 +330,7 @@ def prepare_universe(observations: pl.DataFrame, universe: UniverseLike) -> Prep
     by_aggregation: dict[str, list[str]] = {}
     for s in universe.series:
         by_aggregation.setdefault(s.aggregate, []).append(s.name)
-    labelled = pl.concat(
-        [
-            on_rows.filter(pl.col("series").is_in(members))
-            .sort("series", "date")
-            .group_by("series", "row", maintain_order=True)
-            .agg(AGGREGATIONS[how].expr(pl.col("value")).alias("value"), pl.len().alias("count"))
-            for how, members in by_aggregation.items()
-        ]
-    )
+    labelled = pl.concat([_aggregate(on_rows.filter(pl.col("series").is_in(members)), how) for how, members in by_aggregation.items()])
     if labelled.height == 0:
         msg = f"universe {universe.name!r}: no observation falls on the {universe.frequency} calendar; check the dates"
         raise DataError(msg)

@@ -38,7 +38,7 @@ from serving._schema import (
     STATE_TABLES,
     UNIVERSE_TABLES,
 )
-from serving._views import create_views
+from serving._views import VIEWS, create_views, view_tag
 
 if TYPE_CHECKING:
     from pipeline.config import UniverseConfig
@@ -100,8 +100,40 @@ def connect(path: str | Path, *, read_only: bool = False) -> duckdb.DuckDBPyConn
     return con
 
 
+def _schema_current(con: duckdb.DuckDBPyConnection) -> bool:
+    """Every table exists, every view carries this code's `view_tag` and the version is this one:
+    what `ensure_schema` would leave, checked by reading the catalog (about 1 ms, where the DDL
+    takes about 20 ms — and the nightly job connects three times per universe)."""
+    try:
+        tables = {
+            r[0]
+            for r in con.execute(
+                "SELECT table_name FROM duckdb_tables() WHERE database_name = current_database() AND schema_name = 'main'"
+            ).fetchall()
+        }
+        if not set(TABLES) <= tables:
+            return False
+        views = dict(
+            con.execute(
+                "SELECT view_name, comment FROM duckdb_views() "
+                "WHERE database_name = current_database() AND schema_name = 'main' AND NOT internal"
+            ).fetchall()
+        )
+        if any(views.get(name) != view_tag(name) for name in VIEWS):
+            return False
+        row = con.execute("SELECT max(version) FROM schema_version").fetchone()
+    except duckdb.Error:
+        return False
+    return row is not None and row[0] == SCHEMA_VERSION
+
+
 def ensure_schema(con: duckdb.DuckDBPyConnection, *, path: str | Path = "?") -> None:
-    """Create every table if missing (idempotent), (re)create the long views, record the version once."""
+    """Create every table if missing (idempotent), (re)create the long views, record the version once.
+
+    A file whose schema is already this code's (`_schema_current`) is left as it is.
+    """
+    if _schema_current(con):
+        return
     try:
         con.execute("BEGIN TRANSACTION")
         for name, columns in TABLES.items():
@@ -175,6 +207,9 @@ def query(con: duckdb.DuckDBPyConnection, sql: str, params: list[Any] | None = N
 def _insert(con: duckdb.DuckDBPyConnection, table: str, frame: pl.DataFrame) -> None:
     """Insert `frame` (columns named as the table's) through Arrow."""
     if frame.height == 0:
+        return
+    if tuple(frame.columns) == schema.columns(table):  # every column in the table's order: no view to register
+        con.from_arrow(frame.to_arrow()).insert_into(table)  # (~1.1 ms where the view costs ~1.7 ms)
         return
     view = f"_incoming_{uuid.uuid4().hex[:8]}"
     con.register(view, frame.to_arrow())
@@ -430,6 +465,22 @@ def store_universe_results(
             if t in tables:
                 _insert(con, t, tables[t])
         if prepared is not None:
+            # which prepared rows this run rewrites (publish copies only those into the snapshot)
+            previous = con.execute("SELECT run_id FROM universes WHERE universe = ?", [name]).fetchall()
+            written: list[date | None] = list(prepared_dates) if prepared_dates is not None else [None]
+            _insert(
+                con,
+                "prepared_writes",
+                pl.DataFrame(
+                    {
+                        "run_id": [run_id] * len(written),
+                        "universe": [name] * len(written),
+                        "previous_run_id": [previous[0][0] if previous else None] * len(written),
+                        "date": written,
+                    },
+                    schema={"run_id": pl.String, "universe": pl.String, "previous_run_id": pl.String, "date": pl.Date},
+                ),
+            )
             for t in UNIVERSE_TABLES:
                 if t == "prepared" and prepared_dates is not None:
                     continue

@@ -47,6 +47,7 @@ KINDS = {
     "universe": "replaced whole by each run that changes the universe",
     "window": "one row set per (universe, window_end), replaced when that window is refitted",
     "state": "one row per universe, replaced by each run that writes one (and deleted by a full refit)",
+    "log": "rows appended by each run, never replaced",
 }
 
 
@@ -259,6 +260,11 @@ SCHEMA: tuple[Table, ...] = (
         _arr("sigma", ("n", "n"), nn=True, note="Σ_t"),
         _arr("tail", ("p", "n"), nn=True, note="the last p rows"),
     ), served=False, note="the TVP filter after `window_end` (arlib.TVPState), which the next run continues"),
+    Table("prepared_writes", "run × universe × date", "log", (
+        _c("run_id", "VARCHAR", nn=True, note="(the run that wrote the universe's prepared rows)"), _c("universe", "VARCHAR", nn=True),
+        _c("previous_run_id", "VARCHAR", note="(the universe's `universes.run_id` it replaced; NULL for the first)"),
+        _c("date", "DATE", note="(a date whose prepared rows it replaced; NULL = every date of the universe)"),
+    ), served=False, note="which prepared rows each run rewrote: a publish copies only those into the snapshot"),
 )
 
 _BY_NAME = {t.name: t for t in SCHEMA}

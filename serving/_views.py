@@ -14,6 +14,7 @@ snapshot); they hold no data, only the query, so they cost nothing to keep.
 
 from __future__ import annotations
 
+import hashlib
 from typing import TYPE_CHECKING
 
 if TYPE_CHECKING:
@@ -134,8 +135,17 @@ WHERE a.source <> a.target
 }
 
 
+def view_tag(name: str) -> str:
+    """The comment stored on view `name`: its description and a hash of its SELECT text, so an
+    opened file tells whether its views are this code's (pipeline.warehouse.ensure_schema)."""
+    doc, select = VIEWS[name]
+    digest = hashlib.sha256(select.encode()).hexdigest()[:16]
+    return f"{doc} [definition {digest}]"
+
+
 def create_views(con: duckdb.DuckDBPyConnection, *, catalog: str | None = None) -> None:
-    """``CREATE OR REPLACE`` every view on `con` (a DuckDB connection), in `catalog` if given.
+    """``CREATE OR REPLACE`` every view on `con` (a DuckDB connection), in `catalog` if given,
+    each with its `view_tag` as comment.
 
     A view created in an attached file binds its table names inside that file, so the same text
     serves the warehouse and the snapshot.
@@ -143,3 +153,4 @@ def create_views(con: duckdb.DuckDBPyConnection, *, catalog: str | None = None) 
     prefix = f"{catalog}." if catalog else ""
     for name, (_, select) in VIEWS.items():
         con.execute(f"CREATE OR REPLACE VIEW {prefix}{name} AS {select}")
+        con.execute(f"COMMENT ON VIEW {prefix}{name} IS '{view_tag(name).replace(chr(39), chr(39) * 2)}'")

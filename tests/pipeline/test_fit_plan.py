@@ -121,3 +121,84 @@ def test_fingerprint_tracks_values_and_dates() -> None:
     y[3, 1] = np.nan
     assert data_fingerprint(dataclasses.replace(p, y=y)) != data_fingerprint(p)
     assert data_fingerprint(prepared(42, seed=1)) != data_fingerprint(p)
+
+
+def _reference_plan(p: Prepared, u: UniverseConfig, stored: StoredState) -> tuple[list[int], list[date], list[date]]:
+    """The window rule written plainly (the polars join of long rows, one window at a time):
+    (window ends to fit, stored ends to delete, prepared dates changed or removed)."""
+    from pipeline.fit import _changed_dates
+
+    changed, removed = _changed_dates(p.frame, stored.prepared)
+    ends, starts = window_grid(len(p.dates), u)
+    stored_map = dict(zip(stored.windows["window_end"].to_list(), stored.windows["window_start"].to_list(), strict=True))
+    fit = []
+    for e, s in zip(ends.tolist(), starts.tolist(), strict=True):
+        span = set(p.dates[s : e + 1])
+        # a removed date lies inside the span when it falls between the span's first and last date
+        gone = any(p.dates[s] < r <= p.dates[e] for r in removed)
+        if stored_map.get(p.dates[e]) != p.dates[s] or span & changed or gone:
+            fit.append(e)
+    grid = {p.dates[e] for e in ends.tolist()}
+    delete = sorted({d for d in stored_map if d not in grid} | {p.dates[e] for e in fit if p.dates[e] in stored_map})
+    return fit, delete, sorted(changed | removed)
+
+
+def test_plan_equals_the_plain_rule_on_random_histories() -> None:
+    """plan_windows compares stored and new prepared rows as matrices and tests every window at
+    once; on random revisions, appended, inserted and removed dates, gap rows (NaN / null),
+    stored windows missing, stale or with another start, rolling and expanding windows, and stored
+    rows in either order, it
+    decides exactly as the plain rule does."""
+    rng = np.random.default_rng(20261205)
+    for case in range(120):
+        T = int(rng.integers(25, 70))
+        u = dataclasses.replace(U, step=int(rng.integers(1, 6)), window=int(rng.integers(8, 22)), expanding=rng.random() < 0.3)
+        old = prepared(T, seed=case)
+        y_old = old.y.copy()
+        if rng.random() < 0.4:  # a gap row in the stored data
+            y_old[int(rng.integers(0, T)), int(rng.integers(0, 2))] = np.nan
+        old = dataclasses.replace(old, y=y_old)
+        dates, y = list(old.dates), y_old.copy()
+        for _ in range(int(rng.integers(0, 4))):  # revisions (a gap filled or opened too)
+            i, j = int(rng.integers(0, len(dates))), int(rng.integers(0, 2))
+            y[i, j] = np.nan if rng.random() < 0.2 else y[i, j] + 0.5
+        if rng.random() < 0.3:  # a date removed
+            k = int(rng.integers(1, len(dates) - 1))
+            del dates[k]
+            y = np.delete(y, k, axis=0)
+        if rng.random() < 0.3:  # a date inserted between two stored ones (stored dates are daily: use a later year)
+            dates = [d if i < len(dates) // 2 else d + timedelta(days=3650) for i, d in enumerate(dates)]
+            k = len(dates) // 2
+            dates.insert(k, dates[k] - timedelta(days=1))
+            y = np.insert(y, k, rng.standard_normal(2), axis=0)
+        add = int(rng.integers(0, 8))  # appended days
+        for _ in range(add):
+            dates.append(dates[-1] + timedelta(days=1))
+        y = np.vstack([y, rng.standard_normal((add, 2))])
+        new = Prepared("u", ("A", "B"), tuple(dates), y, old.dropped)
+        ends = window_grid(len(old.dates), u)[0]
+        keep = ends[rng.random(ends.size) < 0.85] if ends.size else ends
+        stored = stored_from(old, u, ends=keep)
+        if stored.windows.height and rng.random() < 0.3:  # a stored window with another start
+            stored = dataclasses.replace(stored, windows=stored.windows.with_columns(
+                pl.when(pl.int_range(pl.len()) == 0).then(pl.col("window_start") - timedelta(days=1))
+                .otherwise(pl.col("window_start")).alias("window_start")))  # fmt: skip
+        if rng.random() < 0.5:  # as the warehouse returns them
+            stored = dataclasses.replace(stored, prepared=stored.prepared.sort("date", "series"))
+        plan = plan_windows(new, u, stored=stored)
+        fit, delete, dates_changed = _reference_plan(new, u, stored)
+        assert plan.ends.tolist() == fit, case
+        assert plan.delete_ends == delete, case
+        assert plan.prepared_dates == dates_changed and plan.prepared_changed == bool(dates_changed), case
+
+
+def test_frame_of_dates_equals_the_filtered_frame() -> None:
+    """The store writes `Prepared.frame_of(plan.prepared_dates)`: the long rows of those dates
+    only, equal to filtering the whole frame (gap rows as null, dates not held ignored)."""
+    p = prepared(30, seed=3)
+    y = p.y.copy()
+    y[4, 1] = np.nan
+    p = dataclasses.replace(p, y=y)
+    for dates in ([], [p.dates[4]], [p.dates[0], p.dates[4], p.dates[-1], date(1999, 1, 1)], list(p.dates)):
+        assert p.frame_of(dates).equals(p.frame.filter(pl.col("date").is_in(dates))), dates
+    assert p.frame_of(None).equals(p.frame)

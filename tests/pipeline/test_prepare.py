@@ -305,3 +305,29 @@ def test_the_readme_macro_universe_prepares_quarterly_rows_from_quarterly_and_da
     np.testing.assert_array_equal(p.y[:, :3], growth)  # the same floating-point operations
     quarterly_mean = _direct(table["policy_rate"], "mean", "quarter")["value"].to_numpy()
     np.testing.assert_allclose(p.y[:, 3], np.diff(quarterly_mean), rtol=1e-12, atol=1e-14)  # ~63 doubles summed in another order
+
+
+def test_aggregate_without_shared_rows_equals_the_group_by() -> None:
+    """`_aggregate` takes the value as it is when no row holds two observations of a series
+    (`last`/`first`); it equals the group-by it skips — values (a -0.0 and a NaN too), counts,
+    dtypes and order — and a calendar that puts several observations in a row still groups."""
+    from pipeline.prepare import AGGREGATIONS, CALENDARS, _aggregate
+
+    rng = np.random.default_rng(5)
+    days = [date(2024, 1, 1) + timedelta(days=i) for i in range(60)]
+    values = rng.standard_normal(120)
+    values[[3, 70]] = [-0.0, np.nan]
+    frame = pl.DataFrame({
+        "series": ["B"] * 60 + ["A"] * 60, "date": days + days, "value": values,
+    }).sample(fraction=1.0, shuffle=True, seed=1)  # fmt: skip
+    for frequency in ("business_day", "weekly", "monthly"):
+        on_rows = frame.with_columns(CALENDARS[frequency].label(pl.col("date")).alias("row")).drop_nulls("row")
+        for how in AGGREGATIONS:
+            grouped = (
+                on_rows.sort("series", "date").group_by("series", "row", maintain_order=True)
+                .agg(AGGREGATIONS[how].expr(pl.col("value")).alias("value"), pl.len().alias("count"))
+            )  # fmt: skip
+            got = _aggregate(on_rows, how)
+            assert got.schema == grouped.schema and got.equals(grouped), (frequency, how)
+            signs = np.signbit(got["value"].to_numpy()) == np.signbit(grouped["value"].to_numpy())
+            assert signs.all(), (frequency, how)

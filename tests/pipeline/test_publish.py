@@ -11,7 +11,7 @@ import pytest
 
 from pipeline import warehouse as wh
 from pipeline.errors import PublishError
-from pipeline.publish import open_snapshot, publish_snapshot
+from pipeline.publish import PublishResult, open_snapshot, publish_snapshot
 from serving import VIEWS
 from tests.pipeline.helpers import minimal_config
 
@@ -130,3 +130,107 @@ def test_snapshot_of_another_schema_is_rebuilt(tmp_path: Path) -> None:
     assert reader.execute("SELECT total FROM connectedness").fetchall() == [(10.0,)]
     reader.close()
     con.close()
+
+
+NIGHTS = """
+[warehouse]
+path = "wh.duckdb"
+snapshot = "serving.duckdb"
+
+[[sources]]
+name = "prices"
+kind = "csv"
+path = "prices.csv"
+
+[[universes]]
+name = "trio"
+series = ["S0", "S1", "S2"]
+window = 40
+step = 1
+lags = 1
+horizon = 4
+
+[[universes]]
+name = "pair"
+series = ["S3", "S4"]
+window = 40
+step = 1
+lags = 1
+horizon = 4
+"""
+
+
+def _same_snapshots(served: Path, full: Path) -> None:
+    a, b = open_snapshot(served), open_snapshot(full)
+    try:
+        for table in wh.SNAPSHOT_TABLES:
+            q = f"SELECT * FROM {table} ORDER BY ALL"
+            assert a.execute(q).fetchall() == b.execute(q).fetchall(), table
+    finally:
+        a.close()
+        b.close()
+
+
+def test_incremental_publish_copies_only_the_prepared_rows_runs_rewrote(tmp_path: Path) -> None:
+    """Nights of new days, revisions, a skipped publish, a full refit and a run without a
+    `prepared_writes` log: after each publish the served snapshot equals a full publish table by
+    table, and the prepared rows copied are only those the runs since the last publish rewrote."""
+    from pipeline import jobs
+    from pipeline.config import load_config
+    from tests.pipeline.helpers import simulate_prices, write_config
+
+    cfg = load_config(write_config(tmp_path, NIGHTS))
+    prices = simulate_prices(80, n=5)
+
+    def run(frame: pl.DataFrame, *, full: tuple[str, ...] = ()) -> None:
+        frame.write_csv(tmp_path / "prices.csv")
+        (ingested,) = [jobs.ingest_source(cfg.warehouse.path, s) for s in cfg.sources]
+        assert ingested.status == "succeeded", ingested.message
+        for u in cfg.universes:
+            assert jobs.run_universe(cfg.warehouse.path, u, full=u.name in full).status == "succeeded"
+
+    def night(frame: pl.DataFrame, *, full: tuple[str, ...] = ()) -> PublishResult:
+        run(frame, full=full)
+        con = wh.connect(cfg.warehouse.path)
+        try:
+            inc = publish_snapshot(con, cfg.warehouse.snapshot)
+            whole = publish_snapshot(con, tmp_path / "full.duckdb", incremental=False)
+        finally:
+            con.close()
+        assert inc.rows == whole.rows
+        _same_snapshots(cfg.warehouse.snapshot, tmp_path / "full.duckdb")
+        return inc
+
+    first = night(prices.head(70))
+    assert not first.incremental  # no snapshot yet
+    # one new day: its prepared row in each universe (3 + 2 series), nothing else
+    inc = night(prices.head(71))
+    assert inc.incremental and inc.windows_synced == 2 and inc.prepared_synced == 5
+    # a revision of S1 (trio's returns on two dates) and a new day, not published (a killed run);
+    # then a revision of S4 (pair) and another day: the publish follows both runs back
+
+    def revised(days: int, *, s4: bool = True) -> pl.DataFrame:
+        frame = prices.head(days).with_columns(
+            pl.when(pl.col("date") == prices["date"][60]).then(pl.col("S1") * 1.01).otherwise(pl.col("S1")).alias("S1")
+        )
+        if s4:
+            frame = frame.with_columns(
+                pl.when(pl.col("date") == prices["date"][50]).then(pl.col("S4") * 0.99).otherwise(pl.col("S4")).alias("S4")
+            )
+        return frame
+
+    run(revised(72, s4=False))
+    inc = night(revised(73))
+    # trio: returns on rows 60 and 61 revised + 2 new days; pair: rows 50, 51 revised + 2 new days
+    assert inc.prepared_synced == 3 * (2 + 2) + 2 * (2 + 2)
+    # a full refit of trio rewrites every one of its prepared rows
+    inc = night(revised(73), full=("trio",))
+    assert inc.prepared_synced == 3 * 72  # 73 prices → 72 returns
+    # a run whose log is missing (as one written before the log existed): that universe whole
+    run(revised(74))
+    con = wh.connect(cfg.warehouse.path)
+    (pair_run,) = con.execute("SELECT run_id FROM universes WHERE universe = 'pair'").fetchone() or (None,)
+    con.execute("DELETE FROM prepared_writes WHERE run_id = ?", [pair_run])
+    con.close()
+    inc = night(revised(75))
+    assert inc.prepared_synced == 3 * 2 + 2 * 74  # trio: two new days; pair: every row

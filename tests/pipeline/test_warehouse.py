@@ -29,6 +29,36 @@ def test_schema_is_idempotent_and_versioned(tmp_path: Path) -> None:
     con.close()
 
 
+def test_a_current_schema_is_left_alone_and_any_difference_repaired(tmp_path: Path) -> None:
+    """ensure_schema's shortcut (`_schema_current`) skips the DDL only when the DDL would change
+    nothing: a missing table, a view of other code (other definition or no tag) and a missing
+    view are each put back as a fresh connect makes them."""
+    from serving._views import VIEWS
+
+    path = tmp_path / "w.duckdb"
+    con = wh.connect(path)
+
+    def catalog() -> tuple[set[str], dict[str, str]]:
+        tables = {r[0] for r in con.execute("SELECT table_name FROM duckdb_tables()").fetchall()}
+        views = dict(con.execute("SELECT view_name, sql FROM duckdb_views() WHERE NOT internal").fetchall())
+        return tables, views
+
+    fresh = catalog()
+    assert wh._schema_current(con)
+    name = next(iter(VIEWS))
+    for damage in (
+        "DROP TABLE prepared_writes",
+        f"CREATE OR REPLACE VIEW {name} AS SELECT 1 AS x",  # another definition, no tag
+        f"COMMENT ON VIEW {name} IS 'other code [definition 0000000000000000]'",
+        f"DROP VIEW {name}",
+    ):
+        con.execute(damage)
+        assert not wh._schema_current(con), damage
+        wh.ensure_schema(con)
+        assert wh._schema_current(con) and catalog() == fresh, damage
+    con.close()
+
+
 def test_newer_schema_is_refused(tmp_path: Path) -> None:
     path = tmp_path / "w.duckdb"
     con = wh.connect(path)

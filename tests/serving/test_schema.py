@@ -79,7 +79,7 @@ def test_ddl_is_generated_from_the_declarations() -> None:
         for c in t.columns:
             assert c.sql() in wh.TABLES[t.name]
     assert wh.SNAPSHOT_TABLES == tuple(t.name for t in SCHEMA if t.served)
-    assert set(wh.TABLES) - set(SNAPSHOT_TABLES) == {"observations", "revisions", "tvp_state"}
+    assert set(wh.TABLES) - set(SNAPSHOT_TABLES) == {"observations", "revisions", "tvp_state", "prepared_writes"}
     assert wh.RESULT_TABLES == tuple(t.name for t in SCHEMA if t.kind == "window")
 
 
