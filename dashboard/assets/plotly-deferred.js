@@ -35,7 +35,7 @@ Loaded after plotly-cartesian.min.js (assets load in name order), which defines 
       waiting.delete(gd);
     }
     if (args.length === 2 && undrawn(gd) && isEmpty(args[1])) {
-      return new Promise(function (resolve, reject) {
+      var put = new Promise(function (resolve, reject) {
         var entry = {resolve: resolve, reject: reject};
         entry.timer = later(function () {
           waiting.delete(gd);
@@ -43,6 +43,8 @@ Loaded after plotly-cartesian.min.js (assets load in name order), which defines 
         });
         waiting.set(gd, entry);
       });
+      if (pending) { put.then(pending.resolve, pending.reject); } // the one it replaces resolves too
+      return put;
     }
     var result = react.apply(this, args);
     if (pending) { Promise.resolve(result).then(pending.resolve, pending.reject); }
