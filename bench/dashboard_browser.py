@@ -447,7 +447,8 @@ def main(argv: list[str] | None = None) -> int:
     if args.snapshot is not None and not args.snapshot.exists():
         raise SystemExit(f"no serving snapshot at {args.snapshot}; pass --snapshot FILE or omit it for the demo's")
     with ExitStack() as stack:
-        snapshot = args.snapshot or stack.enter_context(demo_snapshot())
+        # absolute: each server runs in its own checkout folder (a relative path would name another file)
+        snapshot = args.snapshot.resolve() if args.snapshot else stack.enter_context(demo_snapshot())
         baseline = args.baseline
         if baseline is None and args.baseline_rev:
             baseline = stack.enter_context(checkout(args.baseline_rev))

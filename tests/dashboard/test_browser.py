@@ -540,3 +540,56 @@ def test_round_trips_per_interaction_do_not_grow(fresh_page: tuple[Any, RoundTri
     assert all(counts[k] <= ROUND_TRIPS[k] for k in ROUND_TRIPS), (counts, ROUND_TRIPS)
     # and the page still answers: the network shows the averaged spillovers of the new window
     wait_text(page, "#network-note", "averaged over")
+
+
+#: Put in a page before its scripts: every chart draw plotly runs (inside the page's own wrapper of
+#: `Plotly.react`, so a draw put off is recorded when it runs): graph id, traces, started, painted.
+DRAWS_JS = r"""(() => {
+  const S = window.__draws = []; let P;
+  Object.defineProperty(window, 'Plotly', {configurable: true, get() { return P; }, set(v) {
+    P = v;
+    if (!v || !v.react || v.__drawsWrapped) return;
+    const react = v.react;
+    v.react = function (gd, fig) {
+      const host = gd && gd.closest ? gd.closest('[id$="-graph"]') : null;
+      const rec = {id: host ? host.id : '', traces: fig && fig.data ? fig.data.length : 0,
+                   start: performance.now(), painted: null};
+      S.push(rec);
+      const out = react.apply(this, arguments);
+      Promise.resolve(out).then(() => requestAnimationFrame(() => { rec.painted = performance.now(); }));
+      return out;
+    };
+    v.__drawsWrapped = true;
+  }});
+})();"""
+
+
+def test_first_load_draws_no_empty_chart_before_the_index_is_painted(page: Any, served: str) -> None:
+    """Issue 15 (first chart): every tab's graph is on the page from the start, and dcc.Graph draws
+    each as it mounts, empty; those draws ran in the same task as the index chart's and held back
+    its paint (16 empty charts on the demo). A graph's first draw, when empty, now waits until the
+    browser is idle (`assets/plotly-deferred.js`): until the index chart is painted no empty chart
+    is drawn; afterwards each at most once, and a tab shown later draws its data."""
+    pg = page.context.new_page()
+    pg.set_default_timeout(TIMEOUT)
+    errors: list[str] = []
+    pg.on("pageerror", lambda exc: errors.append(str(exc)))
+    try:
+        pg.add_init_script(DRAWS_JS)
+        pg.goto(served)
+        pg.wait_for_function("() => window.__draws.some(d => d.id === 'index-graph' && d.traces > 0 && d.painted)")
+        # every graph of the page drawn at last (the empty ones once the browser was idle)
+        pg.wait_for_function(
+            "() => { const drawn = new Set(window.__draws.map(d => d.id));"
+            " return [...document.querySelectorAll('div[id$=\"-graph\"]')].every(el => drawn.has(el.id)); }"
+        )
+        draws = pg.evaluate("() => window.__draws")
+        index = next(d for d in draws if d["id"] == "index-graph" and d["traces"] > 0)
+        early = [d["id"] for d in draws if d["traces"] == 0 and d["start"] < index["painted"]]
+        assert early == [], early
+        empties = [d["id"] for d in draws if d["traces"] == 0]
+        assert "health-graph" in empties and len(empties) == len(set(empties)), empties
+        open_tab(pg, "Spillover network", "network-graph")
+        assert not errors, errors
+    finally:
+        pg.close()
