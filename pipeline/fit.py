@@ -24,11 +24,13 @@ from dataclasses import dataclass, field
 from datetime import date
 from functools import cache
 from pathlib import Path
+from types import SimpleNamespace
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import polars as pl
 
+from pipeline._fill import declared_tables
 from pipeline._reasons import name_series
 from pipeline.errors import FitError
 
@@ -518,45 +520,7 @@ def result_tables(
                 "p_value": _none_if_nan(np.asarray(rolling.granger_p)[k][:, gi, gj].reshape(-1)),
             }
         )
-    if getattr(rolling, "band_tables", None) is not None:
-        periods = rolling.band_periods
-        d = len(periods)
-        kb = np.repeat(k, d)
-        band = np.tile(np.arange(d), K)
-        tables["band_connectedness"] = pl.DataFrame(
-            {
-                **head(k, d),
-                "band": pl.Series(band, dtype=pl.Int32),
-                "period_lo": np.tile([p[0] for p in periods], K).astype(np.float64),
-                "period_hi": np.tile([p[1] for p in periods], K).astype(np.float64),
-                "truncation": pl.Series([rolling.band_truncation] * (K * d), dtype=pl.Int32),
-                "total": np.asarray(rolling.band_total)[kb, band],
-                "within_total": _none_if_nan(np.asarray(rolling.band_within)[kb, band]),
-                "band_share": np.asarray(rolling.band_share)[kb, band],
-                "to_others": _flat(np.asarray(rolling.band_to_others)[kb, band]),
-                "from_others": _flat(np.asarray(rolling.band_from_others)[kb, band]),
-                "shares": _flat(np.asarray(rolling.band_tables)[kb, band]),
-            }
-        )
-    if getattr(rolling, "joint_total", None) is not None:
-        tables["joint_connectedness"] = pl.DataFrame(
-            {
-                **head(k),
-                "total": np.asarray(rolling.joint_total)[k],
-                "generalized_total": np.asarray(rolling.total_connectedness)[k],
-                "from_others": _flat(np.asarray(rolling.joint_from_others)[k]),
-            }
-        )
-    if getattr(rolling, "tightness", None) is not None:  # estimator = "shrinkage"
-        tables["shrinkage_fits"] = pl.DataFrame(
-            {
-                **head(k),
-                "tightness": np.asarray(rolling.tightness)[k],
-                "tightness_chosen": pl.Series([bool(rolling.tightness_chosen)] * K, dtype=pl.Boolean),
-                "log_marginal_likelihood": np.asarray(rolling.log_marginal_likelihood)[k],
-                "lag_decay": np.full(K, float(rolling.lag_decay)),
-            }
-        )
+    tables.update(declared_tables(rolling, k, head))  # band, joint, shrinkage … (serving/_schema.py)
     lags = np.asarray(rolling.lags, dtype=np.int64)
     coefs = np.asarray(rolling.coefs)
     coef_lists = [coefs[w, : lags[w]].reshape(-1).tolist() for w in k]
@@ -781,6 +745,18 @@ def tvp_filter(prepared: Prepared, universe: UniverseConfig, block: TVPBlock) ->
         raise FitError(msg) from exc
 
 
+class _ResultView(SimpleNamespace):
+    """An arlib result under the rolling result's attribute names where they differ; every other
+    attribute is the result's own (so a declared table's `source` reaches a TVP result unchanged)."""
+
+    def __init__(self, result: Any, **names: Any) -> None:
+        super().__init__(**names)
+        self._result = result
+
+    def __getattr__(self, name: str) -> Any:  # called only for names not set above
+        return getattr(self.__dict__["_result"], name)
+
+
 def tvp_tables(
     result: Any, prepared: Prepared, universe: UniverseConfig, block: TVPBlock, *, run_id: str
 ) -> dict[str, pl.DataFrame]:
@@ -793,8 +769,6 @@ def tvp_tables(
     Granger tests, stored responses or decompositions (the screen and the report derive those from
     window_params).
     """
-    from types import SimpleNamespace
-
     D = len(result)
     base = 0 if block.state is None else int(block.state.row)
     idx = block.rows[np.asarray(result.ends, dtype=np.int64) - base]
@@ -803,8 +777,8 @@ def tvp_tables(
     start = int(np.searchsorted(np.asarray(prepared.dates, dtype="datetime64[D]"), np.datetime64(first, "D"))) if first else 0
     nan = np.full(D, np.nan)
     radius = result.spectral_radius if result.spectral_radius is not None else nan
-    view = SimpleNamespace(
-        ends=idx, starts=np.full(D, start, dtype=np.int64), ok=np.ones(D, dtype=bool), spectral_radius=radius,
+    view = _ResultView(
+        result, ends=idx, starts=np.full(D, start, dtype=np.int64), ok=np.ones(D, dtype=bool), spectral_radius=radius,
         skip_reason=[None] * D, portmanteau_p=None, nobs=np.asarray(result.ends) + 1, lags=np.full(D, result.lags),
         aic=nan, bic=nan, hq=nan, fpe=nan, condition_number=nan,
         total_connectedness=result.total_connectedness, to_others=result.to_others,

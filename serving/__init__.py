@@ -5,7 +5,8 @@ report exports. Imports duckdb, numpy and arlib only (no Prefect, no Dash, no pl
 - `serving._schema`: every table and column declared once (`SCHEMA`); the warehouse DDL, the
   snapshot's table list and docs/warehouse.md's schema table are generated from it.
 - `serving._views`: long SQL views over the array tables (`response_long`, …).
-- `serving._reader`: `Snapshot` / `SnapshotReader`, the one reader of the serving snapshot.
+- `serving._reader`: `Snapshot` / `SnapshotReader`, the one reader of the serving snapshot
+  (`serving._results`: a declared result table read back as arrays, `Snapshot.results`).
 - `serving._adapter`: stored parameters → arlib responses, decompositions and bands, one rule each.
 """
 
@@ -47,6 +48,7 @@ from ._reader import (
     QuantileHistory,
     Snapshot,
     SnapshotReader,
+    StoredResult,
     Universe,
     parse_date,
 )
@@ -92,6 +94,7 @@ __all__ = [
     "SnapshotMissingError",
     "SnapshotReader",
     "StoredArrayError",
+    "StoredResult",
     "Table",
     "Universe",
     "UnknownIdentificationError",

@@ -40,7 +40,9 @@ from typing import Any
 import numpy as np
 
 from ._errors import SnapshotMissingError, StoredArrayError, WindowError
+from ._results import StoredResult, stored_result
 from ._schema import SCHEMA, columns, order_by, shape_of
+from ._schema import table as schema_table
 
 __all__ = [
     "BandHistory",
@@ -1000,60 +1002,39 @@ class Snapshot:
         return out[~np.isnan(out).any(axis=1)]
 
     # -- whole histories and lineage (the report and its extracts) ----------------------------------
-    # -- optional results: frequency bands and joint connectedness ---------------------------------
+    # -- declared results (serving/_schema.py `fill`): frequency bands, joint connectedness, … ------
+    def results(self, table_name: str, universe: Universe) -> StoredResult | None:
+        """Every stored window of declared result table `table_name` as arrays (`StoredResult`),
+        or None when the universe stores none (or the snapshot predates the table)."""
+        t = schema_table(table_name)
+        if not t.fill:
+            msg = f"{table_name!r} is not a declared result table; declared: {[x.name for x in SCHEMA if x.fill]}"
+            raise KeyError(msg)
+
+        def load() -> StoredResult | None:
+            if not self.has(table_name):
+                return None
+            return stored_result(t, self.history(table_name, universe.name), len(universe.series))
+
+        return self._cached(("results", table_name, universe.name), load)
+
     def band_history(self, universe: Universe) -> BandHistory | None:
         """Frequency-band connectedness of every window, or None when the universe stores none."""
-
-        def load() -> BandHistory | None:
-            if not self.has("band_connectedness"):
-                return None
-            t = self.history("band_connectedness", universe.name)
-            if t.num_rows == 0:
-                return None
-            col = {name: t.column(name).to_pylist() for name in t.column_names}
-            d = max(col["band"]) + 1
-            W = t.num_rows // d
-            n = len(universe.series)
-            if W * d != t.num_rows:
-                msg = f"universe {universe.name!r}: band_connectedness rows are not whole windows"
-                raise StoredArrayError(msg)
-
-            def grid(name: str, *shape: int) -> np.ndarray:
-                out = np.asarray([np.nan if v is None else v for v in col[name]] if not shape else
-                                 [_need(v, shape, f"band_connectedness.{name}") for v in col[name]],
-                                 dtype=np.float64).reshape(W, d, *shape)  # fmt: skip
-                out.flags.writeable = False
-                return out
-
-            periods = tuple(zip(col["period_lo"][:d], col["period_hi"][:d], strict=True))
-            return BandHistory(
-                ends=col["window_end"][::d], periods=periods, total=grid("total"),
-                within=grid("within_total"), share=grid("band_share"),
-                to_others=grid("to_others", n), from_others=grid("from_others", n),
-                table=grid("shares", n, n), truncation=int(col["truncation"][0]),
-            )  # fmt: skip
-
-        return self._cached(("bands", universe.name), load)
+        r = self.results("band_connectedness", universe)
+        if r is None:
+            return None
+        return BandHistory(
+            ends=r.ends, periods=r.periods, total=r["total"], within=r["within_total"],
+            share=r["band_share"], to_others=r["to_others"], from_others=r["from_others"],
+            table=r["shares"], truncation=int(r.truncation or 0),
+        )  # fmt: skip
 
     def joint_history(self, universe: Universe) -> JointHistory | None:
         """Joint connectedness of every window, or None when the universe stores none."""
-
-        def load() -> JointHistory | None:
-            if not self.has("joint_connectedness"):
-                return None
-            t = self.history("joint_connectedness", universe.name)
-            if t.num_rows == 0:
-                return None
-            n = len(universe.series)
-            col = {name: t.column(name).to_pylist() for name in t.column_names}
-            from_others = np.asarray([_need(v, (n,), "joint_connectedness.from_others") for v in col["from_others"]])
-            total = np.asarray(col["total"], dtype=np.float64)
-            general = np.asarray(col["generalized_total"], dtype=np.float64)
-            for a in (from_others, total, general):
-                a.flags.writeable = False
-            return JointHistory(col["window_end"], total, general, from_others)
-
-        return self._cached(("joint", universe.name), load)
+        r = self.results("joint_connectedness", universe)
+        if r is None:
+            return None
+        return JointHistory(r.ends, r["total"], r["generalized_total"], r["from_others"])
 
     def quantile_history(self, universe: Universe) -> QuantileHistory | None:
         """Connectedness at every τ of every window, or None when the universe stores none."""
@@ -1107,7 +1088,7 @@ class Snapshot:
         """Every row of per-window `table` for `universe` up to `as_of`, all declared columns, as a
         `pyarrow.Table` ordered by window end and then the table's label columns."""
         cols = columns(table)
-        labels = [c for c in _LABEL_ORDER.get(table, ()) if c in cols]
+        labels = [c for c in (*_LABEL_ORDER.get(table, ()), "band") if c in cols]
         return self._select_window(
             table, cols, DateWindow(universe, dt.date.min, as_of or dt.date.max),
             order_by=(*order_by(table)[1:], *labels), as_arrow=True,

@@ -9,7 +9,11 @@ one-line note. From these declarations come
 - the columns the snapshot reader selects and the shapes it restores arrays to.
 
 Adding a result table or column is a change here (and in the code that writes it); the DDL, the
-snapshot copy and the documentation follow.
+snapshot copy and the documentation follow. A table whose columns name their `source` (an
+attribute of arlib's rolling or TVP result) and whose `fill` says its rows ("window": one per fitted
+window; "band": one per window and frequency band) needs no code of its own at all: the pipeline
+writes it from the result (`pipeline/_fill.py`) and `Snapshot.results` reads it back as arrays —
+a new result is its arlib attribute, its declaration here, a chart and a view.
 
 Shapes name their axes with the symbols n (series), p (the window's lag order, column `lags`),
 H (the row's `horizon`) and H+1; arrays are stored flattened in C order (docs/warehouse.md).
@@ -21,6 +25,8 @@ import math
 from dataclasses import dataclass, field
 
 __all__ = [
+    "BAND_KEY",
+    "FILLS",
     "RESULT_TABLES",
     "SCHEMA",
     "SCHEMA_VERSION",
@@ -51,9 +57,21 @@ KINDS = {
 }
 
 
+#: How a declared table's rows come from an arlib result (`Table.fill`): one row per fitted
+#: window, or one per fitted window and frequency band (the result's `band_periods`).
+FILLS = {
+    "window": "one row per fitted window: column `source` arrays (W, *shape) indexed by window",
+    "band": "one row per fitted window × band: `source` arrays (W, d, *shape), plus the band key",
+}
+
+#: The key columns of a "band" table, filled from the result's `band_periods` and `band_truncation`.
+BAND_KEY = ("band", "period_lo", "period_hi", "truncation")
+
+
 @dataclass(frozen=True)
 class Column:
-    """One column: name, SQL type, NOT NULL, the arlib shape of an array (axis symbols) and a note."""
+    """One column: name, SQL type, NOT NULL, the arlib shape of an array (axis symbols), a note and
+    (for a declared table) the arlib result attribute it is filled from."""
 
     name: str
     type: str
@@ -61,6 +79,7 @@ class Column:
     shape: tuple[str, ...] = ()
     axes: tuple[str, ...] = ()
     note: str = ""
+    source: str = ""
 
     def sql(self) -> str:
         return f"{self.name} {self.type}" + (" NOT NULL" if self.not_null else "")
@@ -74,12 +93,18 @@ class Column:
                 text += f" [{', '.join(self.axes)}]"
         if self.note:
             text += f" {self.note}"
+        if self.source:
+            text += f" ← `{self.source}`"
         return text
 
 
 @dataclass(frozen=True)
 class Table:
-    """One table: its grain ("one row per"), kind, whether the snapshot serves it, and columns."""
+    """One table: its grain ("one row per"), kind, whether the snapshot serves it, and columns.
+
+    fill / needs: for a table written from an arlib result by its declarations alone — `fill` is a
+    key of `FILLS`, `needs` the result attribute whose presence (not None) makes a run write it.
+    """
 
     name: str
     grain: str
@@ -87,6 +112,8 @@ class Table:
     columns: tuple[Column, ...]
     served: bool = True
     note: str = ""
+    fill: str = ""
+    needs: str = ""
     column_names: tuple[str, ...] = field(init=False)
 
     def __post_init__(self) -> None:
@@ -94,6 +121,16 @@ class Table:
             msg = f"table {self.name!r}: kind {self.kind!r} is none of {sorted(KINDS)}"
             raise ValueError(msg)
         object.__setattr__(self, "column_names", tuple(c.name for c in self.columns))
+        if self.fill:
+            if self.fill not in FILLS or self.kind != "window" or not self.needs:
+                msg = (f"table {self.name!r}: `fill` needs kind 'window', a `needs` attribute and "
+                       f"one of {sorted(FILLS)}; got fill={self.fill!r}, needs={self.needs!r}")
+                raise ValueError(msg)
+            key = {"run_id", "universe", "window_end", *(BAND_KEY if self.fill == "band" else ())}
+            bare = [c.name for c in self.columns if not c.source and c.name not in key]
+            if bare:
+                msg = f"table {self.name!r}: declared columns {bare} name no `source`"
+                raise ValueError(msg)
 
     def column(self, name: str) -> Column:
         for c in self.columns:
@@ -103,12 +140,23 @@ class Table:
         raise KeyError(msg)
 
 
-def _c(name: str, type_: str, *, nn: bool = False, note: str = "") -> Column:
-    return Column(name, type_, nn, note=note)
+def _c(name: str, type_: str, *, nn: bool = False, note: str = "", source: str = "") -> Column:
+    return Column(name, type_, nn, note=note, source=source)
 
 
-def _arr(name: str, shape: tuple[str, ...], *, nn: bool = False, axes: tuple[str, ...] = (), note: str = "") -> Column:
-    return Column(name, "DOUBLE[]", nn, shape, axes, note)
+def _arr(name: str, shape: tuple[str, ...], *, nn: bool = False, axes: tuple[str, ...] = (), note: str = "",
+         source: str = "") -> Column:
+    return Column(name, "DOUBLE[]", nn, shape, axes, note, source)
+
+
+def _band_key() -> tuple[Column, ...]:
+    """The key of a per-band table (`BAND_KEY`), after the window key."""
+    return (
+        _c("band", "INTEGER", nn=True, note="(0 = the shortest cycles)"),
+        _c("period_lo", "DOUBLE", nn=True),
+        _c("period_hi", "DOUBLE", nn=True, note="(the band holds cycles of period_lo < P ≤ period_hi rows; `inf` for the longest)"),
+        _c("truncation", "INTEGER", nn=True, note="(MA terms; the bands add up to connectedness at this horizon)"),
+    )
 
 
 def _window_key() -> tuple[Column, ...]:
@@ -217,22 +265,20 @@ SCHEMA: tuple[Table, ...] = (
         _arr("share", ("H", "n", "n"), nn=True, axes=("step", "variable", "shock")),
     )),
     Table("band_connectedness", "universe × window_end × frequency band", "window", (
-        *_window_key(), _c("band", "INTEGER", nn=True, note="(0 = the shortest cycles)"),
-        _c("period_lo", "DOUBLE", nn=True),
-        _c("period_hi", "DOUBLE", nn=True, note="(the band holds cycles of period_lo < P ≤ period_hi rows; `inf` for the longest)"),
-        _c("truncation", "INTEGER", nn=True, note="(MA terms; the bands add up to connectedness at this horizon)"),
-        _c("total", "DOUBLE", nn=True, note="(frequency connectedness, percent: the bands' values add up to the total index)"),
-        _c("within_total", "DOUBLE", note="(connectedness within the band alone, percent; NULL for an empty band)"),
-        _c("band_share", "DOUBLE", nn=True, note="(share of forecast-error variance in the band)"),
-        _arr("to_others", ("n",), nn=True), _arr("from_others", ("n",), nn=True),
-        _arr("shares", ("n", "n"), nn=True, axes=("variable", "shock"), note="percent (the band table)"),
-    ), note="Baruník & Křehlík (2018); only universes with `frequency_bands`"),
+        *_window_key(), *_band_key(),
+        _c("total", "DOUBLE", nn=True, source="band_total", note="(frequency connectedness, percent: the bands' values add up to the total index)"),
+        _c("within_total", "DOUBLE", source="band_within", note="(connectedness within the band alone, percent; NULL for an empty band)"),
+        _c("band_share", "DOUBLE", nn=True, source="band_share", note="(share of forecast-error variance in the band)"),
+        _arr("to_others", ("n",), nn=True, source="band_to_others"),
+        _arr("from_others", ("n",), nn=True, source="band_from_others"),
+        _arr("shares", ("n", "n"), nn=True, axes=("variable", "shock"), source="band_tables", note="percent (the band table)"),
+    ), note="Baruník & Křehlík (2018); only universes with `frequency_bands`", fill="band", needs="band_tables"),
     Table("joint_connectedness", "universe × window_end", "window", (
         *_window_key(),
-        _c("total", "DOUBLE", nn=True, note="(joint total index, percent)"),
-        _c("generalized_total", "DOUBLE", nn=True, note="(the Diebold–Yilmaz index at the same horizon)"),
-        _arr("from_others", ("n",), nn=True, note="(share of each series' variance due to all others jointly, percent)"),
-    ), note="Lastrapes & Wiesen (2021); only universes with `joint = true`"),
+        _c("total", "DOUBLE", nn=True, source="joint_total", note="(joint total index, percent)"),
+        _c("generalized_total", "DOUBLE", nn=True, source="total_connectedness", note="(the Diebold–Yilmaz index at the same horizon)"),
+        _arr("from_others", ("n",), nn=True, source="joint_from_others", note="(share of each series' variance due to all others jointly, percent)"),
+    ), note="Lastrapes & Wiesen (2021); only universes with `joint = true`", fill="window", needs="joint_total"),
     Table("quantile_connectedness", "universe × window_end × quantile", "window", (
         *_window_key(), _c("quantile", "DOUBLE", nn=True, note="(τ)"),
         _c("total", "DOUBLE", nn=True, note="(percent)"),
@@ -245,11 +291,12 @@ SCHEMA: tuple[Table, ...] = (
     ), note="Ando, Greenwood-Nimmo & Shin (2022); only universes with `estimator = \"quantile\"` (the other per-window tables hold the τ nearest 0.5)"),
     Table("shrinkage_fits", "universe × window_end", "window", (
         *_window_key(),
-        _c("tightness", "DOUBLE", nn=True, note="(λ, the Minnesota prior's overall tightness)"),
-        _c("tightness_chosen", "BOOLEAN", nn=True, note="(λ chosen by the marginal likelihood, else fixed)"),
-        _c("log_marginal_likelihood", "DOUBLE", nn=True, note="(at λ; flat intercept as a limit, arlib._shrink)"),
-        _c("lag_decay", "DOUBLE", nn=True),
-    ), note='natural-conjugate shrinkage VAR (arlib.rolling_shrinkage); only universes with `estimator = "shrinkage"`'),
+        _c("tightness", "DOUBLE", nn=True, source="tightness", note="(λ, the Minnesota prior's overall tightness)"),
+        _c("tightness_chosen", "BOOLEAN", nn=True, source="tightness_chosen", note="(λ chosen by the marginal likelihood, else fixed)"),
+        _c("log_marginal_likelihood", "DOUBLE", nn=True, source="log_marginal_likelihood", note="(at λ; flat intercept as a limit, arlib._shrink)"),
+        _c("lag_decay", "DOUBLE", nn=True, source="lag_decay"),
+    ), note='natural-conjugate shrinkage VAR (arlib.rolling_shrinkage); only universes with `estimator = "shrinkage"`',
+        fill="window", needs="tightness"),
     Table("tvp_state", "universe (model `tvp`)", "state", (
         *_window_key(), _c("window_start", "DATE", nn=True, note="(the first filtered date)"),
         _c("row", "BIGINT", nn=True, note="(complete prepared rows the filter has consumed)"),

@@ -110,7 +110,7 @@ def test_public_surface_is_pinned() -> None:
         "JointHistory", "QuantileHistory",
         "IDENTIFICATIONS", "RESULT_TABLES", "RefitMismatchError", "ResponseSet", "SCHEMA",
         "SCHEMA_VERSION", "SNAPSHOT_TABLES", "STORED", "ServingError", "Snapshot",
-        "SnapshotMissingError", "SnapshotReader", "StoredArrayError", "Table", "UNIVERSE_TABLES",
+        "SnapshotMissingError", "SnapshotReader", "StoredArrayError", "StoredResult", "Table", "UNIVERSE_TABLES",
         "UnknownIdentificationError", "Universe", "VIEWS", "WindowError", "band_settings", "bands",
         "columns", "create_views", "ddl", "decomposition", "identification_of", "normalize_identification",
         "order_by", "parse_date", "process", "refit", "responses", "schema_markdown",
