@@ -9,78 +9,9 @@ series the same colour, dash and marker wherever it appears.
 
 from __future__ import annotations
 
-from ._figures import (
-    MODEL_LABELS,
-    band_index_figure,
-    band_label,
-    band_net_figure,
-    band_pairs_figure,
-    cycles_figure,
-    granger_figure,
-    health_figure,
-    index_figure,
-    joint_index_figure,
-    message_figure,
-    model_compare_figure,
-    net_figure,
-    network_figure,
-    node_positions,
-    pairwise_compare_figure,
-    quantile_index_figure,
-    quantile_label,
-    quantile_tables_figure,
-    responses_compare_figure,
-    responses_figure,
-    shares_figure,
-    stress_runs,
-    tightness_figure,
-)
-from ._theme import (
-    DIVERGING,
-    FONT,
-    FONT_FAMILY,
-    OKABE_ITO,
-    SEQUENTIAL,
-    SIGNIFICANCE_MARK,
-    Figure,
-    Medium,
-    colour,
-    series_style,
-)
+from . import _figures, _theme
+from ._figures import *  # noqa: F403  (the builders; `_figures.__all__` is the one list of them)
+from ._theme import *  # noqa: F403  (the theme; `_theme.__all__` lists it)
 
-__all__ = [
-    "DIVERGING",
-    "FONT",
-    "FONT_FAMILY",
-    "MODEL_LABELS",
-    "OKABE_ITO",
-    "SEQUENTIAL",
-    "SIGNIFICANCE_MARK",
-    "Figure",
-    "Medium",
-    "band_index_figure",
-    "band_label",
-    "band_net_figure",
-    "band_pairs_figure",
-    "colour",
-    "cycles_figure",
-    "granger_figure",
-    "health_figure",
-    "index_figure",
-    "joint_index_figure",
-    "message_figure",
-    "model_compare_figure",
-    "net_figure",
-    "network_figure",
-    "node_positions",
-    "pairwise_compare_figure",
-    "quantile_index_figure",
-    "quantile_label",
-    "quantile_tables_figure",
-    "responses_compare_figure",
-    "responses_figure",
-    "series_style",
-    "shares_figure",
-    "stress_runs",
-    "tightness_figure",
-]
+#: Everything the two modules export: a new builder is added to `_figures.__all__` only.
+__all__ = [*_figures.__all__, *_theme.__all__]

@@ -55,10 +55,14 @@ __all__ = [
     "network_figure",
     "node_positions",
     "pairwise_compare_figure",
+    "quantile_index_figure",
+    "quantile_label",
+    "quantile_tables_figure",
     "responses_compare_figure",
     "responses_figure",
     "shares_figure",
     "stress_runs",
+    "tightness_figure",
 ]
 
 

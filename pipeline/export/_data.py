@@ -13,6 +13,7 @@ Array conventions (docs/warehouse.md, ../shared/DESIGN.md):
 from __future__ import annotations
 
 import datetime as dt
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -22,12 +23,14 @@ from pipeline.errors import ExportError
 from pipeline.export._derive import derive_decompositions, derive_responses
 from pipeline.export._snapshot import Snapshot, UniverseInfo, frame
 from serving import (
+    SCHEMA,
     BandHistory,
     DecompositionSet,
     JointHistory,
     QuantileHistory,
     ResponseSet,
     ServingError,
+    StoredResult,
     stored_decompositions,
     stored_responses,
 )
@@ -66,6 +69,9 @@ class ReportData:
     counterpart: tuple[str, str, list[tuple[dt.date, float]]] | None = None
     #: a shrinkage universe's λ per window (shrinkage_fits: window_end, tightness, ...); None otherwise
     tightness: pl.DataFrame | None = None
+    #: every declared result table (serving/_schema.py `fill`) the universe stores, read back whole
+    #: (`Snapshot.results`): a new declared result reaches the report's sections with no edit here
+    results: Mapping[str, StoredResult] = field(default_factory=dict)
 
     @property
     def run(self) -> dict | None:
@@ -176,6 +182,7 @@ def _gather(snap: Snapshot, universe: str, as_of: dt.date | None) -> ReportData:
         bands=snap.band_history(info), joint=snap.joint_history(info), quantiles=snap.quantile_history(info), counterpart=_counterpart(snap, info, report_date),
         tightness=(frame(snap.history("shrinkage_fits", universe, report_date))
                    if info.estimator == "shrinkage" and "shrinkage_fits" in snap.tables() else None),
+        results={t.name: r for t in SCHEMA if t.fill and (r := snap.results(t.name, info)) is not None},
     )
 
 

@@ -86,3 +86,17 @@ def test_band_index_right_axis_spans_the_hidden_within_band_lines() -> None:
     y2 = fig["layout"]["yaxis2"]
     assert y2["range"][0] == 0 and 32.0 <= y2["range"][1] <= 32.0 * 1.1
     assert len(fig["layout"]["yaxis"]["title"]["text"]) <= 30  # a long title is clipped on screen
+
+
+def test_every_public_builder_is_exported() -> None:
+    """`charts` exports `_figures.__all__`: a public function left out of it is not reachable as
+    `charts.name` (three were, until the package started exporting the list itself)."""
+    import inspect
+
+    from charts import _figures
+
+    public = {name for name, f in inspect.getmembers(_figures, inspect.isfunction)
+              if f.__module__ == _figures.__name__ and not name.startswith("_")}
+    assert public <= set(_figures.__all__)
+    assert set(_figures.__all__) <= set(charts.__all__)
+    assert all(hasattr(charts, name) for name in charts.__all__)

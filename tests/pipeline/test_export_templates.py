@@ -32,7 +32,7 @@ from pipeline.export import export_universe
 from pipeline.export._data import ReportData, gather
 from pipeline.export._report import SECTIONS, environment, render_report, report_context
 from pipeline.export._snapshot import open_snapshot
-from serving import BandHistory, JointHistory, QuantileHistory
+from serving import SCHEMA, BandHistory, JointHistory, QuantileHistory, StoredResult, Table
 from tests.pipeline.test_export_snapshot_builder import build_snapshot
 
 REPO = Path(__file__).resolve().parents[2]
@@ -153,6 +153,15 @@ def data(snap: Path) -> ReportData:
         s.close()
 
 
+def invented_result(t: Table, ends: list, n: int, rng: np.random.Generator) -> StoredResult:
+    """Invented values in [0, 30) for every column of declared result table `t` (three bands)."""
+    band = t.fill == "band"
+    lead = (len(ends), 3) if band else (len(ends),)
+    values = {c.name: rng.uniform(0, 30, (*lead, *(n for _ in c.shape))) for c in t.columns if c.source}
+    periods = ((1.0, 5.0), (5.0, 20.0), (20.0, float("inf"))) if band else ()
+    return StoredResult(t.name, ends, periods, 100 if band else None, values)
+
+
 def every_section(d: ReportData, estimator: str) -> ReportData:
     """`d` with invented band, joint, quantile, tightness and counterpart histories, so that every
     section is drawn (tails only for estimator "quantile")."""
@@ -173,8 +182,9 @@ def every_section(d: ReportData, estimator: str) -> ReportData:
     tightness = pl.DataFrame({"window_end": ends, "tightness": rng.uniform(0.01, 2, w),
                               "tightness_chosen": [True] * w})
     info = dataclasses.replace(d.info, config={**d.info.config, "estimator": estimator})
+    results = {t.name: invented_result(t, ends, n, rng) for t in SCHEMA if t.fill}
     return dataclasses.replace(
-        d, info=info, bands=bands, joint=joint, tightness=tightness,
+        d, info=info, bands=bands, joint=joint, tightness=tightness, results=results,
         quantiles=quantiles if estimator == "quantile" else None,
         counterpart=(f"other {HOSTILE}", "tvp", [(e, float(v)) for e, v in zip(ends, rng.uniform(0, 60, w), strict=True)]),
     )  # fmt: skip
