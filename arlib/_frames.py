@@ -175,6 +175,9 @@ ROLLING_AXES: dict[str, tuple[str, ...]] = {
     "band_to_others": ("band", "series"),
     "band_from_others": ("band", "series"),
     "joint_from_others": ("series",),
+    "joint_band_total": ("band",),
+    "joint_band_from_others": ("band", "series"),
+    "joint_band_variance": ("band", "series"),
 }
 
 

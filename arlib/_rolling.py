@@ -121,7 +121,7 @@ from ._frequency import (
     default_grid,
     frequency_measures,
 )
-from ._joint import joint_kernel
+from ._joint import joint_band_kernel, joint_kernel
 from ._labels import date_rows
 from ._sizes import minimum_window
 from ._validate import (
@@ -214,6 +214,11 @@ class RollingVAR:
         band_to_others, band_from_others (W, d, n) — None without bands.
     joint_from_others : (W, n) percent, each window's `joint_connectedness` (Lastrapes & Wiesen
         2021) at `horizon`, and joint_total (W,) their mean — None unless ``joint=True``.
+    joint_band_from_others : (W, d, n) percent, each window's `joint_frequency_connectedness`
+        `from_others` (band d's part of i's joint share at `band_truncation` steps; summed over
+        bands, the joint share at that horizon); joint_band_total (W, d) their mean over series;
+        joint_band_variance (W, d, n) Γ_i(d), the share of i's variance in band d — None unless
+        both bands and ``joint=True``.
     dates : (W,) datetime64, the date of each window's last row (a window is named by it), or
         None when the data had no dates (a DataFrame's date column or `dates=`).
 
@@ -268,6 +273,9 @@ class RollingVAR:
     band_from_others: np.ndarray | None = None
     joint_from_others: np.ndarray | None = None
     joint_total: np.ndarray | None = None
+    joint_band_from_others: np.ndarray | None = None
+    joint_band_total: np.ndarray | None = None
+    joint_band_variance: np.ndarray | None = None
     dates: np.ndarray | None = None
 
     def to_frame(self, field: str | None = None) -> Any:
@@ -470,7 +478,8 @@ def rolling_var(
     frequency_bands : None, or a partition of cycle lengths ((P_lo, P_hi], ...) as in
         `frequency_connectedness` — also store each window's band connectedness, computed from
         the window's coefficients and Σ̂_u with `band_truncation` MA terms.
-    joint : also store each window's joint connectedness at `horizon` (`joint_connectedness`).
+    joint : also store each window's joint connectedness at `horizon` (`joint_connectedness`);
+        with `frequency_bands`, also split by band (`joint_frequency_connectedness`).
     workers : threads that process chunks of windows side by side (default 1). numpy, BLAS and
         LAPACK release the interpreter lock in their loops, so threads gain when cores are free
         (the Python-level bookkeeping between calls still runs one thread at a time); every
@@ -600,11 +609,20 @@ def _with_extras(
         weights = band_weights(parts, N)
         d = len(parts)
         tables = np.full((W, d, n, n), np.nan)
+        joint_parts = np.full((W, d, n), np.nan) if joint else None
+        variance = np.full((W, d, n), np.nan) if joint else None
         # per window: a_h and its transposed copy (2H n² floats), the size-2H rfft and its square
         per = max(1, (32 * 2**20) // (8 * n * n * (2 * H + 3 * (H + 1) + d)))
         for lo in range(0, k.size, per):
             sel = k[lo : lo + per]
             tables[sel] = 100.0 * band_kernel(coefs[sel], sigma[sel], H, N, weights)
+            if joint_parts is not None and variance is not None:
+                # J_i(d) and Γ_i(d) (`joint_frequency_connectedness`), the same grid and truncation
+                joint_parts[sel], variance[sel] = joint_band_kernel(coefs[sel], sigma[sel], H, N, weights)
+        if joint_parts is not None:
+            joint_parts *= 100.0
+            extra.update(joint_band_from_others=joint_parts, joint_band_total=joint_parts.mean(axis=-1),
+                         joint_band_variance=variance)
         m = frequency_measures(tables)
         extra.update(
             band_periods=parts, band_truncation=H, band_tables=tables, band_total=m["total"],

@@ -48,6 +48,7 @@ __all__ = [
     "granger_figure",
     "health_figure",
     "index_figure",
+    "joint_band_figure",
     "joint_index_figure",
     "message_figure",
     "model_compare_figure",
@@ -939,6 +940,55 @@ def joint_index_figure(
                 "yanchor": "bottom"},
         margin={"l": 60, "r": 20, "t": 60, "b": 80},
         xaxis=th.axis(type="date"), yaxis=th.axis(title={"text": "% of forecast-error variance"}),
+    )  # fmt: skip
+    return {"data": data, "layout": layout}
+
+
+def joint_band_figure(
+    dates: Sequence[dt.date],
+    totals: np.ndarray,
+    periods: Sequence[tuple[float, float]],
+    *,
+    universe: str,
+    truncation: int,
+    generalized: np.ndarray | None = None,
+    unit: str = "rows",
+    medium: Medium = "screen",
+) -> Figure:
+    """The joint index split by cycle length over every window (Lastrapes–Wiesen 2021 by
+    Baruník–Křehlík 2018 band), stacked in the band colours of `band_index_figure`.
+
+    totals : (W, d) band d's part of the joint index in percent; stacked, the bands add up to the
+    joint index at horizon `truncation`. generalized : optional (W,) the generalized
+    (row-normalised) index at the same horizon, drawn as a dashed line for comparison.
+    """
+    x = th.dates(dates)
+    arr = np.asarray(totals, dtype=float)
+    data: list[dict[str, Any]] = []
+    for b, (lo, hi) in enumerate(periods):
+        name = band_label(lo, hi, unit)
+        c = BAND_COLOURS[b % len(BAND_COLOURS)]
+        data.append({
+            "type": "scatter", "x": x, "y": th.as_list(arr[:, b]), "mode": "lines", "name": name,
+            "stackgroup": "joint", "line": {"color": c, "width": 1.0}, "fillcolor": c,
+            "hovertemplate": f"joint, {name}: " + "%{y:.1f}%<extra></extra>",
+        })  # fmt: skip
+    if generalized is not None:
+        data.append({
+            "type": "scatter", "x": x, "y": th.as_list(generalized), "mode": "lines",
+            "name": "generalized, all bands", "line": {"color": "#333333", "width": 1.2, "dash": "dash"},
+            "hovertemplate": "generalized %{y:.1f}%<extra></extra>",
+        })  # fmt: skip
+    layout = th.layout(
+        height=360, medium=medium,
+        title=f"Joint connectedness by cycle length, {universe}",
+        subtitle=(f"% of forecast-error variance due to all other shocks together, stacked by band: the "
+                  f"bands add up to the joint index at {truncation} steps"),
+        legend={"orientation": "h", "x": 0.0, "xanchor": "left", "yref": "container", "y": 0.0,
+                "yanchor": "bottom"},
+        margin={"l": 60, "r": 20, "t": 70, "b": 90},
+        xaxis=th.axis(type="date"),
+        yaxis=th.axis(title={"text": "joint index share, %"}),
     )  # fmt: skip
     return {"data": data, "layout": layout}
 

@@ -68,6 +68,8 @@ __all__ = [
     "empty_note",
     "health_view",
     "index_view",
+    "joint_bands_view",
+    "joint_tab",
     "joint_view",
     "leadlag_view",
     "models_view",
@@ -694,6 +696,42 @@ def joint_view(snap: Snapshot, state: Any) -> ViewResult:
     return fig, rows, note
 
 
+@guard
+def joint_bands_view(snap: Snapshot, state: Any) -> ViewResult:
+    """The joint index split by cycle length over every window, next to the generalized index."""
+    window = _window(snap, state)
+    u = snap.universe(window.universe)
+    jb = snap.results("joint_band_connectedness", u)
+    if jb is None:
+        msg = (f"Universe '{u.name}' stores no joint connectedness by cycle length; it needs both "
+               "`joint = true` and `frequency_bands = [5, 20]` in its [[universes]] table.")
+        raise WindowError(msg)
+    bh = snap.band_history(u)  # the generalized index at the same truncation, when stored
+    general = bh.total.sum(axis=1) if bh is not None and bh.ends == jb.ends and bh.truncation == jb.truncation else None
+    truncation = int(jb.truncation or 0)
+    fig = charts.joint_band_figure(jb.ends, jb["total"], jb.periods, universe=u.name,
+                                   truncation=truncation, generalized=general)  # fmt: skip
+    labels = [charts.band_label(lo, hi) for lo, hi in jb.periods]
+    rows = [
+        {"window_end": iso(e), "band": labels[b], "joint_percent": num(jb["total"][w, b]),
+         **{f"joint_from_{s}": num(jb["from_others"][w, b, i]) for i, s in enumerate(u.series)},
+         **{f"variance_share_{s}": num(jb["variance_share"][w, b, i]) for i, s in enumerate(u.series)}}
+        for w, e in enumerate(jb.ends) for b in range(len(labels))
+    ]  # fmt: skip
+    end = snap.fitted_end(window)
+    k = jb.at(end)
+    parts = ", ".join(f"{lab}: {jb['total'][k, b]:.1f}" for b, lab in enumerate(labels))
+    note = (f"Each band's part of the joint index at {truncation} steps (the bands add up to it); at "
+            f"{end}: {parts} percent. A series' band part divided by its variance share in the band "
+            "is the joint share within that band (CSV).")  # fmt: skip
+    return fig, rows, note
+
+
+def joint_tab(snap: Snapshot, state: Any) -> tuple[ViewResult, ViewResult]:
+    """The two charts of the joint tab."""
+    return joint_view(snap, state), joint_bands_view(snap, state)
+
+
 def _quantile_history(snap: Snapshot, state: Any) -> tuple[Universe, Any, dt.date]:
     window = _window(snap, state)
     u = snap.universe(window.universe)
@@ -979,9 +1017,10 @@ VIEWS: tuple[View, ...] = (
                 "(Baruník–Křehlík 2018): the stored index split by cycle length, in rows of the "
                 "universe's calendar; each series' net role by cycle length at the window end; and "
                 "who sends to whom in each band at the window end.")),
-    View("joint", joint_view, tab="Joint index", charts=(("joint", 360),),
+    View("joint", joint_tab, tab="Joint index", charts=(("joint", 360), ("joint-bands", 360)),
          intro=("The share of each series' forecast-error variance due to all other shocks together "
-                "(Lastrapes–Wiesen 2021), next to the row-normalised generalized index.")),
+                "(Lastrapes–Wiesen 2021), next to the row-normalised generalized index; below, the "
+                "same joint index split by cycle length (with frequency bands).")),
     View("models", models_view, tab="Rolling vs TVP", charts=(("models", 360),),
          intro=("The same series estimated both ways: total connectedness from rolling windows of "
                 "least squares next to the time-varying-parameter VAR filtered per date, for a "

@@ -279,6 +279,16 @@ SCHEMA: tuple[Table, ...] = (
         _c("generalized_total", "DOUBLE", nn=True, source="total_connectedness", note="(the Diebold–Yilmaz index at the same horizon)"),
         _arr("from_others", ("n",), nn=True, source="joint_from_others", note="(share of each series' variance due to all others jointly, percent)"),
     ), note="Lastrapes & Wiesen (2021); only universes with `joint = true`", fill="window", needs="joint_total"),
+    Table("joint_band_connectedness", "universe × window_end × frequency band", "window", (
+        *_window_key(), *_band_key(),
+        _c("total", "DOUBLE", nn=True, source="joint_band_total",
+           note="(band's part of the joint index, percent: the bands add up to the joint index at `truncation` steps)"),
+        _arr("from_others", ("n",), nn=True, source="joint_band_from_others",
+             note="(band's part of each series' share due to all others jointly, percent)"),
+        _arr("variance_share", ("n",), nn=True, source="joint_band_variance",
+             note="(share of each series' forecast-error variance in the band; from_others / variance_share is the joint share within the band)"),
+    ), note="Lastrapes & Wiesen (2021) split by Baruník & Křehlík (2018) band; universes with `frequency_bands` and `joint = true`",
+        fill="band", needs="joint_band_total"),
     Table("quantile_connectedness", "universe × window_end × quantile", "window", (
         *_window_key(), _c("quantile", "DOUBLE", nn=True, note="(τ)"),
         _c("total", "DOUBLE", nn=True, note="(percent)"),

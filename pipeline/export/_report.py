@@ -190,7 +190,8 @@ def _connectedness(d: ReportData, chart: _Charts) -> dict[str, Any]:
 def _cycles(d: ReportData, chart: _Charts) -> dict[str, Any] | None:
     """Connectedness by cycle length (Baruník–Křehlík) and the joint index, when the universe stores them."""
     cut = d.report_date
-    bands = joint = None
+    bands: dict[str, Any] | None = None
+    joint: dict[str, Any] | None = None
     if d.bands is not None:
         bh = d.bands
         keep = [w for w, e in enumerate(bh.ends) if e <= cut]
@@ -219,9 +220,27 @@ def _cycles(d: ReportData, chart: _Charts) -> dict[str, Any] | None:
         jh = d.joint
         keep = [w for w, e in enumerate(jh.ends) if e <= cut]
         if keep:
-            joint = {"charts": [chart(charts.joint_index_figure(
+            joint_charts = [chart(charts.joint_index_figure(
                 [jh.ends[w] for w in keep], jh.total[keep], jh.generalized_total[keep],
-                universe=d.info.name, horizon=d.info.horizon, medium="print"), div_id="fig-joint")]}  # fmt: skip
+                universe=d.info.name, horizon=d.info.horizon, medium="print"), div_id="fig-joint")]  # fmt: skip
+            joint_bands: dict[str, Any] | None = None
+            jb = d.results.get("joint_band_connectedness")
+            kb = [w for w, e in enumerate(jb.ends) if e <= cut] if jb is not None else []
+            if jb is not None and kb:
+                gb = d.bands
+                general = (gb.total.sum(axis=1)[kb] if gb is not None and gb.ends == jb.ends
+                           and gb.truncation == jb.truncation else None)  # fmt: skip
+                joint_charts.append(chart(charts.joint_band_figure(
+                    [jb.ends[w] for w in kb], jb["total"][kb], jb.periods, universe=d.info.name,
+                    truncation=int(jb.truncation or 0), generalized=general, medium="print"),
+                    div_id="fig-joint-bands"))  # fmt: skip
+                last = kb[-1]
+                joint_bands = {
+                    "truncation": jb.truncation, "window_end": str(jb.ends[last]),
+                    "rows": [{"label": charts.band_label(lo, hi), "total": _f(jb["total"][last, b])}
+                             for b, (lo, hi) in enumerate(jb.periods)],
+                }  # fmt: skip
+            joint = {"charts": joint_charts, "bands": joint_bands}
     if bands is None and joint is None:
         return None
     return {"bands": bands, "joint": joint}

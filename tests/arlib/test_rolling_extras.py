@@ -3,7 +3,10 @@
 Checks: each window of `rolling_var(..., frequency_bands=, joint=True)` against
 `frequency_connectedness` and `joint_connectedness` of `fit_var` on the same rows (1e-8, the
 engine's documented agreement); the bands add up to the stored Diebold–Yilmaz index when the
-horizon equals the truncation (Baruník & Křehlík 2018, discrete Parseval).
+horizon equals the truncation (Baruník & Křehlík 2018, discrete Parseval); joint connectedness by
+band equals `joint_frequency_connectedness` window by window and its bands add up to the
+Lastrapes–Wiesen joint shares at the truncation horizon (Lastrapes & Wiesen 2021 with the
+Parseval split of Baruník & Křehlík 2018 eqs. 10–12).
 """
 
 from __future__ import annotations
@@ -45,6 +48,24 @@ def test_every_window_equals_the_single_fit_functions() -> None:
         np.testing.assert_allclose(r.band_from_others[w], fc.from_others, rtol=1e-8, atol=1e-8)
         np.testing.assert_allclose(r.joint_from_others[w], jc.from_others, rtol=1e-8, atol=1e-8)
         assert math.isclose(r.joint_total[w], jc.total, rel_tol=1e-8)
+        jb = arlib.joint_frequency_connectedness(fit, bands=BANDS, truncation=60)
+        np.testing.assert_allclose(r.joint_band_from_others[w], jb.from_others, rtol=1e-8, atol=1e-8)
+        np.testing.assert_allclose(r.joint_band_total[w], jb.total, rtol=1e-8, atol=1e-8)
+        np.testing.assert_allclose(r.joint_band_variance[w], jb.variance_share, rtol=1e-8, atol=1e-8)
+
+
+def test_joint_bands_add_up_to_the_joint_shares_at_the_truncation_horizon() -> None:
+    y = _data(seed=4)
+    r = arlib.rolling_var(y, 150, 1, 30, step=40, frequency_bands=BANDS, band_truncation=30, joint=True)
+    np.testing.assert_allclose(r.joint_band_from_others.sum(axis=1), r.joint_from_others, atol=1e-9)
+    np.testing.assert_allclose(r.joint_band_total.sum(axis=1), r.joint_total, atol=1e-9)
+    np.testing.assert_allclose(r.joint_band_variance.sum(axis=1), 1.0, atol=1e-12)
+    whole = arlib.rolling_var(y, 150, 1, 30, step=40, frequency_bands=BANDS, band_truncation=30, joint=True)
+    late = arlib.rolling_var(y, 150, 1, 30, step=40, frequency_bands=BANDS, band_truncation=30, joint=True,
+                             ends=whole.ends[2:])
+    assert np.array_equal(late.joint_band_from_others, whole.joint_band_from_others[2:])  # bit-identical
+    long = r.to_frame("joint_band_from_others")
+    assert list(long.columns[-3:]) == ["band", "series", "value"] and len(long) == r.joint_band_from_others.size
 
 
 def test_bands_add_up_to_the_stored_index_at_the_truncation_horizon() -> None:
@@ -65,7 +86,9 @@ def test_skipped_windows_have_nan_extras() -> None:
 
 def test_without_the_options_nothing_extra_is_computed() -> None:
     r = arlib.rolling_var(_data(T=200), 100, 1, 5, step=50)
-    assert r.band_tables is None and r.joint_total is None
+    assert r.band_tables is None and r.joint_total is None and r.joint_band_total is None
+    only_bands = arlib.rolling_var(_data(T=200), 100, 1, 5, step=50, frequency_bands=BANDS)
+    assert only_bands.band_total is not None and only_bands.joint_band_total is None
 
 
 def test_bad_bands_are_refused_before_fitting() -> None:

@@ -143,3 +143,37 @@ def test_cycle_lengths_and_joint_index_same_on_screen_and_in_report(snap: Snapsh
     joint_printed = plotly_traces(html, "fig-joint")
     for a, b in zip(joint_printed, joint_screen["data"], strict=True):
         np.testing.assert_allclose(np.asarray(a["y"], dtype=float), np.asarray(b["y"], dtype=float), rtol=1e-12)
+
+
+def test_joint_by_cycle_length_from_arlib_to_screen_and_report(snap: Snapshot, made: tuple[Path, str]) -> None:
+    """Joint connectedness by band (Lastrapes–Wiesen 2021 split by Baruník–Křehlík 2018 band):
+    the stored values of the latest window equal arlib's `joint_frequency_connectedness` of the
+    window refitted on its stored rows (1e-8, the engine's documented agreement), the screen's
+    stacked bands plot them, the report plots the same values in the same colours, and its table
+    prints them."""
+    import arlib
+    from serving import refit
+
+    html = made[1]
+    u = snap.universe(UNIVERSE)
+    jb = snap.results("joint_band_connectedness", u)
+    assert jb is not None and len(jb.periods) == 3
+    end = jb.ends[-1]
+    single = arlib.joint_frequency_connectedness(refit(snap, u, end), bands=jb.periods, truncation=jb.truncation)
+    np.testing.assert_allclose(jb["total"][-1], single.total, rtol=1e-8, atol=1e-8)
+    np.testing.assert_allclose(jb["from_others"][-1], single.from_others, rtol=1e-8, atol=1e-8)
+    np.testing.assert_allclose(jb["variance_share"][-1], single.variance_share, rtol=1e-8, atol=1e-8)
+    # stored for the same windows as the joint index
+    joint = snap.joint_history(u)
+    assert joint is not None and joint.ends == jb.ends
+    (_, _, _), (screen, rows, note) = cb.joint_tab(snap, latest_state(snap))
+    stacked = [t for t in screen["data"] if t.get("stackgroup") == "joint"]
+    assert len(stacked) == 3 and len(rows) == 3 * len(jb.ends)
+    np.testing.assert_allclose(np.asarray(stacked[0]["y"], dtype=float), jb["total"][:, 0], rtol=1e-12)
+    assert f"{jb['total'][-1, 0]:.1f}" in note
+    printed = plotly_traces(html, "fig-joint-bands")
+    assert [t["name"] for t in printed] == [t["name"] for t in screen["data"]]
+    for a, b in zip(printed, screen["data"], strict=True):
+        np.testing.assert_allclose(np.asarray(a["y"], dtype=float), np.asarray(b["y"], dtype=float), rtol=1e-12)
+        assert a["line"]["color"] == b["line"]["color"]
+    assert "Joint index by band, window ending " + str(end) in html
