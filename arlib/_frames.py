@@ -8,6 +8,7 @@ are imported only when a frame is asked for; arlib itself needs numpy and scipy 
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -152,33 +153,12 @@ ROLLING_SUMMARY = (
     "condition_number", "total_connectedness", "portmanteau_p", "joint_total",
 )  # fmt: skip
 
-#: Column names of the axes after the window axis, per array attribute of a `RollingVAR`
-#: ("series" axes are labelled by series names; "lag" counts from 1, "horizon" from 0,
-#: "step" from 1, "band" by the band's "lo-hi" cycle lengths in rows).
-ROLLING_AXES: dict[str, tuple[str, ...]] = {
-    "coefs": ("lag", "equation", "series"),
-    "intercept": ("series",),
-    "trend_coef": ("series",),
-    "sigma_u": ("variable", "other"),
-    "to_others": ("series",),
-    "from_others": ("series",),
-    "net": ("series",),
-    "pairwise": ("variable", "shock"),
-    "granger_f": ("caused", "causing"),
-    "granger_p": ("caused", "causing"),
-    "responses": ("horizon", "response", "shock"),
-    "decomposition": ("step", "variable", "shock"),
-    "band_tables": ("band", "variable", "shock"),
-    "band_total": ("band",),
-    "band_within": ("band",),
-    "band_share": ("band",),
-    "band_to_others": ("band", "series"),
-    "band_from_others": ("band", "series"),
-    "joint_from_others": ("series",),
-    "joint_band_total": ("band",),
-    "joint_band_from_others": ("band", "series"),
-    "joint_band_variance": ("band", "series"),
-}
+def rolling_axes(result: Any) -> dict[str, tuple[str, ...]]:
+    """Column names of the axes after the window axis, per array attribute of a `RollingVAR`,
+    as its fields declare them (`_rolling._axes`): "series" axes are labelled by series names;
+    "lag" counts from 1, "horizon" from 0, "step" from 1, "band" by the band's "lo-hi" cycle
+    lengths in rows."""
+    return {f.name: f.metadata["axes"] for f in dataclasses.fields(result) if "axes" in f.metadata}
 
 
 def _axis_labels(result: Any, axis: str, size: int) -> np.ndarray:
@@ -207,9 +187,10 @@ def rolling_columns(result: Any, field: str | None) -> Columns:
                 lead[name] = np.asarray(value)
         summary: Columns = dict(lead)
         return summary
-    if field not in ROLLING_AXES:
+    layout = rolling_axes(result)
+    if field not in layout:
         msg = (
-            f"`field` must be one of {sorted(ROLLING_AXES)!r} (or None for one row per window), "
+            f"`field` must be one of {sorted(layout)!r} (or None for one row per window), "
             f"got {field!r}"
         )
         raise InvalidInputError(msg)
@@ -224,7 +205,7 @@ def rolling_columns(result: Any, field: str | None) -> Columns:
     values = np.asarray(values)
     W = values.shape[0]
     axes = [(name, _axis_labels(result, name, size))
-            for name, size in zip(ROLLING_AXES[field], values.shape[1:], strict=True)]  # fmt: skip
+            for name, size in zip(layout[field], values.shape[1:], strict=True)]  # fmt: skip
     per = int(np.prod(values.shape[1:], dtype=np.int64))
     out: Columns = {k: np.repeat(v, per) for k, v in lead.items()}
     grid = np.indices(values.shape[1:]).reshape(len(axes), per)

@@ -95,7 +95,7 @@ import warnings
 from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import Future, ThreadPoolExecutor
 from contextlib import contextmanager
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, field, fields
 from functools import partial
 from itertools import pairwise
 from typing import Any
@@ -161,6 +161,12 @@ GRAM_BYTES = 64 * 2**20
 # ---------------------------------------------------------------------------------------------
 # result
 # ---------------------------------------------------------------------------------------------
+
+
+def _axes(*axes: str) -> dict[str, tuple[str, ...]]:
+    """Field metadata of a `RollingVAR` array: its axes after the window axis, the columns of
+    ``to_frame(field)`` (labels from `_frames`). Declared here, beside the field."""
+    return {"axes": axes}
 
 
 @dataclass(frozen=True, eq=False, repr=False)
@@ -230,10 +236,10 @@ class RollingVAR:
     starts: np.ndarray
     nobs: np.ndarray
     lags: np.ndarray
-    coefs: np.ndarray
-    intercept: np.ndarray | None
-    trend_coef: np.ndarray | None
-    sigma_u: np.ndarray
+    coefs: np.ndarray = field(metadata=_axes("lag", "equation", "series"))
+    intercept: np.ndarray | None = field(metadata=_axes("series"))
+    trend_coef: np.ndarray | None = field(metadata=_axes("series"))
+    sigma_u: np.ndarray = field(metadata=_axes("variable", "other"))
     spectral_radius: np.ndarray
     aic: np.ndarray
     bic: np.ndarray
@@ -241,16 +247,16 @@ class RollingVAR:
     fpe: np.ndarray
     condition_number: np.ndarray
     total_connectedness: np.ndarray
-    to_others: np.ndarray
-    from_others: np.ndarray
-    net: np.ndarray
-    pairwise: np.ndarray
-    granger_f: np.ndarray | None
-    granger_p: np.ndarray | None
+    to_others: np.ndarray = field(metadata=_axes("series"))
+    from_others: np.ndarray = field(metadata=_axes("series"))
+    net: np.ndarray = field(metadata=_axes("series"))
+    pairwise: np.ndarray = field(metadata=_axes("variable", "shock"))
+    granger_f: np.ndarray | None = field(metadata=_axes("caused", "causing"))
+    granger_p: np.ndarray | None = field(metadata=_axes("caused", "causing"))
     granger_df: np.ndarray | None
-    responses: np.ndarray | None
+    responses: np.ndarray | None = field(metadata=_axes("horizon", "response", "shock"))
     response_kind: str | None
-    decomposition: np.ndarray | None
+    decomposition: np.ndarray | None = field(metadata=_axes("step", "variable", "shock"))
     decomposition_kind: str | None
     portmanteau_p: np.ndarray | None
     portmanteau_lags: int | None
@@ -265,17 +271,17 @@ class RollingVAR:
     criterion: str | None
     band_periods: tuple[tuple[float, float], ...] | None = None
     band_truncation: int | None = None
-    band_tables: np.ndarray | None = None
-    band_total: np.ndarray | None = None
-    band_within: np.ndarray | None = None
-    band_share: np.ndarray | None = None
-    band_to_others: np.ndarray | None = None
-    band_from_others: np.ndarray | None = None
-    joint_from_others: np.ndarray | None = None
+    band_tables: np.ndarray | None = field(default=None, metadata=_axes("band", "variable", "shock"))
+    band_total: np.ndarray | None = field(default=None, metadata=_axes("band"))
+    band_within: np.ndarray | None = field(default=None, metadata=_axes("band"))
+    band_share: np.ndarray | None = field(default=None, metadata=_axes("band"))
+    band_to_others: np.ndarray | None = field(default=None, metadata=_axes("band", "series"))
+    band_from_others: np.ndarray | None = field(default=None, metadata=_axes("band", "series"))
+    joint_from_others: np.ndarray | None = field(default=None, metadata=_axes("series"))
     joint_total: np.ndarray | None = None
-    joint_band_from_others: np.ndarray | None = None
-    joint_band_total: np.ndarray | None = None
-    joint_band_variance: np.ndarray | None = None
+    joint_band_from_others: np.ndarray | None = field(default=None, metadata=_axes("band", "series"))
+    joint_band_total: np.ndarray | None = field(default=None, metadata=_axes("band"))
+    joint_band_variance: np.ndarray | None = field(default=None, metadata=_axes("band", "series"))
     dates: np.ndarray | None = None
 
     def to_frame(self, field: str | None = None) -> Any:
@@ -284,7 +290,7 @@ class RollingVAR:
         per-window number (``spectral_radius``, ``aic`` .. ``fpe``, ``condition_number``,
         ``total_connectedness``, and ``portmanteau_p`` / ``joint_total`` when stored). With
         `field` (e.g. "pairwise", "responses", "granger_p"): ``date`` (when known), ``end``, one
-        column per further axis of that array (`_frames.ROLLING_AXES`), then ``value``.
+        column per further axis of that array (as each field declares them, `_axes`), then ``value``.
         """
         return _frames.to_pandas(_frames.rolling_columns(self, field), "RollingVAR")
 
