@@ -3,6 +3,8 @@
 `make lint` (and so CI) runs mypy with the `[tool.mypy]` settings of pyproject.toml. A package left
 out of `files` is not checked at all, and a bare `# type: ignore[code]` hides an error without
 saying why it is safe; both are caught here from the source text (nothing is imported or run).
+The reason rule also covers tests/ and bench/: mypy does not check them in `make lint`, but an
+ignore there hides an error from whoever runs mypy on them, so it says why as well.
 """
 
 from __future__ import annotations
@@ -18,7 +20,7 @@ ROOT = Path(__file__).resolve().parents[1]
 #: Top-level folders that are packages but are not installed (development only).
 NOT_SHIPPED = {"tests", "bench"}
 
-#: `# type: ignore[code, ...]` followed on the same comment by `# <reason>` (a word at least).
+#: An ignore comment with its codes, then on the same comment `# <reason>` (a word at least).
 EXPLAINED = re.compile(r"#\s*type:\s*ignore\[[a-z0-9-]+(?:,\s*[a-z0-9-]+)*\]\s+#\s*\w.*$")
 
 
@@ -43,6 +45,21 @@ def unexplained_ignores(source: str, name: str = "<text>") -> list[str]:
     return out
 
 
+def ignore_rule_folders() -> list[str]:
+    """The folders whose ignores must say why: the type-checked packages, tests/ and bench/."""
+    return [*_mypy()["files"], *sorted(NOT_SHIPPED)]
+
+
+def unexplained_ignores_under(folders: list[str], root: Path = ROOT) -> list[str]:
+    """`unexplained_ignores` of every `.py` file under `root / folder` for each folder."""
+    bad: list[str] = []
+    for folder in folders:
+        for path in sorted((root / folder).rglob("*.py")):
+            name = str(path.relative_to(root))
+            bad += unexplained_ignores(path.read_text(encoding="utf-8"), name)
+    return bad
+
+
 def test_the_rule_reads_comments_as_intended():
     # the two forms the rule refuses, and the one it accepts (examples written for this test)
     assert unexplained_ignores("x = f()  # type: ignore[arg-type]\n")
@@ -50,6 +67,19 @@ def test_the_rule_reads_comments_as_intended():
     assert unexplained_ignores("x = f()  # type: ignore[arg-type]  #\n")
     assert not unexplained_ignores("x = f()  # type: ignore[arg-type]  # polars says int | None\n")
     assert not unexplained_ignores('s = "# type: ignore[misc]"\n')  # text in a string is no comment
+
+
+def test_the_rule_reads_tests_and_bench(tmp_path: Path):
+    # a made-up tree: one unexplained and one explained ignore in each of tests/ and bench/
+    for folder in ("tests", "bench"):
+        (tmp_path / folder / "sub").mkdir(parents=True)
+        (tmp_path / folder / "sub" / "bare.py").write_text("x = f()  # type: ignore[misc]\n")
+        (tmp_path / folder / "said.py").write_text("x = f()  # type: ignore[misc]  # on purpose\n")
+    assert {"tests", "bench"} <= set(ignore_rule_folders())
+    assert unexplained_ignores_under(ignore_rule_folders(), tmp_path) == [
+        "bench/sub/bare.py:1: # type: ignore[misc]",
+        "tests/sub/bare.py:1: # type: ignore[misc]",
+    ]
 
 
 def test_mypy_covers_every_top_level_package():
@@ -77,12 +107,8 @@ def test_mypy_settings_keep_ignores_honest():
     assert _mypy()["ignore_missing_imports"] is True
 
 
-def test_every_type_ignore_in_checked_code_says_why():
-    bad: list[str] = []
-    for package in _mypy()["files"]:
-        for path in sorted((ROOT / package).rglob("*.py")):
-            name = str(path.relative_to(ROOT))
-            bad += unexplained_ignores(path.read_text(encoding="utf-8"), name)
+def test_every_type_ignore_in_packages_tests_and_bench_says_why():
+    bad = unexplained_ignores_under(ignore_rule_folders())
     assert not bad, (
         "each `# type: ignore[code]` needs a reason on its line, e.g. "
         "`# type: ignore[attr-defined]  # Dash sets this attribute at runtime` (or fix the type):\n"

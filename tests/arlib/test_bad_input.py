@@ -86,7 +86,7 @@ def test_collinear_series_names_regressors(data: np.ndarray) -> None:
 @pytest.mark.parametrize("lags", [0, -1, 1.5, True, "2"])
 def test_bad_lags(data: np.ndarray, lags: object) -> None:
     with pytest.raises(arlib.InvalidInputError, match="`lags` must"):
-        arlib.fit_var(data, lags)  # type: ignore[arg-type]
+        arlib.fit_var(data, lags)  # type: ignore[arg-type]  # bad lags, refused on purpose
 
 
 def test_bad_horizon(fit: arlib.VARFit) -> None:
@@ -112,7 +112,7 @@ def test_wrong_shapes() -> None:
     with pytest.raises(arlib.InvalidInputError, match="positive definite"):
         arlib.var_process(np.zeros((2, 2)), np.array([[1.0, 2.0], [2.0, 1.0]]))
     with pytest.raises(arlib.InvalidInputError, match="must be a VAR fit"):
-        arlib.impulse_responses(np.eye(2), 4)  # type: ignore[arg-type]
+        arlib.impulse_responses(np.eye(2), 4)  # type: ignore[arg-type]  # refused on purpose
 
 
 def test_unknown_options(data: np.ndarray, fit: arlib.VARFit) -> None:

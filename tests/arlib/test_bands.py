@@ -157,7 +157,7 @@ def test_band_argument_errors(fit: arlib.VARFit) -> None:
     with pytest.raises(
         arlib.InvalidInputError, match="`rng` must be a numpy Generator, an integer"
     ):
-        arlib.irf_bands(fit, 4, rng="seed")  # type: ignore[arg-type]
+        arlib.irf_bands(fit, 4, rng="seed")  # type: ignore[arg-type]  # refused on purpose
     proc = arlib.var_process(fit.coefs, fit.sigma_u)
     with pytest.raises(arlib.InvalidInputError, match="estimated VARFit"):
-        arlib.irf_bands(proc, 4)  # type: ignore[arg-type]
+        arlib.irf_bands(proc, 4)  # type: ignore[arg-type]  # a VARProcess, refused on purpose

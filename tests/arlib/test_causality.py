@@ -88,7 +88,7 @@ def test_rejects_process_and_overlap(var2_data: np.ndarray) -> None:
     fit = arlib.fit_var(var2_data, 1)
     proc = arlib.var_process(fit.coefs, fit.sigma_u)
     with pytest.raises(arlib.InvalidInputError, match="estimated VARFit"):
-        arlib.granger_test(proc, 0, 1)  # type: ignore[arg-type]
+        arlib.granger_test(proc, 0, 1)  # type: ignore[arg-type]  # a VARProcess, refused on purpose
     with pytest.raises(arlib.InvalidInputError, match=r"overlap in \['y1'\]"):
         arlib.granger_test(fit, [0, 1], [1, 2])
     with pytest.raises(arlib.InvalidInputError, match=r"index 5, outside 0\.\.2"):

@@ -29,7 +29,7 @@ def test_shapes_and_readonly(var2_data: np.ndarray) -> None:
         with pytest.raises(ValueError, match="read-only"):
             arr[0] = 0.0
     with pytest.raises(AttributeError):
-        fit.lags = 3  # type: ignore[misc]
+        fit.lags = 3  # type: ignore[misc]  # frozen, written on purpose
 
 
 def test_normal_equations_and_sigma(var2_data: np.ndarray) -> None:

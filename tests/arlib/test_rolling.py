@@ -459,7 +459,7 @@ def test_result_shapes_and_read_only() -> None:
     np.testing.assert_allclose(res.decomposition.sum(axis=-1), 1.0, rtol=1e-12)
     np.testing.assert_allclose(res.total_connectedness, res.from_others.mean(axis=1), rtol=1e-12)
     with pytest.raises(AttributeError):
-        res.window = 3  # type: ignore[misc]
+        res.window = 3  # type: ignore[misc]  # frozen, written on purpose
     assert "201 rolling windows" in repr(res)
 
 

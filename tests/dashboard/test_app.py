@@ -153,7 +153,10 @@ def test_settings_workers_and_no_environment_unless_given(tmp_path: Path, monkey
     assert DashboardSettings(snapshot=tmp_path / "s").with_address(workers=5).workers == 5
     for bad in (0, -1, 65, 2.5, True, "2"):
         with pytest.raises(DashboardError, match="`workers` must be a whole number"):
-            DashboardSettings(snapshot=tmp_path / "s", workers=bad)  # type: ignore[arg-type]
+            DashboardSettings(
+                snapshot=tmp_path / "s",
+                workers=bad,  # type: ignore[arg-type]  # bad counts, refused on purpose
+            )
     # only the entry point reads the environment: without `environ`, none is read
     monkeypatch.setenv("SHOCKFLOW_DASHBOARD_TOKEN", "from-env")
     assert DashboardSettings.from_config(cfg).token is None

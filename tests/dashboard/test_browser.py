@@ -182,7 +182,8 @@ def test_first_view_and_caution(page: Any, exports: Path, universe_name: str, bo
     page.screenshot(path=str(ARTIFACTS / "01-overview-shock-paths.png"))
     # the caution stays in view when the page is scrolled to the bottom
     page.mouse.wheel(0, 5000)
-    assert caution.is_visible() and caution.bounding_box()["y"] < 800  # type: ignore[index]
+    box = caution.bounding_box()
+    assert caution.is_visible() and box is not None and box["y"] < 800
     page.mouse.wheel(0, -5000)
 
 

@@ -88,7 +88,9 @@ def test_arrays_restored_in_c_order(snap: Snapshot, snapshot_path: Path, univers
     assert fit.coefs[0, 1, 0] == coefs[1 * n + 0]
     assert fit.coefs[0, 0, 1] == coefs[0 * n + 1]
     np.testing.assert_array_equal(fit.sigma_u, np.asarray(sigma).reshape(n, n))
-    resp, lower, upper, _ = snap.responses(u, end, "generalized")  # type: ignore[misc]
+    stored = snap.responses(u, end, "generalized")
+    assert stored is not None
+    resp, lower, upper, _ = stored
     assert lower is not None and upper is not None and lower.shape == upper.shape == resp.shape
     assert resp.shape[1:] == (n, n)
     assert not resp.flags.writeable

@@ -57,7 +57,7 @@ def post(base: str, body: dict[str, Any]) -> dict[str, Any]:
     )  # fmt: skip
     with urllib.request.urlopen(req, timeout=60) as r:
         assert r.status == 200
-        return json.loads(r.read())  # type: ignore[no-any-return]
+        return json.loads(r.read())
 
 
 @pytest.fixture(scope="module")

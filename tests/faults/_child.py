@@ -46,7 +46,7 @@ def _kill_inside_transaction(target: str) -> None:
             if action == target:
                 _die()  # every statement of the transaction ran; COMMIT never happens
 
-    wh.transaction = transaction  # type: ignore[assignment]
+    wh.transaction = transaction
 
 
 def arm(point: str) -> None:
@@ -64,20 +64,20 @@ def arm(point: str) -> None:
                 _die()
             return original(prepared, universe, *args, **kwargs)
 
-        jobs.fit_block_step = fit_block_step  # type: ignore[assignment]
+        jobs.fit_block_step = fit_block_step
     elif point == "publish":
         from pipeline import publish
 
         original_order = publish._order_by
         calls = {"n": 0}
 
-        def order_by(table: str) -> str:
+        def order_by(table: str, prefix: str = "") -> str:
             calls["n"] += 1
             if calls["n"] == 5:
                 _die()
-            return original_order(table)
+            return original_order(table, prefix)
 
-        publish._order_by = order_by  # type: ignore[assignment]
+        publish._order_by = order_by
     elif point == "export":
         from pipeline.export import _export, _paths
 
@@ -87,7 +87,7 @@ def arm(point: str) -> None:
                 fh.write(text)
             _die()  # the report is in its temporary file; the rename never happens
 
-        _export._write_text_atomic = write_text_atomic  # type: ignore[assignment]
+        _export._write_text_atomic = write_text_atomic
     elif point != "none":
         raise SystemExit(f"unknown kill point {point!r}; use one of {', '.join(POINTS)}")
 

@@ -24,6 +24,7 @@ import signal
 import subprocess
 import sys
 import time
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
@@ -111,10 +112,12 @@ def assert_finished_like_reference(night: Night, ref: Reference, killed_batches:
     assert not leftovers, f"temporary snapshot files left behind: {leftovers}"
 
 
-def _survive(night: Night, night1: Night, ref: Reference, kill: object) -> dict[str, str]:
+def _survive(
+    night: Night, night1: Night, ref: Reference, kill: Callable[[], str]
+) -> dict[str, str]:
     """Run the kill, check consistency, resume, compare; returns what the warehouse held after the kill."""
     before = night.tables()
-    phase = kill()  # type: ignore[operator]
+    phase = kill()
     assert isinstance(phase, str)
     killed = night.tables()
     held = assert_consistent(killed, night.snapshot_tables(), night1, ref)

@@ -36,7 +36,7 @@ def test_config_is_frozen_and_compares_by_value(tmp_path: Path) -> None:
     assert a == b
     assert hash(a.universes[0]) == hash(b.universes[0])
     with pytest.raises(dataclasses.FrozenInstanceError):
-        a.universes[0].window = 10  # type: ignore[misc]
+        a.universes[0].window = 10  # type: ignore[misc]  # frozen, written on purpose
     assert "UniverseConfig(name='pair'" in repr(a.universes[0])
 
 

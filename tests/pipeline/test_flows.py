@@ -6,12 +6,18 @@ Data: an invented VAR(1) scenario (tests.pipeline.helpers.simulate_prices).
 from __future__ import annotations
 
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import duckdb
 import pytest
 
 from pipeline.config import load_config
 from tests.pipeline.helpers import simulate_prices, write_config
+
+if TYPE_CHECKING:  # Prefect is imported by the tests that use it, not at collection
+    from prefect.client.schemas.objects import Artifact, Log, State
+
+    from pipeline._summary import NightlySummary
 
 pytestmark = pytest.mark.prefect
 
@@ -50,7 +56,7 @@ formats = ["csv"]
 """
 
 
-def prefect_record(summary: object) -> tuple[object, list[object], list[object]]:
+def prefect_record(summary: NightlySummary) -> tuple[State, list[Artifact], list[Log]]:
     """(final state, artifacts, log records) of a nightly run, read back from the Prefect API.
 
     Logs travel to the API in batches; the read waits for the INFO line of the run's first
@@ -68,7 +74,7 @@ def prefect_record(summary: object) -> tuple[object, list[object], list[object]]
     )
     from prefect.logging.handlers import APILogWorker
 
-    ids = [uuid.UUID(i) for i in summary.flow_run_ids]  # type: ignore[attr-defined]
+    ids = [uuid.UUID(i) for i in summary.flow_run_ids]
     APILogWorker.drain_all(timeout=30)
     with get_client(sync_client=True) as client:
         state = client.read_flow_run(ids[0]).state
@@ -79,6 +85,7 @@ def prefect_record(summary: object) -> tuple[object, list[object], list[object]]
             if any(lg.name.startswith("shockflow.") for lg in logs) or time.monotonic() > deadline:
                 break
             time.sleep(0.5)
+    assert state is not None, f"flow run {ids[0]} has no state in the Prefect API"
     return state, artifacts, logs
 
 
@@ -101,16 +108,18 @@ def test_nightly_flow_runs_what_it_can_and_reports_partial(prefect_harness: None
     # Prefect's record: the flow run Failed naming both failures, the summary as a table artifact,
     # the pipeline's INFO lines among the run's logs
     state, artifacts, logs = prefect_record(summary)
-    assert state.type.value == "FAILED", state  # type: ignore[attr-defined]
-    assert "source 'absent'" in state.message and "universe 'broken'" in state.message  # type: ignore[attr-defined]
-    (artifact,) = [a for a in artifacts if a.key == "shockflow-nightly-summary"]  # type: ignore[attr-defined]
-    assert artifact.type == "table"  # type: ignore[attr-defined]
-    table = artifact.data if isinstance(artifact.data, list) else __import__("json").loads(artifact.data)  # type: ignore[attr-defined]
+    assert state.type.value == "FAILED", state
+    message = state.message or ""
+    assert "source 'absent'" in message and "universe 'broken'" in message, state
+    (artifact,) = [a for a in artifacts if a.key == "shockflow-nightly-summary"]
+    assert artifact.type == "table"
+    data = artifact.data
+    table = data if isinstance(data, list) else __import__("json").loads(data)
     assert [(r["kind"], r["name"], r["status"]) for r in table][:4] == [
         ("source", "prices", "succeeded"), ("source", "absent", "failed"),
         ("universe", "trio", "succeeded"), ("universe", "broken", "failed"),
     ]
-    info = [lg.message for lg in logs if lg.level == 20 and lg.name.startswith("shockflow.")]  # type: ignore[attr-defined]
+    info = [lg.message for lg in logs if lg.level == 20 and lg.name.startswith("shockflow.")]
     assert any(m.startswith("source prices:") and "rows read" in m for m in info), info
     assert any(m.startswith("universe trio: 12 fitted") for m in info), info
     # the snapshot holds the succeeded universe; the failure is in `runs` and `ingest_batches`
@@ -138,11 +147,11 @@ def test_nothing_runs_gives_exit_code_1(prefect_harness: None, tmp_path: Path) -
     text = CONFIG.replace('path = "prices.csv"', 'path = "missing.csv"')
     cfg = load_config(write_config(tmp_path, text))
     summary = nightly(cfg)
-    assert all(r.status == "failed" for r in summary.ingest + summary.universes)  # type: ignore[operator]
+    assert all(r.status == "failed" for r in summary.ingest + summary.universes)
     assert not summary.published and summary.exit_code == 1
     assert not cfg.warehouse.snapshot.exists()
     state, _artifacts, _logs = prefect_record(summary)
-    assert state.type.value == "FAILED" and state.message.startswith("nothing ran"), state  # type: ignore[attr-defined]
+    assert state.type.value == "FAILED" and (state.message or "").startswith("nothing ran"), state
 
 
 CATCH_UP = """
@@ -185,7 +194,7 @@ def test_a_missing_report_is_exported_again_and_a_present_one_is_left_alone(pref
     cfg = load_config(write_config(tmp_path, CATCH_UP))
     first = nightly(cfg)
     assert first.published and first.exit_code == 0
-    assert prefect_record(first)[0].type.value == "COMPLETED"  # type: ignore[attr-defined]
+    assert prefect_record(first)[0].type.value == "COMPLETED"
     (folder,) = {Path(p).parent for p in first.exported["trio"]}
     # the folder is named by the universe's latest window end in the snapshot (pipeline.export)
     snap = duckdb.connect(str(cfg.warehouse.snapshot), read_only=True)

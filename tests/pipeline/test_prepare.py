@@ -24,7 +24,7 @@ def universe(**kw: object) -> UniverseConfig:
         "max_fill_gap": 1,
     }
     base.update(kw)
-    return UniverseConfig(**base)  # type: ignore[arg-type]
+    return UniverseConfig(**base)  # type: ignore[arg-type]  # field overrides of mixed types
 
 
 def obs(table: dict[str, list[tuple[date, float]]]) -> pl.DataFrame:

@@ -32,7 +32,8 @@ EXPECTED = pl.DataFrame(
 
 
 def csv_source(path: Path | str, **kw: object) -> SourceConfig:
-    return SourceConfig(name="s", kind="csv", path=str(path), **kw)  # type: ignore[arg-type]
+    fields: dict[str, object] = {"name": "s", "kind": "csv", "path": str(path), **kw}
+    return SourceConfig(**fields)  # type: ignore[arg-type]  # field overrides of mixed types
 
 
 def read(path: Path, text: str | bytes, **kw: object) -> pl.DataFrame:
@@ -208,9 +209,11 @@ def server() -> Iterator[str]:
 
 
 def http_source(url: str, **kw: object) -> SourceConfig:
-    base = {"timeout": 5.0, "retries": 2, "backoff": 0.01}
+    base: dict[str, object] = {
+        "name": "h", "kind": "http_csv", "url": url, "timeout": 5.0, "retries": 2, "backoff": 0.01,
+    }
     base.update(kw)
-    return SourceConfig(name="h", kind="http_csv", url=url, **base)  # type: ignore[arg-type]
+    return SourceConfig(**base)  # type: ignore[arg-type]  # field overrides of mixed types
 
 
 def test_http_ok(server: str) -> None:

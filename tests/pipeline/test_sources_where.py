@@ -80,7 +80,7 @@ def s3(s3_server: ObjectServer, monkeypatch: pytest.MonkeyPatch) -> ObjectServer
 def s3_source(path: str, **kw: object) -> SourceConfig:
     base: dict[str, object] = {"name": "store", "kind": "parquet", "path": path, "timeout": 5.0, "retries": 0}
     base.update(kw)
-    return SourceConfig(**base)  # type: ignore[arg-type]
+    return SourceConfig(**base)  # type: ignore[arg-type]  # field overrides of mixed types
 
 
 def test_parquet_and_csv_globs_on_the_object_store(s3: ObjectServer) -> None:
@@ -180,7 +180,7 @@ QUERY = "SELECT d AS date, name AS series, v AS value FROM px"
 def pg_source(pg: Postgres, **kw: object) -> SourceConfig:
     base: dict[str, object] = {"name": "pg", "kind": "sql", "connection": pg.url(), "query": QUERY, "layout": "long", "timeout": 5.0}
     base.update(kw)
-    return SourceConfig(**base)  # type: ignore[arg-type]
+    return SourceConfig(**base)  # type: ignore[arg-type]  # field overrides of mixed types
 
 
 def _pg_rows(pg: Postgres) -> int:
@@ -347,7 +347,8 @@ def _workbook(path: Path) -> Path:
 
 
 def excel(path: Path, **kw: object) -> SourceConfig:
-    return SourceConfig(name="book", kind="excel", path=str(path), **kw)  # type: ignore[arg-type]
+    fields: dict[str, object] = {"name": "book", "kind": "excel", "path": str(path), **kw}
+    return SourceConfig(**fields)  # type: ignore[arg-type]  # field overrides of mixed types
 
 
 def test_excel_sheet_range_table_and_defined_name(tmp_path: Path) -> None:
