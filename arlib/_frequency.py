@@ -169,22 +169,31 @@ def frequency_response_kernel(coefs: np.ndarray, truncation: int, grid: int) -> 
     return np.fft.rfft(ma_kernel(coefs, truncation - 1), n=grid, axis=-3)
 
 
+def ma_terms(coefs: np.ndarray, start: np.ndarray, terms: int) -> np.ndarray:
+    """(D, terms, n, m) Φ_h B, h < terms, from coefs (D, p, n, n) and B (D, n, m) (a view).
+
+    Φ_0 B = B,  Φ_h B = Σ_{j=1}^{min(h,p)} A_j Φ_{h−j} B   (Φ_h = Σ_j A_j Φ_{h−j}, Lütkepohl 2005
+    eq. 2.3.9, the A_j commuting form), one batched (n × np)(np × m) product per step.
+    """
+    D, p, n, _ = coefs.shape
+    m = start.shape[-1]
+    A = np.concatenate(list(np.moveaxis(coefs[:, ::-1], -3, 0)), axis=-1)  # [A_p … A_1]
+    buf = np.zeros((D, terms + p - 1, n, m))  # Φ_h B at index h + p − 1; zeros stand for h < 0
+    buf[:, p - 1] = start
+    for h in range(1, terms):
+        lagged = buf[:, h - 1 : h + p - 1].reshape(D, p * n, m)  # [Φ_{h−p}B; …; Φ_{h−1}B] (view)
+        np.matmul(A, lagged, out=buf[:, h + p - 1])
+    return buf[:, p - 1 :]
+
+
 def scaled_ma(coefs: np.ndarray, sigma: np.ndarray, terms: int) -> np.ndarray:
     """(D, terms, n, n) a_h = Φ_h Σ D_σ^{-1/2}, h < terms, from coefs (D, p, n, n), Σ (D, n, n).
 
-    a_0 = Σ D_σ^{-1/2},  a_h = Σ_{j=1}^{min(h,p)} A_j a_{h−j}   (Φ_h = Σ_j A_j Φ_{h−j}, Lütkepohl
-    2005 eq. 2.3.9, the A_j commuting form), one batched (n × np)(np × n) product per step.
+    `ma_terms` started at a_0 = Σ D_σ^{-1/2}.
     a_h[i, k]² = σ_kk^{-1} (e_i'Φ_hΣe_k)², the generalized FEVD term (Pesaran–Shin eq. 11).
     """
-    D, p, n, _ = coefs.shape
-    A = np.concatenate(list(np.moveaxis(coefs[:, ::-1], -3, 0)), axis=-1)  # [A_p … A_1]
-    buf = np.zeros((D, terms + p - 1, n, n))  # a_h at index h + p − 1; zeros stand for h < 0
     sd = np.sqrt(np.diagonal(sigma, axis1=-2, axis2=-1))
-    buf[:, p - 1] = sigma / sd[:, None, :]
-    for h in range(1, terms):
-        lagged = buf[:, h - 1 : h + p - 1].reshape(D, p * n, n)  # [a_{h−p}; …; a_{h−1}] (view)
-        np.matmul(A, lagged, out=buf[:, h + p - 1])
-    return buf[:, p - 1 :]
+    return ma_terms(coefs, sigma / sd[:, None, :], terms)
 
 
 def band_map(weights: np.ndarray, grid: int, terms: int) -> tuple[int, np.ndarray]:
