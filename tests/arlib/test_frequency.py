@@ -279,10 +279,10 @@ def test_grid_error_against_the_exact_band_integrals():
 
 
 @pytest.mark.parametrize(("truncation", "grid"), [(100, 800), (30, 30), (25, 77), (1, 8)])
-def test_small_rfft_band_kernel_equals_the_grid_definition(truncation, grid):
-    # band_kernel takes r_m = Σ_h a_h a_{h+m} from an rfft of size 2H and maps it to the grid-N
-    # band sums (Wiener–Khinchin: |F(ω)|² = r_0 + 2 Σ_m r_m cos ωm); frequency_kernel evaluates the
-    # definition, BK 2018 eqs. 10–12, on the size-N grid. Same numbers to rounding, for any N >= H
+def test_band_kernel_equals_the_grid_definition(truncation, grid):
+    # band_kernel takes each grid-N band sum as the quadratic form a'T_d a (T_d the band's Toeplitz
+    # Gram matrix) through its eigenpairs above 1e-14 and the remainder band; frequency_kernel
+    # evaluates the definition, BK 2018 eqs. 10–12, by an rfft on the size-N grid. Same numbers to rounding, for any N >= H
     # (also N = H and odd N), on a batch of processes with unequal variances and correlated errors.
     rng = np.random.default_rng(truncation + grid)
     procs = [random_process(rng, n=5, p=3, radius=0.95) for _ in range(4)]
