@@ -43,13 +43,14 @@ Diebold–Yilmaz table at horizon H. What truncation and gridding leave:
   N = max(8·H, 512) keeps it below 0.01 percentage points of a band entry in the tests'
   processes (measured 1e-5 to 3e-3) (pinned against the exact band integrals Σ_{h,l} a_h a_l ∫_d cos(ω(h−l)) dω).
 
-That grid sum is the definition (`frequency_kernel`). The kernel every public path uses,
-`band_kernel`, computes the same sums without a spectrum: for one entry's sequence a_h = (Φ_h Σ
+That grid sum is the definition (`frequency_kernel`). The kernel of `frequency_connectedness`,
+the rolling engine and the TVP filter, `band_kernel`, computes the same sums without a spectrum: for one entry's sequence a_h = (Φ_h Σ
 D_σ^{-1/2})_{jk}, Σ_j w_d(j) |Σ_h a_h e^{−iω_j h}|² = a' T_d a with the symmetric Toeplitz
 T_d[h, l] = Σ_j w_d(j) cos(ω_j (h − l)); Σ_d T_d = N·I (Parseval), and each T_d / N has few
-eigenvalues that are not negligible (about H·|d|/π plus a few). So a band sum is Σ_r λ_r (v_r'a)²
+eigenvalues that are not negligible (about H·|d|/π near one, |d| the band's angular width,
+plus a transition of O(log H · log 1/ε) per band edge). So a band sum is Σ_r λ_r (v_r'a)²
 over the eigenpairs with λ_r > 1e-14 (dropping the rest moves a fraction by at most 1e-14), the
-widest band is the remainder N‖a‖² minus the others, and the even/odd symmetry of the
+band with most eigenpairs left (the widest) is the remainder N‖a‖² minus the others, and the even/odd symmetry of the
 eigenvectors halves the products (`band_projection`). Tests pin it to `frequency_kernel` at 1e-12.
 
 Shapes: band tables (d, n, n) indexed [band, variable, shock]; directional measures (d, n).
@@ -259,9 +260,10 @@ def band_projection(weights: np.ndarray, grid: int, terms: int) -> BandProjectio
     Σ_d T_d = N·I (discrete Parseval, N ≥ H). With T_d / N = Σ_r λ_r v_r v_r' (λ_r ∈ [0, 1]),
     S_d / N = Σ_r λ_r (v_r' a)². Eigenvalues λ_r ≤ `EIGEN_FLOOR` (1e-14) are dropped: each moves
     S_d / N by at most 1e-14·‖a‖², i.e. a row-normalised fraction θ̃_d[j, k] by at most 1e-14 —
-    the size of the rounding in T_d itself (the spectra of band-limiting matrices fall off
-    super-exponentially past the band's share of H, so about H·|d|/π + O(log H) vectors remain:
-    22 and 54 of 100 for the periods (20, ∞] and (5, 20] at N = 800). The band with most
+    the size of the rounding in T_d itself. The spectra of such band-limiting matrices have about
+    H·|d|/π eigenvalues near one (|d| the band's angular width) and fall off super-exponentially
+    after a transition of O(log H · log 1/ε) per band edge: 22 and 54 of 100 remain for the
+    periods (20, ∞] and (5, 20] at N = 800 (where H·|d|/π is 10 and 30). The band with most
     vectors left is not projected at all: S_rest / N = ‖a‖² − Σ_{others} S_d / N.
 
     A symmetric Toeplitz matrix commutes with the reversal h ↦ H − 1 − h, so its eigenvectors
