@@ -43,6 +43,16 @@ Diebold–Yilmaz table at horizon H. What truncation and gridding leave:
   N = max(8·H, 512) keeps it below 0.01 percentage points of a band entry in the tests'
   processes (measured 1e-5 to 3e-3) (pinned against the exact band integrals Σ_{h,l} a_h a_l ∫_d cos(ω(h−l)) dω).
 
+That grid sum is the definition (`frequency_kernel`). The kernel of `frequency_connectedness`,
+the rolling engine and the TVP filter, `band_kernel`, computes the same sums without a spectrum: for one entry's sequence a_h = (Φ_h Σ
+D_σ^{-1/2})_{jk}, Σ_j w_d(j) |Σ_h a_h e^{−iω_j h}|² = a' T_d a with the symmetric Toeplitz
+T_d[h, l] = Σ_j w_d(j) cos(ω_j (h − l)); Σ_d T_d = N·I (Parseval), and each T_d / N has few
+eigenvalues that are not negligible (about H·|d|/π near one, |d| the band's angular width,
+plus a transition of O(log H · log 1/ε) per band edge). So a band sum is Σ_r λ_r (v_r'a)²
+over the eigenpairs with λ_r > 1e-14 (dropping the rest moves a fraction by at most 1e-14), the
+band with most eigenpairs left (the widest) is the remainder N‖a‖² minus the others, and the even/odd symmetry of the
+eigenvectors halves the products (`band_projection`). Tests pin it to `frequency_kernel` at 1e-12.
+
 Shapes: band tables (d, n, n) indexed [band, variable, shock]; directional measures (d, n).
 
 References
@@ -55,6 +65,7 @@ Pesaran, M. H. and Shin, Y. (1998). Economics Letters 58, 17–29, eq. (11).
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -159,22 +170,31 @@ def frequency_response_kernel(coefs: np.ndarray, truncation: int, grid: int) -> 
     return np.fft.rfft(ma_kernel(coefs, truncation - 1), n=grid, axis=-3)
 
 
+def ma_terms(coefs: np.ndarray, start: np.ndarray, terms: int) -> np.ndarray:
+    """(D, terms, n, m) Φ_h B, h < terms, from coefs (D, p, n, n) and B (D, n, m) (a view).
+
+    Φ_0 B = B,  Φ_h B = Σ_{j=1}^{min(h,p)} A_j Φ_{h−j} B   (Φ_h = Σ_j A_j Φ_{h−j}, Lütkepohl 2005
+    eq. 2.3.9, the A_j commuting form), one batched (n × np)(np × m) product per step.
+    """
+    D, p, n, _ = coefs.shape
+    m = start.shape[-1]
+    A = np.concatenate(list(np.moveaxis(coefs[:, ::-1], -3, 0)), axis=-1)  # [A_p … A_1]
+    buf = np.zeros((D, terms + p - 1, n, m))  # Φ_h B at index h + p − 1; zeros stand for h < 0
+    buf[:, p - 1] = start
+    for h in range(1, terms):
+        lagged = buf[:, h - 1 : h + p - 1].reshape(D, p * n, m)  # [Φ_{h−p}B; …; Φ_{h−1}B] (view)
+        np.matmul(A, lagged, out=buf[:, h + p - 1])
+    return buf[:, p - 1 :]
+
+
 def scaled_ma(coefs: np.ndarray, sigma: np.ndarray, terms: int) -> np.ndarray:
     """(D, terms, n, n) a_h = Φ_h Σ D_σ^{-1/2}, h < terms, from coefs (D, p, n, n), Σ (D, n, n).
 
-    a_0 = Σ D_σ^{-1/2},  a_h = Σ_{j=1}^{min(h,p)} A_j a_{h−j}   (Φ_h = Σ_j A_j Φ_{h−j}, Lütkepohl
-    2005 eq. 2.3.9, the A_j commuting form), one batched (n × np)(np × n) product per step.
+    `ma_terms` started at a_0 = Σ D_σ^{-1/2}.
     a_h[i, k]² = σ_kk^{-1} (e_i'Φ_hΣe_k)², the generalized FEVD term (Pesaran–Shin eq. 11).
     """
-    D, p, n, _ = coefs.shape
-    A = np.concatenate(list(np.moveaxis(coefs[:, ::-1], -3, 0)), axis=-1)  # [A_p … A_1]
-    buf = np.zeros((D, terms + p - 1, n, n))  # a_h at index h + p − 1; zeros stand for h < 0
     sd = np.sqrt(np.diagonal(sigma, axis1=-2, axis2=-1))
-    buf[:, p - 1] = sigma / sd[:, None, :]
-    for h in range(1, terms):
-        lagged = buf[:, h - 1 : h + p - 1].reshape(D, p * n, n)  # [a_{h−p}; …; a_{h−1}] (view)
-        np.matmul(A, lagged, out=buf[:, h + p - 1])
-    return buf[:, p - 1 :]
+    return ma_terms(coefs, sigma / sd[:, None, :], terms)
 
 
 def band_map(weights: np.ndarray, grid: int, terms: int) -> tuple[int, np.ndarray]:
@@ -185,8 +205,8 @@ def band_map(weights: np.ndarray, grid: int, terms: int) -> tuple[int, np.ndarra
     r_m = Σ_h a_h a_{h+m}, so band_d = Σ_m r_m c_d(m) with c_d(0) = Σ_j w_d(j),
     c_d(m) = 2 Σ_j w_d(j) cos(2πjm/N). An rfft of size M >= 2L − 1 gives r without wrap-around:
     r_m = (1/M) Σ_k ε_k |F_k|² cos(2πkm/M) (ε = 1 at k = 0 and k = M/2, else 2), hence
-    U[k, d] = (ε_k / M) Σ_{m<L} cos(2πkm/M) c_d(m). Exact for any N >= L; the small rfft (M ≈ 2L
-    instead of N = 8L) is what makes per-date bands affordable.
+    U[k, d] = (ε_k / M) Σ_{m<L} cos(2πkm/M) c_d(m). Exact for any N >= L (used by
+    `joint_band_kernel`; `band_kernel` uses the quadratic forms of `band_projection` instead).
     """
     M = 2 * terms
     m = np.arange(terms)
@@ -199,24 +219,157 @@ def band_map(weights: np.ndarray, grid: int, terms: int) -> tuple[int, np.ndarra
     return M, U
 
 
+@dataclass(frozen=True, eq=False)
+class BandProjection:
+    """Low-rank quadratic forms giving the grid band sums of an MA sequence (`band_projection`).
+
+    Attributes
+    ----------
+    terms : H, the length of the sequences it applies to.
+    rest : the band obtained as the remainder ‖a‖² − Σ_{others} (the one with most eigenvectors).
+    others : the other bands, in the order of the rows of `even_weights` / `odd_weights`.
+    even, odd : (R_e, ⌈H/2⌉), (R_o, ⌊H/2⌋) kept eigenvectors of the bands in `others`, as rows
+        acting on the folded sequences [a_h + a_{H−1−h}; a_mid] and [a_h − a_{H−1−h}], h < ⌊H/2⌋.
+    even_weights, odd_weights : (d − 1, R_e), (d − 1, R_o) their eigenvalues λ_r, placed in the
+        row of the band each eigenvector belongs to (zero elsewhere).
+    """
+
+    terms: int
+    rest: int
+    others: tuple[int, ...]
+    even: np.ndarray
+    odd: np.ndarray
+    even_weights: np.ndarray
+    odd_weights: np.ndarray
+
+
+#: `band_projection` drops eigenvalues of T_d / N at or below this; each dropped one moves a band
+#: fraction θ̃_d[j, k] by at most this much (module docstring).
+EIGEN_FLOOR = 1e-14
+
+
+def band_projection(weights: np.ndarray, grid: int, terms: int) -> BandProjection:
+    """The band sums of `frequency_kernel` as quadratic forms of the MA sequence (cached).
+
+    For one entry's sequence a_h (h < H) and its transform F(ω) = Σ_h a_h e^{−iωh}, the grid-N
+    band sum is a quadratic form with a symmetric Toeplitz matrix:
+
+        S_d = Σ_j w_d(j) |F(ω_j)|² = a' T_d a,   T_d[h, l] = Σ_j w_d(j) cos(ω_j (h − l)),
+
+    ω_j = 2πj/N over the rfft bins j of `band_weights`. T_d is positive semi-definite (w ≥ 0) and
+    Σ_d T_d = N·I (discrete Parseval, N ≥ H). With T_d / N = Σ_r λ_r v_r v_r' (λ_r ∈ [0, 1]),
+    S_d / N = Σ_r λ_r (v_r' a)². Eigenvalues λ_r ≤ `EIGEN_FLOOR` (1e-14) are dropped: each moves
+    S_d / N by at most 1e-14·‖a‖², i.e. a row-normalised fraction θ̃_d[j, k] by at most 1e-14 —
+    the size of the rounding in T_d itself. The spectra of such band-limiting matrices have about
+    H·|d|/π eigenvalues near one (|d| the band's angular width) and fall off super-exponentially
+    after a transition of O(log H · log 1/ε) per band edge: 22 and 54 of 100 remain for the
+    periods (20, ∞] and (5, 20] at N = 800 (where H·|d|/π is 10 and 30). The band with most
+    vectors left is not projected at all: S_rest / N = ‖a‖² − Σ_{others} S_d / N.
+
+    A symmetric Toeplitz matrix commutes with the reversal h ↦ H − 1 − h, so its eigenvectors
+    can be taken even or odd; each is found on the folded sequences a_h ± a_{H−1−h}, h < H/2
+    (the middle term joins the even ones for odd H), which halves the products.
+    """
+    w = np.ascontiguousarray(weights, dtype=np.float64)
+    return _band_projection(w.tobytes(), w.shape, int(grid), int(terms))
+
+
+@functools.lru_cache(maxsize=16)
+def _band_projection(raw: bytes, shape: tuple[int, ...], grid: int, terms: int) -> BandProjection:
+    weights = np.frombuffer(raw).reshape(shape)
+    H, half = terms, terms // 2
+    m = np.arange(H)
+    # c_d(m) = Σ_j w_d(j) cos(2πjm/N), the argument reduced mod N before scaling
+    c = weights @ np.cos(2 * np.pi * (np.outer(np.arange(shape[1]), m) % grid) / grid)
+    lag = np.abs(m[:, None] - m[None, :])
+    fold_even = np.zeros((H, H - half))  # orthonormal bases of the even and odd sequences
+    fold_odd = np.zeros((H, half))
+    r = np.arange(half)
+    fold_even[r, r] = fold_even[H - 1 - r, r] = fold_odd[r, r] = math.sqrt(0.5)
+    fold_odd[H - 1 - r, r] = -math.sqrt(0.5)
+    if H % 2:
+        fold_even[half, half] = 1.0
+    scale_even = np.abs(fold_even).max(axis=0)  # folded sums [a_h + a_{H−1−h}; a_mid] → basis
+    parts = []
+    for cd in c:
+        T = cd[lag] / grid
+        band = []
+        for fold, scale in ((fold_even, scale_even), (fold_odd, np.full(half, math.sqrt(0.5)))):
+            lam, vec = np.linalg.eigh(fold.T @ T @ fold)
+            keep = lam > EIGEN_FLOOR
+            band.append((lam[keep], (vec[:, keep] * scale[:, None]).T))
+        parts.append(band)
+    ranks = [sum(lam.size for lam, _ in band) for band in parts]
+    rest = int(np.argmax(ranks))
+    others = tuple(b for b in range(len(parts)) if b != rest)
+    out = []
+    for side, width in ((0, H - half), (1, half)):
+        rows = [parts[b][side][1] for b in others]
+        vecs = np.concatenate(rows) if rows else np.zeros((0, width))
+        lam_rows = np.zeros((len(others), vecs.shape[0]))
+        at = 0
+        for i, b in enumerate(others):
+            lam = parts[b][side][0]
+            lam_rows[i, at : at + lam.size] = lam
+            at += lam.size
+        out += [np.ascontiguousarray(vecs), lam_rows]
+    readonly(*out)
+    return BandProjection(H, rest, others, out[0], out[2], out[1], out[3])
+
+
+def band_sums(a: np.ndarray, proj: BandProjection) -> np.ndarray:
+    """(D, d, m) grid band sums S_d / N of the sequences a (D, H, m) along axis 1 (`band_projection`).
+
+    Each of the D·m sequences is folded (a_h ± a_{H−1−h}), projected on the kept eigenvectors,
+    squared and weighted by their eigenvalues; the remaining band is ‖a‖² minus the others. One
+    matrix product per batch entry and fold, so an entry's numbers do not depend on the batch.
+    """
+    D, H, m = a.shape
+    half = H // 2
+    head, tail = a[:, :half], a[:, H - 1 : H - 1 - half : -1]
+    even = np.empty((D, H - half, m))
+    np.add(head, tail, out=even[:, :half])
+    if H % 2:
+        even[:, half] = a[:, half]
+    y_even = proj.even @ even
+    y_odd = proj.odd @ np.subtract(head, tail)
+    np.square(y_even, out=y_even)
+    np.square(y_odd, out=y_odd)
+    others = proj.even_weights @ y_even + proj.odd_weights @ y_odd  # (D, d − 1, m)
+    out = np.empty((D, len(proj.others) + 1, m))
+    out[:, list(proj.others)] = others
+    out[:, proj.rest] = np.einsum("dhm,dhm->dm", a, a) - others.sum(axis=1)
+    return out
+
+
+#: Working memory (bytes of MA terms) per chunk of models in `band_kernel`: small enough that a
+#: chunk's a_h stay in cache between the recursion and the projections.
+BAND_CHUNK_BYTES = 4 * 2**20
+
+
 def band_kernel(
     coefs: np.ndarray, sigma: np.ndarray, truncation: int, grid: int, weights: np.ndarray
 ) -> np.ndarray:
     """(D, d, n, n) the same band tables as `frequency_kernel`, for coefs (D, p, n, n), Σ (D, n, n).
 
-    One scaled MA recursion a_h = Φ_h Σ D_σ^{-1/2} (h < H, `scaled_ma`), then an rfft of size
-    M = 2H instead of N (≥ 8H by default) and the fixed map `band_map` from its power to the grid-N
-    band sums: the same numbers to rounding (tests: 1e-12), about 4× less transform work and no
-    (N, n, n) complex spectrum per window. This is the kernel of `frequency_connectedness`, the
-    rolling engine and the TVP filter; `frequency_kernel` stays as the definition it is tested by.
+    One scaled MA recursion a_h = Φ_h Σ D_σ^{-1/2} (h < H, `scaled_ma`), then the grid-N band sums
+    of every entry's sequence as low-rank quadratic forms (`band_projection`, `band_sums`) instead
+    of its Fourier transform: the same numbers to rounding (tests: 1e-12), no spectrum per model.
+    Models are taken in chunks of `BAND_CHUNK_BYTES`; each model's arithmetic is its own, so
+    its numbers do not depend on the chunking or on the other models passed. This is the kernel
+    of `frequency_connectedness`, the rolling engine and the TVP filter; `frequency_kernel` stays
+    as the definition it is tested by.
     """
-    M, U = band_map(weights, grid, truncation)
-    U2 = np.repeat(U, 2, axis=0)  # rows for (re, im) pairs: |F_k|² = re² + im²
-    a = scaled_ma(coefs, sigma, truncation)  # (D, H, n, n)
-    x = np.ascontiguousarray(a.transpose(0, 2, 3, 1))  # (D, n, n, H)
-    F = np.fft.rfft(x, n=M, axis=-1)
-    band = np.moveaxis(np.square(F.view(np.float64)) @ U2, -1, -3)  # (D, d, n, n)
-    return band / band.sum(axis=(-3, -1), keepdims=True)
+    proj = band_projection(weights, grid, truncation)
+    D, p, n, _ = coefs.shape
+    d = weights.shape[0]
+    out = np.empty((D, d, n, n))
+    step = max(1, BAND_CHUNK_BYTES // (8 * n * n * (truncation + p)))
+    for lo in range(0, D, step):
+        a = scaled_ma(coefs[lo : lo + step], sigma[lo : lo + step], truncation)
+        band = band_sums(a.reshape(a.shape[0], truncation, n * n), proj).reshape(-1, d, n, n)
+        out[lo : lo + step] = band / band.sum(axis=(-3, -1), keepdims=True)
+    return out
 
 
 def frequency_kernel(

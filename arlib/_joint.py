@@ -69,6 +69,7 @@ from ._frequency import (
     band_weights,
     check_bands,
     default_grid,
+    ma_terms,
 )
 from ._responses import ma_kernel
 from ._validate import VARLike, check_int, check_model, readonly
@@ -78,13 +79,62 @@ from ._validate import VARLike, check_int, check_model, readonly
 # ---------------------------------------------------------------------------------------------
 
 
+#: Models per chunk in `joint_kernel` (its arrays stay in cache; the numbers do not depend on it).
+JOINT_CHUNK = 256
+
+
 def joint_kernel(coefs: np.ndarray, sigma: np.ndarray, horizon: int) -> np.ndarray:
-    """(..., n) joint shares J_i(H) = 1 − Σ_{h<H} (Φ_h)_ii² / ((Σ^{-1})_ii · MSE_i(H))."""
-    phi = ma_kernel(coefs, horizon - 1)  # (..., H, n, n)
-    mse = np.einsum("...hij,...hij->...i", phi @ sigma[..., None, :, :], phi)  # Σ_h (Φ_h Σ Φ_h')_ii
-    own = np.einsum("...hii,...hii->...i", phi, phi)
-    precision = np.diagonal(np.linalg.inv(sigma), axis1=-2, axis2=-1)
+    """(..., n) joint shares J_i(H) = 1 − Σ_{h<H} (Φ_h)_ii² / ((Σ^{-1})_ii · MSE_i(H)).
+
+    In chunks of `JOINT_CHUNK` models: Φ_h by the recursion of `ma_terms`, and with the Cholesky
+    factor Σ = LL', MSE_i(H) = Σ_{h<H} ‖e_i'Φ_h L‖² (one (Hn × n)(n × n) product per model) and
+    (Σ^{-1})_ii = ‖L^{-1} e_i‖² (L^{-1} by forward substitution). Each model's arithmetic is its
+    own, so its numbers do not depend on the chunking or the other models; a model whose Σ has
+    no Cholesky factor (not numerically positive definite) gets the same formula through
+    Σ^{-1} and Φ_h Σ Φ_h' instead.
+    """
+    *batch, p, n, _ = coefs.shape
+    c = coefs.reshape(-1, p, n, n)
+    s = np.broadcast_to(sigma, (*batch, n, n)).reshape(-1, n, n)
+    out = np.empty((c.shape[0], n))
+    for lo in range(0, c.shape[0], JOINT_CHUNK):
+        sl = slice(lo, lo + JOINT_CHUNK)
+        try:
+            out[sl] = _joint_chunk(c[sl], s[sl], horizon)
+        except np.linalg.LinAlgError:
+            for i in range(lo, min(lo + JOINT_CHUNK, c.shape[0])):
+                out[i] = _joint_one(c[i : i + 1], s[i : i + 1], horizon)
+    return out.reshape(*batch, n)
+
+
+def _joint_chunk(coefs: np.ndarray, sigma: np.ndarray, horizon: int) -> np.ndarray:
+    """(D, n) J_i(H) of a chunk of models whose Σ all have a Cholesky factor."""
+    D, _, n, _ = coefs.shape
+    chol = np.linalg.cholesky(sigma)
+    phi = ma_terms(coefs, np.broadcast_to(np.eye(n), sigma.shape), horizon)  # (D, H, n, n)
+    b = (phi.reshape(D, horizon * n, n) @ chol).reshape(D, horizon, n, n)  # Φ_h L
+    mse = np.einsum("dhik,dhik->di", b, b)
+    own = np.einsum("dhii,dhii->di", phi, phi)
+    # L^{-1} row by row: (L^{-1})_i = (e_i − L_{i,<i} (L^{-1})_{<i}) / L_ii
+    inv = np.zeros_like(chol)
+    for i in range(n):
+        inv[:, i, :i] = -np.einsum("dk,dkj->dj", chol[:, i, :i], inv[:, :i, :i])
+        inv[:, i, i] = 1.0
+        inv[:, i, : i + 1] /= chol[:, i, i, None]
+    precision = np.einsum("dki,dki->di", inv, inv)  # (Σ^{-1})_ii = Σ_k (L^{-1})_ki²
     return 1.0 - own / (precision * mse)
+
+
+def _joint_one(coefs: np.ndarray, sigma: np.ndarray, horizon: int) -> np.ndarray:
+    """(1, n) J_i(H) of one model: through its Cholesky factor if it has one, else through Σ^{-1}."""
+    try:
+        return _joint_chunk(coefs, sigma, horizon)
+    except np.linalg.LinAlgError:
+        phi = ma_kernel(coefs, horizon - 1)  # (1, H, n, n)
+        mse = np.einsum("...hij,...hij->...i", phi @ sigma[:, None], phi)
+        own = np.einsum("...hii,...hii->...i", phi, phi)
+        precision = np.diagonal(np.linalg.inv(sigma), axis1=-2, axis2=-1)
+        return 1.0 - own / (precision * mse)
 
 
 def joint_band_kernel(

@@ -79,9 +79,11 @@ From (B_t, Σ_t): generalized Diebold–Yilmaz tables at `horizon`, Baruník–K
 (when `bands` is given; the same numbers as `_frequency.frequency_kernel` on its grid N) and
 Lastrapes–Wiesen joint shares (`_joint.joint_kernel`, when ``joint=True``), computed in chunks of
 dates so memory stays bounded. One MA recursion a_h = Φ_h Σ D_σ^{-1/2} (h < max(H, truncation))
-serves both the generalized table (Σ_{h<H} a_h²) and the bands; the band sums come from an rfft
-of size 2·truncation and a fixed linear map to the grid-N band weights (`band_map`), exact for
-any N and about 4× cheaper than the size-N rfft per date (tested against both kernels to 1e-12).
+serves both the generalized table (Σ_{h<H} a_h²) and the bands; the band sums are the grid-N
+sums of `frequency_kernel` taken as low-rank quadratic forms of each entry's sequence
+(`_frequency.band_projection`: the eigenpairs of each band's Toeplitz Gram matrix above 1e-14,
+the widest band as the remainder), with no spectrum per date (tested against both kernels to
+1e-12).
 
 References
 ----------
@@ -111,7 +113,8 @@ from ._decompose import spillover_measures
 from ._estimate import TREND_TERMS, fit_var, spectral_radius
 from ._frequency import (
     DEFAULT_TRUNCATION,
-    band_map,
+    band_projection,
+    band_sums,
     band_weights,
     check_bands,
     default_grid,
@@ -139,7 +142,7 @@ TVP_TRENDS = ("n", "c")
 DEFAULT_KAPPA1 = 0.99
 DEFAULT_KAPPA2 = 0.99
 #: Working-memory budget per chunk of dates for the connectedness kernels (bytes).
-CHUNK_BYTES = 48 * 2**20
+CHUNK_BYTES = 16 * 2**20
 
 
 # ---------------------------------------------------------------------------------------------
@@ -370,8 +373,10 @@ FILTERS = {"kronecker": filter_kronecker, "full": filter_full}
 # ---------------------------------------------------------------------------------------------
 
 
-def _chunk(n: int, p: int, terms: int, rfft_bins: int) -> int:
-    per = 8 * n * n * (2 * terms + p + 3 * rfft_bins + 8) + 8 * (n * p) ** 2 * 3
+def _chunk(n: int, p: int, terms: int) -> int:
+    """Dates per chunk: MA terms a_h, their folds and projections (about 3·terms n×n matrices
+    per date), the band and generalized tables and the companion eigenproblem, in CHUNK_BYTES."""
+    per = 8 * n * n * (3 * terms + p + 8) + 8 * (n * p) ** 2 * 3
     return max(1, CHUNK_BYTES // per)
 
 
@@ -390,27 +395,23 @@ def _measures(
     out: dict[str, np.ndarray] = {"pairwise": np.empty((D, n, n))}
     if stability:
         out["radius"] = np.empty(D)
-    terms, M, U = horizon, 0, None
+    terms, proj = horizon, None
     if bands is not None and truncation is not None and grid is not None:
-        M, U = band_map(band_weights(bands, grid), grid, truncation)
-        U = np.repeat(U, 2, axis=0)  # rows for (re, im) pairs: |F_k|² = re² + im²
+        proj = band_projection(band_weights(bands, grid), grid, truncation)
         terms = max(horizon, truncation)
         out["band_pairwise"] = np.empty((D, len(bands), n, n))
     if joint:
         out["joint"] = np.empty((D, n))
-    size = _chunk(n, p, terms, M // 2 + 1)
+    size = _chunk(n, p, terms)
     for lo in range(0, D, size):
         sl = slice(lo, min(lo + size, D))
         c, s = coefs[sl], sigma[sl]
-        a = scaled_ma(c, s, terms)
+        a = scaled_ma(c, s, terms).reshape(-1, terms, n * n)
         # generalized: θ̃_ik ∝ Σ_{h<H} a_h[i, k]², rows normalised (= fevd_kernel's last step)
-        g = np.einsum("thik,thik->tik", a[:, :horizon], a[:, :horizon])
+        g = np.einsum("thm,thm->tm", a[:, :horizon], a[:, :horizon]).reshape(-1, n, n)
         out["pairwise"][sl] = 100.0 * g / g.sum(axis=-1, keepdims=True)
-        if U is not None:
-            assert truncation is not None
-            x = np.ascontiguousarray(a[:, :truncation].transpose(0, 2, 3, 1))  # (t, n, n, L)
-            F = np.fft.rfft(x, n=M, axis=-1)
-            band = np.moveaxis(np.square(F.view(np.float64)) @ U, -1, -3)  # (t, d, n, n)
+        if proj is not None:
+            band = band_sums(a[:, : proj.terms], proj).reshape(-1, len(proj.others) + 1, n, n)
             out["band_pairwise"][sl] = 100.0 * band / band.sum(axis=(-3, -1), keepdims=True)
         if joint:
             out["joint"][sl] = joint_kernel(c, s, horizon)

@@ -279,10 +279,10 @@ def test_grid_error_against_the_exact_band_integrals():
 
 
 @pytest.mark.parametrize(("truncation", "grid"), [(100, 800), (30, 30), (25, 77), (1, 8)])
-def test_small_rfft_band_kernel_equals_the_grid_definition(truncation, grid):
-    # band_kernel takes r_m = Σ_h a_h a_{h+m} from an rfft of size 2H and maps it to the grid-N
-    # band sums (Wiener–Khinchin: |F(ω)|² = r_0 + 2 Σ_m r_m cos ωm); frequency_kernel evaluates the
-    # definition, BK 2018 eqs. 10–12, on the size-N grid. Same numbers to rounding, for any N >= H
+def test_band_kernel_equals_the_grid_definition(truncation, grid):
+    # band_kernel takes each grid-N band sum as the quadratic form a'T_d a (T_d the band's Toeplitz
+    # Gram matrix) through its eigenpairs above 1e-14 and the remainder band; frequency_kernel
+    # evaluates the definition, BK 2018 eqs. 10–12, by an rfft on the size-N grid. Same numbers to rounding, for any N >= H
     # (also N = H and odd N), on a batch of processes with unequal variances and correlated errors.
     rng = np.random.default_rng(truncation + grid)
     procs = [random_process(rng, n=5, p=3, radius=0.95) for _ in range(4)]
@@ -293,6 +293,44 @@ def test_small_rfft_band_kernel_equals_the_grid_definition(truncation, grid):
     got = band_kernel(coefs, sigma, truncation, grid, weights)
     assert got.shape == want.shape == (4, len(BANDS), 5, 5)
     np.testing.assert_allclose(got, want, rtol=0, atol=1e-12)
+
+
+def test_band_kernel_numbers_do_not_depend_on_the_batch(monkeypatch):
+    # Each model's arithmetic is its own (one recursion and one product per model and fold), so
+    # a model gives the same bits alone, in any batch, and whatever the kernel's internal chunks.
+    rng = np.random.default_rng(17)
+    procs = [random_process(rng, n=4, p=2, radius=0.9) for _ in range(23)]
+    coefs = np.stack([np.asarray(q.coefs) for q in procs])
+    sigma = np.stack([np.asarray(q.sigma_u) for q in procs])
+    weights = band_weights(BANDS, 400)
+    whole = band_kernel(coefs, sigma, 50, 400, weights)
+    alone = np.concatenate(
+        [band_kernel(coefs[i : i + 1], sigma[i : i + 1], 50, 400, weights) for i in range(23)]
+    )
+    np.testing.assert_array_equal(alone, whole)
+    np.testing.assert_array_equal(
+        band_kernel(coefs[5:16], sigma[5:16], 50, 400, weights), whole[5:16]
+    )
+    monkeypatch.setattr(arlib._frequency, "BAND_CHUNK_BYTES", 1)  # one model per chunk
+    np.testing.assert_array_equal(band_kernel(coefs, sigma, 50, 400, weights), whole)
+
+
+@pytest.mark.parametrize(
+    "bands", [BANDS, ((1, math.inf),), ((1, 3), (3, 4), (4, 10), (10, 50), (50, math.inf))]
+)
+@pytest.mark.parametrize(("truncation", "grid"), [(1, 8), (2, 8), (3, 9), (7, 512), (101, 808)])
+def test_band_kernel_any_partition_and_odd_lengths(bands, truncation, grid):
+    # The quadratic forms fold the sequence at its middle (odd H keeps a middle term) and take the
+    # band with most eigenvectors as the remainder: any number of bands, any H, still 1e-12.
+    rng = np.random.default_rng(truncation * grid + len(bands))
+    coefs = rng.normal(size=(3, 2, 4, 4)) * 0.15
+    a = rng.normal(size=(3, 4, 4))
+    sigma = a @ a.transpose(0, 2, 1) + 0.1 * np.eye(4)
+    weights = band_weights(bands, grid)
+    want = frequency_kernel(coefs, sigma, truncation, grid, weights)
+    np.testing.assert_allclose(
+        band_kernel(coefs, sigma, truncation, grid, weights), want, rtol=0, atol=1e-12
+    )
 
 
 def test_band_weights_cover_the_circle_once():

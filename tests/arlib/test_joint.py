@@ -54,6 +54,40 @@ def test_joint_share_equals_the_defining_formula_with_the_selector(seed):
         assert abs(jc.from_others[i] - 100 * num / den) < 1e-10
 
 
+def _joint_by_inverse(coefs, sigma, H):
+    """J_i(H) = 1 − Σ_h (Φ_h)_ii² / ((Σ^{-1})_ii Σ_h (Φ_h Σ Φ_h')_ii) with a plain inverse, per model."""
+    n = sigma.shape[-1]
+    out = []
+    for c, s in zip(coefs, sigma, strict=True):
+        phi = [np.eye(n)]
+        for h in range(1, H):
+            phi.append(sum(c[j - 1] @ phi[h - j] for j in range(1, min(h, c.shape[0]) + 1)))
+        mse = sum(np.diag(f @ s @ f.T) for f in phi)
+        own = sum(np.diag(f) ** 2 for f in phi)
+        out.append(1 - own / (np.diag(np.linalg.inv(s)) * mse))
+    return np.array(out)
+
+
+def test_joint_kernel_batches_chunks_and_a_sigma_without_cholesky_factor(monkeypatch):
+    # joint_kernel works in chunks through the Cholesky factor (MSE = Σ_h ‖e_i'Φ_h L‖², Σ^{-1}
+    # from L^{-1}); a model's bits do not depend on the batch or the chunking, and a Σ that has
+    # no Cholesky factor (indefinite) still gets the formula, through Σ^{-1}, for itself alone.
+    from arlib._joint import joint_kernel
+
+    rng = np.random.default_rng(31)
+    procs = [random_process(rng, n=5, p=2, radius=0.9) for _ in range(9)]
+    coefs = np.stack([np.asarray(q.coefs) for q in procs])
+    sigma = np.stack([np.asarray(q.sigma_u) for q in procs])
+    sigma[4] -= 2 * np.linalg.eigvalsh(sigma[4])[0] * np.eye(5)  # indefinite, invertible
+    whole = joint_kernel(coefs, sigma, 8)
+    np.testing.assert_allclose(whole, _joint_by_inverse(coefs, sigma, 8), rtol=0, atol=1e-12)
+    alone = np.stack([joint_kernel(coefs[i], sigma[i], 8) for i in range(9)])
+    np.testing.assert_array_equal(alone, whole)
+    monkeypatch.setattr(arlib._joint, "JOINT_CHUNK", 2)
+    np.testing.assert_array_equal(joint_kernel(coefs, sigma, 8), whole)
+    np.testing.assert_array_equal(joint_kernel(coefs[None], sigma[None], 8)[0], whole)
+
+
 def test_with_diagonal_errors_joint_equals_generalized_from_others():
     rng = np.random.default_rng(7)
     proc = random_process(rng, n=4, p=1, radius=0.7)

@@ -94,3 +94,22 @@ def test_without_the_options_nothing_extra_is_computed() -> None:
 def test_bad_bands_are_refused_before_fitting() -> None:
     with pytest.raises(InvalidInputError, match="frequency_bands"):
         arlib.rolling_var(_data(T=200), 100, 1, 5, frequency_bands=[(3, 10)])
+
+
+def test_band_and_joint_numbers_do_not_depend_on_grouping(monkeypatch: pytest.MonkeyPatch) -> None:
+    """Bands and joint shares of a window are the same bits in one run, in `ends=` blocks of odd
+    sizes joined by `concat`, and with the band kernel cut into chunks of one window: each
+    window's arithmetic depends on its own coefficients and Σ̂_u only."""
+    y = _data(T=420, seed=11)
+    kw = {"frequency_bands": BANDS, "band_truncation": 45, "joint": True}
+    full = arlib.rolling_var(y, 90, 2, 7, **kw)
+    assert full.ok.all() and len(full) > 300
+    fields = ("band_tables", "band_total", "band_share", "joint_from_others", "joint_total")
+    parts = np.split(full.ends, [1, 4, 11, 40, 107, 250])
+    joined = arlib.RollingVAR.concat([arlib.rolling_var(y, 90, 2, 7, ends=e, **kw) for e in parts])
+    for field in fields:
+        np.testing.assert_array_equal(getattr(joined, field), getattr(full, field), err_msg=field)
+    monkeypatch.setattr(arlib._frequency, "BAND_CHUNK_BYTES", 1)  # one window per chunk
+    small = arlib.rolling_var(y, 90, 2, 7, **kw)
+    for field in fields:
+        np.testing.assert_array_equal(getattr(small, field), getattr(full, field), err_msg=field)

@@ -257,9 +257,9 @@ def test_per_date_measures_equal_single_model_calls(y):
     ("horizon", "truncation", "grid"), [(10, 30, 30), (10, 30, 91), (12, 7, 512)]
 )
 def test_per_date_kernels_equal_the_frequency_and_decomposition_kernels(horizon, truncation, grid):
-    # The per-date kernels take the band sums from an rfft of size 2·L and a fixed linear map
-    # (Parseval/Wiener–Khinchin identity in `band_map`'s docstring) instead of an rfft of size N;
-    # they must equal `_frequency.frequency_kernel` on its grid N — also N = L and odd N — and
+    # The per-date kernels take the band sums as low-rank quadratic forms of the MA terms
+    # (`_frequency.band_projection`: Toeplitz eigenpairs, one band as the remainder) instead of an
+    # rfft of size N; they must equal `_frequency.frequency_kernel` on its grid N — also N = L and odd N — and
     # `_decompose.fevd_kernel`'s generalized last step. Tolerance 1e-12 (rounding of fractions).
     rng = np.random.default_rng(horizon + truncation + grid)
     D, n, p = 6, 4, 3
@@ -273,6 +273,17 @@ def test_per_date_kernels_equal_the_frequency_and_decomposition_kernels(horizon,
     np.testing.assert_allclose(got["band_pairwise"] / 100, ref_bands, rtol=0, atol=1e-12)
     np.testing.assert_allclose(got["pairwise"] / 100, ref_gen, rtol=0, atol=1e-12)
     np.testing.assert_allclose(got["joint"], joint_kernel(coefs, sigma, horizon), atol=1e-12)
+
+
+def test_per_date_measures_do_not_depend_on_the_chunks_of_dates(y, monkeypatch):
+    # Dates are measured in chunks within arlib._tvp.CHUNK_BYTES; each date's arithmetic is its
+    # own (one recursion, projection and eigenproblem per date), so the chunking shows in no bit.
+    res = tvp_var(y, 2, 8, bands=BANDS, truncation=30, joint=True)
+    monkeypatch.setattr(arlib._tvp, "CHUNK_BYTES", 1)  # one date per chunk
+    one = tvp_var(y, 2, 8, bands=BANDS, truncation=30, joint=True)
+    fields = ("pairwise", "band_pairwise", "band_total", "joint_from_others", "spectral_radius")
+    for field in fields:
+        np.testing.assert_array_equal(getattr(one, field), getattr(res, field), err_msg=field)
 
 
 def test_result_shapes_and_read_only(y):
