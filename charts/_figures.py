@@ -288,7 +288,7 @@ def _cell_ranges(values: Sequence[np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
     power = 10.0 ** np.floor(np.log10(raw))
     f = raw / power
     step = np.where(f <= 1.0, 1.0, np.where(f <= 2.0, 2.0, np.where(f <= 5.0, 5.0, 10.0))) * power
-    return np.floor(lo / step * (1 + 1e-12)) * step, np.ceil(hi / step * (1 - 1e-12)) * step
+    return np.floor(lo / step + 1e-9) * step, np.ceil(hi / step - 1e-9) * step  # 1e-9: float noise
 
 
 def _short(v: float) -> str:
