@@ -7,7 +7,8 @@ graph objects takes about half a second, the dict a few milliseconds, and both d
 accepts every figure built here (the tests check that).
 
 The dashboard and the HTML report call the same builders; ``medium="print"`` adapts a figure to
-the report (no range slider, legend under the plot). Styles come from `charts._theme`: a series
+the report (no range slider, legend under the plot; a shock-path grid with a subplot and y axis
+per panel, where the screen draws the grid on one pair of axes, see `_cell_grid`). Styles come from `charts._theme`: a series
 keeps one colour, dash and marker wherever it appears (its position in the universe). Every axis
 says what it measures and its unit.
 """

@@ -473,6 +473,39 @@ def test_shock_path_layout_in_the_browser(page: Any, snapshot_path: Path, univer
     page.set_viewport_size({"width": 1280, "height": 800})
 
 
+HOVER_JS = """([curve, point]) => {
+  const gd = document.querySelector('#paths-graph .js-plotly-plot');
+  window.Plotly.Fx.hover(gd, [{curveNumber: curve, pointNumber: point}]);
+}"""
+HOVER_TEXT_JS = """want => {
+  const gd = document.querySelector('#paths-graph .js-plotly-plot');
+  const text = [...gd.querySelectorAll('.hoverlayer .hovertext')].map(e => e.textContent).join(' ');
+  return text.includes(want) ? text : null;
+}"""
+
+
+def test_shock_path_hover_says_the_true_value(page: Any, snapshot_path: Path, universe_name: str, bounds: tuple[dt.date, dt.date]) -> None:
+    """The grid's heights are positions in a cell; hovering a point says its pair, horizon and
+    true (stored) value, and the band around it."""
+    page.get_by_text("Shock paths", exact=True).click()
+    wait_text(page, "#paths-note", "stored band")
+    data = traces(page, "paths-graph")
+    curve = next(k for k, t in enumerate(data) if t.get("name") == "response")
+    names = series_of(snapshot_path, universe_name)
+    used = fitted_end(snapshot_path, universe_name, bounds[0].isoformat(), bounds[1].isoformat())
+    want = stored_response(snapshot_path, universe_name, used, "generalized")
+    H1 = data[curve]["customdata"].index(None)  # horizons shown: the first cell's points
+    assert H1 <= want.shape[0]
+    for i, j, h in ((0, 1, 0), (len(names) - 1, 0, 2)):
+        point = (i * len(names) + j) * (H1 + 1) + h  # a cell's points, then its gap
+        page.wait_for_timeout(150)  # plotly takes a hover at most every 50 ms
+        page.evaluate(HOVER_JS, [curve, point])
+        text = page.wait_for_function(HOVER_TEXT_JS, arg=f"{names[i]} after a shock to {names[j]}").json_value()
+        assert f"h={h}: " in text and "band: " in text, text
+        shown = float(text.split(f"h={h}: ")[1].split("band")[0].replace("−", "-"))
+        assert shown == pytest.approx(want[h, i, j], rel=1e-3), (text, want[h, i, j])
+
+
 def test_network_spreads_nodes_and_labels(page: Any) -> None:
     """Issue 10.4: nodes use the plot's width and height; no two node labels overlap."""
     open_tab(page, "Spillover network", "network-graph")
