@@ -112,8 +112,10 @@ PROBE = r"""
   new MutationObserver(() => {
     requestAnimationFrame(() => { const t = performance.now(); S.paints = (S.paints || 0) + 1; mark(t); });
   }).observe(document, {subtree: true, childList: true, attributes: true, characterData: true});
+  // an input counts as activity: the page is not quiet until QUIET_MS after it, so an interaction
+  // whose first request or change comes some frames after the click is not taken as already over
   for (const kind of ['keydown', 'mousedown']) {
-    document.addEventListener(kind, e => { S.inputs.push(e.timeStamp); }, true);
+    document.addEventListener(kind, e => { S.inputs.push(e.timeStamp); mark(performance.now()); }, true);
   }
 })();
 """

@@ -7,7 +7,8 @@ graph objects takes about half a second, the dict a few milliseconds, and both d
 accepts every figure built here (the tests check that).
 
 The dashboard and the HTML report call the same builders; ``medium="print"`` adapts a figure to
-the report (no range slider, legend under the plot). Styles come from `charts._theme`: a series
+the report (no range slider, legend under the plot; a shock-path grid with a subplot and y axis
+per panel, where the screen draws the grid on one pair of axes, see `_cell_grid`). Styles come from `charts._theme`: a series
 keeps one colour, dash and marker wherever it appears (its position in the universe). Every axis
 says what it measures and its unit.
 """
@@ -257,6 +258,164 @@ def _panel_axes(axes: dict[str, Any], xr: str, yr: str) -> None:
     axes[th.axis_key(xr)].update(tickfont={"size": 9})
 
 
+# The screen's grid: every panel a cell of ONE pair of axes. Drawing a 9 × 9 grid as 81 subplots
+# (162 axes) kept chromium busy for 0.4–1.3 s; the same panels as cells of one axis pair, with the
+# cells' curves merged into a few NaN-separated traces, draw in a tenth of that. A cell maps its
+# own value range onto its unit height (scale per panel: a response's shape stays readable however
+# small it is next to the own-shock response of its row) and says that range above itself.
+
+#: Gaps between the cells of a one-axis grid: between columns in cell widths, between rows in
+#: cell heights (room for the scale label above each cell).
+CELL_GAP_X = 0.16
+CELL_GAP_Y = 0.30
+#: A cell's background and its zero line.
+CELL_FILL = "#f3f5f8"
+CELL_ZERO = "#9aa2ac"
+#: How a one-axis grid's scale reads, for its subtitle.
+CELL_SCALE_NOTE = "each panel on its own scale: bottom…top edge printed above it; hover for values"
+
+
+def _cell_ranges(values: Sequence[np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
+    """Per cell (n, m) of arrays (H+1, n, m): the range its panel is drawn on — round numbers
+    (multiples of a step of 1, 2 or 5 × 10^k, about a fifth of the span) at or below the lowest
+    value and zero, at or above the highest value and zero. A cell of zeros spans −1 to 1."""
+    stack = np.concatenate([np.asarray(v, dtype=float) for v in values])
+    stack = np.where(np.isfinite(stack), stack, np.nan)
+    lo = np.fmin(np.fmin.reduce(stack, axis=0), 0.0)  # fmin skips NaN: an all-NaN cell gives 0
+    hi = np.fmax(np.fmax.reduce(stack, axis=0), 0.0)
+    flat = hi - lo <= 0
+    lo, hi = np.where(flat, -1.0, lo), np.where(flat, 1.0, hi)
+    raw = (hi - lo) / 5.0
+    power = 10.0 ** np.floor(np.log10(raw))
+    f = raw / power
+    step = np.where(f <= 1.0, 1.0, np.where(f <= 2.0, 2.0, np.where(f <= 5.0, 5.0, 10.0))) * power
+    return np.floor(lo / step + 1e-9) * step, np.ceil(hi / step - 1e-9) * step  # 1e-9: float noise
+
+
+def _short(v: float) -> str:
+    """A cell's range end: three significant digits, a true minus sign, a short exponent."""
+    text = f"{v + 0.0:.3g}".replace("e-0", "e-").replace("e+0", "e").replace("e+", "e")
+    return text.replace("-", "−")
+
+
+def _with_gaps(values: np.ndarray) -> list[Any]:
+    """(n, m, k) positions → one flat list, cell after cell, each cell's k points then a gap
+    (None). Rounded to 1e-4 of a cell (under a pixel): positions, not values, and fewer bytes."""
+    n, m, _ = values.shape
+    return th.as_list(np.round(np.concatenate([values, np.full((n, m, 1), np.nan)], axis=2), 4))
+
+
+def _cell_grid(
+    curves: Sequence[tuple[str, np.ndarray, dict[str, Any], str]],
+    rows: Sequence[str],
+    cols: Sequence[str],
+    *,
+    band: tuple[np.ndarray, np.ndarray] | None = None,
+    band_label: str = "band",
+) -> tuple[list[dict[str, Any]], dict[str, Any], list[dict[str, Any]]]:
+    """Traces, axes and column titles of a rows × cols grid of panels drawn on one pair of axes.
+
+    curves : (name, values (H+1, rows, cols), line style, hover text) — one trace each, cell after
+    cell (row-major), cells separated by a gap; each point's customdata is ``[row name, column
+    name, horizon, true value]``, followed by the band's ``lower, upper`` for the first curve when
+    `band` (lower, upper) is given. The band is one filled trace (a polygon per cell, upper then
+    lower reversed). Under them: one trace of cell backgrounds, one of zero lines; over them one
+    text trace with each cell's range (`_cell_ranges`). Rows are named by the y-axis tick labels,
+    columns by annotations above the top row (the titles every grid has, on screen and in print).
+    """
+    H1, n, m = curves[0][1].shape
+    H = H1 - 1
+    w = max(H, 1)
+    xb = np.arange(m) * w * (1 + CELL_GAP_X)  # left edge of each column's cells
+    yb = (n - 1 - np.arange(n)) * (1 + CELL_GAP_Y)  # bottom edge of each row's cells (row 0 on top)
+    drawn = [c[1] for c in curves] + (list(band) if band is not None else [])
+    lo, hi = _cell_ranges(drawn)
+    span = hi - lo
+
+    def scaled(values: np.ndarray) -> np.ndarray:
+        """(H+1, n, m) true values → (n, m, H+1) heights on the shared y axis."""
+        return np.moveaxis((np.asarray(values, dtype=float) - lo) / span, 0, -1) + yb[:, None, None]
+
+    hs = np.arange(H1, dtype=float)
+    xs = np.broadcast_to(xb[None, :, None] + hs, (n, m, H1))
+    corner = np.broadcast_to(xb[None, :], (n, m))
+    bottom = np.broadcast_to(yb[:, None], (n, m))
+    data: list[dict[str, Any]] = [{
+        "type": "scatter", "mode": "lines", "fill": "toself", "fillcolor": CELL_FILL, "line": {"width": 0},
+        "x": _with_gaps(np.stack([corner, corner + w, corner + w, corner, corner], axis=2)),
+        "y": _with_gaps(np.stack([bottom, bottom, bottom + 1, bottom + 1, bottom], axis=2)),
+        "hoverinfo": "skip", "showlegend": False, "name": "panels",
+    }]  # fmt: skip
+    if band is not None:
+        upper, lower = scaled(band[1]), scaled(band[0])
+        data.append({
+            "type": "scatter", "mode": "lines", "fill": "toself", "fillcolor": BAND_FILL, "line": {"width": 0},
+            "x": _with_gaps(np.concatenate([xs, xs[:, :, ::-1]], axis=2)),
+            "y": _with_gaps(np.concatenate([upper, lower[:, :, ::-1]], axis=2)),
+            "name": band_label, "legendgroup": "band", "hoverinfo": "skip",
+        })  # fmt: skip
+    zero = bottom - lo / span
+    data.append({
+        "type": "scatter", "mode": "lines", "line": {"color": CELL_ZERO, "width": 1},
+        "x": _with_gaps(np.stack([corner, corner + w], axis=2)), "y": _with_gaps(np.stack([zero, zero], axis=2)),
+        "hoverinfo": "skip", "showlegend": False, "name": "zero",
+    })  # fmt: skip
+    extra = None if band is None else (th.panels(band[0]), th.panels(band[1]))
+    for k, (name, values, line, hover) in enumerate(curves):
+        true = th.panels(values)
+        custom: list[Any] = []
+        for i in range(n):
+            for c in range(m):
+                cell = true[i][c]
+                if k == 0 and extra is not None:
+                    lows, highs = extra[0][i][c], extra[1][i][c]
+                    custom += [[rows[i], cols[c], h, cell[h], lows[h], highs[h]] for h in range(H1)]
+                else:
+                    custom += [[rows[i], cols[c], h, cell[h]] for h in range(H1)]
+                custom.append(None)
+        band_hover = f"<br>{band_label}: %{{customdata[4]:.4g}} to %{{customdata[5]:.4g}}" if k == 0 and extra else ""
+        data.append({
+            "type": "scatter", "mode": "lines", "x": _with_gaps(xs), "y": _with_gaps(scaled(values)),
+            "customdata": custom, "line": line, "name": name, "legendgroup": name,
+            "hovertemplate": hover + band_hover + "<extra></extra>",
+        })  # fmt: skip
+    data.append({
+        "type": "scatter", "mode": "text", "x": th.as_list(corner + w), "y": th.as_list(bottom + 1),
+        "text": [f"{_short(a)}…{_short(b)}" for a, b in zip(lo.ravel().tolist(), hi.ravel().tolist(), strict=True)],
+        "textposition": "top left", "textfont": {"size": 9 if m <= 9 else 8, "color": "#555"},
+        "hoverinfo": "skip", "showlegend": False, "name": "scales",
+    })  # fmt: skip
+    ticks = sorted({0, H // 2, H}) if H >= 4 else list(range(H1))
+    axes = {
+        "xaxis": th.axis(
+            range=[-w * CELL_GAP_X / 2, float(xb[-1]) + w * (1 + CELL_GAP_X / 2)], showgrid=False, zeroline=False,
+            tickvals=[float(x) + t for x in xb for t in ticks], ticktext=[str(t) for _ in xb for t in ticks],
+            tickfont={"size": 9}, title={"text": "horizon", "font": {"size": 11}},
+        ),
+        "yaxis": th.axis(
+            range=[-CELL_GAP_Y / 4, float(yb[0]) + 1 + CELL_GAP_Y], showgrid=False, zeroline=False, showline=False,
+            tickvals=[float(y) + 0.5 for y in yb], ticktext=list(rows), ticks="", tickfont={"size": 11},
+        ),
+    }  # fmt: skip
+    size = 12 if m <= 5 else 10
+    anns = [th.text(label, float(x) + w / 2, 1.0, xref="x", yanchor="bottom", font={"size": size})
+            for label, x in zip(cols, xb, strict=True)]  # fmt: skip
+    return data, axes, anns
+
+
+def _cell_layout(height: int, title: str, subtitle: str, axes: dict[str, Any],
+                 anns: list[dict[str, Any]]) -> dict[str, Any]:
+    """Layout of a one-axis grid: its title hangs from the top of the figure and the top margin
+    grows with the title's lines, so a long subtitle (a 40-series Cholesky order) never runs into
+    the column titles under it."""
+    layout = th.layout(height=height, title=title, subtitle=subtitle, legend=_BOTTOM_LEGEND,
+                       annotations=anns, **axes)  # fmt: skip
+    lines = layout["title"]["text"].count("<br>")  # beyond the first
+    layout["title"].update(yref="container", y=1.0, yanchor="top", pad={"t": 14})
+    layout["margin"] = {"l": 20, "r": 20, "t": 14 + 22 + 19 * lines + 22, "b": 80}
+    return layout
+
+
 def responses_figure(
     response: np.ndarray,
     names: Sequence[str],
@@ -273,15 +432,31 @@ def responses_figure(
     """Grid of impulse responses: rows are responding series, columns are shocked series.
 
     response, lower, upper : (H+1, n, n) [horizon, response, shock]. `shocks` picks the columns
-    (all by default; the report draws one figure per shock for wide universes). Each panel's
-    response trace carries ``meta = [response name, shock name]``; a band is one filled trace per
-    panel (upper, then lower reversed) named `band_label`.
+    (all by default; the report draws one figure per shock for wide universes).
+
+    On screen the grid is drawn on ONE pair of axes (`_cell_grid`): each panel a cell with its own
+    scale, one trace for every response, one for every band. Each point's ``customdata`` is
+    ``[response name, shock name, horizon, value]`` (plus ``lower, upper`` with a band): the true
+    values, which hover shows. In print each panel is a subplot of its own with its own y axis
+    (a static page has no hover: its ticks are the only way to read a value); each panel's
+    response trace carries ``meta = [response name, shock name]`` and a band is one filled trace
+    per panel (upper, then lower reversed) named `band_label`.
     """
     H1, n, _ = response.shape
     cols = list(range(n)) if shocks is None else [int(j) for j in shocks]
+    if medium == "screen":
+        band = None if lower is None or upper is None else (lower[:, :, cols], upper[:, :, cols])
+        data, axes, anns = _cell_grid(
+            [("response", response[:, :, cols], {"color": BLUE, "width": 1.6},
+              "%{customdata[0]} after a shock to %{customdata[1]}<br>h=%{customdata[2]}: %{customdata[3]:.4g}")],
+            list(names), [names[j] for j in cols], band=band, band_label=band_label,
+        )  # fmt: skip
+        sub = ((subtitle + "; " if subtitle else "")
+               + f"rows: responding series; columns: shock to the series named above; units: {yunit}; {CELL_SCALE_NOTE}")  # fmt: skip
+        return {"data": data, "layout": _cell_layout(max(380, 110 + 112 * n), title, sub, axes, anns)}
     h = list(range(H1))
     axes, refs = th.grid(n, len(cols), hgap=GRID_HGAP, vgap=0.04, share_x=True)
-    data: list[dict[str, Any]] = []
+    data = []
     paths = th.panels(response)
     bands = None if lower is None or upper is None else (th.panels(lower), th.panels(upper))
     for i in range(n):
@@ -321,35 +496,21 @@ def responses_compare_figure(
     first: np.ndarray, second: np.ndarray, names: Sequence[str], *, labels: tuple[str, str],
     title: str,
 ) -> Figure:
-    """Two response grids (H+1, n, n) overlaid: the first date window solid, the second dashed."""
-    H1, n, _ = first.shape
-    h = list(range(H1))
-    axes, refs = th.grid(n, n, hgap=GRID_HGAP, vgap=0.04, share_x=True)
-    data: list[dict[str, Any]] = []
-    styles = ({"color": BLUE, "width": 1.6}, {"color": ORANGE, "width": 1.6, "dash": "dash"})
-    grids = (th.panels(first), th.panels(second))
-    for i in range(n):
-        for j in range(n):
-            xr, yr = refs[i][j]
-            for k, (arr, label) in enumerate(((grids[0], labels[0]), (grids[1], labels[1]))):
-                data.append({
-                    "type": "scatter", "mode": "lines", "x": h, "y": arr[i][j],
-                    "line": styles[k], "name": label, "legendgroup": str(k),
-                    "showlegend": i == 0 and j == 0, "meta": [names[i], names[j]],
-                    "hovertemplate": f"{label}<br>{names[i]} ← {names[j]}, h=%{{x}}: %{{y:.4g}}<extra></extra>",
-                    "xaxis": xr, "yaxis": yr,
-                })  # fmt: skip
-            _panel_axes(axes, xr, yr)
-    for j in range(n):
-        axes[th.axis_key(refs[n - 1][j][0])]["title"] = {"text": "horizon", "font": {"size": 11}}
-    anns = _grid_titles(refs, axes, list(names), list(names))
-    layout = th.layout(
-        height=max(380, 110 + 108 * n), title=title,
-        subtitle="rows: responding series; columns: shock to the series named above",
-        margin={"l": 70, "r": 20, "t": 110, "b": 80},
-        legend=_BOTTOM_LEGEND, annotations=anns, **axes,
+    """Two response grids (H+1, n, n) overlaid: the first date window solid, the second dashed.
+
+    Drawn like the screen's `responses_figure` (`_cell_grid`, one pair of axes): one trace per
+    window, each point's ``customdata`` ``[response name, shock name, horizon, value]``; a cell's
+    scale covers both windows' paths.
+    """
+    n = first.shape[1]
+    pair = "%{customdata[0]} ← %{customdata[1]}, h=%{customdata[2]}: %{customdata[3]:.4g}"
+    data, axes, anns = _cell_grid(
+        [(labels[0], first, {"color": BLUE, "width": 1.6}, f"{labels[0]}<br>{pair}"),
+         (labels[1], second, {"color": ORANGE, "width": 1.6, "dash": "dash"}, f"{labels[1]}<br>{pair}")],
+        list(names), list(names),
     )  # fmt: skip
-    return {"data": data, "layout": layout}
+    sub = f"rows: responding series; columns: shock to the series named above; {CELL_SCALE_NOTE}"
+    return {"data": data, "layout": _cell_layout(max(380, 110 + 108 * n), title, sub, axes, anns)}
 
 
 # ---------------------------------------------------------------------------------------------

@@ -161,9 +161,11 @@ def index_view(snap: Snapshot, state: Any, quantile: Any = 0.9) -> ViewResult:
     return fig, rows, note
 
 
-#: Most series a shock-path grid draws (a grid is n × n panels: the demo's 40-series universe,
-#: 1,600 panels, kept the browser busy for over 30 s). Larger universes show the first ones of
-#: the ordering control, where the user picks which; the CSV keeps every series.
+#: Most series a shock-path grid draws. A grid is n × n panels: the demo's 40-series universe
+#: would be 1,600 cells of a few pixels each (drawn as subplots they kept the browser busy for
+#: over 30 s; as cells of one pair of axes they draw quickly but cannot be read). Larger universes
+#: show the first ones of the ordering control, where the user picks which; the CSV keeps every
+#: series.
 GRID_SERIES_MAX = 12
 
 

@@ -20,8 +20,9 @@ import pytest
 import charts
 from dashboard import views as cb
 from dashboard.data import Snapshot
+from tests.charts.grids import response_panels, trace_array
 from tests.dashboard import _pipeline
-from tests.pipeline.test_export import plotly_traces, response_panels, trace_array
+from tests.pipeline.test_export import plotly_traces
 
 UNIVERSE = "cross_market"  # generalized shocks, stored bootstrap bands (tests/dashboard/_pipeline.py)
 
@@ -68,10 +69,15 @@ def test_shock_paths_same_values_and_colours(snap: Snapshot, made: tuple[Path, s
     for key, shown in on_screen.items():
         for part in ("response", "lower", "upper"):
             np.testing.assert_array_equal(np.asarray(shown[part], dtype=float), in_report[key][part])
+
+    # the screen draws every panel's response in one trace and every band in one (on one pair of
+    # axes); the report one trace of each per panel: the same two looks
     def looks(traces: list[dict[str, Any]]) -> set[tuple[Any, ...]]:
-        return {(t.get("fill"), t["line"].get("color"), t.get("fillcolor")) for t in traces}
+        return {(t.get("fill"), t["line"].get("color"), t.get("fillcolor")) for t in traces
+                if t.get("legendgroup") in ("response", "band")}  # fmt: skip
 
     assert looks(screen["data"]) == looks(report) and len(looks(report)) == 2  # band, line
+    assert [t["legendgroup"] for t in screen["data"] if t.get("showlegend", True)] == ["band", "response"]
     # the same fonts and the same column headers (the shocked series' names)
     layout = plotly_layout(html, "fig-irf-0-0")
     assert layout["font"] == screen["layout"]["font"] == charts.FONT

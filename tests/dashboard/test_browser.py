@@ -22,6 +22,7 @@ import pytest
 
 from dashboard import DashboardSettings, create_app
 from dashboard.layout import CAUTION
+from tests.charts.grids import cell_values, response_panels
 from tests.conftest import CHROMIUM_ARGS
 
 from .conftest import read
@@ -128,6 +129,19 @@ def set_window(page: Any, start: str, end: str) -> None:
     wait_text(page, "#window-note", f"Date window {start} to {end}")
 
 
+def series_of(snapshot_path: Path, universe: str) -> list[str]:
+    return [s for (s,) in read(snapshot_path, "SELECT series FROM universe_series WHERE universe = ? ORDER BY position", [universe])]
+
+
+def shown_responses(page: Any, names: list[str]) -> np.ndarray:
+    """The shock-path grid on the page, read back from its points' true values (customdata):
+    (H+1, n, n) [horizon, response, shock]."""
+    panels = response_panels(traces(page, "paths-graph"), names)
+    n = len(names)
+    assert panels.keys() == {(i, j) for i in range(n) for j in range(n)}
+    return np.stack([[panels[(i, j)]["response"] for j in range(n)] for i in range(n)]).transpose(2, 0, 1)
+
+
 def stored_response(snapshot_path: Path, universe: str, end: dt.date, ident: str) -> np.ndarray:
     n = read(snapshot_path, "SELECT count(*) FROM universe_series WHERE universe = ?", [universe])[0][0]
     ((horizon, flat),) = read(
@@ -197,14 +211,14 @@ def test_date_window_drives_the_views(page: Any, snapshot_path: Path, universe_n
     # the overview zooms to the window
     rng = layout(page, "index-graph")["xaxis"]["range"]
     assert rng[0].startswith(start) and rng[1].startswith(end)
-    # the shock paths on the page are the stored responses of that window
-    n = len(read(snapshot_path, "SELECT series FROM universe_series WHERE universe = ?", [universe_name]))
-    shown = [t for t in traces(page, "paths-graph") if t.get("name") == "response"]
-    assert len(shown) == n * n
+    # the shock paths on the page are the stored responses of that window (the true values each
+    # point of the one-axis grid carries)
+    names = series_of(snapshot_path, universe_name)
+    n = len(names)
+    got = shown_responses(page, names)
+    assert got.shape[1:] == (n, n)
     want = stored_response(snapshot_path, universe_name, used, "generalized")
-    H = len(shown[0]["y"]) - 1
-    got = np.array([t["y"] for t in shown]).reshape(n, n, H + 1).transpose(2, 0, 1)
-    np.testing.assert_allclose(got, want[: H + 1], rtol=1e-12)
+    np.testing.assert_allclose(got, want[: got.shape[0]], rtol=1e-12)
     page.screenshot(path=str(ARTIFACTS / "02-narrow-window.png"))
     # moving the chart's range (what the slider and zoom do) rewrites the date inputs
     new_start, new_end = ends[1].isoformat(), ends[-2].isoformat()
@@ -234,9 +248,9 @@ def test_other_identification(page: Any, snapshot_path: Path, universe_name: str
         " return gd && gd.layout && gd.layout.title.text.includes('Cholesky'); }"
     )
     used = fitted_end(snapshot_path, universe_name, bounds[0].isoformat(), bounds[1].isoformat())
-    shown = [t for t in traces(page, "paths-graph") if t.get("name") == "response"]
-    n = round(len(shown) ** 0.5)
-    got = np.array([t["y"] for t in shown]).reshape(n, n, -1).transpose(2, 0, 1)
+    names = series_of(snapshot_path, universe_name)
+    n = len(names)
+    got = shown_responses(page, names)
     want = cholesky_from_stored_model(snapshot_path, universe_name, used, got.shape[0] - 1)
     np.testing.assert_allclose(got, want, rtol=1e-10, atol=1e-14)
     # recursive identification: the first series does not respond on impact to the others' shocks
@@ -301,12 +315,14 @@ def test_switching_universe_resets_window_and_controls(page: Any, snapshot_path:
     assert page.input_value("#window-start") == lo.isoformat()
     # the ordering control now lists the new universe's series, and the grid shows them
     page.wait_for_function(
-        "n => { const gd = document.querySelector('#paths-graph .js-plotly-plot');"
-        " return gd && gd.data && gd.data.filter(t => t.name === 'response').length === n; }",
-        arg=len(series) ** 2,
+        "s => { const gd = document.querySelector('#paths-graph .js-plotly-plot');"
+        " const t = gd && gd.data && gd.data.find(t => t.name === 'response');"
+        " return t && t.customdata[0][0] === s[0] && t.customdata[0][1] === s[0]"
+        " && new Set(t.customdata.filter(p => p).map(p => p[0] + '|' + p[1])).size === s.length ** 2; }",
+        arg=series,
     )
-    shown = [t for t in traces(page, "paths-graph") if t.get("name") == "response"]
-    assert shown[0]["meta"] == [series[0], series[0]]
+    (shown,) = [t for t in traces(page, "paths-graph") if t.get("name") == "response"]
+    assert next(iter(cell_values(shown))) == (series[0], series[0])
     assert other in layout(page, "index-graph")["title"]["text"]
     # and the universe's own identification is selected
     ident = read(snapshot_path, "SELECT identification FROM universes WHERE universe = ?", [other])[0][0]
@@ -398,23 +414,43 @@ def _overlap(a: dict[str, float], b: dict[str, float]) -> bool:
     return a["left"] < b["right"] - 1 and b["left"] < a["right"] - 1 and a["top"] < b["bottom"] - 1 and b["top"] < a["bottom"] - 1
 
 
-def _ticks_clear_of_neighbours(page: Any, graph_id: str) -> None:
-    """No panel's y-tick labels reach into the plot area of the panel to its left."""
-    panels = page.evaluate(PANELS_JS, graph_id)
-    assert any(p["labelLeft"] is not None for p in panels)
-    for p in panels:
-        if p["labelLeft"] is None:
-            continue
-        for q in panels:
-            same_row = q["top"] < p["bottom"] and p["top"] < q["bottom"]
-            if q is not p and same_row and q["right"] <= p["left"]:
-                assert p["labelLeft"] >= q["right"], (p, q)
+CELLS_JS = """id => {
+  const gd = document.querySelector('#' + id + ' .js-plotly-plot');
+  const xa = gd._fullLayout.xaxis, ya = gd._fullLayout.yaxis;
+  const svg = gd.querySelector('.main-svg').getBoundingClientRect();
+  const t = gd.data.find(t => t.name === 'panels'), out = [];
+  for (let k = 0; k + 5 <= t.x.length; k += 6) {  // a cell's box: five corners, then a gap
+    const xs = t.x.slice(k, k + 5), ys = t.y.slice(k, k + 5);
+    out.push({left: svg.left + xa._offset + xa.l2p(Math.min(...xs)),
+              right: svg.left + xa._offset + xa.l2p(Math.max(...xs)),
+              top: svg.top + ya._offset + ya.l2p(Math.max(...ys)),
+              bottom: svg.top + ya._offset + ya.l2p(Math.min(...ys))});
+  }
+  return out;
+}"""
+
+
+def _labels_apart(page: Any, graph_id: str) -> None:
+    """A one-axis grid on the page: each cell's scale label, the column titles and the row names
+    clear of one another and of every cell."""
+    labels = page.evaluate(BOXES_JS, [graph_id, ".scatterlayer .textpoint text"])
+    titles = page.evaluate(BOXES_JS, [graph_id, ".annotation-text"])
+    rows = page.evaluate(BOXES_JS, [graph_id, ".ytick text"])
+    cells = page.evaluate(CELLS_JS, graph_id)
+    n = len(rows)
+    assert len(cells) == n * n and len(labels) == n * n and len(titles) == n, (len(cells), len(labels), len(titles))
+    everything = labels + titles + rows
+    for k, a in enumerate(everything):
+        for b in everything[k + 1:]:
+            assert not _overlap(a, b), (a, b)
+        for c in cells:
+            assert not _overlap(a, c), (a, c)
 
 
 def test_shock_path_layout_in_the_browser(page: Any, snapshot_path: Path, universe_name: str) -> None:
     """Issue 10.4, measured on the drawn page: the legend inside its figure and clear of the
-    controls, the long Cholesky title inside the figure, y-tick labels clear of the panel to
-    their left."""
+    controls, the long Cholesky title inside the figure; the grid (one pair of axes) keeps its
+    scale labels, column titles and row names clear of one another and of the cells."""
     page.set_viewport_size({"width": 1024, "height": 800})  # a laptop-sized window
     page.get_by_text("Shock paths", exact=True).click()
     page.locator("#identification input[value=cholesky]").check()
@@ -428,14 +464,47 @@ def test_shock_path_layout_in_the_browser(page: Any, snapshot_path: Path, univer
     assert not any(_overlap(legend, c) for c in controls)
     titles = page.evaluate(BOXES_JS, ["paths-graph", ".gtitle"])
     assert titles and all(t["right"] <= svg["right"] + 1 for t in titles), (titles, svg)
-    _ticks_clear_of_neighbours(page, "paths-graph")
+    _labels_apart(page, "paths-graph")
     page.locator("#identification input[value=generalized]").check()
     page.locator("#bands input[value=stored]").check()
     wait_text(page, "#paths-note", "stored band")
     page.wait_for_timeout(300)
-    _ticks_clear_of_neighbours(page, "paths-graph")
+    _labels_apart(page, "paths-graph")
     page.screenshot(path=str(ARTIFACTS / "07-cholesky-layout.png"), full_page=True)
     page.set_viewport_size({"width": 1280, "height": 800})
+
+
+HOVER_JS = """([curve, point]) => {
+  const gd = document.querySelector('#paths-graph .js-plotly-plot');
+  window.Plotly.Fx.hover(gd, [{curveNumber: curve, pointNumber: point}]);
+}"""
+HOVER_TEXT_JS = """want => {
+  const gd = document.querySelector('#paths-graph .js-plotly-plot');
+  const text = [...gd.querySelectorAll('.hoverlayer .hovertext')].map(e => e.textContent).join(' ');
+  return text.includes(want) ? text : null;
+}"""
+
+
+def test_shock_path_hover_says_the_true_value(page: Any, snapshot_path: Path, universe_name: str, bounds: tuple[dt.date, dt.date]) -> None:
+    """The grid's heights are positions in a cell; hovering a point says its pair, horizon and
+    true (stored) value, and the band around it."""
+    page.get_by_text("Shock paths", exact=True).click()
+    wait_text(page, "#paths-note", "stored band")
+    data = traces(page, "paths-graph")
+    curve = next(k for k, t in enumerate(data) if t.get("name") == "response")
+    names = series_of(snapshot_path, universe_name)
+    used = fitted_end(snapshot_path, universe_name, bounds[0].isoformat(), bounds[1].isoformat())
+    want = stored_response(snapshot_path, universe_name, used, "generalized")
+    H1 = data[curve]["customdata"].index(None)  # horizons shown: the first cell's points
+    assert H1 <= want.shape[0]
+    for i, j, h in ((0, 1, 0), (len(names) - 1, 0, 2)):
+        point = (i * len(names) + j) * (H1 + 1) + h  # a cell's points, then its gap
+        page.wait_for_timeout(150)  # plotly takes a hover at most every 50 ms
+        page.evaluate(HOVER_JS, [curve, point])
+        text = page.wait_for_function(HOVER_TEXT_JS, arg=f"{names[i]} after a shock to {names[j]}").json_value()
+        assert f"h={h}: " in text and "band: " in text, text
+        shown = float(text.split(f"h={h}: ")[1].split("band")[0].replace("−", "-"))
+        assert shown == pytest.approx(want[h, i, j], rel=1e-3), (text, want[h, i, j])
 
 
 def test_network_spreads_nodes_and_labels(page: Any) -> None:

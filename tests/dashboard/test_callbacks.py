@@ -5,7 +5,6 @@ from __future__ import annotations
 import csv
 import datetime as dt
 import io
-import itertools
 from pathlib import Path
 from typing import Any
 
@@ -17,6 +16,7 @@ import arlib
 from dashboard import callbacks as cb
 from dashboard import views as vw
 from dashboard.data import DateWindow, Snapshot
+from tests.charts.grids import cell_values, response_panels
 
 from .conftest import read
 
@@ -83,9 +83,16 @@ def test_paths_view_generalized_equals_stored_and_arlib(snap: Snapshot, snapshot
     # and the stored responses are arlib's generalized responses of the stored model (Pesaran–Shin)
     np.testing.assert_allclose(got, arlib.impulse_responses(_stored_model(snap, universe_name, end), u.horizon, shocks="generalized"), rtol=1e-10, atol=1e-12)
     assert "stored band" in note and rows[0]["lower"] is not None
-    # one trace per panel carries its [response, shock] names
-    metas = [t["meta"] for t in fig["data"] if t.get("name") == "response"]
-    assert metas[1] == [u.series[0], u.series[1]]
+    # on screen one trace draws every panel (one pair of axes); its points carry the true values
+    # and each panel's [response, shock] names, row after row, and the band's values
+    (line,) = [t for t in fig["data"] if t.get("name") == "response"]
+    cells = cell_values(line)
+    assert list(cells)[:2] == [(u.series[0], u.series[0]), (u.series[0], u.series[1])]
+    panels = response_panels(fig["data"], list(u.series))
+    assert len(panels) == n * n
+    for (i, j), p in panels.items():
+        np.testing.assert_array_equal(p["response"], stored[:, i, j])
+        assert (p["lower"] <= p["upper"]).all()
 
 
 def test_paths_view_longer_horizon_and_ordering_come_from_arlib(snap: Snapshot, state: dict[str, str], universe_name: str) -> None:
@@ -470,15 +477,33 @@ def _title_lines(layout: dict[str, Any]) -> list[str]:
     return [re.sub(r"<[^>]+>", "", line) for line in text.split("<br>")]
 
 
-def _y_gaps(layout: dict[str, Any]) -> list[float]:
-    """Gaps (paper fraction) between horizontally adjacent panels of a grid."""
-    domains = sorted({tuple(v["domain"]) for k, v in layout.items() if k.startswith("xaxis") and "domain" in v})
-    return [b[0] - a[1] for a, b in itertools.pairwise(domains) if b[0] > a[0]]
+def _cells_apart(fig: dict[str, Any]) -> None:
+    """A one-axis grid (the screen's shock paths): one pair of axes; neighbouring cells' boxes do
+    not touch (room for the scale printed above each cell) and each cell's curves stay inside its
+    own box."""
+    assert not [k for k in fig["layout"] if k.startswith(("xaxis", "yaxis")) and k[5:]], "one pair of axes"
+
+    def per_cell(values: list[Any], cells: int) -> np.ndarray:
+        return np.array([np.nan if v is None else v for v in values], dtype=float).reshape(cells, -1)
+
+    boxes = next(t for t in fig["data"] if t.get("name") == "panels")
+    cells = len(boxes["x"]) // 6  # a box: five corners, then the gap
+    bx, by = per_cell(boxes["x"], cells), per_cell(boxes["y"], cells)
+    left, right = np.nanmin(bx, axis=1), np.nanmax(bx, axis=1)
+    bottom, top = np.nanmin(by, axis=1), np.nanmax(by, axis=1)
+    assert np.diff(np.unique(left)).min() > (right - left).max()
+    assert np.diff(np.unique(bottom)).min() > (top - bottom).max()
+    for t in fig["data"]:
+        if t.get("customdata") is None:
+            continue
+        x, y = per_cell(t["x"], cells), per_cell(t["y"], cells)
+        assert (np.nanmin(x, axis=1) >= left).all() and (np.nanmax(x, axis=1) <= right).all()
+        assert (np.nanmin(y, axis=1) >= bottom - 1e-4).all() and (np.nanmax(y, axis=1) <= top + 1e-4).all()
 
 
 def test_response_grids_keep_legend_title_and_ticks_inside(snap: Snapshot, state: dict[str, str], universe_name: str) -> None:
     """Layout of the shock-path and compare grids: the legend never above the figure, title lines
-    short enough to fit, and room between panels for a panel's y-tick labels."""
+    short enough to fit, cells apart and each panel inside its own cell."""
     u = snap.universe(universe_name)
     order = list(reversed(u.series))
     figs = [
@@ -491,8 +516,7 @@ def test_response_grids_keep_legend_title_and_ticks_inside(snap: Snapshot, state
         assert not _legend_above_figure(layout), layout.get("legend")
         assert max(len(line) for line in _title_lines(layout)) <= 120, _title_lines(layout)
     for fig in figs[:2]:
-        gaps = _y_gaps(fig["layout"])
-        assert gaps and min(gaps) >= 0.05, gaps
+        _cells_apart(fig)
     # the whole Cholesky order is still said, on its own line
     assert " → ".join(order) in fig["layout"]["title"]["text"] or " → ".join(order) in figs[0]["layout"]["title"]["text"]
 

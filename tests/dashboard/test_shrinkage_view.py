@@ -17,6 +17,7 @@ import pytest
 
 from dashboard import views as vw
 from dashboard.data import Snapshot
+from tests.charts.grids import panel_pairs
 
 from ._pipeline import build, whole_range
 
@@ -132,13 +133,13 @@ def test_a_wide_universe_draws_a_grid_of_at_most_twelve_series(snap: Snapshot) -
     u = snap.universe("sector_14")
     chosen = ["VSX_14", "VSX_13"]  # chosen in the ordering control: drawn first
     fig, rows, note = vw.paths_view(snap, state, "generalized", chosen, [], 4, "none")
-    drawn = {tuple(t["meta"]) for t in fig["data"] if t.get("meta")}
+    drawn = panel_pairs(fig)
     expected = ["VSX_14", "VSX_13", *[s for s in u.series if s not in chosen]][: vw.GRID_SERIES_MAX]
     assert drawn == {(r, c) for r in expected for c in expected}
     assert len(rows) == 5 * 14 * 14
     assert "12 of 14 series" in note
     _, (paths, prow, pnote) = vw.compare_view(snap, state, None, None, None, None, "generalized", chosen, 4)
-    assert len({tuple(t["meta"]) for t in paths["data"] if t.get("meta")}) == 12 * 12
+    assert panel_pairs(paths) == drawn
     assert len(prow) == 5 * 14 * 14 and "12 of 14 series" in pnote
 
 

@@ -7,7 +7,6 @@ The same checks on a snapshot the real pipeline produced are in test_export_pipe
 
 from __future__ import annotations
 
-import base64
 import datetime as dt
 import json
 import logging
@@ -36,6 +35,7 @@ from pipeline.export import (
     safe_dir_name,
 )
 from pipeline.export._paths import universe_dir
+from tests.charts.grids import response_panels, trace_array
 from tests.pipeline.test_export_snapshot_builder import build_snapshot
 
 HTML_SECTIONS = ("glance", "connectedness", "spillovers", "responses", "decompositions",
@@ -81,28 +81,6 @@ def plotly_traces(html: str, div_id: str) -> list[dict]:
     assert m, f"chart {div_id} not in report"
     traces, _ = json.JSONDecoder().raw_decode(html, m.end())
     return traces
-
-
-def trace_array(value: object) -> np.ndarray:
-    """Plotly stores numpy arrays as {"dtype", "bdata" (base64)}; lists stay lists."""
-    if isinstance(value, dict):
-        return np.frombuffer(base64.b64decode(value["bdata"]), dtype=np.dtype(value["dtype"]))
-    return np.asarray(value, dtype=float)
-
-
-def response_panels(traces: list[dict], names: list[str]) -> dict[tuple[int, int], dict[str, np.ndarray]]:
-    """Per panel (response i, shock j) of a response grid: "response", and "lower"/"upper" when
-    a band is drawn (one filled trace: upper over the horizons, then lower in reverse)."""
-    out: dict[tuple[int, int], dict[str, np.ndarray]] = {}
-    for t in traces:
-        i, j = names.index(t["meta"][0]), names.index(t["meta"][1])
-        y = trace_array(t["y"])
-        if t.get("fill") == "toself":
-            h1 = len(y) // 2
-            out.setdefault((i, j), {}).update(upper=y[:h1], lower=y[h1:][::-1])
-        else:
-            out.setdefault((i, j), {})["response"] = y
-    return out
 
 
 def snapshot_frame(path: Path, sql: str, params: list) -> pl.DataFrame:

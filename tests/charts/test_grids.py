@@ -1,0 +1,111 @@
+"""The shock-path grids: on screen one pair of axes (a cell per panel), in print a subplot per panel;
+the true values come back from either figure, and each cell says its own scale."""
+
+from __future__ import annotations
+
+import numpy as np
+import plotly.graph_objects as go
+
+import charts
+from tests.charts.grids import cell_values, panel_pairs, response_panels
+
+NAMES = ["alpha", "beta", "gamma"]
+
+
+def _grid(seed: int = 0, H: int = 6) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    rng = np.random.default_rng(seed)
+    resp = rng.normal(scale=[1e-3, 0.5, 40.0], size=(H + 1, 3, 3))  # rows of very different sizes
+    return resp, resp - 0.1 * np.abs(resp) - 1e-4, resp + 0.1 * np.abs(resp) + 1e-4
+
+
+def test_screen_grid_is_one_pair_of_axes_with_true_values_in_customdata() -> None:
+    resp, lo, hi = _grid()
+    resp[3, 1, 2] = np.nan  # a missing value stays a gap, never a number
+    resp[:, 2, 0] = 0.0  # a panel of zeros
+    fig = charts.responses_figure(resp, NAMES, lower=lo, upper=hi, title="t", yunit="u", band_label="90% band")
+    go.Figure(fig)
+    axes = sorted(k for k in fig["layout"] if k.startswith(("xaxis", "yaxis")))
+    assert axes == ["xaxis", "yaxis"]
+    assert [t["name"] for t in fig["data"]] == ["panels", "90% band", "zero", "response", "scales"]
+    assert [t["name"] for t in fig["data"] if t.get("showlegend", True)] == ["90% band", "response"]
+    panels = response_panels(fig["data"], NAMES)
+    assert len(panels) == 9
+    for (i, j), p in panels.items():
+        np.testing.assert_array_equal(p["response"], resp[:, i, j])
+        np.testing.assert_array_equal(p["lower"], lo[:, i, j])
+        np.testing.assert_array_equal(p["upper"], hi[:, i, j])
+    line = fig["data"][3]
+    assert line["y"][(1 * 3 + 2) * 8 + 3] is None  # row 1, column 2, h = 3: the gap
+    assert "%{customdata[3]:.4g}" in line["hovertemplate"] and "90% band" in line["hovertemplate"]
+    # row names on the y axis, column names above the top row
+    assert fig["layout"]["yaxis"]["ticktext"] == NAMES
+    assert [a["text"] for a in fig["layout"]["annotations"]] == NAMES
+    assert "own scale" in fig["layout"]["title"]["text"]
+
+
+def test_each_cell_prints_the_range_it_is_drawn_on() -> None:
+    """A cell spans round numbers at or beyond its lowest and highest value (and zero); its label
+    says them, and a value's height in the cell is its place in that range."""
+    resp, lo, hi = _grid(seed=3)
+    fig = charts.responses_figure(resp, NAMES, lower=lo, upper=hi, title="t", yunit="u")
+    scales = fig["data"][-1]["text"]
+    boxes = fig["data"][0]
+    line = fig["data"][3]
+    for k, (i, j) in enumerate((i, j) for i in range(3) for j in range(3)):
+        bottom_text, top_text = scales[k].replace("−", "-").split("…")
+        bottom, top = float(bottom_text), float(top_text)
+        drawn = np.concatenate([resp[:, i, j], lo[:, i, j], hi[:, i, j], [0.0]])
+        assert bottom <= drawn.min() and drawn.max() <= top
+        assert drawn.max() - drawn.min() >= 0.3 * (top - bottom)  # the panel uses its cell
+        cell_bottom = min(v for v in boxes["y"][6 * k: 6 * k + 5])
+        heights = np.array(line["y"][8 * k: 8 * k + 7]) - cell_bottom
+        np.testing.assert_allclose(heights, (resp[:, i, j] - bottom) / (top - bottom), atol=2e-4)
+
+
+def test_a_cell_of_zeros_and_a_missing_band_value() -> None:
+    resp, lo, hi = _grid(seed=5)
+    resp[:, 0, 1] = lo[:, 0, 1] = hi[:, 0, 1] = 0.0
+    hi[2, 2, 2] = np.inf
+    fig = charts.responses_figure(resp, NAMES, lower=lo, upper=hi, title="t", yunit="u")
+    assert fig["data"][-1]["text"][1] == "−1…1"
+    panels = response_panels(fig["data"], NAMES)
+    assert np.isnan(panels[(2, 2)]["upper"][2])  # shown as a gap; customdata says None
+    np.testing.assert_array_equal(panels[(0, 1)]["response"], np.zeros(7))
+
+
+def test_print_keeps_a_subplot_per_panel_with_the_same_values() -> None:
+    resp, lo, hi = _grid(seed=7)
+    screen = charts.responses_figure(resp, NAMES, lower=lo, upper=hi, title="t", yunit="u")
+    paper = charts.responses_figure(resp, NAMES, lower=lo, upper=hi, title="t", yunit="u", medium="print")
+    go.Figure(paper)
+    assert len([k for k in paper["layout"] if k.startswith("xaxis")]) == 9
+    assert len(paper["data"]) == 18 and all(len(t["meta"]) == 2 for t in paper["data"])
+    on_screen, in_print = response_panels(screen["data"], NAMES), response_panels(paper["data"], NAMES)
+    assert on_screen.keys() == in_print.keys()
+    for key, p in on_screen.items():
+        for part in ("response", "lower", "upper"):
+            np.testing.assert_array_equal(p[part], in_print[key][part])
+    # a report's figure per shock (wide universes): the chosen column only
+    one = charts.responses_figure(resp, NAMES, shocks=[1], title="t", yunit="u")
+    assert panel_pairs(one) == {(r, "beta") for r in NAMES}
+    np.testing.assert_array_equal(response_panels(one["data"], NAMES)[(2, 1)]["response"], resp[:, 2, 1])
+    assert "lower" not in response_panels(one["data"], NAMES)[(2, 1)]
+
+
+def test_compare_grid_overlays_both_windows_on_one_pair_of_axes() -> None:
+    a, _, _ = _grid(seed=1)
+    b, _, _ = _grid(seed=2)
+    fig = charts.responses_compare_figure(a, b, NAMES, labels=("A: w1", "B: w2"), title="t")
+    go.Figure(fig)
+    assert sorted(k for k in fig["layout"] if k.startswith(("xaxis", "yaxis"))) == ["xaxis", "yaxis"]
+    first, second = (next(t for t in fig["data"] if t["name"] == label) for label in ("A: w1", "B: w2"))
+    assert second["line"]["dash"] == "dash" and first["line"]["color"] != second["line"]["color"]
+    for trace, values in ((first, a), (second, b)):
+        for (r, s), got in cell_values(trace).items():
+            np.testing.assert_array_equal(got, values[:, NAMES.index(r), NAMES.index(s)])
+    # one scale per cell covers both windows
+    scales = fig["data"][-1]["text"]
+    for k, (i, j) in enumerate((i, j) for i in range(3) for j in range(3)):
+        bottom, top = (float(v) for v in scales[k].replace("−", "-").split("…"))
+        both = np.concatenate([a[:, i, j], b[:, i, j]])
+        assert bottom <= both.min() and both.max() <= top
