@@ -600,8 +600,9 @@ def _with_extras(
 
     The same kernels as `frequency_connectedness` and `joint_connectedness` on each window's
     coefficients and Σ̂_u (zero coefficients beyond a window's own lag order change nothing),
-    in chunks of windows that keep the spectral arrays near 32 MiB (`band_kernel`: the small-rfft form
-    of `frequency_kernel`, the same numbers to rounding).
+    in chunks of windows whose MA terms and band tables stay near 32 MiB (`band_kernel`, the
+    Toeplitz-projection form of `frequency_kernel`: the same numbers to rounding; it splits a chunk
+    further into `BAND_CHUNK_BYTES` pieces, and a window's bits never depend on the chunking).
     """
     ok = np.asarray(result.ok, dtype=bool)
     k = np.flatnonzero(ok)
@@ -617,7 +618,7 @@ def _with_extras(
         tables = np.full((W, d, n, n), np.nan)
         joint_parts = np.full((W, d, n), np.nan) if joint else None
         variance = np.full((W, d, n), np.nan) if joint else None
-        # per window: a_h and its transposed copy (2H n² floats), the size-2H rfft and its square
+        # per window: its MA terms a_h (H n² floats) and working copies, and its d band tables
         per = max(1, (32 * 2**20) // (8 * n * n * (2 * H + 3 * (H + 1) + d)))
         for lo in range(0, k.size, per):
             sel = k[lo : lo + per]
