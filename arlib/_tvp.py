@@ -121,7 +121,7 @@ from ._frequency import (
     frequency_measures,
     scaled_ma,
 )
-from ._joint import joint_kernel, joint_table
+from ._joint import joint_band_kernel, joint_kernel, joint_table
 from ._labels import is_frame
 from ._sizes import minimum_window
 from ._validate import (
@@ -211,6 +211,9 @@ class TimeVaryingVAR:
     truncation, grid : MA terms and FFT size of the bands (None without bands).
     joint_from_others : (D, n) 100·J_i (Lastrapes & Wiesen 2021) or None;
     joint_total : (D,) or None;  joint_to_others, joint_net : (D, n) or None.
+    joint_band_from_others, joint_band_variance : (D, d, n), joint_band_total : (D, d) — with
+        bands and joint, each date's `joint_frequency_connectedness` (band d's part of 100·J_i at
+        horizon `truncation`, Γ_i(d), and the mean over series), else None.
     state : `TVPState` after the last date.
     names, lags, trend, horizon, kappa1, kappa2, covariance : as used.
     training : rows of the training sample (None when continued from a state).
@@ -253,6 +256,9 @@ class TimeVaryingVAR:
     covariance: str
     training: int | None
     dates: np.ndarray | None = None
+    joint_band_from_others: np.ndarray | None = None
+    joint_band_total: np.ndarray | None = None
+    joint_band_variance: np.ndarray | None = None
 
     def __len__(self) -> int:
         return int(self.ends.shape[0])
@@ -395,11 +401,15 @@ def _measures(
     out: dict[str, np.ndarray] = {"pairwise": np.empty((D, n, n))}
     if stability:
         out["radius"] = np.empty(D)
-    terms, proj = horizon, None
+    terms, proj, weights = horizon, None, None
     if bands is not None and truncation is not None and grid is not None:
-        proj = band_projection(band_weights(bands, grid), grid, truncation)
+        weights = band_weights(bands, grid)
+        proj = band_projection(weights, grid, truncation)
         terms = max(horizon, truncation)
         out["band_pairwise"] = np.empty((D, len(bands), n, n))
+        if joint:
+            out["joint_band"] = np.empty((D, len(bands), n))
+            out["joint_variance"] = np.empty((D, len(bands), n))
     if joint:
         out["joint"] = np.empty((D, n))
     size = _chunk(n, p, terms)
@@ -415,6 +425,8 @@ def _measures(
             out["band_pairwise"][sl] = 100.0 * band / band.sum(axis=(-3, -1), keepdims=True)
         if joint:
             out["joint"][sl] = joint_kernel(c, s, horizon)
+            if weights is not None and truncation is not None and grid is not None:
+                out["joint_band"][sl], out["joint_variance"][sl] = joint_band_kernel(c, s, truncation, grid, weights)
         if stability:
             out["radius"][sl] = spectral_radius(c)
     return out
@@ -652,11 +664,15 @@ def tvp_var(
         jfrom = 100.0 * m["joint"]
         jm = {"from": jfrom, "total": jfrom.mean(axis=-1), "to": js["to_others"],
               "net": js["net"]}  # fmt: skip
+    jb: dict[str, np.ndarray | None] = dict.fromkeys(("from", "total", "variance"))
+    if "joint_band" in m:
+        jbfrom = 100.0 * m["joint_band"]
+        jb = {"from": jbfrom, "total": jbfrom.mean(axis=-1), "variance": m["joint_variance"]}
     ends = np.arange(first_row, first_row + D)
     readonly(
         ends, coefs, intercept, S_path, e_path, radius, m["pairwise"], g["total"],
         g["to_others"], g["from_others"], g["net"], m.get("band_pairwise"), *bandm.values(),
-        *jm.values(),
+        *jm.values(), *jb.values(),
     )  # fmt: skip
     return TimeVaryingVAR(
         ends=ends, coefs=coefs, intercept=intercept, sigma_u=S_path, prediction_error=e_path,
@@ -670,4 +686,5 @@ def tvp_var(
         joint_net=jm["net"], state=new_state, names=labels, lags=p, trend=trend_, horizon=H,
         kappa1=k1, kappa2=k2, covariance=cov_kind, training=train,
         dates=None if row_dates is None else row_dates[row_dates.shape[0] - D :],
+        joint_band_from_others=jb["from"], joint_band_total=jb["total"], joint_band_variance=jb["variance"],
     )  # fmt: skip

@@ -250,6 +250,10 @@ def test_per_date_measures_equal_single_model_calls(y):
         np.testing.assert_allclose(res.joint_from_others[t], jc.from_others, atol=1e-10)
         assert math.isclose(res.joint_total[t], jc.total, abs_tol=1e-10)
         np.testing.assert_allclose(res.joint_to_others[t], jc.to_others, atol=1e-10)
+        jb = arlib.joint_frequency_connectedness(proc, bands=BANDS, truncation=40)
+        np.testing.assert_allclose(res.joint_band_from_others[t], jb.from_others, atol=1e-10)
+        np.testing.assert_allclose(res.joint_band_total[t], jb.total, atol=1e-10)
+        np.testing.assert_allclose(res.joint_band_variance[t], jb.variance_share, atol=1e-10)
         assert math.isclose(res.spectral_radius[t], proc.spectral_radius, rel_tol=1e-12)
 
 
@@ -281,7 +285,8 @@ def test_per_date_measures_do_not_depend_on_the_chunks_of_dates(y, monkeypatch):
     res = tvp_var(y, 2, 8, bands=BANDS, truncation=30, joint=True)
     monkeypatch.setattr(arlib._tvp, "CHUNK_BYTES", 1)  # one date per chunk
     one = tvp_var(y, 2, 8, bands=BANDS, truncation=30, joint=True)
-    fields = ("pairwise", "band_pairwise", "band_total", "joint_from_others", "spectral_radius")
+    fields = ("pairwise", "band_pairwise", "band_total", "joint_from_others", "joint_band_from_others",
+              "spectral_radius")
     for field in fields:
         np.testing.assert_array_equal(getattr(one, field), getattr(res, field), err_msg=field)
 
@@ -296,7 +301,8 @@ def test_result_shapes_and_read_only(y):
         "prediction_error": (D, n), "spectral_radius": (D,), "total_connectedness": (D,),
         "to_others": (D, n), "pairwise": (D, n, n), "band_pairwise": (D, 3, n, n),
         "band_total": (D, 3), "band_net": (D, 3, n), "joint_from_others": (D, n),
-        "joint_total": (D,),
+        "joint_total": (D,), "joint_band_from_others": (D, 3, n), "joint_band_total": (D, 3),
+        "joint_band_variance": (D, 3, n),
     }  # fmt: skip
     for name, shape in shapes.items():
         arr = getattr(res, name)

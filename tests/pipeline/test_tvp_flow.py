@@ -66,6 +66,7 @@ TABLES = {
     "window_params": ["window_end"],
     "band_connectedness": ["window_end", "band"],
     "joint_connectedness": ["window_end"],
+    "joint_band_connectedness": ["window_end", "band"],
     "tvp_state": ["window_end"],
 }
 
@@ -185,6 +186,9 @@ def test_tvp_results_are_arlibs_filter_stored_per_date(tmp_path: Path) -> None:
     )
     bands = got["band_connectedness"]["total"].to_numpy().reshape(-1, 3)
     np.testing.assert_allclose(bands, ref.band_total, rtol=0, atol=1e-12)
+    # joint connectedness by band reaches its declared table with no TVP-specific writer
+    joint_bands = got["joint_band_connectedness"]["total"].to_numpy().reshape(-1, 3)
+    np.testing.assert_allclose(joint_bands, ref.joint_band_total, rtol=0, atol=1e-12)
     (state,) = got["tvp_state"].iter_rows(named=True)
     assert state["window_end"] == dates[-1] and state["row"] == len(dates)
     np.testing.assert_allclose(np.reshape(state["cov"], (7, 7)), ref.state.cov, rtol=1e-10, atol=0)
