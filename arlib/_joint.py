@@ -61,11 +61,13 @@ import numpy as np
 
 from ._decompose import fevd_kernel, spillover_measures
 from ._frequency import (
+    BAND_CHUNK_BYTES,
     DEFAULT_BANDS,
     DEFAULT_TRUNCATION,
     band_angles,
     band_kernel,
-    band_map,
+    band_projection,
+    band_sums,
     band_weights,
     check_bands,
     default_grid,
@@ -142,21 +144,34 @@ def joint_band_kernel(
 ) -> tuple[np.ndarray, np.ndarray]:
     """(joint, variance), each (..., d, n): J_i(d) and Γ_i(d) as fractions (grid of `band_kernel`).
 
-    With L the Cholesky factor of Σ, (ΨΣΨ*)_ii = Σ_k |(Ψ L)_ik|²; the band sums of it and of
-    |Ψ_ii|² come from one rfft of size M = 2H per entry and `band_map` (the same grid-N band sums
-    as `frequency_kernel`, exact for any N >= H). J_i(d) = (S_d − O_d / (Σ^{-1})_ii) / Σ_d' S_d'.
+    With L the Cholesky factor of Σ, (ΨΣΨ*)_ii = Σ_k |(Ψ L)_ik|² and Ψ_ii = Σ_k (ΨL)_ik (L^{-1})_ki;
+    the grid-N band sums of every sequence (Φ_h L)_ik and Φ_h,ii come from the low-rank quadratic
+    forms of `band_projection` (`band_sums`, as `band_kernel`: the same numbers as an FFT on the
+    grid to rounding, tests 1e-12). J_i(d) = (S_d − O_d / (Σ^{-1})_ii) / Σ_d' S_d'. Models are
+    taken in chunks of `BAND_CHUNK_BYTES`; each model's arithmetic is its own.
     """
-    phi = ma_kernel(coefs, truncation - 1)  # (..., H, n, n)
-    chol = np.linalg.cholesky(sigma)
-    M, U = band_map(weights, grid, truncation)
-    full = np.fft.rfft(np.moveaxis(phi @ chol[..., None, :, :], -3, -1), n=M, axis=-1)  # (..., n, n, M')
-    own = np.fft.rfft(np.diagonal(phi, axis1=-2, axis2=-1), n=M, axis=-2)  # (..., M', n)
-    total = np.moveaxis((full.real**2 + full.imag**2).sum(axis=-2) @ U, -1, -2)  # (..., d, n)
-    own_power = np.swapaxes(own.real**2 + own.imag**2, -1, -2) @ U  # (..., n, d)
-    precision = np.diagonal(np.linalg.inv(sigma), axis1=-2, axis2=-1)
-    mse = total.sum(axis=-2, keepdims=True)
-    joint = (total - np.swapaxes(own_power, -1, -2) / precision[..., None, :]) / mse
-    return joint, total / mse
+    lead = coefs.shape[:-3]
+    p, n = coefs.shape[-3], coefs.shape[-1]
+    c = coefs.reshape(-1, p, n, n)
+    s = sigma.reshape(-1, n, n)
+    D, d = c.shape[0], weights.shape[0]
+    proj = band_projection(weights, grid, truncation)
+    joint, share = np.empty((D, d, n)), np.empty((D, d, n))
+    step = max(1, BAND_CHUNK_BYTES // (8 * n * n * (truncation + p)))
+    for lo in range(0, D, step):
+        sl = slice(lo, lo + step)
+        chol = np.linalg.cholesky(s[sl])
+        inv = np.linalg.solve(chol, np.broadcast_to(np.eye(n), chol.shape))  # L^{-1}
+        a = ma_terms(c[sl], chol, truncation)  # (D', H, n, n): Φ_h L
+        m = a.shape[0]
+        total = band_sums(a.reshape(m, truncation, n * n), proj).reshape(m, d, n, n).sum(axis=-1)
+        own = np.einsum("dhik,dki->dhi", a, inv)  # Φ_h,ii = Σ_k (Φ_h L)_ik (L^{-1})_ki
+        own_power = band_sums(own, proj)  # (D', d, n)
+        precision = np.einsum("dki,dki->di", inv, inv)  # (Σ^{-1})_ii = Σ_k (L^{-1})_ki²
+        mse = total.sum(axis=1, keepdims=True)
+        joint[sl] = (total - own_power / precision[:, None, :]) / mse
+        share[sl] = total / mse
+    return joint.reshape(*lead, d, n), share.reshape(*lead, d, n)
 
 
 def joint_table(generalized: np.ndarray, joint: np.ndarray) -> np.ndarray:
