@@ -110,7 +110,7 @@ import numpy as np
 from scipy.signal import lfilter
 
 from ._decompose import spillover_measures
-from ._estimate import TREND_TERMS, fit_var
+from ._estimate import TREND_TERMS, fit_var, spectral_radius
 from ._frequency import (
     DEFAULT_TRUNCATION,
     band_projection,
@@ -123,7 +123,6 @@ from ._frequency import (
 )
 from ._joint import joint_band_kernel, joint_kernel, joint_table
 from ._labels import is_frame
-from ._rolling_kernels import spectral_radius_batch
 from ._sizes import minimum_window
 from ._validate import (
     InvalidInputError,
@@ -429,9 +428,7 @@ def _measures(
             if weights is not None and truncation is not None and grid is not None:
                 out["joint_band"][sl], out["joint_variance"][sl] = joint_band_kernel(c, s, truncation, grid, weights)
         if stability:
-            # the rolling engine's certified batch (squarings, Ritz step, LAPACK for the rest)
-            acat = np.ascontiguousarray(c.transpose(0, 2, 1, 3).reshape(c.shape[0], n, p * n))
-            out["radius"][sl] = spectral_radius_batch(acat, n, p)[0]
+            out["radius"][sl] = spectral_radius(c)
     return out
 
 
