@@ -940,6 +940,23 @@ def band_label(lo: float, hi: float, unit: str = "rows") -> str:
     return f"cycles {lo:g}–{hi:g} {unit}"
 
 
+def _band_stack(
+    x: list[Any], totals: np.ndarray, periods: Sequence[tuple[float, float]], unit: str, group: str, hover: str
+) -> list[dict[str, Any]]:
+    """One stacked area per band (W, d) in the band colours, stack group `group`, hover prefix `hover`."""
+    arr = np.asarray(totals, dtype=float)
+    out = []
+    for b, (lo, hi) in enumerate(periods):
+        name = band_label(lo, hi, unit)
+        c = BAND_COLOURS[b % len(BAND_COLOURS)]
+        out.append({
+            "type": "scatter", "x": x, "y": th.as_list(arr[:, b]), "mode": "lines", "name": name,
+            "stackgroup": group, "line": {"color": c, "width": 1.0}, "fillcolor": c,
+            "hovertemplate": f"{hover}{name}: " + "%{y:.1f}%<extra></extra>",
+        })  # fmt: skip
+    return out
+
+
 def band_index_figure(
     dates: Sequence[dt.date],
     totals: np.ndarray,
@@ -958,16 +975,11 @@ def band_index_figure(
     drawn as dotted lines on a second axis.
     """
     x = th.dates(dates)
-    arr = np.asarray(totals, dtype=float)
     data: list[dict[str, Any]] = []
-    for b, (lo, hi) in enumerate(periods):
+    for b, ((lo, hi), trace) in enumerate(zip(periods, _band_stack(x, totals, periods, unit, "bands", ""), strict=True)):
         name = band_label(lo, hi, unit)
         c = BAND_COLOURS[b % len(BAND_COLOURS)]
-        data.append({
-            "type": "scatter", "x": x, "y": th.as_list(arr[:, b]), "mode": "lines", "name": name,
-            "stackgroup": "bands", "line": {"color": c, "width": 1.0}, "fillcolor": c,
-            "hovertemplate": f"{name}: " + "%{y:.1f}%<extra></extra>",
-        })  # fmt: skip
+        data.append(trace)
         if within is not None:
             data.append({
                 "type": "scatter", "x": x, "y": th.as_list(np.asarray(within, dtype=float)[:, b]),
@@ -1124,16 +1136,7 @@ def joint_band_figure(
     (row-normalised) index at the same horizon, drawn as a dashed line for comparison.
     """
     x = th.dates(dates)
-    arr = np.asarray(totals, dtype=float)
-    data: list[dict[str, Any]] = []
-    for b, (lo, hi) in enumerate(periods):
-        name = band_label(lo, hi, unit)
-        c = BAND_COLOURS[b % len(BAND_COLOURS)]
-        data.append({
-            "type": "scatter", "x": x, "y": th.as_list(arr[:, b]), "mode": "lines", "name": name,
-            "stackgroup": "joint", "line": {"color": c, "width": 1.0}, "fillcolor": c,
-            "hovertemplate": f"joint, {name}: " + "%{y:.1f}%<extra></extra>",
-        })  # fmt: skip
+    data = _band_stack(x, totals, periods, unit, "joint", "joint, ")
     if generalized is not None:
         data.append({
             "type": "scatter", "x": x, "y": th.as_list(generalized), "mode": "lines",

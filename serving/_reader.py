@@ -40,7 +40,7 @@ from typing import Any
 import numpy as np
 
 from ._errors import SnapshotMissingError, StoredArrayError, WindowError
-from ._results import StoredResult, stored_result
+from ._results import StoredResult, position, stored_result
 from ._schema import SCHEMA, columns, order_by, shape_of
 from ._schema import table as schema_table
 
@@ -473,11 +473,7 @@ class BandHistory:
 
     def at(self, end: dt.date) -> int:
         """Position of window `end` (WindowError when it has no band results)."""
-        k = bisect.bisect_left(self.ends, end)
-        if k == len(self.ends) or self.ends[k] != end:
-            msg = f"no frequency-band results stored for the window ending {end}"
-            raise WindowError(msg)
-        return k
+        return position(self.ends, end, "frequency-band results")
 
 
 @dataclasses.dataclass(frozen=True, eq=False)

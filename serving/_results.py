@@ -22,7 +22,7 @@ import numpy as np
 from ._errors import StoredArrayError, WindowError
 from ._schema import Table
 
-__all__ = ["StoredResult", "stored_result"]
+__all__ = ["StoredResult", "position", "stored_result"]
 
 
 @dataclasses.dataclass(frozen=True, eq=False)
@@ -50,11 +50,16 @@ class StoredResult:
 
     def at(self, end: dt.date) -> int:
         """Position of window `end` (WindowError when the table stores nothing for it)."""
-        k = bisect.bisect_left(self.ends, end)
-        if k == len(self.ends) or self.ends[k] != end:
-            msg = f"no {self.table} results stored for the window ending {end}"
-            raise WindowError(msg)
-        return k
+        return position(self.ends, end, f"{self.table} results")
+
+
+def position(ends: list[dt.date], end: dt.date, what: str) -> int:
+    """Index of `end` in the increasing `ends`; WindowError "no <what> stored …" when absent."""
+    k = bisect.bisect_left(ends, end)
+    if k == len(ends) or ends[k] != end:
+        msg = f"no {what} stored for the window ending {end}"
+        raise WindowError(msg)
+    return k
 
 
 def stored_result(t: Table, arrow: Any, n: int) -> StoredResult | None:
