@@ -197,28 +197,6 @@ def scaled_ma(coefs: np.ndarray, sigma: np.ndarray, terms: int) -> np.ndarray:
     return ma_terms(coefs, sigma / sd[:, None, :], terms)
 
 
-def band_map(weights: np.ndarray, grid: int, terms: int) -> tuple[int, np.ndarray]:
-    """(M, U): U (M//2 + 1, d) maps the power |F_k|² of an rfft of size M >= 2·terms − 1 to the
-    band sums Σ_j w_d(j) |F(2πj/N)|² of `frequency_kernel` on its grid of size N = `grid`.
-
-    With a_h (h < L = terms) and F(ω) = Σ_h a_h e^{−iωh}: |F(ω)|² = r_0 + 2 Σ_{m≥1} r_m cos(ωm),
-    r_m = Σ_h a_h a_{h+m}, so band_d = Σ_m r_m c_d(m) with c_d(0) = Σ_j w_d(j),
-    c_d(m) = 2 Σ_j w_d(j) cos(2πjm/N). An rfft of size M >= 2L − 1 gives r without wrap-around:
-    r_m = (1/M) Σ_k ε_k |F_k|² cos(2πkm/M) (ε = 1 at k = 0 and k = M/2, else 2), hence
-    U[k, d] = (ε_k / M) Σ_{m<L} cos(2πkm/M) c_d(m). Exact for any N >= L (used by
-    `joint_band_kernel`; `band_kernel` uses the quadratic forms of `band_projection` instead).
-    """
-    M = 2 * terms
-    m = np.arange(terms)
-    c = weights @ np.cos(2 * np.pi * np.outer(np.arange(weights.shape[1]), m) / grid)  # (d, L)
-    c[:, 1:] *= 2.0
-    k = np.arange(M // 2 + 1)
-    eps = np.full(k.size, 2.0)
-    eps[0] = eps[-1] = 1.0  # M even: k = 0 and k = M/2 appear once
-    U = (eps[:, None] / M) * (np.cos(2 * np.pi * np.outer(k, m) / M) @ c.T)
-    return M, U
-
-
 @dataclass(frozen=True, eq=False)
 class BandProjection:
     """Low-rank quadratic forms giving the grid band sums of an MA sequence (`band_projection`).
