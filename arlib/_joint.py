@@ -74,6 +74,7 @@ from ._frequency import (
     ma_terms,
 )
 from ._responses import ma_kernel
+from ._rolling_kernels import triangular_inverse
 from ._validate import VARLike, check_int, check_model, readonly
 
 # ---------------------------------------------------------------------------------------------
@@ -117,12 +118,7 @@ def _joint_chunk(coefs: np.ndarray, sigma: np.ndarray, horizon: int) -> np.ndarr
     b = (phi.reshape(D, horizon * n, n) @ chol).reshape(D, horizon, n, n)  # Φ_h L
     mse = np.einsum("dhik,dhik->di", b, b)
     own = np.einsum("dhii,dhii->di", phi, phi)
-    # L^{-1} row by row: (L^{-1})_i = (e_i − L_{i,<i} (L^{-1})_{<i}) / L_ii
-    inv = np.zeros_like(chol)
-    for i in range(n):
-        inv[:, i, :i] = -np.einsum("dk,dkj->dj", chol[:, i, :i], inv[:, :i, :i])
-        inv[:, i, i] = 1.0
-        inv[:, i, : i + 1] /= chol[:, i, i, None]
+    inv = triangular_inverse(chol)  # L^{-1} by block forward substitution
     precision = np.einsum("dki,dki->di", inv, inv)  # (Σ^{-1})_ii = Σ_k (L^{-1})_ki²
     return 1.0 - own / (precision * mse)
 
@@ -161,7 +157,7 @@ def joint_band_kernel(
     for lo in range(0, D, step):
         sl = slice(lo, lo + step)
         chol = np.linalg.cholesky(s[sl])
-        inv = np.linalg.solve(chol, np.broadcast_to(np.eye(n), chol.shape))  # L^{-1}
+        inv = triangular_inverse(chol)  # L^{-1}
         a = ma_terms(c[sl], chol, truncation)  # (D', H, n, n): Φ_h L
         m = a.shape[0]
         total = band_sums(a.reshape(m, truncation, n * n), proj).reshape(m, d, n, n).sum(axis=-1)
