@@ -708,8 +708,8 @@ def joint_bands_view(snap: Snapshot, state: Any) -> ViewResult:
         msg = (f"Universe '{u.name}' stores no joint connectedness by cycle length; it needs both "
                "`joint = true` and `frequency_bands = [5, 20]` in its [[universes]] table.")
         raise WindowError(msg)
-    bh = snap.band_history(u)  # the generalized index at the same truncation, when stored
-    general = bh.total.sum(axis=1) if bh is not None and bh.ends == jb.ends and bh.truncation == jb.truncation else None
+    bh = snap.band_history(u)
+    general = bh.index_like(jb) if bh is not None else None
     truncation = int(jb.truncation or 0)
     fig = charts.joint_band_figure(jb.ends, jb["total"], jb.periods, universe=u.name,
                                    truncation=truncation, generalized=general)  # fmt: skip

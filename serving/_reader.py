@@ -475,6 +475,14 @@ class BandHistory:
         """Position of window `end` (WindowError when it has no band results)."""
         return position(self.ends, end, "frequency-band results")
 
+    def index_like(self, other: StoredResult) -> np.ndarray | None:
+        """(W,) the generalized index the bands add up to (at `truncation` steps) for the windows of
+        another band result `other`, or None unless both are stored for the same windows and
+        truncation (then the two are comparable window by window)."""
+        if self.ends != other.ends or self.truncation != other.truncation:
+            return None
+        return self.total.sum(axis=1)
+
 
 @dataclasses.dataclass(frozen=True, eq=False)
 class JointHistory:

@@ -227,9 +227,8 @@ def _cycles(d: ReportData, chart: _Charts) -> dict[str, Any] | None:
             jb = d.results.get("joint_band_connectedness")
             kb = [w for w, e in enumerate(jb.ends) if e <= cut] if jb is not None else []
             if jb is not None and kb:
-                gb = d.bands
-                general = (gb.total.sum(axis=1)[kb] if gb is not None and gb.ends == jb.ends
-                           and gb.truncation == jb.truncation else None)  # fmt: skip
+                like = d.bands.index_like(jb) if d.bands is not None else None
+                general = like[kb] if like is not None else None
                 joint_charts.append(chart(charts.joint_band_figure(
                     [jb.ends[w] for w in kb], jb["total"][kb], jb.periods, universe=d.info.name,
                     truncation=int(jb.truncation or 0), generalized=general, medium="print"),
