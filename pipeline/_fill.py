@@ -19,7 +19,7 @@ import polars as pl
 
 from serving import SCHEMA, Column, Table
 
-__all__ = ["declared_tables"]
+__all__ = ["declared_tables", "list_column"]
 
 #: SQL type of a scalar column → the polars dtype it is written as.
 _DTYPES = {"DOUBLE": pl.Float64, "INTEGER": pl.Int32, "BIGINT": pl.Int64, "BOOLEAN": pl.Boolean}
@@ -71,11 +71,18 @@ def _column(c: Column, value: Any, pick: Callable[[np.ndarray], np.ndarray], row
         raise ValueError(msg)
     a = np.asarray(value)
     if c.shape:
-        picked = np.ascontiguousarray(pick(a), dtype=np.float64).reshape(rows, -1)
-        if rows == 0:
-            return pl.Series(c.name, [], dtype=pl.List(pl.Float64))
-        return pl.Series(c.name, picked).cast(pl.List(pl.Float64))
+        return list_column(pick(a)).alias(c.name)
     dtype = _DTYPES[c.type]
     values = np.full(rows, a.item()) if a.ndim == 0 else pick(a)
     s = pl.Series(c.name, values).cast(dtype)
     return s.fill_nan(None) if dtype == pl.Float64 and not c.not_null else s
+
+
+def list_column(a: np.ndarray) -> pl.Series:
+    """(W, ...) array → List(Float64) column, each row flattened in C order (the warehouse's
+    array layout; every array column of the fit stage is written through it)."""
+    W = a.shape[0]
+    flat = np.ascontiguousarray(a, dtype=np.float64).reshape(W, -1)
+    if W == 0:
+        return pl.Series([], dtype=pl.List(pl.Float64))
+    return pl.Series(flat).cast(pl.List(pl.Float64))

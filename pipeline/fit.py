@@ -30,7 +30,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import polars as pl
 
-from pipeline._fill import declared_tables
+from pipeline._fill import declared_tables, list_column
 from pipeline._reasons import name_series
 from pipeline.errors import FitError
 
@@ -406,30 +406,21 @@ def quantile_tables(result: Any, prepared: Prepared, universe: UniverseConfig, *
         return np.asarray(a).swapaxes(0, 1)[wq]
 
     intercept = (
-        _flat(pick(result.intercept)) if result.intercept is not None else pl.Series([None] * (K * Q), dtype=pl.List(pl.Float64))
+        list_column(pick(result.intercept)) if result.intercept is not None else pl.Series([None] * (K * Q), dtype=pl.List(pl.Float64))
     )
     tables["quantile_connectedness"] = pl.DataFrame(
         {
             "run_id": [run_id] * (K * Q), "universe": [universe.name] * (K * Q),
             "window_end": pl.Series("window_end", ends).cast(pl.Date),
             "quantile": np.tile(np.asarray(taus), K), "total": pick(result.total_connectedness),
-            "to_others": _flat(pick(result.to_others)), "from_others": _flat(pick(result.from_others)),
-            "net": _flat(pick(result.net)), "shares": _flat(pick(result.pairwise)),
+            "to_others": list_column(pick(result.to_others)), "from_others": list_column(pick(result.from_others)),
+            "net": list_column(pick(result.net)), "shares": list_column(pick(result.pairwise)),
             "spectral_radius": _none_if_nan(pick(result.spectral_radius)),
             "lags": pl.Series([int(result.lags)] * (K * Q), dtype=pl.Int32),
-            "coefs": _flat(pick(result.coefs)), "intercept": intercept, "sigma_u": _flat(pick(result.sigma_u)),
+            "coefs": list_column(pick(result.coefs)), "intercept": intercept, "sigma_u": list_column(pick(result.sigma_u)),
         }
     )  # fmt: skip
     return tables
-
-
-def _flat(a: np.ndarray) -> pl.Series:
-    """(W, ...) array → List(Float64) column, each row flattened in C order."""
-    W = a.shape[0]
-    flat = np.ascontiguousarray(a, dtype=np.float64).reshape(W, -1)
-    if W == 0:
-        return pl.Series([], dtype=pl.List(pl.Float64))
-    return pl.Series(flat).cast(pl.List(pl.Float64))
 
 
 def _none_if_nan(a: np.ndarray) -> pl.Series:
@@ -525,11 +516,11 @@ def result_tables(
     coefs = np.asarray(rolling.coefs)
     coef_lists = [coefs[w, : lags[w]].reshape(-1).tolist() for w in k]
     intercept = (
-        _flat(np.asarray(rolling.intercept)[k]) if rolling.intercept is not None else pl.Series([None] * K, dtype=pl.List(pl.Float64))
+        list_column(np.asarray(rolling.intercept)[k]) if rolling.intercept is not None else pl.Series([None] * K, dtype=pl.List(pl.Float64))
     )
     trend_coef = getattr(rolling, "trend_coef", None)
     trend_series = (
-        _flat(np.asarray(trend_coef)[k]) if trend_coef is not None else pl.Series([None] * K, dtype=pl.List(pl.Float64))
+        list_column(np.asarray(trend_coef)[k]) if trend_coef is not None else pl.Series([None] * K, dtype=pl.List(pl.Float64))
     )
     tables["window_params"] = pl.DataFrame(
         {
@@ -538,7 +529,7 @@ def result_tables(
             "coefs": pl.Series(coef_lists, dtype=pl.List(pl.Float64)),
             "intercept": intercept,
             "trend_coef": trend_series,
-            "sigma_u": _flat(np.asarray(rolling.sigma_u)[k]),
+            "sigma_u": list_column(np.asarray(rolling.sigma_u)[k]),
         }
     )
     if rolling.responses is None and rolling.decomposition is None:
@@ -568,7 +559,7 @@ def result_tables(
                 **head(ka),
                 "identification": [universe.identification] * Ka,
                 "horizon": pl.Series([universe.horizon] * Ka, dtype=pl.Int32),
-                "response": _flat(resp),
+                "response": list_column(resp),
                 "lower": lower,
                 "upper": upper,
                 "coverage": coverage,
@@ -580,7 +571,7 @@ def result_tables(
                 **head(ka),
                 "method": [universe.identification] * Ka,
                 "horizon": pl.Series([universe.horizon] * Ka, dtype=pl.Int32),
-                "share": _flat(np.asarray(rolling.decomposition)[ka]),
+                "share": list_column(np.asarray(rolling.decomposition)[ka]),
             }
         )
     return tables
@@ -801,8 +792,8 @@ def tvp_tables(
                 "row": pl.Series([int(st.row)], dtype=pl.Int64), "lags": pl.Series([int(st.lags)], dtype=pl.Int32),
                 "trend": [st.trend], "kappa1": [float(st.kappa1)], "kappa2": [float(st.kappa2)],
                 "covariance": [st.covariance], "names": pl.Series([list(st.names)], dtype=pl.List(pl.String)),
-                "params": _flat(np.asarray(st.params)[None]), "cov": _flat(np.asarray(st.cov)[None]),
-                "sigma": _flat(np.asarray(st.sigma)[None]), "tail": _flat(np.asarray(st.tail)[None]),
+                "params": list_column(np.asarray(st.params)[None]), "cov": list_column(np.asarray(st.cov)[None]),
+                "sigma": list_column(np.asarray(st.sigma)[None]), "tail": list_column(np.asarray(st.tail)[None]),
             }
         )  # fmt: skip
     return tables
