@@ -109,7 +109,7 @@ def _array(column: Any, sql_type: str, lead: tuple[int, ...], shape: tuple[int, 
     if np.any(lengths[valid] != size):
         msg = f"{what}: a stored array does not hold {size} values (shape {shape}); publish again with `shockflow run`"
         raise StoredArrayError(msg)
-    out = np.full((col.__len__(), size), np.nan)
+    out = np.full((len(col), size), np.nan)
     out[valid] = np.asarray(col.flatten().to_numpy(zero_copy_only=False), dtype=np.float64).reshape(-1, size)
     return _readonly(out.reshape(*lead, *shape))
 
