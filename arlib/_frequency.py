@@ -295,12 +295,11 @@ def _band_projection(raw: bytes, shape: tuple[int, ...], grid: int, terms: int) 
     return BandProjection(H, rest, others, out[0], out[2], out[1], out[3])
 
 
-def band_sums(a: np.ndarray, proj: BandProjection) -> np.ndarray:
-    """(D, d, m) grid band sums S_d / N of the sequences a (D, H, m) along axis 1 (`band_projection`).
-
-    Each of the D·m sequences is folded (a_h ± a_{H−1−h}), projected on the kept eigenvectors,
-    squared and weighted by their eigenvalues; the remaining band is ‖a‖² minus the others. One
-    matrix product per batch entry and fold, so an entry's numbers do not depend on the batch.
+def band_projections(a: np.ndarray, proj: BandProjection) -> tuple[np.ndarray, np.ndarray]:
+    """(y_even (D, R_e, m), y_odd (D, R_o, m)): the sequences a (D, H, m) folded (a_h ± a_{H−1−h})
+    and projected on the kept eigenvectors of `band_projection` (one product per entry and fold).
+    The band sums are Σ_r λ_r y_r² (`band_sums_of`); being linear in a, the projections of a
+    sequence multiplied by a matrix are the projections multiplied by it (`_joint.band_joint_kernel`).
     """
     D, H, m = a.shape
     half = H // 2
@@ -309,15 +308,32 @@ def band_sums(a: np.ndarray, proj: BandProjection) -> np.ndarray:
     np.add(head, tail, out=even[:, :half])
     if H % 2:
         even[:, half] = a[:, half]
-    y_even = proj.even @ even
-    y_odd = proj.odd @ np.subtract(head, tail)
+    return proj.even @ even, proj.odd @ np.subtract(head, tail)
+
+
+def band_sums_of(
+    y_even: np.ndarray, y_odd: np.ndarray, norm2: np.ndarray, proj: BandProjection
+) -> np.ndarray:
+    """(D, d, m) band sums S_d / N from the projections of `band_projections` (squared in place)
+    and each sequence's ‖a‖² (D, m): Σ_r λ_r y_r² for the projected bands, the rest by remainder."""
     np.square(y_even, out=y_even)
     np.square(y_odd, out=y_odd)
     others = proj.even_weights @ y_even + proj.odd_weights @ y_odd  # (D, d − 1, m)
-    out = np.empty((D, len(proj.others) + 1, m))
+    out = np.empty((norm2.shape[0], len(proj.others) + 1, norm2.shape[-1]))
     out[:, list(proj.others)] = others
-    out[:, proj.rest] = np.einsum("dhm,dhm->dm", a, a) - others.sum(axis=1)
+    out[:, proj.rest] = norm2 - others.sum(axis=1)
     return out
+
+
+def band_sums(a: np.ndarray, proj: BandProjection) -> np.ndarray:
+    """(D, d, m) grid band sums S_d / N of the sequences a (D, H, m) along axis 1 (`band_projection`).
+
+    Each of the D·m sequences is folded (a_h ± a_{H−1−h}), projected on the kept eigenvectors,
+    squared and weighted by their eigenvalues; the remaining band is ‖a‖² minus the others. One
+    matrix product per batch entry and fold, so an entry's numbers do not depend on the batch.
+    """
+    y_even, y_odd = band_projections(a, proj)
+    return band_sums_of(y_even, y_odd, np.einsum("dhm,dhm->dm", a, a), proj)
 
 
 #: Working memory (bytes of MA terms) per chunk of models in `band_kernel`: small enough that a

@@ -64,14 +64,18 @@ from ._frequency import (
     BAND_CHUNK_BYTES,
     DEFAULT_BANDS,
     DEFAULT_TRUNCATION,
+    BandProjection,
     band_angles,
     band_kernel,
     band_projection,
+    band_projections,
     band_sums,
+    band_sums_of,
     band_weights,
     check_bands,
     default_grid,
     ma_terms,
+    scaled_ma,
 )
 from ._responses import ma_kernel
 from ._rolling_kernels import triangular_inverse
@@ -138,36 +142,82 @@ def _joint_one(coefs: np.ndarray, sigma: np.ndarray, horizon: int) -> np.ndarray
 def joint_band_kernel(
     coefs: np.ndarray, sigma: np.ndarray, truncation: int, grid: int, weights: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray]:
-    """(joint, variance), each (..., d, n): J_i(d) and Γ_i(d) as fractions (grid of `band_kernel`).
-
-    With L the Cholesky factor of Σ, (ΨΣΨ*)_ii = Σ_k |(Ψ L)_ik|² and Ψ_ii = Σ_k (ΨL)_ik (L^{-1})_ki;
-    the grid-N band sums of every sequence (Φ_h L)_ik and Φ_h,ii come from the low-rank quadratic
-    forms of `band_projection` (`band_sums`, as `band_kernel`: the same numbers as an FFT on the
-    grid to rounding, tests 1e-12). J_i(d) = (S_d − O_d / (Σ^{-1})_ii) / Σ_d' S_d'. Models are
-    taken in chunks of `BAND_CHUNK_BYTES`; each model's arithmetic is its own.
-    """
+    """(joint, variance), each (..., d, n): J_i(d) and Γ_i(d) as fractions (grid of `band_kernel`);
+    the last two outputs of `band_joint_kernel`."""
     lead = coefs.shape[:-3]
     p, n = coefs.shape[-3], coefs.shape[-1]
-    c = coefs.reshape(-1, p, n, n)
-    s = sigma.reshape(-1, n, n)
-    D, d = c.shape[0], weights.shape[0]
+    _, joint, share = band_joint_kernel(
+        coefs.reshape(-1, p, n, n), sigma.reshape(-1, n, n), truncation, grid, weights
+    )
+    d = weights.shape[0]
+    return joint.reshape(*lead, d, n), share.reshape(*lead, d, n)
+
+
+def band_joint_kernel(
+    coefs: np.ndarray, sigma: np.ndarray, truncation: int, grid: int, weights: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(tables (D, d, n, n), joint (D, d, n), variance (D, d, n)) from one MA recursion:
+    `band_kernel`'s band tables, and J_i(d), Γ_i(d) as fractions, for coefs (D, p, n, n), Σ (D, n, n).
+
+    Models are taken in chunks of `BAND_CHUNK_BYTES`; each model's arithmetic is its own, so its
+    numbers do not depend on the chunking or on the other models (`joint_band_sums`).
+    """
+    D, p, n, _ = coefs.shape
+    d = weights.shape[0]
     proj = band_projection(weights, grid, truncation)
-    joint, share = np.empty((D, d, n)), np.empty((D, d, n))
+    tables, joint, share = np.empty((D, d, n, n)), np.empty((D, d, n)), np.empty((D, d, n))
     step = max(1, BAND_CHUNK_BYTES // (8 * n * n * (truncation + p)))
     for lo in range(0, D, step):
         sl = slice(lo, lo + step)
-        chol = np.linalg.cholesky(s[sl])
-        inv = triangular_inverse(chol)  # L^{-1}
-        a = ma_terms(c[sl], chol, truncation)  # (D', H, n, n): Φ_h L
-        m = a.shape[0]
-        total = band_sums(a.reshape(m, truncation, n * n), proj).reshape(m, d, n, n).sum(axis=-1)
-        own = np.einsum("dhik,dki->dhi", a, inv)  # Φ_h,ii = Σ_k (Φ_h L)_ik (L^{-1})_ki
-        own_power = band_sums(own, proj)  # (D', d, n)
-        precision = np.einsum("dki,dki->di", inv, inv)  # (Σ^{-1})_ii = Σ_k (L^{-1})_ki²
-        mse = total.sum(axis=1, keepdims=True)
-        joint[sl] = (total - own_power / precision[:, None, :]) / mse
-        share[sl] = total / mse
-    return joint.reshape(*lead, d, n), share.reshape(*lead, d, n)
+        a = scaled_ma(coefs[sl], sigma[sl], truncation)  # (D', H, n, n): Φ_h Σ D_σ^{-1/2}
+        band, joint[sl], share[sl] = joint_band_sums(a, sigma[sl], proj)
+        tables[sl] = band / band.sum(axis=(-3, -1), keepdims=True)
+    return tables, joint, share
+
+
+def joint_band_sums(
+    a: np.ndarray, sigma: np.ndarray, proj: BandProjection
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(band (D, d, n, n) sums S_d / N of `band_kernel`, joint (D, d, n), variance (D, d, n)) from
+    the scaled MA terms a_h = Φ_h Σ D_σ^{-1/2} (D, H, n, n) of `scaled_ma` (H = `proj.terms`).
+
+    With L the Cholesky factor of Σ, Φ_h L = a_h M, M = D_σ^{1/2} L^{-T}, so the band projections
+    of the sequences (Φ_h L)_ik are those of a_h times M (`band_projections` is linear):
+    S_d(i) = Σ_k (band sum of (Φ_h L)_ik) = Σ_{r ∈ d} λ_r ‖(Y_r M)_{i·}‖², Y_r the (n, n) projection
+    of a on eigenvector r — one (n × n)(n × n) product per kept eigenvector instead of a second
+    MA recursion and n² more projections; the remaining band is MSE_i − Σ_{others}, with
+    MSE_i = Σ_h ‖(a_h M)_{i·}‖² = Σ_d S_d(i). Φ_h,ii = Σ_k (a_h M)_ik (L^{-1})_ki. Then
+    J_i(d) = (S_d(i) − O_d(i) / (Σ^{-1})_ii) / MSE_i and Γ_i(d) = S_d(i) / MSE_i, O_d the band sums
+    of Φ_h,ii (module docstring).
+    """
+    D, H, n, _ = a.shape
+    chol = np.linalg.cholesky(sigma)
+    inv = triangular_inverse(chol)  # L^{-1}
+    sd = np.sqrt(np.diagonal(sigma, axis1=-2, axis2=-1))
+    M = sd[:, :, None] * np.swapaxes(inv, -1, -2)  # D_σ^{1/2} L^{-T}
+    flat = a.reshape(D, H, n * n)
+    y_even, y_odd = band_projections(flat, proj)
+    d = len(proj.others) + 1
+    total = np.empty((D, d, n))
+    if proj.others:
+        parts = []
+        for y, w in ((y_even, proj.even_weights), (y_odd, proj.odd_weights)):
+            z = y.reshape(D, -1, n) @ M  # rows of Y_r M, the projections of Φ_h L: one product
+            np.square(z, out=z)
+            weighted = w @ z.reshape(D, -1, n * n)  # (D, d − 1, n·n): Σ_r λ_r (Y_r M)_ik²
+            parts.append(weighted.reshape(D, -1, n, n).sum(axis=-1))
+        total[:, list(proj.others)] = parts[0] + parts[1]
+    b = (a.reshape(D, H * n, n) @ M).reshape(D, H, n, n)  # Φ_h L
+    own = np.einsum("dhik,dki->dhi", b, inv)  # Φ_h,ii = Σ_k (Φ_h L)_ik (L^{-1})_ki
+    np.square(b, out=b)
+    mse = b.sum(axis=1).sum(axis=-1)
+    total[:, proj.rest] = mse - total[:, list(proj.others)].sum(axis=1)
+    own_power = band_sums(own, proj)  # (D, d, n)
+    precision = np.einsum("dki,dki->di", inv, inv)  # (Σ^{-1})_ii = Σ_k (L^{-1})_ki²
+    joint = (total - own_power / precision[:, None, :]) / mse[:, None, :]
+    share = total / mse[:, None, :]
+    band = band_sums_of(y_even, y_odd, np.einsum("dhm,dhm->dm", flat, flat), proj)
+    return band.reshape(D, d, n, n), joint, share
 
 
 def joint_table(generalized: np.ndarray, joint: np.ndarray) -> np.ndarray:

@@ -121,7 +121,7 @@ from ._frequency import (
     default_grid,
     frequency_measures,
 )
-from ._joint import joint_band_kernel, joint_kernel
+from ._joint import band_joint_kernel, joint_kernel
 from ._labels import date_rows
 from ._sizes import minimum_window
 from ._validate import (
@@ -622,10 +622,14 @@ def _with_extras(
         per = max(1, (32 * 2**20) // (8 * n * n * (2 * H + 3 * (H + 1) + d)))
         for lo in range(0, k.size, per):
             sel = k[lo : lo + per]
-            tables[sel] = 100.0 * band_kernel(coefs[sel], sigma[sel], H, N, weights)
             if joint_parts is not None and variance is not None:
-                # J_i(d) and Γ_i(d) (`joint_frequency_connectedness`), the same grid and truncation
-                joint_parts[sel], variance[sel] = joint_band_kernel(coefs[sel], sigma[sel], H, N, weights)
+                # with J_i(d) and Γ_i(d) (`joint_frequency_connectedness`) from the same MA terms
+                tables[sel], joint_parts[sel], variance[sel] = band_joint_kernel(
+                    coefs[sel], sigma[sel], H, N, weights
+                )
+            else:
+                tables[sel] = band_kernel(coefs[sel], sigma[sel], H, N, weights)
+            tables[sel] *= 100.0
         if joint_parts is not None:
             joint_parts *= 100.0
             extra.update(joint_band_from_others=joint_parts, joint_band_total=joint_parts.mean(axis=-1),

@@ -121,7 +121,7 @@ from ._frequency import (
     frequency_measures,
     scaled_ma,
 )
-from ._joint import joint_band_kernel, joint_kernel, joint_table
+from ._joint import joint_band_sums, joint_kernel, joint_table
 from ._labels import is_frame
 from ._sizes import minimum_window
 from ._validate import (
@@ -421,12 +421,15 @@ def _measures(
         g = np.einsum("thm,thm->tm", a[:, :horizon], a[:, :horizon]).reshape(-1, n, n)
         out["pairwise"][sl] = 100.0 * g / g.sum(axis=-1, keepdims=True)
         if proj is not None:
-            band = band_sums(a[:, : proj.terms], proj).reshape(-1, len(proj.others) + 1, n, n)
+            if joint:  # J_i(d), Γ_i(d) from the same MA terms (`_joint.joint_band_sums`)
+                a4 = a[:, : proj.terms].reshape(-1, proj.terms, n, n)
+                band4, out["joint_band"][sl], out["joint_variance"][sl] = joint_band_sums(a4, s, proj)
+                band = band4.reshape(-1, len(proj.others) + 1, n, n)
+            else:
+                band = band_sums(a[:, : proj.terms], proj).reshape(-1, len(proj.others) + 1, n, n)
             out["band_pairwise"][sl] = 100.0 * band / band.sum(axis=(-3, -1), keepdims=True)
         if joint:
             out["joint"][sl] = joint_kernel(c, s, horizon)
-            if weights is not None and truncation is not None and grid is not None:
-                out["joint_band"][sl], out["joint_variance"][sl] = joint_band_kernel(c, s, truncation, grid, weights)
         if stability:
             out["radius"][sl] = spectral_radius(c)
     return out
