@@ -1089,7 +1089,7 @@ def _fit_chunk(
             out.ic[name][ws] = val
         out.condition_number[ws] = cond
     with timer("spectral radius"):
-        rho, _ = K.spectral_radius_batch(_balanced(acat, sigma, p), n, p, timer=timer)
+        rho, _ = K.spectral_radius_batch(K.balanced(acat, sigma, p), n, p, timer=timer)
         out.spectral_radius[ws] = rho
     with timer("connectedness"):
         _responses_and_decompositions(acat, sigma, out, ws)
@@ -1106,20 +1106,6 @@ def _fit_chunk(
     if out.portmanteau_p is not None:
         with timer("portmanteau"):
             _portmanteau(data, p, trend, frames, coef_t, nobs, out, widx)
-
-
-def _balanced(acat: np.ndarray, sigma: np.ndarray, p: int) -> np.ndarray:
-    """D^{-1} A_l D for every lag, D = diag of powers of two nearest each series' residual
-    standard deviation: a similarity (same eigenvalues) computed without rounding, which keeps
-    the companion matrix's entries on one scale for the spectral radius kernel."""
-    var = np.diagonal(sigma, axis1=1, axis2=2)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        e = np.rint(0.5 * np.log2(var))
-    e = np.clip(np.nan_to_num(e), -400, 400).astype(np.int64)
-    s = np.ldexp(1.0, e)  # (W, n)
-    ratio = s[:, None, :] / s[:, :, None]  # [w, i, j] = s_j / s_i
-    W, n = s.shape
-    return (acat.reshape(W, n, p, n) * ratio[:, :, None, :]).reshape(W, n, n * p)
 
 
 class _Skip(Exception):

@@ -351,6 +351,20 @@ def companion_batch(acat: np.ndarray, n: int, p: int) -> np.ndarray:
     return C
 
 
+def balanced(acat: np.ndarray, sigma: np.ndarray, p: int) -> np.ndarray:
+    """D^{-1} A_l D for every lag, D = diag of powers of two nearest each series' residual
+    standard deviation: a similarity (same eigenvalues) computed without rounding, which keeps
+    the companion matrix's entries on one scale for the spectral radius kernel."""
+    var = np.diagonal(sigma, axis1=1, axis2=2)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        e = np.rint(0.5 * np.log2(var))
+    e = np.clip(np.nan_to_num(e), -400, 400).astype(np.int64)
+    s = np.ldexp(1.0, e)  # (W, n)
+    ratio = s[:, None, :] / s[:, :, None]  # [w, i, j] = s_j / s_i
+    W, n = s.shape
+    return (acat.reshape(W, n, p, n) * ratio[:, :, None, :]).reshape(W, n, n * p)
+
+
 def _sketch(N: int, columns: int) -> np.ndarray:
     """The fixed Gaussian test matrix Ω (N, columns) with unit columns, made once per shape
     (a pure function of its shape and `_SKETCH_SEED`)."""

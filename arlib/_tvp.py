@@ -109,8 +109,9 @@ from typing import Any
 import numpy as np
 from scipy.signal import lfilter
 
+from . import _rolling_kernels as K
 from ._decompose import spillover_measures
-from ._estimate import TREND_TERMS, fit_var, spectral_radius
+from ._estimate import TREND_TERMS, fit_var
 from ._frequency import (
     DEFAULT_TRUNCATION,
     band_projection,
@@ -313,9 +314,11 @@ def filter_kronecker(
         z = Z[t]
         Vz = V @ z  # κ₁ V_{t|t−1} z_t
         s = 1.0 + float(z @ Vz) * inv_k1  # 1 + z'V_{t|t−1}z
+        c = inv_k1 / s
         e = Y[t] - z @ B  # e_t = y_t − B_{t−1}'z_t
-        B += np.outer(Vz * (inv_k1 / s), e)  # B_t = B_{t−1} + g_t e_t',  g_t = V_{t|t−1}z / s
-        V = (V - np.outer(Vz, Vz) * (inv_k1 / s)) * inv_k1  # V_{t|t−1} − g_t z'V_{t|t−1}
+        B += (Vz * c)[:, None] * e  # B_t = B_{t−1} + g_t e_t',  g_t = V_{t|t−1}z / s
+        V -= (Vz[:, None] * Vz) * c  # V_{t|t−1} − g_t z'V_{t|t−1} (in place: the same products)
+        V *= inv_k1
         B_out[t] = B
         e_out[t] = e
         eps[t] = e / s  # ε_t = y_t − B_t'z_t = e_t (1 − z'g_t)
@@ -430,8 +433,9 @@ def _measures(
             out["band_pairwise"][sl] = 100.0 * band / band.sum(axis=(-3, -1), keepdims=True)
         if joint:
             out["joint"][sl] = joint_kernel(c, s, horizon)
-        if stability:
-            out["radius"][sl] = spectral_radius(c)
+        if stability:  # the rolling engine's certified batch (LAPACK where it cannot certify)
+            acat = np.swapaxes(c, 1, 2).reshape(-1, n, p * n)  # [A_1 … A_p]
+            out["radius"][sl] = K.spectral_radius_batch(K.balanced(acat, s, p), n, p)[0]
     return out
 
 
