@@ -145,14 +145,6 @@ class WindowPlan:
         return self.ends.size == 0 and not self.prepared_changed and self.delete_ends == []
 
 
-_EPOCH_ORDINAL = date(1970, 1, 1).toordinal()
-
-
-def _days(dates: tuple[date, ...] | list[date]) -> np.ndarray:
-    """`dates` as datetime64[D] (through ordinals: ~30x numpy's own conversion of date objects)."""
-    return (np.fromiter((d.toordinal() for d in dates), np.int64, len(dates)) - _EPOCH_ORDINAL).astype("datetime64[D]")
-
-
 def _grid(frame: pl.DataFrame, names: tuple[str, ...]) -> tuple[np.ndarray, np.ndarray] | None:
     """Long rows (date, series, value) sorted by (date, series) as (dates (D,) datetime64[D],
     values (D, n) in `names` order, NaN for null), or None unless every date holds exactly one
@@ -183,7 +175,7 @@ def _changed_dates_of(prepared: Prepared, old: pl.DataFrame) -> tuple[set[date],
     if grid is None:
         return _changed_dates(prepared.frame, old)
     old_dates, old_y = grid
-    new_dates = _days(prepared.dates)
+    new_dates = prepared.days
     y = np.asarray(prepared.y, dtype=np.float64)
     pos = np.searchsorted(old_dates, new_dates)
     pos_ok = np.minimum(pos, max(old_dates.size - 1, 0))
@@ -239,7 +231,7 @@ def plan_windows(
         return WindowPlan(ends=ends, delete_ends=None, prepared_changed=True, reason=reason, candidates=int(ends.size), notes=notes)
 
     changed, removed = _changed_dates_of(prepared, stored.prepared)
-    dates = _days(prepared.dates)
+    dates = prepared.days
     changed_mask = np.isin(dates, np.asarray(sorted(changed), dtype="datetime64[D]")) if changed else np.zeros(T, bool)
     cs = np.concatenate([[0], np.cumsum(changed_mask)])
     # removed date r lies between rows pos-1 and pos; a window [s, e] spans it iff s < pos <= e

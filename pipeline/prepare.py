@@ -37,6 +37,7 @@ Every removed date and every gap row is listed in ``Prepared.dropped`` with its 
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from datetime import date
@@ -47,6 +48,8 @@ import polars as pl
 
 from pipeline._polars import date_bounds, first_true
 from pipeline.errors import DataError
+
+_EPOCH_ORDINAL = date(1970, 1, 1).toordinal()
 
 __all__ = [
     "AGGREGATIONS",
@@ -237,6 +240,15 @@ class Prepared:
     y: np.ndarray
     dropped: pl.DataFrame
 
+    @functools.cached_property
+    def days(self) -> np.ndarray:
+        """(T,) datetime64[D] of `dates` (set by `prepare_universe` from its date column; otherwise
+        converted once, through ordinals: ~30x numpy's own conversion of date objects)."""
+        ordinals = np.fromiter((d.toordinal() for d in self.dates), np.int64, len(self.dates))
+        out = (ordinals - _EPOCH_ORDINAL).astype("datetime64[D]")
+        out.flags.writeable = False
+        return out
+
     @property
     def frame(self) -> pl.DataFrame:
         """Long form (date, series, value) of `y`, NaN as null: what the warehouse stores."""
@@ -246,17 +258,18 @@ class Prepared:
         """`frame` restricted to the rows of `dates` (None = every date; dates not held are
         ignored): equal to ``frame.filter(pl.col("date").is_in(dates))``, built from those rows only."""
         if dates is None:
-            rows, kept = self.y, self.dates
+            rows, kept = self.y, self.days
         else:
-            wanted = np.asarray(sorted(dates), dtype="datetime64[D]")
-            mask = np.isin(np.asarray(self.dates, dtype="datetime64[D]"), wanted)
-            rows = self.y[mask]
-            kept = tuple(d for d, m in zip(self.dates, mask.tolist(), strict=True) if m)
-        wide = pl.DataFrame({"date": pl.Series(kept, dtype=pl.Date)})
-        for j, name in enumerate(self.names):
-            wide = wide.with_columns(pl.Series(name, rows[:, j]).fill_nan(None))
-        return wide.unpivot(index="date", variable_name="series", value_name="value").select(
-            "date", "series", pl.col("value").cast(pl.Float64)
+            mask = np.isin(self.days, np.asarray(sorted(dates), dtype="datetime64[D]"))
+            rows, kept = self.y[mask], self.days[mask]
+        m, n = rows.shape
+        # series by series, each over every kept date: the row order of unpivoting the wide frame
+        return pl.DataFrame(
+            {
+                "date": pl.Series(np.tile(kept, n), dtype=pl.Date),
+                "series": pl.Series(np.repeat(np.asarray(self.names, dtype=object), m), dtype=pl.String),
+                "value": pl.Series(np.ascontiguousarray(rows.T).ravel(), dtype=pl.Float64).fill_nan(None),
+            }
         )
 
 
@@ -429,4 +442,8 @@ def prepare_universe(observations: pl.DataFrame, universe: UniverseLike) -> Prep
             )
             raise DataError(msg)
     dropped = pl.DataFrame(reasons, schema={"date": pl.Date, "reason": pl.String}, orient="row").sort("date")
-    return Prepared(universe=universe.name, names=tuple(names), dates=kept_dates, y=np.ascontiguousarray(y), dropped=dropped)
+    prepared = Prepared(universe=universe.name, names=tuple(names), dates=kept_dates, y=np.ascontiguousarray(y), dropped=dropped)
+    days = transformed["row"].to_numpy()[first : last + 1].astype("datetime64[D]")
+    days.flags.writeable = False
+    prepared.__dict__["days"] = days  # the cached `days`, from the date column itself
+    return prepared
