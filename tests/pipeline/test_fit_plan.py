@@ -202,3 +202,21 @@ def test_frame_of_dates_equals_the_filtered_frame() -> None:
     for dates in ([], [p.dates[4]], [p.dates[0], p.dates[4], p.dates[-1], date(1999, 1, 1)], list(p.dates)):
         assert p.frame_of(dates).equals(p.frame.filter(pl.col("date").is_in(dates))), dates
     assert p.frame_of(None).equals(p.frame)
+
+
+def test_the_long_rows_are_the_wide_table_unpivoted_and_days_are_the_dates() -> None:
+    """`Prepared.frame` (built from numpy columns) equals its definition, the wide table of `y`
+    with NaN as null unpivoted series by series (the earlier construction, written out here), and
+    `days` equals `dates` whether set by `prepare_universe` or converted from the date objects."""
+    p = prepared(40, seed=5)
+    y = p.y.copy()
+    y[7, 0] = y[8, 1] = np.nan
+    p = dataclasses.replace(p, y=y)
+    wide = pl.DataFrame({"date": pl.Series(p.dates, dtype=pl.Date)})
+    for j, name in enumerate(p.names):
+        wide = wide.with_columns(pl.Series(name, y[:, j]).fill_nan(None))
+    want = wide.unpivot(index="date", variable_name="series", value_name="value").select(
+        "date", "series", pl.col("value").cast(pl.Float64)
+    )
+    assert p.frame.equals(want)
+    assert p.days.tolist() == list(p.dates) and p.days.dtype == np.dtype("datetime64[D]")

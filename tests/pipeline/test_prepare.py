@@ -40,6 +40,7 @@ def test_transforms_closed_forms() -> None:
     a = [100.0, 110.0, 99.0, 99.0, 120.0]
     b = [1.0, 1.5, 1.25, 2.0, 2.0]
     p = prepare_universe(obs({"A": list(zip(D[:5], a, strict=True)), "B": list(zip(D[:5], b, strict=True))}), universe())
+    assert p.days.tolist() == list(p.dates)  # set from the date column by prepare_universe
     assert p.dates == tuple(D[1:5])
     np.testing.assert_allclose(p.y[:, 0], np.diff(np.log(a)), rtol=0, atol=1e-15)
     np.testing.assert_allclose(p.y[:, 1], np.diff(b), rtol=0, atol=1e-15)
