@@ -743,7 +743,12 @@ def network_figure(
 def pairwise_compare_figure(
     first: np.ndarray, second: np.ndarray, names: Sequence[str], *, labels: tuple[str, str]
 ) -> Figure:
-    """Three heatmaps [target, source] in percent: first window, second window, second − first."""
+    """Three heatmaps [target, source] in percent: first window, second window, second − first.
+
+    A and B share one colour axis (``layout.coloraxis``: 0 to the larger of their maxima, one
+    colour bar between B and the change); the change has its own (``coloraxis2``, symmetric about
+    zero). Each colour bar costs the browser a drawn axis, so two identical bars were drawn once.
+    """
     diff = second - first
     lim = float(np.nanmax(np.abs(diff))) if np.isfinite(diff).any() else 1.0
     lim = lim or 1.0
@@ -753,17 +758,15 @@ def pairwise_compare_figure(
     data = []
     anns = []
     specs = (
-        (first, SEQUENTIAL, 0.0, top, axes["xaxis"]["domain"][1] + 0.005, ".1f", "%", f"A: {labels[0]}"),
-        (second, SEQUENTIAL, 0.0, top, axes["xaxis2"]["domain"][1] + 0.005, ".1f", "%", f"B: {labels[1]}"),
-        (diff, DIVERGING, -lim, lim, 1.005, "+.1f", "pp", "change B − A, pp"),
+        (first, "coloraxis", ".1f", f"A: {labels[0]}"),
+        (second, "coloraxis", ".1f", f"B: {labels[1]}"),
+        (diff, "coloraxis2", "+.1f", "change B − A, pp"),
     )
-    for col, (z, scale, zmin, zmax, cb_x, fmt, unit, label) in enumerate(specs):
+    for col, (z, colour_axis, fmt, label) in enumerate(specs):
         xr, yr = refs[0][col]
         data.append({
             "type": "heatmap", "z": th.matrix(z), "x": list(names), "y": list(names),
-            "zmin": zmin, "zmax": zmax, "colorscale": scale, "text": _heat_text(z, fmt),
-            "texttemplate": "%{text}", "colorbar": {"x": cb_x, "xanchor": "left", "len": 0.9, "thickness": 10,
-                                                    "title": {"text": unit}},
+            "coloraxis": colour_axis, "text": _heat_text(z, fmt), "texttemplate": "%{text}",
             "hovertemplate": "%{y} ← %{x}: %{z:.2f}<extra></extra>", "xaxis": xr, "yaxis": yr,
         })  # fmt: skip
         axes[th.axis_key(yr)].update(autorange="reversed")
@@ -772,10 +775,16 @@ def pairwise_compare_figure(
         anns.append(th.text(label, (dom[0] + dom[1]) / 2, 1.0, yanchor="bottom"))
     axes["yaxis"]["title"] = {"text": "receiving series (target)"}
     axes["xaxis2"]["title"] = {"text": "sending series (source)"}
+    bar = {"xanchor": "left", "len": 0.9, "thickness": 10}
     layout = th.layout(
         height=max(360, 160 + 45 * len(names)),
         title="Pairwise spillovers averaged over each date window (% of the target's forecast-error variance)",
-        annotations=anns, margin={"l": 60, "r": 20, "t": 80, "b": 40}, **axes,
+        annotations=anns, margin={"l": 60, "r": 20, "t": 80, "b": 40},
+        coloraxis={"cmin": 0.0, "cmax": top, "colorscale": SEQUENTIAL,
+                   "colorbar": {**bar, "x": axes["xaxis2"]["domain"][1] + 0.005, "title": {"text": "%"}}},
+        coloraxis2={"cmin": -lim, "cmax": lim, "colorscale": DIVERGING,
+                    "colorbar": {**bar, "x": 1.005, "title": {"text": "pp"}}},
+        **axes,
     )  # fmt: skip
     return {"data": data, "layout": layout}
 
