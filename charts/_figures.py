@@ -791,8 +791,9 @@ def pairwise_compare_figure(
     axes["yaxis"]["title"] = {"text": "receiving series (target)"}
     axes["xaxis2"]["title"] = {"text": "sending series (source)"}
     bar = {"xanchor": "left", "len": 0.9, "thickness": 10}
-    # margins that already hold what plotly's automargin would push them to (`PAIRS_PAD_LEFT`)
-    widest = max((th.text_px(str(x), th.FONT["size"]) for x in names), default=0.0)
+    # margins that already hold what plotly's automargin would push them to (`PAIRS_PAD_LEFT`); 12 px:
+    # the theme font (`th.FONT`), which the tick labels use
+    widest = max((th.text_px(str(x), 12) for x in names), default=0.0)
     margin = {"l": max(60, math.ceil(widest + PAIRS_PAD_LEFT)), "r": PAIRS_PAD_RIGHT, "t": 80,
               "b": max(40, math.ceil(widest * math.sin(math.radians(30)) + PAIRS_PAD_BOTTOM))}  # fmt: skip
     layout = th.layout(
