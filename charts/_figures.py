@@ -272,6 +272,17 @@ CELL_GAP_Y = 0.30
 CELL_FILL = "#f3f5f8"
 CELL_ZERO = "#9aa2ac"
 #: How a one-axis grid's scale reads, for its subtitle.
+#: Margins (px) beside the labels that plotly's automargin would add on its own: a chart asking
+#: for less is widened by automargin, and each widening redraws it whole (a first draw of the
+#: Compare windows heatmaps ran ~2× longer). Measured in chromium on the demo and on labels of 2
+#: to 24 characters: the heatmaps' left margin is the widest name + 34 px (the axis title and
+#: padding), their bottom is the half of it the −30° tick labels stand + 48 px (the axis title),
+#: their right margin the change's colour bar; a grid's left margin is its widest row name + 13 px.
+#: Two px more than measured, so a rounding never triggers a widening.
+PAIRS_PAD_LEFT = 36
+PAIRS_PAD_BOTTOM = 50
+PAIRS_PAD_RIGHT = 76
+CELL_PAD_LEFT = 15
 CELL_SCALE_NOTE = "each panel on its own scale: bottom…top edge printed above it; hover for values"
 
 
@@ -412,7 +423,11 @@ def _cell_layout(height: int, title: str, subtitle: str, axes: dict[str, Any],
                        annotations=anns, **axes)  # fmt: skip
     lines = layout["title"]["text"].count("<br>")  # beyond the first
     layout["title"].update(yref="container", y=1.0, yanchor="top", pad={"t": 14})
-    layout["margin"] = {"l": 20, "r": 20, "t": 14 + 22 + 19 * lines + 22, "b": 80}
+    # the row names' width, so that plotly's automargin has nothing to widen (`PAIRS_PAD_LEFT`)
+    rows = axes["yaxis"].get("ticktext") or []
+    widest = max((th.text_px(str(r), axes["yaxis"]["tickfont"]["size"]) for r in rows), default=0.0)
+    left = max(20, math.ceil(widest + CELL_PAD_LEFT))
+    layout["margin"] = {"l": left, "r": 20, "t": 14 + 22 + 19 * lines + 22, "b": 80}
     return layout
 
 
@@ -743,7 +758,12 @@ def network_figure(
 def pairwise_compare_figure(
     first: np.ndarray, second: np.ndarray, names: Sequence[str], *, labels: tuple[str, str]
 ) -> Figure:
-    """Three heatmaps [target, source] in percent: first window, second window, second − first."""
+    """Three heatmaps [target, source] in percent: first window, second window, second − first.
+
+    A and B share one colour axis (``layout.coloraxis``: 0 to the larger of their maxima, one
+    colour bar between B and the change); the change has its own (``coloraxis2``, symmetric about
+    zero). Each colour bar costs the browser a drawn axis, so two identical bars were drawn once.
+    """
     diff = second - first
     lim = float(np.nanmax(np.abs(diff))) if np.isfinite(diff).any() else 1.0
     lim = lim or 1.0
@@ -753,17 +773,15 @@ def pairwise_compare_figure(
     data = []
     anns = []
     specs = (
-        (first, SEQUENTIAL, 0.0, top, axes["xaxis"]["domain"][1] + 0.005, ".1f", "%", f"A: {labels[0]}"),
-        (second, SEQUENTIAL, 0.0, top, axes["xaxis2"]["domain"][1] + 0.005, ".1f", "%", f"B: {labels[1]}"),
-        (diff, DIVERGING, -lim, lim, 1.005, "+.1f", "pp", "change B − A, pp"),
+        (first, "coloraxis", ".1f", f"A: {labels[0]}"),
+        (second, "coloraxis", ".1f", f"B: {labels[1]}"),
+        (diff, "coloraxis2", "+.1f", "change B − A, pp"),
     )
-    for col, (z, scale, zmin, zmax, cb_x, fmt, unit, label) in enumerate(specs):
+    for col, (z, colour_axis, fmt, label) in enumerate(specs):
         xr, yr = refs[0][col]
         data.append({
             "type": "heatmap", "z": th.matrix(z), "x": list(names), "y": list(names),
-            "zmin": zmin, "zmax": zmax, "colorscale": scale, "text": _heat_text(z, fmt),
-            "texttemplate": "%{text}", "colorbar": {"x": cb_x, "xanchor": "left", "len": 0.9, "thickness": 10,
-                                                    "title": {"text": unit}},
+            "coloraxis": colour_axis, "text": _heat_text(z, fmt), "texttemplate": "%{text}",
             "hovertemplate": "%{y} ← %{x}: %{z:.2f}<extra></extra>", "xaxis": xr, "yaxis": yr,
         })  # fmt: skip
         axes[th.axis_key(yr)].update(autorange="reversed")
@@ -772,10 +790,21 @@ def pairwise_compare_figure(
         anns.append(th.text(label, (dom[0] + dom[1]) / 2, 1.0, yanchor="bottom"))
     axes["yaxis"]["title"] = {"text": "receiving series (target)"}
     axes["xaxis2"]["title"] = {"text": "sending series (source)"}
+    bar = {"xanchor": "left", "len": 0.9, "thickness": 10}
+    # margins that already hold what plotly's automargin would push them to (`PAIRS_PAD_LEFT`); 12 px:
+    # the theme font (`th.FONT`), which the tick labels use
+    widest = max((th.text_px(str(x), 12) for x in names), default=0.0)
+    margin = {"l": max(60, math.ceil(widest + PAIRS_PAD_LEFT)), "r": PAIRS_PAD_RIGHT, "t": 80,
+              "b": max(40, math.ceil(widest * math.sin(math.radians(30)) + PAIRS_PAD_BOTTOM))}  # fmt: skip
     layout = th.layout(
         height=max(360, 160 + 45 * len(names)),
         title="Pairwise spillovers averaged over each date window (% of the target's forecast-error variance)",
-        annotations=anns, margin={"l": 60, "r": 20, "t": 80, "b": 40}, **axes,
+        annotations=anns, margin=margin,
+        coloraxis={"cmin": 0.0, "cmax": top, "colorscale": SEQUENTIAL,
+                   "colorbar": {**bar, "x": axes["xaxis2"]["domain"][1] + 0.005, "title": {"text": "%"}}},
+        coloraxis2={"cmin": -lim, "cmax": lim, "colorscale": DIVERGING,
+                    "colorbar": {**bar, "x": 1.005, "title": {"text": "pp"}}},
+        **axes,
     )  # fmt: skip
     return {"data": data, "layout": layout}
 

@@ -67,6 +67,21 @@ PATTERNS = ("", "/", "\\", "x")
 #: One font stack for charts, the dashboard page and the report page (their CSS names it too).
 FONT_FAMILY = "DejaVu Sans, Helvetica, Arial, sans-serif"
 FONT = {"family": FONT_FAMILY, "size": 12, "color": INK}
+#: Advance width, in em, of each printable ASCII character in DejaVu Sans (the stack's first font),
+#: measured in chromium (canvas ``measureText`` at 100 px, rounded to 0.01 em). Other characters
+#: count as `WIDE_EM`, the widest here, so an estimate errs wide.
+CHAR_EM = dict(zip(
+    " !\"#$%&'()*+,-./0123456789:;<=>?@ABCDEFGHIJKLMNOPQRSTUVWXYZ[\\]^_`abcdefghijklmnopqrstuvwxyz{|}~",
+    (0.32, 0.4, 0.46, 0.84, 0.64, 0.95, 0.78, 0.27, 0.39, 0.39, 0.5, 0.84, 0.32, 0.36, 0.32, 0.34)
+    + (0.64,) * 10
+    + (0.34, 0.34, 0.84, 0.84, 0.84, 0.53, 1.0, 0.68, 0.69, 0.7, 0.77, 0.63, 0.58, 0.77, 0.75, 0.29, 0.29,
+       0.66, 0.56, 0.86, 0.75, 0.79, 0.6, 0.79, 0.69, 0.63, 0.61, 0.73, 0.68, 0.99, 0.69, 0.61, 0.69, 0.39,
+       0.34, 0.39, 0.84, 0.5, 0.5, 0.61, 0.63, 0.55, 0.63, 0.62, 0.35, 0.63, 0.63, 0.28, 0.28, 0.58, 0.28,
+       0.97, 0.63, 0.61, 0.63, 0.63, 0.41, 0.52, 0.39, 0.63, 0.59, 0.82, 0.59, 0.59, 0.52, 0.64, 0.34, 0.64,
+       0.84),
+    strict=True,
+))
+WIDE_EM = 1.0
 #: The mark beside a statistically significant value (Granger p-values), on screen and in print.
 SIGNIFICANCE_MARK = "★"
 
@@ -125,6 +140,13 @@ def wrap(text: str, width: int = 95, *, sep: str = "<br>") -> str:
                 line = f"{line} {w}" if line else w
         lines.append(line)
     return sep.join(lines)
+
+
+def text_px(label: str, size: float) -> float:
+    """Width in px of one line of `label` in the theme's font at `size` px (`CHAR_EM`): what a chart
+    reserves as margin for its labels, so that plotly's automargin finds nothing to widen — each
+    widening redraws the whole chart, and a first draw widened up to four times."""
+    return size * sum(CHAR_EM.get(c, WIDE_EM) for c in label)
 
 
 def axis(**extra: Any) -> dict[str, Any]:

@@ -304,23 +304,30 @@ def asks(values: dict[str, Any]) -> dict[str, list[Any]]:
     }  # fmt: skip
 
 
-#: In the browser, per tab: (window state, *input values, selected tab, the index chart's layout
-#: event, last ask) → the new ask ``[state, *values]``, or no update while the tab is not selected,
-#: nothing changed since the last ask, or the index chart (which comes with the page) has not been
-#: drawn yet — so the first chart is drawn before any tab's. A tab computes only when shown, and
-#: coming back to it unchanged costs no request.
+#: In the browser, for every tab at once (one callback, not one per tab: each clientside callback
+#: costs the page's renderer a pass over the callback graph, and a tab click ran a dozen of them
+#: before its request left): (window state, *every tab's input values, selected tab, the index
+#: chart's layout event, *every tab's last ask) → per tab (`VIEWS` order, the keys of the table
+#: ``{view: [position of each of its inputs among the arguments]}`` put in with ``%`` as JSON) its
+#: new ask ``[state, *its values]``, or no update while the tab is not selected, nothing changed
+#: since its last ask, or the index chart (which comes with the page) has not been drawn yet — so
+#: the first chart is drawn before any tab's. A tab computes only when shown, and coming back to it
+#: unchanged costs no request.
 ASK_JS = """function () {
+    const picks = %s;
+    const names = Object.keys(picks);
     const args = Array.prototype.slice.call(arguments);
-    const last = args.pop();
+    const lasts = args.splice(args.length - names.length, names.length);
     const drawn = args.pop();
     const tab = args.pop();
-    if (tab !== %s || drawn === null || drawn === undefined) {
-        return window.dash_clientside.no_update;
-    }
-    if (last !== null && last !== undefined && JSON.stringify(last) === JSON.stringify(args)) {
-        return window.dash_clientside.no_update;
-    }
-    return args;
+    const none = window.dash_clientside.no_update;
+    return names.map((name, k) => {
+        if (tab !== name || drawn === null || drawn === undefined) { return none; }
+        const ask = [args[0]].concat(picks[name].map(i => args[i]));
+        const last = lasts[k];
+        if (last !== null && last !== undefined && JSON.stringify(last) === JSON.stringify(ask)) { return none; }
+        return ask;
+    });
 }"""
 
 
@@ -426,6 +433,17 @@ def register(app: Any, snap: Snapshot, settings: Any = None, answers: Answers | 
                      json.dumps(PANEL_CLASSES[False])),
         [Output(ids.panel_id(v.name), "className") for v in tabbed], Input(ids.TABS, "value"),
     )  # fmt: skip
+    # every tab's ask from one clientside callback (`ASK_JS`); its arguments: the window state, each
+    # input any tab reads (once), the selected tab, the index chart's layout event, each tab's ask
+    shared = list(dict.fromkeys(cid for v in tabbed for cid in v.inputs))
+    picks = {v.name: [1 + shared.index(cid) for cid in v.inputs] for v in tabbed}
+    app.clientside_callback(
+        ASK_JS % json.dumps(picks),
+        [Output(ids.ask_id(v.name), "data") for v in tabbed],
+        [Input(ids.WINDOW, "data"), *(Input(cid, "value") for cid in shared), Input(ids.TABS, "value"),
+         Input(ids.INDEX_GRAPH, "relayoutData")],
+        [State(ids.ask_id(v.name), "data") for v in tabbed],
+    )  # fmt: skip
     for view in views.VIEWS:
         outputs = []
         for chart, _ in view.chart_list:
@@ -435,12 +453,7 @@ def register(app: Any, snap: Snapshot, settings: Any = None, answers: Answers | 
             outputs.append(Output(view.extra[0], "children"))
         inputs = [Input(ids.WINDOW, "data"), *(Input(cid, "value") for cid in view.inputs)]
         if view.tab is not None:
-            ask = ids.ask_id(view.name)
-            app.clientside_callback(
-                ASK_JS % json.dumps(view.name), Output(ask, "data"),
-                [*inputs, Input(ids.TABS, "value"), Input(ids.INDEX_GRAPH, "relayoutData")], State(ask, "data"),
-            )  # fmt: skip
-            inputs = [Input(ask, "data")]
+            inputs = [Input(ids.ask_id(view.name), "data")]
         # the view above the tabs comes with the page (`first_view`); a tab's view when asked
         app.callback(outputs, inputs, prevent_initial_call=view.tab is None)(_view_callback(snap, view, answers))
 

@@ -109,3 +109,52 @@ def test_compare_grid_overlays_both_windows_on_one_pair_of_axes() -> None:
         bottom, top = (float(v) for v in scales[k].replace("−", "-").split("…"))
         both = np.concatenate([a[:, i, j], b[:, i, j]])
         assert bottom <= both.min() and both.max() <= top
+
+
+def test_pairwise_compare_heatmaps_share_one_colour_bar_for_both_windows() -> None:
+    """Issue 15 (Compare windows): A and B were drawn with a colour bar each, the same bar twice
+    (same range, same scale), and each bar is a drawn axis. They now share one colour axis; the
+    change keeps its own symmetric one. The cells' values, texts and labels are unchanged."""
+    rng = np.random.default_rng(3)
+    a, b = rng.uniform(0, 60, size=(3, 3)), rng.uniform(0, 80, size=(3, 3))
+    b[0, 2] = np.nan  # a missing cell stays blank
+    fig = charts.pairwise_compare_figure(a, b, NAMES, labels=("2020 to 2021", "2022 to 2023"))
+    go.Figure(fig)
+    heat = fig["data"]
+    assert [t["type"] for t in heat] == ["heatmap"] * 3
+    assert [t["coloraxis"] for t in heat] == ["coloraxis", "coloraxis", "coloraxis2"]
+    assert not any(k in t for t in heat for k in ("colorbar", "colorscale", "zmin", "zmax", "showscale"))
+    bars = [k for k in fig["layout"] if k.startswith("coloraxis")]
+    assert sorted(bars) == ["coloraxis", "coloraxis2"]  # two colour bars drawn, not three
+    shared, change = fig["layout"]["coloraxis"], fig["layout"]["coloraxis2"]
+    assert shared["cmin"] == 0.0 and shared["cmax"] == np.nanmax(np.concatenate([a.ravel(), b.ravel()]))
+    lim = np.nanmax(np.abs(b - a))
+    assert change["cmin"] == -lim and change["cmax"] == lim
+    assert shared["colorbar"]["title"]["text"] == "%" and change["colorbar"]["title"]["text"] == "pp"
+    for trace, z, fmt in zip(heat, (a, b, b - a), (".1f", ".1f", "+.1f"), strict=True):
+        np.testing.assert_array_equal(np.array(trace["z"], dtype=float), z)
+        assert trace["text"] == [["" if not np.isfinite(v) else format(v, fmt) for v in row] for row in z]
+        assert trace["x"] == NAMES and trace["y"] == NAMES
+    titles = [ann["text"] for ann in fig["layout"]["annotations"]]
+    assert titles == ["A: 2020 to 2021", "B: 2022 to 2023", "change B − A, pp"]
+
+
+def test_heatmaps_and_grids_ask_for_margins_that_hold_their_labels() -> None:
+    """Issue 15: the Compare windows heatmaps asked for a 60 px left margin and the grids for 20 px
+    whatever the names; plotly's automargin then widened them while drawing, redrawing the chart
+    each time (tests/dashboard/test_browser.py checks the drawn margins in chromium). The margins
+    asked for now grow with the widest label, at the theme font's measured character widths."""
+    from charts import _theme as th
+
+    for names in (["a", "b", "c"], ["VLX_BROAD", "VCR_SPREAD", "FX_VLR"], ["WWWWWWWWWWWWWWWWWWWWWWWW", "x", "y"]):
+        n = len(names)
+        fig = charts.pairwise_compare_figure(np.ones((n, n)), np.ones((n, n)), names, labels=("a", "b"))
+        widest = max(th.text_px(x, 12) for x in names)
+        margin = fig["layout"]["margin"]
+        assert margin["l"] >= max(60, widest + 34) and margin["l"] <= max(60, widest + 34) + 3
+        assert margin["b"] >= max(40, widest / 2 + 48) and margin["b"] <= max(40, widest / 2 + 48) + 3
+        grid = charts.responses_compare_figure(np.zeros((5, n, n)), np.zeros((5, n, n)), names, labels=("A", "B"), title="t")
+        assert max(20, th.text_px(max(names, key=len), 11) + 13) <= grid["layout"]["margin"]["l"]
+        assert grid["layout"]["margin"]["l"] <= max(20, th.text_px(max(names, key=len), 11) + 13) + 3
+    # V C R _ S P R E A D in DejaVu Sans (em): the table's values, 12 px
+    np.testing.assert_allclose(th.text_px("VCR_SPREAD", 12), 12 * (0.68 + 0.7 + 0.69 + 0.5 + 0.63 + 0.6 + 0.69 + 0.63 + 0.68 + 0.77))

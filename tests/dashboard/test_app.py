@@ -409,3 +409,22 @@ def test_page_loads_the_cartesian_plotly_bundle_that_draws_every_chart(settings:
     source = "".join(p.read_text(encoding="utf-8") for p in Path(charts.__file__).parent.glob("*.py"))
     used = set(re.findall(r'"type":\s*"(\w+)"', source)) & trace_types
     assert {"scatter", "bar", "heatmap"} <= used <= registered, used - registered
+
+
+def test_every_tab_is_asked_by_one_clientside_callback(settings: DashboardSettings) -> None:
+    """Issue 15 (tab switch): a tab click ran one clientside callback per tab (a dozen) before the
+    shown tab's request left — each a pass of the page's renderer over the callback graph. One
+    callback now writes every tab's ask, and each tab's view reads only its own ask."""
+    from dashboard import views
+
+    app = create_app(settings)
+    tabbed = [v.name for v in views.VIEWS if v.tab is not None]
+    writers = [c for c in app._callback_list if "-ask.data" in c["output"]]
+    assert len(writers) == 1 and writers[0]["clientside_function"] is not None
+    assert writers[0]["output"] == ".." + "...".join(f"{name}-ask.data" for name in tabbed) + ".."
+    assert [s["id"] for s in writers[0]["state"]] == [f"{name}-ask" for name in tabbed]
+    inputs = [s["id"] for s in writers[0]["inputs"]]
+    assert len(inputs) == len(set(inputs))  # an input several tabs read is passed once
+    for name in tabbed:
+        (reader,) = [c for c in app._callback_list if any(s["id"] == f"{name}-ask" for s in c["inputs"])]
+        assert [s["id"] for s in reader["inputs"]] == [f"{name}-ask"] and reader["clientside_function"] is None

@@ -663,3 +663,22 @@ def test_first_load_draws_no_empty_chart_before_the_index_is_painted(page: Any, 
         assert not errors, errors
     finally:
         pg.close()
+
+
+@pytest.mark.parametrize(
+    ("label", "graphs"),
+    [("Compare windows", ("compare-pairs-graph", "compare-paths-graph")), ("Shock paths", ("paths-graph",))],
+)
+def test_grid_and_heatmap_margins_need_no_automargin_widening(page: Any, label: str, graphs: tuple[str, ...]) -> None:
+    """Issue 15 (Compare windows, first visit): the heatmaps asked for margins of 60/20/40 px and the
+    grids for 20 px on the left, narrower than their labels; plotly's automargin widened them as it
+    drew, and each widening redrew the whole chart (a first draw ran ~2× longer). The figures now
+    ask for margins that hold their labels (`charts._theme.text_px`): what is drawn is what was asked."""
+    for graph in graphs:
+        open_tab(page, label, graph)
+        asked, drawn = page.evaluate(
+            "id => { const gd = document.querySelector('#' + id + ' .js-plotly-plot');"
+            " return [gd.layout.margin, gd._fullLayout._size]; }",
+            graph,
+        )
+        assert {k: drawn[k] for k in "lrtb"} == {k: asked[k] for k in "lrtb"}, (graph, asked, drawn)
