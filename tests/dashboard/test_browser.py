@@ -510,13 +510,25 @@ def test_shock_path_hover_says_the_true_value(page: Any, snapshot_path: Path, un
 def test_network_spreads_nodes_and_labels(page: Any) -> None:
     """Issue 10.4: nodes use the plot's width and height; no two node labels overlap."""
     open_tab(page, "Spillover network", "network-graph")
-    area = page.evaluate(PANELS_JS, "network-graph")[0]
-    points = page.evaluate(BOXES_JS, ["network-graph", ".scatterlayer .trace:last-child .point"])
+    # the chart may still be laid out again after its first data (page reflow as other tabs'
+    # charts are drawn): measure nodes, labels and plot area together, once two reads agree
+    before = None
+    for _ in range(40):
+        now = (
+            page.evaluate(PANELS_JS, "network-graph"),
+            page.evaluate(BOXES_JS, ["network-graph", ".scatterlayer .trace:last-child .point"]),
+            page.evaluate(BOXES_JS, ["network-graph", ".scatterlayer .trace:last-child .textpoint text"]),
+        )
+        if now == before:
+            break
+        before = now
+        page.wait_for_timeout(250)
+    panels, points, labels = now
+    area = panels[0]
     xs = [(b["left"] + b["right"]) / 2 for b in points]
     ys = [(b["top"] + b["bottom"]) / 2 for b in points]
     assert (max(xs) - min(xs)) >= 0.6 * (area["right"] - area["left"])
     assert (max(ys) - min(ys)) >= 0.6 * (area["bottom"] - area["top"])
-    labels = page.evaluate(BOXES_JS, ["network-graph", ".scatterlayer .trace:last-child .textpoint text"])
     assert len(labels) == len(points)
     for i, a in enumerate(labels):
         for b in labels[i + 1:]:
