@@ -107,11 +107,12 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
+from scipy.linalg import solve_triangular
 from scipy.signal import lfilter
 
 from . import _rolling_kernels as K
 from ._decompose import spillover_measures
-from ._estimate import TREND_TERMS, fit_var
+from ._estimate import TREND_TERMS, _least_squares, fit_var
 from ._frequency import (
     DEFAULT_TRUNCATION,
     band_projection,
@@ -142,6 +143,9 @@ TVP_TRENDS = ("n", "c")
 #: Defaults of Antonakakis, Chatziantoniou & Gabauer (2020) (recalled from memory).
 DEFAULT_KAPPA1 = 0.99
 DEFAULT_KAPPA2 = 0.99
+#: Bound on b·max z'Vz of a block of the Kronecker filter (`filter_kronecker`): N's condition
+#: number stays below about 100·(1 + LEVERAGE_BUDGET).
+LEVERAGE_BUDGET = 256.0
 #: Working-memory budget per chunk of dates for the connectedness kernels (bytes).
 CHUNK_BYTES = 16 * 2**20
 
@@ -165,6 +169,10 @@ class TVPState:
     tail : (p, n) the last p rows of y, oldest first (the next row's regressors).
     row : number of rows of y consumed so far = the row index the next row will get.
     lags, trend, kappa1, kappa2, covariance, names : the filter's settings.
+    centre : (k,) μ (μ₀ = 0) or None. With it, `cov` is the V of the regressors taken about μ,
+        z − μ (the Kronecker filter with an intercept keeps its state so: μ is the lagged
+        regressors' mean over the training rows; `filter_kronecker`); None: `cov` is for z
+        itself (the full filter, no intercept, and states stored before there was a centre).
     """
 
     params: np.ndarray
@@ -178,6 +186,7 @@ class TVPState:
     kappa2: float
     covariance: str
     names: tuple[str, ...]
+    centre: np.ndarray | None = None
 
     def __repr__(self) -> str:
         return (
@@ -293,37 +302,86 @@ def regressors(y: np.ndarray, tail: np.ndarray, d: int) -> np.ndarray:
 
 
 def filter_kronecker(
-    Y: np.ndarray, Z: np.ndarray, B: np.ndarray, V: np.ndarray, S: np.ndarray, k1: float, k2: float
+    Y: np.ndarray, Z: np.ndarray, B: np.ndarray, V: np.ndarray, S: np.ndarray, k1: float, k2: float,
+    mu: np.ndarray,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Forgetting-factor RLS with P = Σ ⊗ V (module docstring). Returns the per-date paths
-    B (T, k, n), Σ (T, n, n), e (T, n) and the final B, V, Σ.
+    """Forgetting-factor RLS with P = Σ ⊗ V (module docstring), a block of dates at a time.
+    V (in and out) is the V of the regressors taken about mu (k,), mu₀ = 0 (zeros: of z itself);
+    B (in and out) is in the original coordinates. Returns the per-date paths B (T, k, n),
+    Σ (T, n, n), e (T, n) and the final B, V, Σ.
 
-    V is kept exactly symmetric (a symmetric start, and each update subtracts a scaled outer
-    product of one vector with itself). Σ_t = κ₂Σ_{t−1} + (1 − κ₂)ε_tε_t' does not feed back
-    into B or V, so it runs after the loop as one first-order recursion over all dates.
+    Block form (Woodbury). From B, V at the end of date t, the next b dates' regressors
+    Z (b, k) and errors against the block's starting coefficients Ê = Y − Z B:
+
+        N = diag(κ₁¹, …, κ₁ᵇ) + Z V Z' = L L'   (Cholesky),   Q = L^{-1} Z V,   F = L^{-1} Ê
+        B_{t+j} = B + Σ_{i≤j} q_i f_i',        V_{t+b} = (V − Q'Q) / κ₁ᵇ
+
+    (q_i, f_i the rows of Q, F). Date t+j's precision is κ₁ʲ V^{-1} + Σ_{i≤j} κ₁^{j−i} z_i z_i';
+    Woodbury turns its inverse times Z_j' into V Z_j' N_j^{-1} with N_j the leading j×j block of
+    N, whose Cholesky factor is the leading block of L — so every date of the block reads off
+    the one factorisation. Sequential RLS computes the same factorisation one row at a time;
+    here it is a few BLAS-3 products per block instead of a Python step per date. The
+    one-step errors are e_j = ê_j − Σ_{i<j} (z_j·q_i) f_i and the filtered residuals
+    ε_j = ê_j − Σ_{i≤j} (z_j·q_i) f_i (= e_j / (1 + z_j'V_{t+j|t+j−1}z_j)). The block length
+    keeps κ₁ᵇ ≥ 0.01 (at most 64 dates), so N's smallest eigenvalue stays ≥ 0.01, and its
+    largest, at most 1 + b·max_j z_j'Vz_j, within `LEVERAGE_BUDGET`: a block is shortened (down
+    to one date: then it is exactly the sequential RLS step) while the prior is weak against
+    single rows — a diffuse V = 1e8·I at the start, where one block over 64 rows would factor a
+    matrix with condition ~1e10 and lose 1e-6 in the coefficients.
+
+    Centring. With an intercept the filter runs in the coordinates of z̃ = T z, T = I − μ e₀'
+    (the lagged regressors less μ, the constant untouched): B̃ = T^{-T} B = B + e₀ μ'B, and
+    back B = T' B̃; V is kept in these coordinates throughout, in the state too (`TVPState`'s
+    `centre`). The same model, but Z V Z' and the updates no longer cancel digits against the
+    series' levels: for levels near 1e5 moving by 0.01, the filter in z itself lost all
+    accuracy in the coefficients (total connectedness off by 2.8 points; tested), and so would
+    any conversion of V between the two coordinates — so V is never converted.
+
+    Σ_t = κ₂Σ_{t−1} + (1 − κ₂)ε_tε_t' does not feed back into B or V; it runs after the blocks
+    as one first-order recursion over all dates (`ewma`).
     """
     T, n = Y.shape
     k = Z.shape[1]
+    Vc = 0.5 * (V + V.T)
+    Bc = B.copy()
+    Bc[0] += mu @ B  # B̃ = T^{-T} B = B + e₀ (μ'B)  (μ₀ = 0; a no-op for μ = 0)
+    Zc = Z - mu
     B_out = np.empty((T, k, n))
     e_out = np.empty((T, n))
     eps = np.empty((T, n))
-    B = B.copy()
-    V = 0.5 * (V + V.T)
-    inv_k1 = 1.0 / k1
-    for t in range(T):
-        z = Z[t]
-        Vz = V @ z  # κ₁ V_{t|t−1} z_t
-        s = 1.0 + float(z @ Vz) * inv_k1  # 1 + z'V_{t|t−1}z
-        c = inv_k1 / s
-        e = Y[t] - z @ B  # e_t = y_t − B_{t−1}'z_t
-        B += (Vz * c)[:, None] * e  # B_t = B_{t−1} + g_t e_t',  g_t = V_{t|t−1}z / s
-        V -= (Vz[:, None] * Vz) * c  # V_{t|t−1} − g_t z'V_{t|t−1} (in place: the same products)
-        V *= inv_k1
-        B_out[t] = B
-        e_out[t] = e
-        eps[t] = e / s  # ε_t = y_t − B_t'z_t = e_t (1 − z'g_t)
+    size = 64 if k1 >= 1.0 else int(min(64, max(1, math.log(0.01) / math.log(k1))))
+    decay = k1 ** np.arange(1, size + 1)
+    lo = 0
+    while lo < T:
+        hi = min(lo + size, T)
+        z = Zc[lo:hi]
+        ZV = z @ Vc
+        lev = np.einsum("ij,ij->i", ZV, z)  # z_j'Vz_j: N's diagonal less the decay
+        top = float(lev.max())
+        if top * (hi - lo) > LEVERAGE_BUDGET:  # a weak prior: shorter blocks (module docstring)
+            hi = lo + max(1, int(LEVERAGE_BUDGET / top))
+            z, ZV = z[: hi - lo], ZV[: hi - lo]
+        N = ZV @ z.T
+        N.flat[:: hi - lo + 1] += decay[: hi - lo]
+        L = np.linalg.cholesky(N)
+        E = Y[lo:hi] - z @ Bc
+        QF = solve_triangular(L, np.concatenate([ZV, E], axis=1), lower=True, check_finite=False)
+        Q, F = QF[:, :k], QF[:, k:]
+        W = z @ Q.T  # W[j, i] = z_j·q_i
+        eps[lo:hi] = E - np.tril(W) @ F
+        e_out[lo:hi] = E - np.tril(W, -1) @ F
+        path = np.cumsum(Q[:, :, None] * F[:, None, :], axis=0)
+        path += Bc
+        B_out[lo:hi] = path
+        Bc = path[-1]
+        Vc = (Vc - Q.T @ Q) / decay[hi - lo - 1]
+        Vc = 0.5 * (Vc + Vc.T)
+        lo = hi
+    if np.any(mu):
+        B_out[:, 0] -= np.einsum("k,tkn->tn", mu, B_out)  # B = T' B̃: row 0 − μ'B̃
     S_out = ewma(eps, S, k2)
-    return B_out, S_out, e_out, B, V, S_out[-1].copy()
+    B_end = B_out[-1].copy() if T else B.copy()
+    return B_out, S_out, e_out, B_end, Vc, (S_out[-1].copy() if T else S.copy())
 
 
 def ewma(eps: np.ndarray, S0: np.ndarray, k2: float) -> np.ndarray:
@@ -372,9 +430,6 @@ def filter_full(
         S_out[t] = S
         e_out[t] = e
     return B_out, S_out, e_out, beta.reshape(n, k).T.copy(), P, S
-
-
-FILTERS = {"kronecker": filter_kronecker, "full": filter_full}
 
 
 # ---------------------------------------------------------------------------------------------
@@ -487,6 +542,17 @@ def _check_state(state: TVPState) -> None:
                 "returned unchanged"
             )
             raise InvalidInputError(msg)
+    if state.centre is not None:
+        mu = np.asarray(state.centre)
+        if state.covariance != "kronecker" or mu.shape != (k,) or not np.isfinite(mu).all() or (
+            state.trend == "c" and mu[0] != 0.0
+        ):
+            msg = (
+                f"`state`.centre must be None or a finite ({k},) vector with a 0 for the "
+                f"constant, and only with covariance='kronecker' (got shape {mu.shape}, "
+                f"covariance={state.covariance!r}); pass the state a TimeVaryingVAR returned unchanged"
+            )
+            raise InvalidInputError(msg)
     _check_kappa(state.kappa1, "kappa1", DEFAULT_KAPPA1)
     _check_kappa(state.kappa2, "kappa2", DEFAULT_KAPPA2)
 
@@ -592,6 +658,7 @@ def tvp_var(
         p, trend_, cov_kind = state.lags, state.trend, state.covariance
         k1, k2 = state.kappa1, state.kappa2
         B0, C0, S0, tail = state.params, state.cov, state.sigma, state.tail
+        centre = state.centre
         first_row, Y = state.row, data
         train = None
     else:
@@ -639,13 +706,24 @@ def tvp_var(
                 raise InvalidInputError(msg) from exc
         B0, S0 = np.asarray(prior.params), np.asarray(prior.sigma_u)
         V0 = np.asarray(prior.gram_inv)
+        centre = None
+        if cov_kind == "kronecker" and d:  # V0 about the training regressors' mean (filter_kronecker)
+            Z0 = regressors(data[p:train], data[:p], d)
+            centre = np.zeros(k)
+            centre[d:] = Z0[:, d:].mean(axis=0)
+            V0 = _least_squares(Z0 - centre, data[p:train], prior.regressor_names, "y")[1]
         C0 = V0 if cov_kind == "kronecker" else np.kron(S0, V0)  # Cov(vec B̂) = Σ̂ ⊗ (Z'Z)^{-1}
         tail = data[first - p : first]
         first_row, Y = first, data[first:]
     n = len(labels)
     d = len(TREND_TERMS[trend_])
     Z = regressors(Y, tail, d)
-    B_path, S_path, e_path, B_end, C_end, S_end = FILTERS[cov_kind](Y, Z, B0, C0, S0, k1, k2)
+    if cov_kind == "kronecker":
+        mu = np.zeros(Z.shape[1]) if centre is None else np.asarray(centre, dtype=np.float64)
+        paths = filter_kronecker(Y, Z, B0, C0, S0, k1, k2, mu)
+    else:
+        paths = filter_full(Y, Z, B0, C0, S0, k1, k2)
+    B_path, S_path, e_path, B_end, C_end, S_end = paths
     D = Y.shape[0]
     coefs = B_path[:, d:, :].reshape(D, p, n, n).transpose(0, 1, 3, 2).copy()
     intercept = B_path[:, 0, :].copy() if d else None
@@ -656,8 +734,9 @@ def tvp_var(
     new_state = TVPState(
         params=B_end, cov=C_end, sigma=S_end, tail=new_tail, row=first_row + D, lags=p,
         trend=trend_, kappa1=k1, kappa2=k2, covariance=cov_kind, names=labels,
+        centre=None if centre is None else np.array(centre, dtype=np.float64),
     )  # fmt: skip
-    readonly(B_end, C_end, S_end, new_tail)
+    readonly(B_end, C_end, S_end, new_tail, new_state.centre)
     bandm: dict[str, np.ndarray | None] = dict.fromkeys(
         ("band_share", "total", "to_others", "from_others", "net", "within_total")
     )

@@ -786,6 +786,8 @@ def tvp_tables(
                 "covariance": [st.covariance], "names": pl.Series([list(st.names)], dtype=pl.List(pl.String)),
                 "params": list_column(np.asarray(st.params)[None]), "cov": list_column(np.asarray(st.cov)[None]),
                 "sigma": list_column(np.asarray(st.sigma)[None]), "tail": list_column(np.asarray(st.tail)[None]),
+                "centre": list_column(np.asarray(st.centre)[None]) if st.centre is not None
+                else pl.Series([None], dtype=pl.List(pl.Float64)),
             }
         )  # fmt: skip
     return tables
@@ -806,5 +808,6 @@ def stored_filter(row: dict[str, Any]) -> StoredFilter:
         tail=np.asarray(row["tail"], dtype=np.float64).reshape(p, n),
         row=int(row["row"]), lags=p, trend=str(row["trend"]), kappa1=float(row["kappa1"]),
         kappa2=float(row["kappa2"]), covariance=str(row["covariance"]), names=names,
+        centre=None if row.get("centre") is None else np.asarray(row["centre"], dtype=np.float64).reshape(k),
     )  # fmt: skip
     return StoredFilter(state=state, last=row["window_end"], first=row["window_start"])

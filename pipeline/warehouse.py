@@ -125,6 +125,14 @@ def _schema_current(con: duckdb.DuckDBPyConnection) -> bool:
         }
         if not set(TABLES) <= tables:
             return False
+        widths = dict(
+            con.execute(
+                "SELECT table_name, count(*) FROM duckdb_columns() "
+                "WHERE database_name = current_database() AND schema_name = 'main' GROUP BY table_name"
+            ).fetchall()
+        )
+        if any(widths.get(name) != len(schema.columns(name)) for name in TABLES):
+            return False  # a column added since the file was made (`_add_columns`)
         views = dict(
             con.execute(
                 "SELECT view_name, comment FROM duckdb_views() "
@@ -150,6 +158,7 @@ def ensure_schema(con: duckdb.DuckDBPyConnection, *, path: str | Path = "?") -> 
         con.execute("BEGIN TRANSACTION")
         for name, columns in TABLES.items():
             con.execute(f"CREATE TABLE IF NOT EXISTS {name} ({columns})")
+        _add_columns(con)
         create_views(con)
         row = con.execute("SELECT max(version) FROM schema_version").fetchone()
         found = row[0] if row else None
@@ -166,6 +175,25 @@ def ensure_schema(con: duckdb.DuckDBPyConnection, *, path: str | Path = "?") -> 
     except duckdb.Error as exc:
         _rollback(con)
         raise from_duckdb(exc, path=path, action="creating the schema") from None
+
+
+def _add_columns(con: duckdb.DuckDBPyConnection) -> None:
+    """Add the declared columns an existing table lacks. Such columns are declared last and
+    nullable (a later addition to a table, e.g. `tvp_state.centre`), so rows already stored keep
+    their values, get NULL in the new column, and the physical order stays the declared one."""
+    have: dict[str, set[str]] = {}
+    for table, column in con.execute(
+        "SELECT table_name, column_name FROM duckdb_columns() "
+        "WHERE database_name = current_database() AND schema_name = 'main'"
+    ).fetchall():
+        have.setdefault(table, set()).add(column)
+    for t in schema.SCHEMA:
+        for c in t.columns:
+            if c.name not in have.get(t.name, {c.name}):
+                if c.not_null:
+                    msg = f"table {t.name!r} lacks NOT NULL column {c.name!r}; declare added columns nullable"
+                    raise AssertionError(msg)
+                con.execute(f"ALTER TABLE {t.name} ADD COLUMN {c.sql()}")
 
 
 def _rollback(con: duckdb.DuckDBPyConnection) -> None:

@@ -316,6 +316,7 @@ SCHEMA: tuple[Table, ...] = (
         _arr("cov", ("m", "m"), nn=True, note="V_t (m = k, `kronecker`) or P_t (m = n·k, `full`)"),
         _arr("sigma", ("n", "n"), nn=True, note="Σ_t"),
         _arr("tail", ("p", "n"), nn=True, note="the last p rows"),
+        _arr("centre", ("k",), note="μ (0 for the constant): `cov` is the V of the regressors less μ; NULL: of the regressors themselves (arlib.TVPState.centre; a column added after the table, so last)"),
     ), served=False, note="the TVP filter after `window_end` (arlib.TVPState), which the next run continues"),
     Table("prepared_writes", "run × universe × date", "log", (
         _c("run_id", "VARCHAR", nn=True, note="(the run that wrote the universe's prepared rows)"), _c("universe", "VARCHAR", nn=True),

@@ -192,6 +192,7 @@ def test_tvp_results_are_arlibs_filter_stored_per_date(tmp_path: Path) -> None:
     (state,) = got["tvp_state"].iter_rows(named=True)
     assert state["window_end"] == dates[-1] and state["row"] == len(dates)
     np.testing.assert_allclose(np.reshape(state["cov"], (7, 7)), ref.state.cov, rtol=1e-10, atol=0)
+    np.testing.assert_array_equal(state["centre"], ref.state.centre)  # V's coordinates travel with it
     # no Granger tests, stored responses or decompositions for a filtered date
     con = wh.connect(cfg.warehouse.path)
     try:

@@ -9,6 +9,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 
 import duckdb
+import numpy as np
 import pytest
 
 import serving
@@ -39,6 +40,37 @@ def _columns(con: duckdb.DuckDBPyConnection, table: str) -> list[tuple[str, str,
             [table],
         ).fetchall()
     ]
+
+
+def test_a_stored_filter_from_before_the_centre_column_keeps_its_row_and_continues(tmp_path: Path) -> None:
+    """`tvp_state.centre` was added after the table: an existing file gains it (NULL for the
+    stored row, read back as a state in the regressors' own coordinates) without losing a value."""
+    path = tmp_path / "old.duckdb"
+    con = wh.connect(path)
+    con.execute("ALTER TABLE tvp_state DROP COLUMN centre")  # the table as it was first shipped
+    con.execute(
+        "INSERT INTO tvp_state VALUES ('run-1', 'u', DATE '2024-03-01', DATE '2024-01-02', 60, 1, 'c', 0.99, "
+        "0.98, 'kronecker', ['a', 'b'], [0.1, 0.2, 0.5, 0.1, 0.0, 0.3], [1, 0, 0, 0, 1, 0, 0, 0, 1], "
+        "[1, 0.2, 0.2, 1], [0.5, -0.5])"
+    )
+    con.close()
+    con = wh.connect(path)
+    try:
+        assert wh._schema_current(con)
+        assert [c[0] for c in _columns(con, "tvp_state")][-1] == "centre"
+        (row,) = wh.query(con, "SELECT * FROM tvp_state").iter_rows(named=True)
+        assert row["row"] == 60 and row["centre"] is None and row["tail"] == [0.5, -0.5]
+    finally:
+        con.close()
+    from pipeline.fit import stored_filter
+
+    state = stored_filter(row).state
+    assert state.centre is None and state.cov.shape == (3, 3)
+    # an old state continues, in the coordinates it was stored in
+    import arlib
+
+    res = arlib.tvp_var(np.array([[0.1, 0.2], [0.0, -0.1]]), horizon=3, state=state)
+    assert res.ends.tolist() == [60, 61] and res.state.centre is None
 
 
 def test_warehouse_tables_are_the_declarations(tmp_path: Path) -> None:
