@@ -47,6 +47,9 @@ stays Kronecker:
 
 — recursive least squares with exponential forgetting in each equation, O(k² + k·n) per date
 (n = 30 and 6,000 dates take a fraction of a second), and Σ_t follows the same κ₂ recursion.
+`filter_kronecker` runs it a block of up to 64 dates at a time (one Cholesky factor per block
+gives every date of it) and, with an intercept, about the training regressors' mean, so series
+held as levels far from zero keep their digits (its docstring has both).
 Equivalently B_t minimises Σ_s κ₁^{t−s} ‖y_s − B'z_s‖² + κ₁^{t−t₀} tr((B − B₀)' V₀^{-1} (B − B₀)).
 What the choice implies: the coefficient path does not depend on κ₂ (Σ_t only feeds the
 connectedness), and cross-equation GLS weighting by the time-varying Σ_{t|t−1} is dropped. The
@@ -70,8 +73,9 @@ the paper here; the training length is ours, see above).
 Continuing
 ----------
 The result carries the filter state after its last row (`TVPState`: B, V or P, Σ, the last p
-rows and the settings); ``tvp_var(new_rows, state=result.state)`` continues exactly where the
-filter stopped — the same operations in the same order as one run over all rows.
+rows, the centre V is kept about, and the settings); ``tvp_var(new_rows, state=result.state)``
+continues where the filter stopped — the same recursion, with block boundaries that may fall
+elsewhere than in one run over all rows (equal to it to about 1e-13; tested to 1e-10).
 
 Connectedness per date
 ----------------------
