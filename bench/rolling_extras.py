@@ -16,30 +16,30 @@ import arlib
 from . import environment_line, print_table
 from .rolling import matmul_rate, scenario
 
+N, P, T, WINDOW, H, TRUNCATION = 12, 2, 6000, 250, 10, 100
 BANDS = [(1.0, 5.0), (5.0, 20.0), (20.0, float("inf"))]
 VARIANTS = {
     "plain (classic outputs)": {},
-    "+ bands (truncation 100)": {"frequency_bands": BANDS, "band_truncation": 100},
+    "+ bands (truncation 100)": {"frequency_bands": BANDS, "band_truncation": TRUNCATION},
     "+ joint": {"joint": True},
-    "+ bands + joint": {"frequency_bands": BANDS, "band_truncation": 100, "joint": True},
+    "+ bands + joint": {"frequency_bands": BANDS, "band_truncation": TRUNCATION, "joint": True},
 }
 
 
 def main(repeat: int = 5) -> None:
-    y = scenario(12, 2, 6000)
+    y = scenario(N, P, T)
     best = {k: (float("inf"), float("inf")) for k in VARIANTS}
     for _ in range(repeat):  # interleaved: each round runs every variant once
         for name, extra in VARIANTS.items():
             c0, t0 = time.process_time(), time.perf_counter()
-            arlib.rolling_var(y, 250, 2, 10, **extra)  # type: ignore[arg-type]  # kwargs by variant
+            arlib.rolling_var(y, WINDOW, P, H, **extra)  # type: ignore[arg-type]  # kwargs by variant
             wall, cpu = time.perf_counter() - t0, time.process_time() - c0
             if wall < best[name][0]:
                 best[name] = (wall, cpu)
     base = best["plain (classic outputs)"][0]
     rows = [[k, f"{w:.3f}", f"{c:.3f}", f"{w / base:.2f}×", f"{100 * (w / base - 1):+.0f}%"]
             for k, (w, c) in best.items()]
-    windows = 6000 - 250 + 1
-    floor = extras_floor(12, 2, 100, windows)
+    floor = extras_floor(N, P, TRUNCATION, T - WINDOW + 1)
     rate, _ = matmul_rate()
     budget = 0.3 * base
     print_table(

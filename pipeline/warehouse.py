@@ -125,13 +125,8 @@ def _schema_current(con: duckdb.DuckDBPyConnection) -> bool:
         }
         if not set(TABLES) <= tables:
             return False
-        widths = dict(
-            con.execute(
-                "SELECT table_name, count(*) FROM duckdb_columns() "
-                "WHERE database_name = current_database() AND schema_name = 'main' GROUP BY table_name"
-            ).fetchall()
-        )
-        if any(widths.get(name) != len(schema.columns(name)) for name in TABLES):
+        have = _table_columns(con)
+        if any(not set(schema.columns(name)) <= have.get(name, set()) for name in TABLES):
             return False  # a column added since the file was made (`_add_columns`)
         views = dict(
             con.execute(
@@ -158,7 +153,7 @@ def ensure_schema(con: duckdb.DuckDBPyConnection, *, path: str | Path = "?") -> 
         con.execute("BEGIN TRANSACTION")
         for name, columns in TABLES.items():
             con.execute(f"CREATE TABLE IF NOT EXISTS {name} ({columns})")
-        _add_columns(con)
+        _add_columns(con, _table_columns(con))
         create_views(con)
         row = con.execute("SELECT max(version) FROM schema_version").fetchone()
         found = row[0] if row else None
@@ -177,16 +172,22 @@ def ensure_schema(con: duckdb.DuckDBPyConnection, *, path: str | Path = "?") -> 
         raise from_duckdb(exc, path=path, action="creating the schema") from None
 
 
-def _add_columns(con: duckdb.DuckDBPyConnection) -> None:
-    """Add the declared columns an existing table lacks. Such columns are declared last and
-    nullable (a later addition to a table, e.g. `tvp_state.centre`), so rows already stored keep
-    their values, get NULL in the new column, and the physical order stays the declared one."""
+def _table_columns(con: duckdb.DuckDBPyConnection) -> dict[str, set[str]]:
+    """Table name → its column names, for the tables of this database's main schema."""
     have: dict[str, set[str]] = {}
     for table, column in con.execute(
         "SELECT table_name, column_name FROM duckdb_columns() "
         "WHERE database_name = current_database() AND schema_name = 'main'"
     ).fetchall():
         have.setdefault(table, set()).add(column)
+    return have
+
+
+def _add_columns(con: duckdb.DuckDBPyConnection, have: Mapping[str, set[str]]) -> None:
+    """Add the declared columns an existing table lacks (`have`: `_table_columns`). Such columns
+    are declared last and nullable (a later addition to a table, e.g. `tvp_state.centre`), so rows
+    already stored keep their values, get NULL in the new column, and the physical order stays
+    the declared one."""
     for t in schema.SCHEMA:
         for c in t.columns:
             if c.name not in have.get(t.name, {c.name}):

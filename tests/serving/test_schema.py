@@ -12,8 +12,10 @@ import duckdb
 import numpy as np
 import pytest
 
+import arlib
 import serving
 from pipeline import warehouse as wh
+from pipeline.fit import stored_filter
 from pipeline.publish import publish_snapshot
 from serving import SCHEMA, SNAPSHOT_TABLES, VIEWS, update_doc
 from serving._doc import views_markdown
@@ -62,13 +64,9 @@ def test_a_stored_filter_from_before_the_centre_column_keeps_its_row_and_continu
         assert row["row"] == 60 and row["centre"] is None and row["tail"] == [0.5, -0.5]
     finally:
         con.close()
-    from pipeline.fit import stored_filter
-
     state = stored_filter(row).state
     assert state.centre is None and state.cov.shape == (3, 3)
     # an old state continues, in the coordinates it was stored in
-    import arlib
-
     res = arlib.tvp_var(np.array([[0.1, 0.2], [0.0, -0.1]]), horizon=3, state=state)
     assert res.ends.tolist() == [60, 61] and res.state.centre is None
 
