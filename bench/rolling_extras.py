@@ -49,7 +49,7 @@ def main(repeat: int = 5) -> None:
         rows,
         [environment_line(), f"best of {repeat}, interleaved; target: + bands + joint adds ≤ 30%",
          "arithmetic floor of what bands + joint add (flops at the measured dgemm rate "
-         f"{rate / 1e9:.1f} GFLOP/s, one thread): "
+         f"{rate / 1e9:.1f} GFLOP/s with the BLAS threads above): "
          + ", ".join(f"{k} {v / rate:.3f} s" for k, v in floor.items())
          + f"; together {sum(floor.values()) / rate:.3f} s against a 30% budget of {budget:.3f} s "
          f"(floor alone: +{100 * sum(floor.values()) / rate / base:.0f}%)",
